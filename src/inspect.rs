@@ -1,0 +1,182 @@
+//! `fringeflow inspect`: what a capture holds and what is wrong with it,
+//! before anything is processed.
+//!
+//! Lists every dataset with its shape, type and value range (read in slices
+//! along the first axis, never whole), then the problems found: NaN or
+//! infinite samples, saturated fringes, a wavelength map that is not
+//! monotonic or does not match the pixels, and anything else the capture
+//! reader would refuse.
+
+use anyhow::Result;
+use hdf5::types::TypeDescriptor;
+use std::fmt::Write as _;
+use std::path::Path;
+
+use crate::io::capture::{check_wavelength_map, open_hdf5, Capture};
+use crate::pipeline::config::InputConfig;
+
+/// Statistics of one dataset.
+#[derive(Debug, Clone)]
+pub struct DatasetStats {
+    pub name: String,
+    pub shape: Vec<usize>,
+    pub dtype: String,
+    pub min: f64,
+    pub max: f64,
+    pub non_finite: u64,
+    pub at_full_scale: Option<(u64, f64)>,
+}
+
+/// The result of inspecting a capture.
+#[derive(Debug, Clone)]
+pub struct Inspection {
+    pub datasets: Vec<DatasetStats>,
+    pub problems: Vec<String>,
+}
+
+fn dtype_name(d: &TypeDescriptor) -> String {
+    use hdf5::types::{FloatSize, IntSize};
+    let size = |s: &IntSize| *s as usize * 8;
+    match d {
+        TypeDescriptor::Unsigned(s) => format!("u{}", size(s)),
+        TypeDescriptor::Integer(s) => format!("i{}", size(s)),
+        TypeDescriptor::Float(FloatSize::U4) => "f32".into(),
+        TypeDescriptor::Float(FloatSize::U8) => "f64".into(),
+        other => format!("{other:?}"),
+    }
+}
+
+fn is_numeric(d: &TypeDescriptor) -> bool {
+    matches!(d, TypeDescriptor::Unsigned(_) | TypeDescriptor::Integer(_) | TypeDescriptor::Float(_))
+}
+
+fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hdf5::Dataset)>) -> Result<()> {
+    for name in group.member_names()? {
+        let path = format!("{prefix}/{name}");
+        if let Ok(ds) = group.dataset(&name) {
+            out.push((path, ds));
+        } else if let Ok(g) = group.group(&name) {
+            collect_datasets(&g, &path, out)?;
+        }
+    }
+    Ok(())
+}
+
+fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
+    let shape = ds.shape();
+    let descriptor = ds.dtype()?.to_descriptor()?;
+    let mut st = DatasetStats {
+        name: name.to_string(),
+        shape: shape.clone(),
+        dtype: dtype_name(&descriptor),
+        min: f64::INFINITY,
+        max: f64::NEG_INFINITY,
+        non_finite: 0,
+        at_full_scale: None,
+    };
+    if !is_numeric(&descriptor) {
+        return Ok(st);
+    }
+    let full_scale = ds.attr("full_scale").ok().and_then(|a| a.read_scalar::<f64>().ok());
+    let mut saturated = 0u64;
+    let mut visit = |v: f64| {
+        if v.is_finite() {
+            st.min = st.min.min(v);
+            st.max = st.max.max(v);
+        } else {
+            st.non_finite += 1;
+        }
+        if full_scale.is_some_and(|fs| v >= fs) {
+            saturated += 1;
+        }
+    };
+    if shape.is_empty() {
+        visit(ds.read_scalar::<f64>()?);
+    } else {
+        let row: usize = shape[1..].iter().product::<usize>().max(1);
+        let step = ((1usize << 21) / row).max(1);
+        let mut start = 0;
+        while start < shape[0] {
+            let end = (start + step).min(shape[0]);
+            let part = ds.read_slice::<f64, _, ndarray::IxDyn>(hdf5::Hyperslab::from(
+                std::iter::once(hdf5::SliceOrIndex::SliceCount { start, step: 1, count: end - start, block: 1 })
+                    .chain(shape[1..].iter().map(|&n| hdf5::SliceOrIndex::SliceCount { start: 0, step: 1, count: n, block: 1 }))
+                    .collect::<Vec<_>>(),
+            ))?;
+            part.iter().for_each(|&v| visit(v));
+            start = end;
+        }
+    }
+    st.at_full_scale = full_scale.map(|fs| (saturated, fs));
+    Ok(st)
+}
+
+/// Inspects a capture; dataset paths come from `input`.
+pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
+    let file = open_hdf5(path)?;
+    let mut sets = Vec::new();
+    collect_datasets(&file, "", &mut sets)?;
+    let mut datasets = Vec::new();
+    let mut problems = Vec::new();
+    for (name, ds) in &sets {
+        let st = stats(name, ds)?;
+        if st.non_finite > 0 {
+            problems.push(format!("{name}: {} NaN or infinite values", st.non_finite));
+        }
+        if let Some((n, fs)) = st.at_full_scale {
+            if n > 0 {
+                problems.push(format!("{name}: {n} samples at or above full scale {fs} (saturated)"));
+            }
+        }
+        if name == &input.wavelength && st.shape.len() == 1 {
+            let map: Vec<f64> = ds.read_raw::<f64>()?;
+            if let Err(e) = check_wavelength_map(&map, map.len(), &format!("'{name}'")) {
+                problems.push(e.to_string());
+            }
+        }
+        datasets.push(st);
+    }
+    if let Err(e) = Capture::open(path, input) {
+        let msg = e.to_string();
+        if !problems.iter().any(|p| p == &msg) {
+            problems.push(msg);
+        }
+    }
+    Ok(Inspection { datasets, problems })
+}
+
+impl Inspection {
+    pub fn render(&self, path: &Path) -> String {
+        let mut s = String::new();
+        let _ = writeln!(s, "capture {}", path.display());
+        let width = self.datasets.iter().map(|d| d.name.len()).max().unwrap_or(4);
+        for d in &self.datasets {
+            let shape = format!("{:?}", d.shape);
+            let _ = write!(s, "  {:<width$}  {:<4} {:<18}", d.name, d.dtype, shape);
+            if d.min <= d.max {
+                let _ = write!(s, " min {:<12} max {:<12}", fmt_num(d.min), fmt_num(d.max));
+            }
+            if let Some((n, fs)) = d.at_full_scale {
+                let _ = write!(s, " full scale {} ({} saturated)", fmt_num(fs), n);
+            }
+            let _ = writeln!(s);
+        }
+        if self.problems.is_empty() {
+            let _ = writeln!(s, "problems: none");
+        } else {
+            let _ = writeln!(s, "problems:");
+            for p in &self.problems {
+                let _ = writeln!(s, "  - {p}");
+            }
+        }
+        s
+    }
+}
+
+fn fmt_num(v: f64) -> String {
+    if v.fract() == 0.0 && v.abs() < 1e12 {
+        format!("{v:.0}")
+    } else {
+        format!("{v:.4}")
+    }
+}

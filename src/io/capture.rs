@@ -1,0 +1,310 @@
+//! Reading captures: the HDF5 fringe dataset, the wavelength map and the
+//! background spectra, with every check a capture must pass before any
+//! processing starts (see docs/capture-format.md).
+//!
+//! Frames are read one at a time as hyperslabs; the whole dataset is never
+//! loaded. The file is opened read-only. Not for: writing (see `volume`).
+
+use anyhow::{anyhow, bail, Context, Result};
+use hdf5::types::{FloatSize, IntSize, TypeDescriptor};
+use hdf5::{Dataset, Hyperslab, SliceOrIndex};
+use ndarray::{Array2, ArrayD, Axis, Ix2};
+use serde::Serialize;
+use std::path::{Path, PathBuf};
+
+use crate::pipeline::config::{AxisName, InputConfig};
+
+/// Sample types a fringe dataset may have.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SampleType {
+    U8,
+    U16,
+    I16,
+    U32,
+    F32,
+    F64,
+}
+
+impl SampleType {
+    fn from_descriptor(d: &TypeDescriptor) -> Option<Self> {
+        Some(match d {
+            TypeDescriptor::Unsigned(IntSize::U1) => SampleType::U8,
+            TypeDescriptor::Unsigned(IntSize::U2) => SampleType::U16,
+            TypeDescriptor::Integer(IntSize::U2) => SampleType::I16,
+            TypeDescriptor::Unsigned(IntSize::U4) => SampleType::U32,
+            TypeDescriptor::Float(FloatSize::U4) => SampleType::F32,
+            TypeDescriptor::Float(FloatSize::U8) => SampleType::F64,
+            _ => return None,
+        })
+    }
+
+    /// Largest value an integer type can hold (its saturation level).
+    pub fn integer_max(self) -> Option<f64> {
+        match self {
+            SampleType::U8 => Some(u8::MAX as f64),
+            SampleType::U16 => Some(u16::MAX as f64),
+            SampleType::I16 => Some(i16::MAX as f64),
+            SampleType::U32 => Some(u32::MAX as f64),
+            SampleType::F32 | SampleType::F64 => None,
+        }
+    }
+
+    pub fn is_float(self) -> bool {
+        matches!(self, SampleType::F32 | SampleType::F64)
+    }
+}
+
+/// Where the wavelength map came from.
+#[derive(Debug, Clone, Serialize)]
+#[serde(rename_all = "snake_case", tag = "kind")]
+pub enum WavelengthSource {
+    Dataset { path: String },
+    Polynomial { coefficients_nm: Vec<f64> },
+}
+
+/// An opened, validated capture.
+pub struct Capture {
+    pub path: PathBuf,
+    file: hdf5::File,
+    fringes: Dataset,
+    /// Dataset path of the fringes.
+    pub fringes_path: String,
+    /// Stored shape of the fringe dataset.
+    pub shape: Vec<usize>,
+    /// Axis order of the stored dataset.
+    pub axes: Vec<AxisName>,
+    pub sample_type: SampleType,
+    pub frames: usize,
+    pub alines: usize,
+    pub pixels: usize,
+    /// Per-pixel wavelength, nm.
+    pub wavelength_nm: Vec<f64>,
+    pub wavelength_source: WavelengthSource,
+    /// Mean of the background spectra, when the capture has them.
+    pub background: Option<Vec<f64>>,
+    /// Detector full scale (attribute `full_scale` of the fringes, else the
+    /// integer type's maximum); samples at or above it count as saturated.
+    pub full_scale: Option<f64>,
+}
+
+impl std::fmt::Debug for Capture {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Capture").field("path", &self.path).field("shape", &self.shape).finish()
+    }
+}
+
+/// Opens an HDF5 file read-only with a clear message for the usual failures.
+pub fn open_hdf5(path: &Path) -> Result<hdf5::File> {
+    let meta = std::fs::metadata(path).map_err(|e| match e.kind() {
+        std::io::ErrorKind::NotFound => anyhow!("no such file"),
+        _ => anyhow!("cannot read: {e}"),
+    })?;
+    if meta.is_dir() {
+        bail!("is a directory, not a capture file");
+    }
+    hdf5::File::open(path).map_err(|_| anyhow!("not an HDF5 file (or a damaged one)"))
+}
+
+fn open_dataset(file: &hdf5::File, name: &str) -> Option<Dataset> {
+    if file.link_exists(name.trim_start_matches('/')) || file.link_exists(name) {
+        file.dataset(name).ok()
+    } else {
+        None
+    }
+}
+
+/// Reads a numeric dataset as f64 (any numeric type; HDF5 converts).
+fn read_f64(ds: &Dataset) -> Result<ArrayD<f64>> {
+    Ok(ds.read_dyn::<f64>()?)
+}
+
+/// Checks a wavelength map: length, finite, strictly monotonic.
+pub fn check_wavelength_map(map: &[f64], pixels: usize, source: &str) -> Result<()> {
+    if map.len() != pixels {
+        bail!("wavelength map {source} has {} values but the fringes have {pixels} pixels", map.len());
+    }
+    if let Some(p) = map.iter().position(|v| !v.is_finite() || *v <= 0.0) {
+        bail!("wavelength map {source} has a non-positive or non-finite value at pixel {p}");
+    }
+    let increasing = map[1] > map[0];
+    if let Some(p) = map.windows(2).position(|w| if increasing { w[1] <= w[0] } else { w[1] >= w[0] }) {
+        bail!("wavelength map {source} is not monotonic (at pixel {})", p + 1);
+    }
+    Ok(())
+}
+
+impl Capture {
+    /// Opens and validates a capture according to the pipeline's input settings.
+    pub fn open(path: &Path, input: &InputConfig) -> Result<Self> {
+        let file = open_hdf5(path)?;
+        let fringes = open_dataset(&file, &input.fringes)
+            .ok_or_else(|| anyhow!("dataset '{}' not found", input.fringes))?;
+        let shape = fringes.shape();
+        let axes = match &input.axes {
+            Some(a) => a.clone(),
+            None => match shape.len() {
+                3 => vec![AxisName::Frame, AxisName::Aline, AxisName::Pixel],
+                2 => vec![AxisName::Aline, AxisName::Pixel],
+                r => bail!("dataset '{}' has rank {r}, expected 2 (alines, pixels) or 3 (frames, alines, pixels)", input.fringes),
+            },
+        };
+        if axes.len() != shape.len() {
+            bail!(
+                "dataset '{}' has rank {} but the pipeline's input.axes names {} axes",
+                input.fringes,
+                shape.len(),
+                axes.len()
+            );
+        }
+        let dim = |a: AxisName| axes.iter().position(|&x| x == a).map(|i| shape[i]);
+        let frames = dim(AxisName::Frame).unwrap_or(1);
+        let alines = dim(AxisName::Aline).unwrap_or(0);
+        let pixels = dim(AxisName::Pixel).unwrap_or(0);
+        if frames == 0 || alines == 0 {
+            bail!("dataset '{}' is empty (shape {:?})", input.fringes, shape);
+        }
+        if pixels < 16 {
+            bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16", input.fringes);
+        }
+        let descriptor = fringes.dtype().and_then(|t| t.to_descriptor()).context("reading the fringe datatype")?;
+        let sample_type = SampleType::from_descriptor(&descriptor).ok_or_else(|| {
+            anyhow!(
+                "dataset '{}' has type {descriptor:?}; supported: u8, u16, i16, u32, f32, f64",
+                input.fringes
+            )
+        })?;
+
+        let (wavelength_nm, wavelength_source) = match &input.wavelength_poly_nm {
+            Some(c) => {
+                let map = (0..pixels)
+                    .map(|p| c.iter().rev().fold(0.0, |acc, &ci| acc * p as f64 + ci))
+                    .collect::<Vec<_>>();
+                (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
+            }
+            None => {
+                let ds = open_dataset(&file, &input.wavelength).ok_or_else(|| {
+                    anyhow!(
+                        "dataset '{}' not found (give the map in the capture or as input.wavelength_poly_nm)",
+                        input.wavelength
+                    )
+                })?;
+                let map = read_f64(&ds).with_context(|| format!("reading '{}'", input.wavelength))?;
+                if map.ndim() != 1 {
+                    bail!("wavelength map '{}' has rank {}, expected 1", input.wavelength, map.ndim());
+                }
+                (map.iter().copied().collect(), WavelengthSource::Dataset { path: input.wavelength.clone() })
+            }
+        };
+        let source_name = match &wavelength_source {
+            WavelengthSource::Dataset { path } => format!("'{path}'"),
+            WavelengthSource::Polynomial { .. } => "input.wavelength_poly_nm".to_string(),
+        };
+        check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
+
+        let background = match open_dataset(&file, &input.background) {
+            None => None,
+            Some(ds) => {
+                let b = read_f64(&ds).with_context(|| format!("reading '{}'", input.background))?;
+                let rows: Array2<f64> = match b.ndim() {
+                    1 => b.into_dimensionality::<ndarray::Ix1>()?.insert_axis(Axis(0)),
+                    2 => b.into_dimensionality::<Ix2>()?,
+                    r => bail!("background '{}' has rank {r}, expected 1 or 2", input.background),
+                };
+                if rows.ncols() != pixels || rows.nrows() == 0 {
+                    bail!(
+                        "background '{}' has shape {:?}, expected ({pixels},) or (n, {pixels})",
+                        input.background,
+                        rows.shape()
+                    );
+                }
+                if rows.iter().any(|v| !v.is_finite()) {
+                    bail!("background '{}' contains NaN or infinite values", input.background);
+                }
+                Some(crate::stages::background::mean_spectrum(rows.view()))
+            }
+        };
+
+        let full_scale = match fringes.attr("full_scale") {
+            Ok(a) => Some(a.read_scalar::<f64>().context("reading attribute full_scale")?),
+            Err(_) => sample_type.integer_max(),
+        };
+
+        Ok(Capture {
+            path: path.to_path_buf(),
+            file,
+            fringes,
+            fringes_path: input.fringes.clone(),
+            shape,
+            axes,
+            sample_type,
+            frames,
+            alines,
+            pixels,
+            wavelength_nm,
+            wavelength_source,
+            background,
+            full_scale,
+        })
+    }
+
+    /// Reads frame `index` as (A-lines × pixels) f64 into `out`, returning the
+    /// number of saturated samples. Fails on NaN or infinite values.
+    pub fn read_frame(&self, index: usize, out: &mut Array2<f64>) -> Result<u64> {
+        let slab: Vec<SliceOrIndex> = self
+            .axes
+            .iter()
+            .zip(self.shape.iter())
+            .map(|(&a, &n)| match a {
+                AxisName::Frame => SliceOrIndex::Index(index),
+                _ => SliceOrIndex::SliceCount { start: 0, step: 1, count: n, block: 1 },
+            })
+            .collect();
+        let aline_first = {
+            let rest: Vec<AxisName> = self.axes.iter().copied().filter(|&a| a != AxisName::Frame).collect();
+            rest[0] == AxisName::Aline
+        };
+        macro_rules! read_as {
+            ($t:ty) => {{
+                let raw: Array2<$t> = self
+                    .fringes
+                    .read_slice(Hyperslab::from(slab))
+                    .with_context(|| format!("reading frame {index} of '{}'", self.fringes_path))?;
+                let view = if aline_first { raw.view() } else { raw.view().reversed_axes() };
+                ndarray::Zip::from(out.view_mut()).and(view).for_each(|o, &v| *o = v as f64);
+            }};
+        }
+        match self.sample_type {
+            SampleType::U8 => read_as!(u8),
+            SampleType::U16 => read_as!(u16),
+            SampleType::I16 => read_as!(i16),
+            SampleType::U32 => read_as!(u32),
+            SampleType::F32 => read_as!(f32),
+            SampleType::F64 => read_as!(f64),
+        }
+        if self.sample_type.is_float() {
+            if let Some(pos) = out.iter().position(|v| !v.is_finite()) {
+                bail!(
+                    "NaN or infinite value in '{}' frame {index} (A-line {}, pixel {})",
+                    self.fringes_path,
+                    pos / self.pixels,
+                    pos % self.pixels
+                );
+            }
+        }
+        Ok(match self.full_scale {
+            Some(fs) => out.iter().filter(|&&v| v >= fs).count() as u64,
+            None => 0,
+        })
+    }
+
+    /// Shape of one frame, (A-lines, pixels).
+    pub fn frame_shape(&self) -> (usize, usize) {
+        (self.alines, self.pixels)
+    }
+
+    /// The underlying HDF5 file (for inspection).
+    pub fn file(&self) -> &hdf5::File {
+        &self.file
+    }
+}

@@ -1,0 +1,10 @@
+//! Input and output at the edges: capture reading, TOML files, images,
+//! volumes, staging of outputs, hashes.
+
+pub mod capture;
+pub mod h5;
+pub mod hash;
+pub mod png;
+pub mod staging;
+pub mod toml_file;
+pub mod volume;

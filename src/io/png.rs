@@ -1,0 +1,30 @@
+//! PNG images of B-scans: grey levels, 8 or 16 bits, depth down.
+
+use anyhow::{Context, Result};
+use image::{codecs::png::PngEncoder, ExtendedColorType, ImageEncoder};
+use std::io::{BufWriter, Write};
+use std::path::Path;
+
+/// Writes a grey image of `width` × `height` (row-major `levels`) at 8 or 16 bits.
+pub fn write_grey(path: &Path, width: usize, height: usize, levels: &[u16], bit_depth: u8) -> Result<()> {
+    assert_eq!(levels.len(), width * height);
+    let file = std::fs::File::create(path).with_context(|| format!("creating {}", path.display()))?;
+    let mut out = BufWriter::new(file);
+    let encoder = PngEncoder::new(&mut out);
+    let (w, h) = (width as u32, height as u32);
+    match bit_depth {
+        8 => {
+            let bytes: Vec<u8> = levels.iter().map(|&v| v.min(255) as u8).collect();
+            encoder.write_image(&bytes, w, h, ExtendedColorType::L8)
+        }
+        _ => {
+            // PNG stores 16-bit samples big-endian.
+            let bytes: Vec<u8> = levels.iter().flat_map(|v| v.to_be_bytes()).collect();
+            encoder.write_image(&bytes, w, h, ExtendedColorType::L16)
+        }
+    }
+    .with_context(|| format!("encoding {}", path.display()))?;
+    out.flush().with_context(|| format!("writing {}", path.display()))?;
+    out.into_inner().map_err(|e| e.into_error())?.sync_all()?;
+    Ok(())
+}

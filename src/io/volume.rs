@@ -1,0 +1,66 @@
+//! volume.h5: the float32 dB volume of a reconstructed capture with its axes.
+//!
+//! Layout: `/volume_db` (frames, depth, A-lines), float32, one chunk per frame,
+//! so `volume_db[f]` is frame f's B-scan as shown in its PNG; 1-D axis
+//! datasets `/depth_um`, `/aline_index`, `/frame_index`; the depth pixel
+//! spacing (µm, in air) and the axis order as attributes of `/volume_db`.
+
+use anyhow::{Context, Result};
+use hdf5::Dataset;
+use ndarray::Array2;
+use std::path::Path;
+
+use super::h5::{create_file, write_1d, write_attr, write_attr_str};
+
+pub struct VolumeWriter {
+    file: hdf5::File,
+    volume: Dataset,
+}
+
+/// Facts stored as attributes of the volume.
+pub struct VolumeAttributes<'a> {
+    pub depth_spacing_um: f64,
+    pub first_depth_um: f64,
+    pub source_sha256: &'a str,
+    pub pipeline_sha256: &'a str,
+}
+
+impl VolumeWriter {
+    pub fn create(path: &Path, frames: usize, depth_um: &[f64], alines: usize, attrs: &VolumeAttributes<'_>) -> Result<Self> {
+        let file = create_file(path)?;
+        let depth = depth_um.len();
+        let volume = file
+            .new_dataset::<f32>()
+            .shape((frames, depth, alines))
+            .chunk((1, depth, alines))
+            .create("volume_db")
+            .context("creating /volume_db")?;
+        write_attr_str(&volume, "units", "dB (20 log10 of amplitude in detector counts)")?;
+        write_attr_str(&volume, "axes", "frame,depth,aline")?;
+        write_attr(&volume, "depth_spacing_um", attrs.depth_spacing_um)?;
+        write_attr(&volume, "first_depth_um", attrs.first_depth_um)?;
+        write_attr_str(&volume, "depth_medium", "air (divide by the group index for depth in a medium)")?;
+        write_attr(&volume, "aline_spacing_index", 1u32)?;
+        write_attr(&volume, "frame_spacing_index", 1u32)?;
+        write_attr_str(&file, "source_sha256", attrs.source_sha256)?;
+        write_attr_str(&file, "pipeline_sha256", attrs.pipeline_sha256)?;
+        write_attr_str(&file, "producer", concat!("fringeflow ", env!("CARGO_PKG_VERSION")))?;
+        write_1d(&file, "depth_um", depth_um)?;
+        write_1d(&file, "aline_index", &(0..alines as u32).collect::<Vec<_>>())?;
+        write_1d(&file, "frame_index", &(0..frames as u32).collect::<Vec<_>>())?;
+        Ok(VolumeWriter { file, volume })
+    }
+
+    /// Writes frame `index` from an (A-lines × depth) array.
+    pub fn write_frame(&self, index: usize, db: &Array2<f32>) -> Result<()> {
+        let image = db.t().as_standard_layout().into_owned();
+        self.volume
+            .write_slice(&image, ndarray::s![index, .., ..])
+            .with_context(|| format!("writing frame {index} to volume"))
+    }
+
+    pub fn finish(self) -> Result<()> {
+        self.file.flush().context("flushing volume")?;
+        self.file.close().context("closing volume")
+    }
+}

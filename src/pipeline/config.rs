@@ -1,0 +1,330 @@
+//! The pipeline file: every stage's settings, read from TOML.
+//!
+//! Every key has a default, unknown keys are errors, and out-of-range values
+//! are rejected with the key's line. The struct serialises back (as JSON in
+//! the processing log) with every default filled in, so a log alone says how
+//! an image was made. See docs/pipeline-reference.md for the keys.
+
+use serde::{Deserialize, Deserializer, Serialize};
+use std::path::Path;
+
+use crate::io::toml_file::{self, de_finite, de_positive, de_unit_interval, de_usize_in, ConfigError};
+use crate::stages::k_linearization::Interpolation;
+use crate::stages::log_compression::GreyMapping;
+use crate::stages::window::WindowKind;
+
+/// A named axis of the fringe dataset.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum AxisName {
+    Frame,
+    Aline,
+    Pixel,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct InputConfig {
+    /// Path of the fringe dataset inside the capture.
+    pub fringes: String,
+    /// Path of the per-pixel wavelength map (nm).
+    pub wavelength: String,
+    /// Path of the blocked-sample-arm background spectra (optional in the file).
+    pub background: String,
+    /// Order of the fringe dataset's axes; default by rank:
+    /// ["frame", "aline", "pixel"] or ["aline", "pixel"].
+    pub axes: Option<Vec<AxisName>>,
+    /// Wavelength map as a polynomial in the pixel index p (nm):
+    /// λ(p) = c0 + c1·p + c2·p² + …; used instead of the dataset when given.
+    pub wavelength_poly_nm: Option<Vec<f64>>,
+}
+
+impl Default for InputConfig {
+    fn default() -> Self {
+        InputConfig {
+            fringes: "/fringes".into(),
+            wavelength: "/wavelength_nm".into(),
+            background: "/background".into(),
+            axes: None,
+            wavelength_poly_nm: None,
+        }
+    }
+}
+
+/// Where the background (reference) spectrum comes from.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum BackgroundMethod {
+    /// The capture's background dataset when present, else the frame median.
+    Auto,
+    /// Mean of the capture's background dataset (error when missing).
+    Capture,
+    /// Mean over the frame's A-lines.
+    Mean,
+    /// Median over the frame's A-lines.
+    Median,
+    /// No subtraction.
+    None,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct BackgroundConfig {
+    pub method: BackgroundMethod,
+}
+
+impl Default for BackgroundConfig {
+    fn default() -> Self {
+        BackgroundConfig { method: BackgroundMethod::Auto }
+    }
+}
+
+fn de_samples<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 0, 1 << 20)
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct KLinearizationConfig {
+    pub method: Interpolation,
+    /// Samples of the uniform wavenumber grid; 0 means as many as pixels.
+    #[serde(deserialize_with = "de_samples")]
+    pub samples: usize,
+}
+
+impl Default for KLinearizationConfig {
+    fn default() -> Self {
+        KLinearizationConfig { method: Interpolation::Cubic, samples: 0 }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct DispersionConfig {
+    /// Quadratic phase coefficient, rad (0: off).
+    #[serde(deserialize_with = "de_finite")]
+    pub a2: f64,
+    /// Cubic phase coefficient, rad (0: off).
+    #[serde(deserialize_with = "de_finite")]
+    pub a3: f64,
+}
+
+impl Default for DispersionConfig {
+    fn default() -> Self {
+        DispersionConfig { a2: 0.0, a3: 0.0 }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct WindowConfig {
+    pub kind: WindowKind,
+    /// Gaussian window FWHM as a fraction of the band.
+    #[serde(deserialize_with = "de_positive")]
+    pub gaussian_fwhm: f64,
+    /// Tukey taper fraction, 0 (rectangular) to 1 (Hann).
+    #[serde(deserialize_with = "de_unit_interval")]
+    pub tukey_alpha: f64,
+}
+
+impl Default for WindowConfig {
+    fn default() -> Self {
+        WindowConfig { kind: WindowKind::Hann, gaussian_fwhm: 0.5, tukey_alpha: 0.5 }
+    }
+}
+
+fn de_zero_padding<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 1, 64)
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct FftConfig {
+    /// FFT length as a multiple of the wavenumber samples (1 = none).
+    #[serde(deserialize_with = "de_zero_padding")]
+    pub zero_padding: usize,
+    /// Keep only depths in [start, end) µm (in air).
+    pub crop_um: Option<[f64; 2]>,
+    /// Keep only depth pixels in [start, end).
+    pub crop_px: Option<[usize; 2]>,
+}
+
+impl Default for FftConfig {
+    fn default() -> Self {
+        FftConfig { zero_padding: 1, crop_um: None, crop_px: None }
+    }
+}
+
+fn de_bit_depth<'de, D: Deserializer<'de>>(d: D) -> Result<u8, D::Error> {
+    use serde::de::Error;
+    let v = i64::deserialize(d)?;
+    match v {
+        8 | 16 => Ok(v as u8),
+        _ => Err(D::Error::custom(format!("value {v} out of range: must be 8 or 16"))),
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct LogCompressionConfig {
+    pub mapping: GreyMapping,
+    /// Fixed mapping: dB shown black.
+    #[serde(deserialize_with = "de_finite")]
+    pub db_min: f64,
+    /// Fixed mapping: dB shown white.
+    #[serde(deserialize_with = "de_finite")]
+    pub db_max: f64,
+    /// Auto mapping: black sits this far above the estimated noise floor.
+    #[serde(deserialize_with = "de_finite")]
+    pub floor_offset_db: f64,
+    /// Auto mapping: dB range from black to white.
+    #[serde(deserialize_with = "de_positive")]
+    pub dynamic_range_db: f64,
+    /// Grey levels of the images: 8 or 16 bits.
+    #[serde(deserialize_with = "de_bit_depth")]
+    pub bit_depth: u8,
+}
+
+impl Default for LogCompressionConfig {
+    fn default() -> Self {
+        LogCompressionConfig {
+            mapping: GreyMapping::Auto,
+            db_min: 0.0,
+            db_max: 60.0,
+            floor_offset_db: 3.0,
+            dynamic_range_db: 45.0,
+            bit_depth: 8,
+        }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct OutputConfig {
+    /// One PNG per frame.
+    pub png: bool,
+    /// volume.h5 with the float32 dB volume.
+    pub volume: bool,
+}
+
+impl Default for OutputConfig {
+    fn default() -> Self {
+        OutputConfig { png: true, volume: true }
+    }
+}
+
+/// A whole pipeline.
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct PipelineConfig {
+    pub input: InputConfig,
+    pub background: BackgroundConfig,
+    pub k_linearization: KLinearizationConfig,
+    pub dispersion: DispersionConfig,
+    pub window: WindowConfig,
+    pub fft: FftConfig,
+    pub log_compression: LogCompressionConfig,
+    pub output: OutputConfig,
+}
+
+impl PipelineConfig {
+    /// Reads a pipeline file and checks the settings that involve several keys.
+    pub fn from_file(path: &Path) -> Result<Self, ConfigError> {
+        let (config, text): (PipelineConfig, String) = toml_file::read(path)?;
+        config.check(&path.display().to_string(), &text)?;
+        Ok(config)
+    }
+
+    /// Parses pipeline text (`name` is used in messages).
+    pub fn from_str(name: &str, text: &str) -> Result<Self, ConfigError> {
+        let config: PipelineConfig = toml_file::parse(name, text)?;
+        config.check(name, text)?;
+        Ok(config)
+    }
+
+    fn check(&self, file: &str, text: &str) -> Result<(), ConfigError> {
+        let fail = |section: &str, key: &str, message: String| ConfigError {
+            file: file.to_string(),
+            line: toml_file::line_of_key(text, section, key),
+            message: format!("{section}.{key}: {message}"),
+        };
+        if let Some([a, b]) = self.fft.crop_um {
+            if !(a.is_finite() && b.is_finite() && a >= 0.0 && b > a) {
+                return Err(fail("fft", "crop_um", format!("needs 0 <= start < end, found [{a}, {b}]")));
+            }
+        }
+        if let Some([a, b]) = self.fft.crop_px {
+            if b <= a {
+                return Err(fail("fft", "crop_px", format!("needs start < end, found [{a}, {b}]")));
+            }
+        }
+        if self.fft.crop_um.is_some() && self.fft.crop_px.is_some() {
+            return Err(fail("fft", "crop_px", "give crop_um or crop_px, not both".into()));
+        }
+        if self.log_compression.db_max <= self.log_compression.db_min {
+            return Err(fail(
+                "log_compression",
+                "db_max",
+                format!("must exceed db_min ({} <= {})", self.log_compression.db_max, self.log_compression.db_min),
+            ));
+        }
+        if let Some(axes) = &self.input.axes {
+            let ok = matches!(axes.len(), 2 | 3)
+                && axes.contains(&AxisName::Aline)
+                && axes.contains(&AxisName::Pixel)
+                && (axes.len() == 2 || axes.contains(&AxisName::Frame));
+            if !ok {
+                return Err(fail(
+                    "input",
+                    "axes",
+                    "must name each of \"aline\" and \"pixel\" once, plus \"frame\" for 3-D data".into(),
+                ));
+            }
+        }
+        if let Some(c) = &self.input.wavelength_poly_nm {
+            if c.is_empty() || c.iter().any(|v| !v.is_finite()) {
+                return Err(fail("input", "wavelength_poly_nm", "needs at least one finite coefficient".into()));
+            }
+        }
+        if !(self.input.fringes.starts_with('/') && self.input.wavelength.starts_with('/') && self.input.background.starts_with('/')) {
+            return Err(fail("input", "fringes", "dataset paths must start with '/'".into()));
+        }
+        Ok(())
+    }
+
+    /// SHA-256 of the resolved pipeline's canonical JSON: two runs with the
+    /// same hash processed with the same settings.
+    pub fn sha256(&self) -> String {
+        let json = serde_json::to_vec(self).expect("pipeline serialises");
+        crate::io::hash::sha256_hex(&json)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn empty_file_gives_defaults() {
+        let c = PipelineConfig::from_str("p.toml", "").unwrap();
+        assert_eq!(c, PipelineConfig::default());
+    }
+
+    #[test]
+    fn unknown_key_names_key_and_line() {
+        let e = PipelineConfig::from_str("p.toml", "[window]\nkind = \"hann\"\nwidht = 3\n").unwrap_err();
+        let msg = e.to_string();
+        assert!(msg.contains("line 3") && msg.contains("widht"), "{msg}");
+        assert!(!msg.contains('\n'));
+    }
+
+    #[test]
+    fn out_of_range_names_line() {
+        let e = PipelineConfig::from_str("p.toml", "\n[window]\ntukey_alpha = 1.5\n").unwrap_err();
+        assert_eq!(e.line, Some(3), "{e}");
+        let e = PipelineConfig::from_str("p.toml", "[fft]\nzero_padding = 0\n").unwrap_err();
+        assert_eq!(e.line, Some(2), "{e}");
+        let e = PipelineConfig::from_str("p.toml", "[log_compression]\ndb_min = 10\ndb_max = 5\n").unwrap_err();
+        assert_eq!(e.line, Some(3), "{e}");
+    }
+}

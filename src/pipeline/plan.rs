@@ -1,0 +1,226 @@
+//! The planner: turns a pipeline file's settings and a capture's geometry
+//! into a ready-to-run chain of stages with all tables precomputed
+//! (resampling weights, dispersion phase, window, FFT plan), then runs frames
+//! through it in parallel over A-lines.
+//!
+//! Processing works in blocks of A-lines: each worker thread owns one set of
+//! [`ALine`] buffers per block slot, made once, so the per-A-line path
+//! allocates nothing. Each stage's time is summed over worker threads.
+
+use anyhow::{bail, Result};
+use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
+use serde::Serialize;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::time::Instant;
+
+use super::config::{BackgroundMethod, PipelineConfig};
+use crate::physics;
+use crate::stages::background::{Background, BackgroundSource};
+use crate::stages::dispersion::Dispersion;
+use crate::stages::fft::Fft;
+use crate::stages::k_linearization::KLinearization;
+use crate::stages::log_compression::LogCompression;
+use crate::stages::window::{self, Window, WindowKind};
+use crate::stages::{ALine, FrameContext, Stage};
+
+/// A-lines processed together, stage by stage, by one worker.
+const BLOCK: usize = 16;
+
+/// What the planner needs to know of a capture.
+#[derive(Debug, Clone, Copy)]
+pub struct CaptureGeometry<'a> {
+    pub wavelength_nm: &'a [f64],
+    /// Mean blocked-sample-arm spectrum, when the capture has one.
+    pub background: Option<&'a [f64]>,
+}
+
+/// Quantities derived while planning, logged beside the settings.
+#[derive(Debug, Clone, Serialize)]
+pub struct PlanSummary {
+    pub background_method: BackgroundMethod,
+    pub pixels: usize,
+    pub k_samples: usize,
+    pub fft_length: usize,
+    pub wavelength_min_nm: f64,
+    pub wavelength_max_nm: f64,
+    /// Centre of the resampled band, λ of (k_min + k_max)/2, nm.
+    pub centre_wavelength_nm: f64,
+    pub k_min_per_um: f64,
+    pub k_max_per_um: f64,
+    /// Depth of one output pixel, single pass, in air.
+    pub depth_spacing_um: f64,
+    pub first_depth_bin: usize,
+    pub depth_pixels: usize,
+    pub stages: Vec<&'static str>,
+}
+
+/// Accumulated time per stage (nanoseconds summed over worker threads).
+#[derive(Debug, Default)]
+pub struct StageTimer {
+    nanos: Vec<AtomicU64>,
+}
+
+impl StageTimer {
+    pub fn seconds(&self) -> Vec<f64> {
+        self.nanos.iter().map(|n| n.load(Ordering::Relaxed) as f64 * 1e-9).collect()
+    }
+}
+
+pub struct Plan {
+    stages: Vec<Box<dyn Stage>>,
+    pub summary: PlanSummary,
+}
+
+impl Plan {
+    pub fn new(config: &PipelineConfig, capture: CaptureGeometry<'_>) -> Result<Self> {
+        let pixels = capture.wavelength_nm.len();
+        let k_samples = match config.k_linearization.samples {
+            0 => pixels,
+            n => n,
+        };
+        if k_samples < 16 {
+            bail!("k_linearization.samples = {k_samples}: need at least 16");
+        }
+        let mut stages: Vec<Box<dyn Stage>> = Vec::new();
+
+        let method = match (config.background.method, capture.background) {
+            (BackgroundMethod::Auto, Some(_)) => BackgroundMethod::Capture,
+            (BackgroundMethod::Auto, None) => BackgroundMethod::Median,
+            (BackgroundMethod::Capture, None) => {
+                bail!("background.method = \"capture\" but the capture has no '{}' dataset", config.input.background)
+            }
+            (m, _) => m,
+        };
+        let source = match method {
+            BackgroundMethod::Capture => capture.background.map(|b| BackgroundSource::Fixed(b.to_vec())),
+            BackgroundMethod::Mean => Some(BackgroundSource::FrameMean),
+            BackgroundMethod::Median => Some(BackgroundSource::FrameMedian),
+            BackgroundMethod::None | BackgroundMethod::Auto => None,
+        };
+        if let Some(source) = source {
+            stages.push(Box::new(Background { source }));
+        }
+
+        let klin = KLinearization::new(capture.wavelength_nm, k_samples, config.k_linearization.method);
+        let (k_min, k_max) = (klin.k_min_per_um, klin.k_max_per_um);
+        let k_span = klin.k_span_per_um();
+        stages.push(Box::new(klin));
+
+        let d = &config.dispersion;
+        if d.a2 != 0.0 || d.a3 != 0.0 {
+            stages.push(Box::new(Dispersion::new(d.a2, d.a3, k_samples)));
+        }
+
+        let w = &config.window;
+        let coefficients = window::coefficients(w.kind, k_samples, w.gaussian_fwhm, w.tukey_alpha);
+        let window_sum: f64 = coefficients.iter().sum();
+        if w.kind != WindowKind::None {
+            stages.push(Box::new(Window { coefficients }));
+        }
+
+        let fft_length = k_samples * config.fft.zero_padding;
+        let depth_spacing_um = physics::depth_spacing_um(k_span, k_samples, fft_length);
+        let positive = fft_length / 2;
+        let (first, end) = match (config.fft.crop_um, config.fft.crop_px) {
+            (Some([a, b]), _) => ((a / depth_spacing_um).round() as usize, (b / depth_spacing_um).round() as usize),
+            (_, Some([a, b])) => (a, b),
+            _ => (0, positive),
+        };
+        let end = end.min(positive);
+        if first >= end {
+            bail!(
+                "fft crop keeps no depth: start pixel {first} is beyond the last depth pixel {positive} ({:.1} µm)",
+                positive as f64 * depth_spacing_um
+            );
+        }
+        let fft = Fft::new(fft_length, first, end - first, window_sum);
+        stages.push(Box::new(fft));
+        stages.push(Box::new(LogCompression));
+
+        let (wl_min, wl_max) = capture
+            .wavelength_nm
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+        let summary = PlanSummary {
+            background_method: method,
+            pixels,
+            k_samples,
+            fft_length,
+            wavelength_min_nm: wl_min,
+            wavelength_max_nm: wl_max,
+            centre_wavelength_nm: physics::wavelength_nm(0.5 * (k_min + k_max)),
+            k_min_per_um: k_min,
+            k_max_per_um: k_max,
+            depth_spacing_um,
+            first_depth_bin: first,
+            depth_pixels: end - first,
+            stages: stages.iter().map(|s| s.name()).collect(),
+        };
+        Ok(Plan { stages, summary })
+    }
+
+    /// Names of the stages in order.
+    pub fn stage_names(&self) -> &[&'static str] {
+        &self.summary.stages
+    }
+
+    pub fn new_timer(&self) -> StageTimer {
+        StageTimer { nanos: self.stages.iter().map(|_| AtomicU64::new(0)).collect() }
+    }
+
+    /// Fresh working buffers for one A-line.
+    pub fn new_aline(&self) -> ALine {
+        let s = &self.summary;
+        let scratch = rustfft::FftPlanner::<f64>::new().plan_fft_forward(s.fft_length).get_inplace_scratch_len();
+        ALine::new(s.pixels, s.fft_length, scratch, s.depth_pixels)
+    }
+
+    /// Depth of output pixel `i`, µm in air.
+    pub fn depth_um(&self, i: usize) -> f64 {
+        (self.summary.first_depth_bin + i) as f64 * self.summary.depth_spacing_um
+    }
+
+    /// Processes one frame (A-lines × pixels) into `db_out` (A-lines × depth
+    /// pixels), in parallel over blocks of A-lines.
+    pub fn process_frame(&self, frame: ArrayView2<'_, f64>, db_out: &mut Array2<f32>, timer: &StageTimer) {
+        let (alines, pixels) = frame.dim();
+        let depth = self.summary.depth_pixels;
+        assert_eq!(pixels, self.summary.pixels);
+        assert_eq!(db_out.dim(), (alines, depth));
+
+        let mut ctx = FrameContext::default();
+        for (i, stage) in self.stages.iter().enumerate() {
+            let t = Instant::now();
+            stage.begin_frame(frame, &mut ctx);
+            timer.nanos[i].fetch_add(t.elapsed().as_nanos() as u64, Ordering::Relaxed);
+        }
+
+        let frame = frame.as_standard_layout();
+        let input = frame.as_slice().expect("standard layout");
+        let output = db_out.as_slice_mut().expect("output in standard layout");
+        let ctx = &ctx;
+        input
+            .par_chunks(BLOCK * pixels)
+            .zip(output.par_chunks_mut(BLOCK * depth))
+            .for_each_init(
+                || (0..BLOCK).map(|_| self.new_aline()).collect::<Vec<_>>(),
+                |lines, (spectra, out)| {
+                    let n = spectra.len() / pixels;
+                    for (line, spectrum) in lines.iter_mut().zip(spectra.chunks_exact(pixels)) {
+                        line.spectrum.copy_from_slice(spectrum);
+                    }
+                    for (i, stage) in self.stages.iter().enumerate() {
+                        let t = Instant::now();
+                        for line in lines.iter_mut().take(n) {
+                            stage.apply(ctx, line);
+                        }
+                        timer.nanos[i].fetch_add(t.elapsed().as_nanos() as u64, Ordering::Relaxed);
+                    }
+                    for (line, row) in lines.iter().zip(out.chunks_exact_mut(depth)) {
+                        row.copy_from_slice(&line.db);
+                    }
+                },
+            );
+    }
+}

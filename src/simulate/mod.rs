@@ -1,0 +1,389 @@
+//! The simulator: writes captures of invented scenes, with the ground truth
+//! beside them, so that every stage can be checked against known answers.
+//!
+//! Signal model (spectral-domain OCT, reference reflectivity normalised to 1,
+//! sample reflectivities R_n relative to it), per camera pixel p at
+//! wavenumber k_p:
+//!
+//! I(p) = dark + pattern(p) + I_ref·S(k_p)·[1 + ΣR_n
+//!        + Σ 2√R_n·V_p(z_n)·cos(2k_p z_n + φ(k_p))
+//!        + Σ_{n<m} 2√(R_n R_m)·V_p(z_m − z_n)·cos(2k_p (z_m − z_n))]
+//!
+//! plus shot noise (Gaussian approximation of Poisson), read noise, and
+//! clipping at full scale. V_p(z) is the fringe visibility left by the
+//! pixel's spectral response: exp(−2σ_k² z²) for a Gaussian response of
+//! standard deviation σ_k in k, times sin(zΔk)/(zΔk) when the pixel
+//! integrates over its width Δk (roll-off). φ(k) is the round-trip chirp of
+//! unmatched fused silica (Sellmeier, Malitson 1965), with its group delay
+//! folded into the reflector's depth. Sample–sample terms are included
+//! between interfaces and mirrors, not for scatterers.
+
+pub mod scene;
+
+use anyhow::{Context, Result};
+use hdf5::H5Type;
+use ndarray::Array2;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+use rand_distr::{Exp1, StandardNormal};
+use rayon::prelude::*;
+use serde::Serialize;
+use std::path::Path;
+
+use crate::analysis::polyfit;
+use crate::io::h5::{create_file, write_1d, write_attr, write_attr_str};
+use crate::io::staging::write_atomically;
+use crate::physics::{self, fused_silica_chirp_rad, wavenumber_per_um};
+use scene::{Scene, SimDtype, SpectrometerSpec, SpectrumShape};
+
+/// The spectrometer's per-pixel wavelength map, nm.
+pub fn wavelength_map(s: &SpectrometerSpec) -> Vec<f64> {
+    let n = s.pixels;
+    (0..n)
+        .map(|p| {
+            let u = p as f64 / (n - 1) as f64;
+            let t = 2.0 * u - 1.0;
+            s.start_nm + (s.stop_nm - s.start_nm) * u
+                + s.nonlinearity_nm[0] * (t * t - 1.0)
+                + s.nonlinearity_nm[1] * (t * t * t - t)
+        })
+        .collect()
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct DispersionTruth {
+    pub fused_silica_mm: f64,
+    /// Round-trip group-delay dispersion of the glass at the source centre, fs².
+    pub gdd_round_trip_fs2: f64,
+    /// The chirp as our correction polynomial over the uniform-k band:
+    /// compensating needs dispersion.a2 = a2_rad, a3 = a3_rad.
+    pub a2_rad: f64,
+    pub a3_rad: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct InterfaceTruth {
+    pub reflectivity: f64,
+    /// Optical depth (in air) at the scan's centre before sag and tilt.
+    pub depth_um: f64,
+    /// Optical depth at each A-line of frame 0.
+    pub depth_um_frame0: Vec<f64>,
+}
+
+/// Ground truth written beside a simulated capture.
+#[derive(Debug, Clone, Serialize)]
+pub struct Truth {
+    pub scene: Scene,
+    /// Coherence-length limit of the source, (2 ln2/π)·λ0²/Δλ (Gaussian only).
+    pub coherence_length_um: Option<f64>,
+    /// Depth pixel spacing of the band, π(N−1)/(N·K), N = pixels, no padding.
+    pub depth_spacing_um: f64,
+    /// The same from λ0²/(2·Δλ_span), λ0 the band's centre wavelength.
+    pub depth_spacing_from_span_um: f64,
+    /// Depth where the fringe visibility falls to one half (−6 dB), at the centre wavelength.
+    pub rolloff_6db_depth_um: Option<f64>,
+    pub dispersion: DispersionTruth,
+    pub reflectors: Vec<scene::Reflector>,
+    pub interfaces: Vec<InterfaceTruth>,
+}
+
+/// Precomputed per-pixel quantities.
+struct Optics {
+    k: Vec<f64>,
+    spectrum: Vec<f64>,
+    sigma_k: Vec<f64>,
+    pixel_dk: Vec<f64>,
+    chirp: Vec<f64>,
+    pattern: Vec<f64>,
+}
+
+fn source_spectrum(scene: &Scene, k: f64) -> f64 {
+    let gauss = |centre_nm: f64, fwhm_nm: f64| {
+        let k0 = wavenumber_per_um(centre_nm);
+        let dk = 2.0 * std::f64::consts::PI * (fwhm_nm * 1e-3) / (centre_nm * 1e-3).powi(2);
+        (-4.0 * std::f64::consts::LN_2 * ((k - k0) / dk).powi(2)).exp()
+    };
+    let s = &scene.source;
+    match s.shape {
+        SpectrumShape::Gaussian => gauss(s.centre_nm, s.fwhm_nm),
+        SpectrumShape::Flat => 1.0,
+        SpectrumShape::Gaussians => {
+            let total: f64 = s.components.iter().map(|c| c.weight).sum();
+            s.components.iter().map(|c| c.weight * gauss(c.centre_nm, c.fwhm_nm)).sum::<f64>() / total
+        }
+    }
+}
+
+/// Fringe visibility of a path difference z at pixel p.
+fn visibility(o: &Optics, p: usize, z: f64) -> f64 {
+    let mut v = (-2.0 * o.sigma_k[p] * o.sigma_k[p] * z * z).exp();
+    let x = z * o.pixel_dk[p];
+    if x != 0.0 {
+        v *= x.sin() / x;
+    }
+    v
+}
+
+fn optics(scene: &Scene, wl: &[f64]) -> Optics {
+    let n = wl.len();
+    let k: Vec<f64> = wl.iter().map(|&l| wavenumber_per_um(l)).collect();
+    let spectrum = k.iter().map(|&kk| source_spectrum(scene, kk)).collect();
+    let res = scene.spectrometer.resolution_nm * 1e-3;
+    let fwhm_to_sigma = 1.0 / (2.0 * (2.0 * std::f64::consts::LN_2).sqrt());
+    let sigma_k = wl
+        .iter()
+        .map(|&l| 2.0 * std::f64::consts::PI * res / (l * 1e-3).powi(2) * fwhm_to_sigma)
+        .collect();
+    let pixel_dk = (0..n)
+        .map(|p| {
+            if !scene.spectrometer.pixel_integration {
+                return 0.0;
+            }
+            let (a, b) = (p.saturating_sub(1), (p + 1).min(n - 1));
+            (k[b] - k[a]).abs() / (b - a) as f64
+        })
+        .collect();
+    let k0 = wavenumber_per_um(scene.source.centre_nm);
+    let thickness_um = scene.dispersion.fused_silica_mm * 1e3;
+    let chirp = k.iter().map(|&kk| fused_silica_chirp_rad(thickness_um, kk, k0)).collect();
+    let mut rng = ChaCha8Rng::seed_from_u64(scene.seed);
+    rng.set_stream(u64::MAX);
+    let pattern = (0..n)
+        .map(|_| scene.detector.fixed_pattern_counts * rng.sample::<f64, _>(StandardNormal))
+        .collect();
+    Optics { k, spectrum, sigma_k, pixel_dk, chirp, pattern }
+}
+
+/// Lateral and slow-axis depth offset of the sample at A-line `a` of frame `f`.
+fn sample_offset(scene: &Scene, a: usize, f: usize) -> f64 {
+    let Some(s) = &scene.sample else { return 0.0 };
+    let u = if scene.alines > 1 { a as f64 / (scene.alines - 1) as f64 } else { 0.5 };
+    let v = if scene.frames > 1 { f as f64 / (scene.frames - 1) as f64 } else { 0.5 };
+    s.sag_um * (2.0 * u - 1.0).powi(2) + s.tilt_um * (u - 0.5) + s.frame_tilt_um * (v - 0.5)
+}
+
+/// Interfaces of the layered sample: (centre depth, reflectivity), top first.
+fn interfaces(scene: &Scene) -> Vec<(f64, f64)> {
+    let Some(s) = &scene.sample else { return Vec::new() };
+    let mut out = Vec::new();
+    let mut z = s.surface_um;
+    for layer in &s.layers {
+        out.push((z, layer.top_reflectivity));
+        z += layer.thickness_um * layer.group_index;
+    }
+    out.push((z, s.bottom_reflectivity));
+    out
+}
+
+/// One A-line's spectrum in counts, before noise and clipping.
+/// `sample_arm` false gives the blocked-sample-arm background.
+fn clean_spectrum(scene: &Scene, o: &Optics, a: usize, f: usize, sample_arm: bool, rng: &mut ChaCha8Rng, out: &mut [f64]) {
+    // (depth, reflectivity, takes part in sample–sample terms)
+    let mut reflectors: Vec<(f64, f64, bool)> = Vec::new();
+    if sample_arm {
+        reflectors.extend(scene.reflectors.iter().map(|r| (r.depth_um, r.reflectivity, true)));
+        let offset = sample_offset(scene, a, f);
+        let ifs = interfaces(scene);
+        reflectors.extend(ifs.iter().map(|&(z, r)| (z + offset, r, true)));
+        if let Some(s) = &scene.sample {
+            for (i, layer) in s.layers.iter().enumerate() {
+                let (top, bottom) = (ifs[i].0 + offset, ifs[i + 1].0 + offset);
+                for _ in 0..layer.scatterers {
+                    let z = top + (bottom - top) * rng.random::<f64>();
+                    let r = layer.scatterer_reflectivity * rng.sample::<f64, _>(Exp1);
+                    reflectors.push((z, r, false));
+                }
+            }
+        }
+    }
+    let dc: f64 = 1.0 + reflectors.iter().map(|r| r.1).sum::<f64>();
+    let coupled: Vec<(f64, f64)> = reflectors.iter().filter(|r| r.2 && r.1 > 0.0).map(|r| (r.0, r.1)).collect();
+    let d = &scene.detector;
+    for (p, v) in out.iter_mut().enumerate() {
+        let k = o.k[p];
+        let mut s = dc;
+        for &(z, r, _) in &reflectors {
+            if r > 0.0 {
+                s += 2.0 * r.sqrt() * visibility(o, p, z) * (2.0 * k * z + o.chirp[p]).cos();
+            }
+        }
+        for i in 0..coupled.len() {
+            for j in i + 1..coupled.len() {
+                let dz = coupled[j].0 - coupled[i].0;
+                s += 2.0 * (coupled[i].1 * coupled[j].1).sqrt() * visibility(o, p, dz) * (2.0 * k * dz).cos();
+            }
+        }
+        *v = d.reference_counts * o.spectrum[p] * s;
+    }
+}
+
+/// Adds noise and the detector's offsets, then clips to [0, full_scale].
+fn detect(scene: &Scene, o: &Optics, rng: &mut ChaCha8Rng, line: &mut [f64]) {
+    let d = &scene.detector;
+    let integer = !matches!(d.dtype, SimDtype::F32 | SimDtype::F64);
+    for (p, v) in line.iter_mut().enumerate() {
+        let signal = v.max(0.0);
+        let mut counts = signal + d.dark_counts + o.pattern[p];
+        if d.electrons_per_count > 0.0 {
+            counts += (signal / d.electrons_per_count).sqrt() * rng.sample::<f64, _>(StandardNormal);
+        }
+        if d.read_noise_counts > 0.0 {
+            counts += d.read_noise_counts * rng.sample::<f64, _>(StandardNormal);
+        }
+        if integer {
+            counts = counts.round();
+        }
+        *v = counts.clamp(0.0, d.full_scale);
+    }
+}
+
+/// Simulates `rows` spectra of frame `f` (or background rows when `sample_arm` is false).
+fn simulate_rows(scene: &Scene, o: &Optics, f: usize, rows: usize, sample_arm: bool) -> Array2<f64> {
+    let pixels = o.k.len();
+    let mut out = Array2::<f64>::zeros((rows, pixels));
+    out.as_slice_mut()
+        .unwrap()
+        .par_chunks_mut(pixels)
+        .enumerate()
+        .for_each(|(a, line)| {
+            let stream = ((f as u64) << 32) | a as u64 | if sample_arm { 0 } else { 1 << 62 };
+            let mut rng = ChaCha8Rng::seed_from_u64(scene.seed);
+            rng.set_stream(stream);
+            clean_spectrum(scene, o, a, f, sample_arm, &mut rng, line);
+            detect(scene, o, &mut rng, line);
+        });
+    out
+}
+
+fn write_rows<T: H5Type + Copy>(ds: &hdf5::Dataset, rows: &Array2<f64>, frame: Option<usize>, convert: fn(f64) -> T) -> Result<()> {
+    let data = rows.mapv(convert);
+    match frame {
+        Some(f) => ds.write_slice(&data, ndarray::s![f, .., ..])?,
+        None => ds.write(&data)?,
+    }
+    Ok(())
+}
+
+macro_rules! with_dtype {
+    ($dtype:expr, $f:ident, $($arg:expr),*) => {
+        match $dtype {
+            SimDtype::U8 => $f::<u8>($($arg),*, |v| v as u8),
+            SimDtype::U16 => $f::<u16>($($arg),*, |v| v as u16),
+            SimDtype::I16 => $f::<i16>($($arg),*, |v| v as i16),
+            SimDtype::U32 => $f::<u32>($($arg),*, |v| v as u32),
+            SimDtype::F32 => $f::<f32>($($arg),*, |v| v as f32),
+            SimDtype::F64 => $f::<f64>($($arg),*, |v| v),
+        }
+    };
+}
+
+fn new_dataset<T: H5Type>(file: &hdf5::File, name: &str, shape: &[usize], chunk: &[usize], _c: fn(f64) -> T) -> Result<hdf5::Dataset> {
+    Ok(file.new_dataset::<T>().shape(shape).chunk(chunk).create(name)?)
+}
+
+/// Computes the ground truth of a scene.
+pub fn truth(scene: &Scene) -> Truth {
+    let wl = wavelength_map(&scene.spectrometer);
+    let n = wl.len();
+    let (k_lo, k_hi) = (wavenumber_per_um(wl[n - 1]), wavenumber_per_um(wl[0]));
+    let span = k_hi - k_lo;
+    let centre_nm = physics::wavelength_nm(0.5 * (k_lo + k_hi));
+    let o = optics(scene, &wl);
+
+    // Chirp expressed in the correction polynomial's coordinate x ∈ [−½, ½].
+    let k0 = wavenumber_per_um(scene.source.centre_nm);
+    let thickness_um = scene.dispersion.fused_silica_mm * 1e3;
+    let xs: Vec<f64> = (0..n).map(|j| j as f64 / (n - 1) as f64 - 0.5).collect();
+    let phase: Vec<f64> = xs.iter().map(|&x| fused_silica_chirp_rad(thickness_um, k_lo + (x + 0.5) * span, k0)).collect();
+    let coeffs = polyfit(&xs, &phase, 3);
+    let gdd = 2.0 * scene.dispersion.fused_silica_mm * physics::fused_silica_gvd_fs2_per_mm(scene.source.centre_nm * 1e-3);
+
+    // −6 dB visibility depth at the centre pixel, by bisection.
+    let mid = n / 2;
+    let rolloff = if o.sigma_k[mid] > 0.0 || o.pixel_dk[mid] > 0.0 {
+        let (mut lo, mut hi) = (0.0, physics::max_depth_um(centre_nm, (wl[n - 1] - wl[0]) / n as f64, 1.0) * 4.0);
+        if visibility(&o, mid, hi) < 0.5 {
+            for _ in 0..100 {
+                let m = 0.5 * (lo + hi);
+                if visibility(&o, mid, m) > 0.5 {
+                    lo = m
+                } else {
+                    hi = m
+                }
+            }
+            Some(0.5 * (lo + hi))
+        } else {
+            None
+        }
+    } else {
+        None
+    };
+
+    let coherence = match scene.source.shape {
+        SpectrumShape::Gaussian => Some(physics::coherence_length_um(scene.source.centre_nm, scene.source.fwhm_nm)),
+        _ => None,
+    };
+    Truth {
+        scene: scene.clone(),
+        coherence_length_um: coherence,
+        depth_spacing_um: physics::depth_spacing_um(span, n, n),
+        depth_spacing_from_span_um: centre_nm * centre_nm / (2.0 * (wl[n - 1] - wl[0])) * 1e-3,
+        rolloff_6db_depth_um: rolloff,
+        dispersion: DispersionTruth {
+            fused_silica_mm: scene.dispersion.fused_silica_mm,
+            gdd_round_trip_fs2: gdd,
+            a2_rad: coeffs[2],
+            a3_rad: coeffs[3],
+        },
+        reflectors: scene.reflectors.clone(),
+        interfaces: interfaces(scene)
+            .into_iter()
+            .map(|(z, r)| InterfaceTruth {
+                reflectivity: r,
+                depth_um: z,
+                depth_um_frame0: (0..scene.alines).map(|a| z + sample_offset(scene, a, 0)).collect(),
+            })
+            .collect(),
+    }
+}
+
+/// Path of the truth file beside a capture: `<stem>.truth.json`.
+pub fn truth_path(capture: &Path) -> std::path::PathBuf {
+    capture.with_file_name(format!("{}.truth.json", capture.file_stem().unwrap_or_default().to_string_lossy()))
+}
+
+/// Simulates `scene` into the capture file `out` (written atomically) and its
+/// truth file beside it.
+pub fn simulate(scene: &Scene, out: &Path) -> Result<Truth> {
+    let wl = wavelength_map(&scene.spectrometer);
+    let o = optics(scene, &wl);
+    let pixels = wl.len();
+    write_atomically(out, |tmp| {
+        let file = create_file(tmp)?;
+        let fringes = with_dtype!(scene.detector.dtype, new_dataset, &file, "fringes", &[scene.frames, scene.alines, pixels], &[1, scene.alines, pixels])?;
+        write_attr(&fringes, "full_scale", scene.detector.full_scale)?;
+        write_attr_str(&fringes, "units", "detector counts")?;
+        write_attr_str(&fringes, "axes", "frame,aline,pixel")?;
+        for f in 0..scene.frames {
+            let rows = simulate_rows(scene, &o, f, scene.alines, true);
+            with_dtype!(scene.detector.dtype, write_rows, &fringes, &rows, Some(f))?;
+        }
+        let map = write_1d(&file, "wavelength_nm", &wl)?;
+        write_attr_str(&map, "units", "nm")?;
+        if scene.background_lines > 0 {
+            let rows = simulate_rows(scene, &o, 0, scene.background_lines, false);
+            let ds = with_dtype!(scene.detector.dtype, new_dataset, &file, "background", &[scene.background_lines, pixels], &[scene.background_lines, pixels])?;
+            with_dtype!(scene.detector.dtype, write_rows, &ds, &rows, None)?;
+            write_attr_str(&ds, "description", "spectra recorded with the sample arm blocked")?;
+        }
+        write_attr_str(&file, "producer", concat!("fringeflow simulate ", env!("CARGO_PKG_VERSION")))?;
+        file.close()?;
+        Ok(())
+    })
+    .with_context(|| format!("writing {}", out.display()))?;
+    let t = truth(scene);
+    let json = serde_json::to_vec_pretty(&t)?;
+    let tp = truth_path(out);
+    write_atomically(&tp, |tmp| Ok(std::fs::write(tmp, &json)?)).with_context(|| format!("writing {}", tp.display()))?;
+    Ok(t)
+}

@@ -1,0 +1,288 @@
+//! Scene files: what the simulator should image, read from TOML.
+//!
+//! A scene names the source spectrum, the spectrometer (its non-linear
+//! wavelength map and spectral resolution), the detector (bit depth, full
+//! scale, noise, fixed pattern), a dispersion mismatch in fused silica, and
+//! what sits in the sample arm: flat mirrors and/or a layered sample with
+//! gently curved interfaces and weak scatterers inside the layers.
+
+use serde::{Deserialize, Deserializer, Serialize};
+
+use crate::io::toml_file::{de_finite, de_non_negative, de_positive, de_usize_in, ConfigError};
+
+fn de_count<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 1, 1 << 24)
+}
+fn de_count0<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 0, 1 << 24)
+}
+fn de_pixels<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 16, 1 << 16)
+}
+fn de_reflectivity<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+    use serde::de::Error;
+    let v = f64::deserialize(d)?;
+    if (0.0..=1.0).contains(&v) {
+        Ok(v)
+    } else {
+        Err(D::Error::custom(format!("value {v} out of range: reflectivity must be in [0, 1]")))
+    }
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SpectrumShape {
+    /// One Gaussian (in wavenumber) of given centre and FWHM.
+    Gaussian,
+    /// A weighted sum of Gaussians (non-Gaussian overall).
+    Gaussians,
+    /// Flat across the spectrometer's band.
+    Flat,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct GaussianComponent {
+    #[serde(deserialize_with = "de_positive")]
+    pub centre_nm: f64,
+    #[serde(deserialize_with = "de_positive")]
+    pub fwhm_nm: f64,
+    #[serde(deserialize_with = "de_positive")]
+    pub weight: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct SourceSpec {
+    pub shape: SpectrumShape,
+    #[serde(deserialize_with = "de_positive")]
+    pub centre_nm: f64,
+    #[serde(deserialize_with = "de_positive")]
+    pub fwhm_nm: f64,
+    pub components: Vec<GaussianComponent>,
+}
+
+impl Default for SourceSpec {
+    fn default() -> Self {
+        SourceSpec { shape: SpectrumShape::Gaussian, centre_nm: 840.0, fwhm_nm: 50.0, components: Vec::new() }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct SpectrometerSpec {
+    #[serde(deserialize_with = "de_pixels")]
+    pub pixels: usize,
+    #[serde(deserialize_with = "de_positive")]
+    pub start_nm: f64,
+    #[serde(deserialize_with = "de_positive")]
+    pub stop_nm: f64,
+    /// Deviation from a linear-in-λ map: quadratic and cubic terms in nm,
+    /// λ = λ_lin + n2·(t² − 1) + n3·(t³ − t), t = −1 … 1 across the pixels.
+    pub nonlinearity_nm: [f64; 2],
+    /// FWHM of each pixel's Gaussian spectral response, nm (0: ideal).
+    #[serde(deserialize_with = "de_non_negative")]
+    pub resolution_nm: f64,
+    /// Integrate each pixel over its width (adds a sinc roll-off factor).
+    pub pixel_integration: bool,
+}
+
+impl Default for SpectrometerSpec {
+    fn default() -> Self {
+        SpectrometerSpec {
+            pixels: 2048,
+            start_nm: 765.0,
+            stop_nm: 915.0,
+            nonlinearity_nm: [0.0, 0.0],
+            resolution_nm: 0.0,
+            pixel_integration: false,
+        }
+    }
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SimDtype {
+    U8,
+    U16,
+    I16,
+    U32,
+    F32,
+    F64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct DetectorSpec {
+    pub dtype: SimDtype,
+    /// Saturation level in counts; samples are clipped to [0, full_scale].
+    #[serde(deserialize_with = "de_positive")]
+    pub full_scale: f64,
+    /// Peak of the reference-arm spectrum, counts.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub reference_counts: f64,
+    /// Detector gain for shot noise, electrons per count (0: no shot noise).
+    #[serde(deserialize_with = "de_non_negative")]
+    pub electrons_per_count: f64,
+    #[serde(deserialize_with = "de_non_negative")]
+    pub read_noise_counts: f64,
+    /// Constant dark offset, counts.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub dark_counts: f64,
+    /// Standard deviation of the per-pixel fixed pattern, counts.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub fixed_pattern_counts: f64,
+}
+
+impl Default for DetectorSpec {
+    fn default() -> Self {
+        DetectorSpec {
+            dtype: SimDtype::U16,
+            full_scale: 4095.0,
+            reference_counts: 2000.0,
+            electrons_per_count: 4.0,
+            read_noise_counts: 1.5,
+            dark_counts: 100.0,
+            fixed_pattern_counts: 10.0,
+        }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct DispersionSpec {
+    /// Unmatched fused silica, mm, single pass: positive in the sample arm,
+    /// negative in the reference arm.
+    #[serde(deserialize_with = "de_finite")]
+    pub fused_silica_mm: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Reflector {
+    /// Optical path depth (single pass, in air) of the mirror.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub depth_um: f64,
+    /// Power reflectivity relative to the reference arm.
+    #[serde(deserialize_with = "de_reflectivity")]
+    pub reflectivity: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Layer {
+    #[serde(deserialize_with = "de_positive")]
+    pub thickness_um: f64,
+    #[serde(deserialize_with = "de_positive")]
+    pub group_index: f64,
+    /// Reflectivity of the interface at the top of this layer.
+    #[serde(deserialize_with = "de_reflectivity")]
+    pub top_reflectivity: f64,
+    /// Random point scatterers per A-line inside the layer.
+    #[serde(default, deserialize_with = "de_count0")]
+    pub scatterers: usize,
+    /// Mean reflectivity of a scatterer.
+    #[serde(default, deserialize_with = "de_reflectivity")]
+    pub scatterer_reflectivity: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SampleSpec {
+    /// Optical depth of the top surface at the centre of the scan.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub surface_um: f64,
+    /// Curvature: extra depth at the scan's lateral edges (parabolic).
+    #[serde(default, deserialize_with = "de_finite")]
+    pub sag_um: f64,
+    /// Depth change from the first to the last A-line.
+    #[serde(default, deserialize_with = "de_finite")]
+    pub tilt_um: f64,
+    /// Depth change from the first to the last frame.
+    #[serde(default, deserialize_with = "de_finite")]
+    pub frame_tilt_um: f64,
+    pub layers: Vec<Layer>,
+    /// Reflectivity of the interface below the last layer.
+    #[serde(default, deserialize_with = "de_reflectivity")]
+    pub bottom_reflectivity: f64,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct Scene {
+    pub seed: u64,
+    #[serde(deserialize_with = "de_count")]
+    pub frames: usize,
+    #[serde(deserialize_with = "de_count")]
+    pub alines: usize,
+    /// Spectra recorded with the sample arm blocked, stored as /background.
+    #[serde(deserialize_with = "de_count0")]
+    pub background_lines: usize,
+    pub source: SourceSpec,
+    pub spectrometer: SpectrometerSpec,
+    pub detector: DetectorSpec,
+    pub dispersion: DispersionSpec,
+    #[serde(rename = "reflector")]
+    pub reflectors: Vec<Reflector>,
+    pub sample: Option<SampleSpec>,
+}
+
+impl Default for Scene {
+    fn default() -> Self {
+        Scene {
+            seed: 1,
+            frames: 1,
+            alines: 64,
+            background_lines: 16,
+            source: SourceSpec::default(),
+            spectrometer: SpectrometerSpec::default(),
+            detector: DetectorSpec::default(),
+            dispersion: DispersionSpec::default(),
+            reflectors: Vec::new(),
+            sample: None,
+        }
+    }
+}
+
+impl Scene {
+    /// Parses a scene and checks what involves several keys.
+    pub fn from_str(name: &str, text: &str) -> Result<Scene, ConfigError> {
+        let scene: Scene = crate::io::toml_file::parse(name, text)?;
+        let fail = |section: &str, key: &str, message: String| ConfigError {
+            file: name.to_string(),
+            line: crate::io::toml_file::line_of_key(text, section, key),
+            message: format!("{}{key}: {message}", if section.is_empty() { String::new() } else { format!("{section}.") }),
+        };
+        let s = &scene.spectrometer;
+        if s.stop_nm <= s.start_nm {
+            return Err(fail("spectrometer", "stop_nm", format!("must exceed start_nm ({} <= {})", s.stop_nm, s.start_nm)));
+        }
+        if !super::wavelength_map(s).windows(2).all(|w| w[1] > w[0]) {
+            return Err(fail("spectrometer", "nonlinearity_nm", "makes the wavelength map non-monotonic".into()));
+        }
+        if scene.source.shape == SpectrumShape::Gaussians && scene.source.components.is_empty() {
+            return Err(fail("source", "components", "shape = \"gaussians\" needs at least one component".into()));
+        }
+        let max = match scene.detector.dtype {
+            SimDtype::U8 => u8::MAX as f64,
+            SimDtype::U16 => u16::MAX as f64,
+            SimDtype::I16 => i16::MAX as f64,
+            SimDtype::U32 => u32::MAX as f64,
+            SimDtype::F32 | SimDtype::F64 => f64::INFINITY,
+        };
+        if scene.detector.full_scale > max {
+            return Err(fail("detector", "full_scale", format!("{} exceeds the {:?} range", scene.detector.full_scale, scene.detector.dtype)));
+        }
+        Ok(scene)
+    }
+
+    pub fn from_file(path: &std::path::Path) -> Result<Scene, ConfigError> {
+        let name = path.display().to_string();
+        let text = std::fs::read_to_string(path).map_err(|e| ConfigError {
+            file: name.clone(),
+            line: None,
+            message: format!("cannot read: {e}"),
+        })?;
+        Scene::from_str(&name, &text)
+    }
+}
