@@ -103,9 +103,19 @@ pub fn open_hdf5(path: &Path) -> Result<hdf5::File> {
     if meta.is_dir() {
         bail!("is a directory, not a capture file");
     }
-    hdf5::File::open(path).map_err(|_| anyhow!("not an HDF5 file (or a damaged one)"))
+    hdf5::File::open(path).map_err(|e| {
+        let detail = e.to_string();
+        if detail.contains("signature not found") {
+            anyhow!("not an HDF5 file (no HDF5 signature)")
+        } else if detail.contains("truncated file") {
+            anyhow!("truncated HDF5 file ({} bytes on disk, fewer than its header records)", meta.len())
+        } else if detail.contains("lock") {
+            anyhow!("HDF5 file is locked by another program")
+        } else {
+            anyhow!("cannot open as HDF5: {detail}")
+        }
+    })
 }
-
 fn open_dataset(file: &hdf5::File, name: &str) -> Option<Dataset> {
     if file.link_exists(name.trim_start_matches('/')) || file.link_exists(name) {
         file.dataset(name).ok()

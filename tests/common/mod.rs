@@ -1,0 +1,116 @@
+//! Helpers shared by the integration tests: simulate a scene, run the real
+//! binary, read volume.h5 back.
+#![allow(dead_code)]
+
+use fringeflow::simulate::{scene::Scene, simulate, Truth};
+use ndarray::Array3;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
+
+pub fn bin() -> &'static str {
+    env!("CARGO_BIN_EXE_fringeflow")
+}
+
+/// A noise-free mirror scene: f64 samples, no fixed pattern, 840/50 nm
+/// Gaussian on a 765–915 nm band (3 FWHM wide), non-linear map.
+pub fn mirror_scene(depth_um: f64, extra: &str) -> String {
+    format!(
+        r#"
+seed = 11
+frames = 1
+alines = 4
+background_lines = 8
+[source]
+centre_nm = 840.0
+fwhm_nm = 50.0
+[spectrometer]
+pixels = 2048
+start_nm = 765.0
+stop_nm = 915.0
+nonlinearity_nm = [3.0, -1.0]
+[detector]
+dtype = "f64"
+electrons_per_count = 0.0
+read_noise_counts = 0.0
+fixed_pattern_counts = 0.0
+[[reflector]]
+depth_um = {depth_um}
+reflectivity = 1e-4
+{extra}
+"#
+    )
+}
+
+/// Simulates `scene` text into `dir/name.h5`.
+pub fn simulate_scene(dir: &Path, name: &str, scene: &str) -> (PathBuf, Truth) {
+    let scene = Scene::from_str(name, scene).expect("scene parses");
+    let path = dir.join(format!("{name}.h5"));
+    let truth = simulate(&scene, &path).expect("simulation succeeds");
+    (path, truth)
+}
+
+/// Runs `fringeflow run` on `captures` with pipeline text, into `out`.
+pub fn run(dir: &Path, captures: &[&Path], pipeline: &str, out: &Path) -> Output {
+    let p = dir.join(format!("pipeline-{}.toml", sha(pipeline)));
+    std::fs::write(&p, pipeline).unwrap();
+    Command::new(bin())
+        // Test threads write HDF5 files while others spawn the binary; a child
+        // inherits those open descriptors and with them HDF5's file locks, so
+        // the children skip locking (they only read captures other threads finished).
+        .env("HDF5_USE_FILE_LOCKING", "FALSE")
+        .arg("run")
+        .args(captures)
+        .arg("--pipeline")
+        .arg(&p)
+        .arg("--out")
+        .arg(out)
+        .arg("--quiet")
+        .output()
+        .expect("binary runs")
+}
+
+fn sha(s: &str) -> String {
+    fringeflow::io::hash::sha256_hex(s.as_bytes())[..12].to_string()
+}
+
+/// Runs and asserts success.
+pub fn run_ok(dir: &Path, captures: &[&Path], pipeline: &str, out: &Path) {
+    let o = run(dir, captures, pipeline, out);
+    assert!(o.status.success(), "run failed: {}", String::from_utf8_lossy(&o.stderr));
+}
+
+pub struct Volume {
+    /// dB, (frames, depth, A-lines).
+    pub db: Array3<f32>,
+    pub depth_um: Vec<f64>,
+    pub spacing_um: f64,
+}
+
+impl Volume {
+    /// Linear amplitude profile of one A-line.
+    pub fn amplitude(&self, frame: usize, aline: usize) -> Vec<f64> {
+        self.db
+            .slice(ndarray::s![frame, .., aline])
+            .iter()
+            .map(|&d| fringeflow::analysis::amplitude_from_db(d as f64))
+            .collect()
+    }
+}
+
+pub fn read_volume(path: &Path) -> Volume {
+    let f = hdf5::File::open(path).expect("volume opens");
+    let ds = f.dataset("volume_db").unwrap();
+    Volume {
+        db: ds.read::<f32, ndarray::Ix3>().unwrap(),
+        depth_um: f.dataset("depth_um").unwrap().read_raw::<f64>().unwrap(),
+        spacing_um: ds.attr("depth_spacing_um").unwrap().read_scalar::<f64>().unwrap(),
+    }
+}
+
+/// FWHM in µm and sub-pixel peak depth in µm of the brightest peak of a profile.
+pub fn psf(profile: &[f64], spacing_um: f64, first_depth_um: f64) -> (f64, f64) {
+    use fringeflow::analysis::{fwhm, peak, peak_position};
+    let (i, _) = peak(profile, 4, profile.len());
+    let w = fwhm(profile, i).expect("peak has a half-maximum on both sides");
+    (w * spacing_um, first_depth_um + peak_position(profile, i) * spacing_um)
+}
