@@ -37,8 +37,9 @@ pub struct KLinearization {
     /// Spline curvature weights of the left and right sample's second derivative.
     left_curvature: Vec<f64>,
     right_curvature: Vec<f64>,
-    /// Interval widths h_i in k (sorted order).
+    /// Interval widths h_i in k (sorted order) and their inverses.
     h: Vec<f64>,
+    inv_h: Vec<f64>,
     /// Thomas-algorithm coefficients for the natural spline system
     /// (rows 1..n−2): modified super-diagonal and inverse pivots.
     c_prime: Vec<f64>,
@@ -103,9 +104,11 @@ impl KLinearization {
             c_prime[r] = upper / pivot;
         }
 
+        let inv_h = h.iter().map(|v| 1.0 / v).collect();
         KLinearization {
             method,
             order,
+            inv_h,
             interval,
             left_weight,
             left_curvature,
@@ -157,10 +160,10 @@ impl KLinearization {
     fn solve_curvature(&self, y: &[f64], m: &mut [f64]) {
         let n = y.len();
         let rows = n - 2;
-        let h = &self.h;
+        let (h, inv_h) = (&self.h, &self.inv_h);
         // Forward sweep: m[r+1] temporarily holds d'_r.
         for r in 0..rows {
-            let rhs = 6.0 * ((y[r + 2] - y[r + 1]) / h[r + 1] - (y[r + 1] - y[r]) / h[r]);
+            let rhs = 6.0 * ((y[r + 2] - y[r + 1]) * inv_h[r + 1] - (y[r + 1] - y[r]) * inv_h[r]);
             let prev = if r == 0 { 0.0 } else { h[r] * m[r] };
             m[r + 1] = (rhs - prev) * self.inv_pivot[r];
         }
