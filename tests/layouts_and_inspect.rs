@@ -1,0 +1,92 @@
+//! A user's own acquisition layout (other dataset paths, transposed axes,
+//! wavelength map as a polynomial) reconstructs exactly as the default
+//! layout; `inspect` reports problems; clipped fringes are counted and warned.
+
+mod common;
+use common::*;
+use std::process::Command;
+
+#[test]
+fn transposed_layout_with_polynomial_map_matches_default_layout() {
+    let dir = tempfile::tempdir().unwrap();
+    // Linear-in-λ map so that a degree-1 polynomial describes it exactly.
+    let scene = mirror_scene(400.0, "").replace("nonlinearity_nm = [3.0, -1.0]", "").replace("alines = 4", "alines = 6");
+    let (capture, _) = simulate_scene(dir.path(), "standard", &scene);
+
+    // Same spectra stored as (pixels, alines) under /acq/raw, no map dataset.
+    let f = hdf5::File::open(&capture).unwrap();
+    let data = f.dataset("fringes").unwrap().read::<f64, ndarray::Ix3>().unwrap();
+    let background = f.dataset("background").unwrap().read_2d::<f64>().unwrap();
+    let wl = f.dataset("wavelength_nm").unwrap().read_raw::<f64>().unwrap();
+    drop(f);
+    let custom = dir.path().join("custom.h5");
+    {
+        let g = fringeflow::io::h5::create_file(&custom).unwrap();
+        let acq = g.create_group("acq").unwrap();
+        let transposed = data.index_axis(ndarray::Axis(0), 0).t().as_standard_layout().into_owned();
+        acq.new_dataset_builder().with_data(&transposed).create("raw").unwrap();
+        acq.new_dataset_builder().with_data(&background).create("dark").unwrap();
+    }
+    let slope = (wl[wl.len() - 1] - wl[0]) / (wl.len() - 1) as f64;
+    let custom_pipeline = format!(
+        "[input]\nfringes = \"/acq/raw\"\nbackground = \"/acq/dark\"\naxes = [\"pixel\", \"aline\"]\nwavelength_poly_nm = [{}, {}]\n",
+        wl[0], slope
+    );
+    let (a, b) = (dir.path().join("a"), dir.path().join("b"));
+    run_ok(dir.path(), &[&capture], "", &a);
+    run_ok(dir.path(), &[&custom], &custom_pipeline, &b);
+    let va = read_volume(&a.join("standard/volume.h5"));
+    let vb = read_volume(&b.join("custom/volume.h5"));
+    assert_eq!(va.db.dim(), vb.db.dim());
+    let worst = va.db.iter().zip(vb.db.iter()).map(|(x, y)| (x - y).abs()).fold(0f32, f32::max);
+    assert!(worst < 1e-3, "layouts differ by {worst} dB");
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(b.join("custom/log.json")).unwrap()).unwrap();
+    assert_eq!(log["input"]["wavelength_map"]["kind"], "polynomial");
+    assert_eq!(log["input"]["axes"], serde_json::json!(["pixel", "aline"]));
+}
+
+#[test]
+fn inspect_reports_clean_and_faulty_captures() {
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let o = Command::new(bin()).arg("inspect").arg(root.join("sample-data/layered-phantom.h5")).output().unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert!(o.status.success(), "{text}");
+    assert!(text.contains("/fringes") && text.contains("[2, 256, 2048]") && text.contains("u16"), "{text}");
+    assert!(text.contains("problems: none"), "{text}");
+
+    let dir = tempfile::tempdir().unwrap();
+    let p = dir.path().join("faulty.h5");
+    {
+        let f = fringeflow::io::h5::create_file(&p).unwrap();
+        let mut a = ndarray::Array3::<f32>::from_elem((1, 4, 32), 100.0);
+        a[[0, 1, 3]] = f32::NAN;
+        let ds = f.new_dataset_builder().with_data(&a).create("fringes").unwrap();
+        fringeflow::io::h5::write_attr(&ds, "full_scale", 100.0f64).unwrap();
+        let mut m: Vec<f64> = (0..32).map(|i| 800.0 + i as f64).collect();
+        m[10] = 790.0;
+        fringeflow::io::h5::write_1d(&f, "wavelength_nm", &m).unwrap();
+    }
+    let o = Command::new(bin()).arg("inspect").arg(&p).output().unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(o.status.code(), Some(1), "{text}");
+    assert!(text.contains("1 NaN or infinite values"), "{text}");
+    assert!(text.contains("127 samples at or above full scale 100"), "{text}");
+    assert!(text.contains("not monotonic"), "{text}");
+}
+
+#[test]
+fn clipped_fringes_are_counted_and_warned() {
+    let dir = tempfile::tempdir().unwrap();
+    // A strong mirror on a 12-bit camera driven close to full scale.
+    let scene = mirror_scene(300.0, "")
+        .replace("dtype = \"f64\"", "dtype = \"u16\"\nreference_counts = 3000.0")
+        .replace("reflectivity = 1e-4", "reflectivity = 0.05");
+    let (capture, _) = simulate_scene(dir.path(), "bright", &scene);
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&capture], "", &out);
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("bright/log.json")).unwrap()).unwrap();
+    let saturated = log["frames"][0]["saturated_samples"].as_u64().unwrap();
+    assert!(saturated > 100, "{saturated}");
+    let warnings = log["warnings"].as_array().unwrap();
+    assert!(warnings.iter().any(|w| w.as_str().unwrap().contains("fringes clipped")), "{warnings:?}");
+}
