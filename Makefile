@@ -1,6 +1,7 @@
 # fringeflow: the two commands of the README, and their helpers.
 # `make demo` and `make test` install what they need on a fresh Debian 12
-# machine (as root): libhdf5-dev with apt-get, numpy/scipy/h5py with pip.
+# machine (as root): libhdf5-dev (and fontconfig + a font for plots) with
+# apt-get, numpy/scipy/h5py with pip.
 
 CARGO  ?= cargo
 PYTHON ?= python3
@@ -9,9 +10,13 @@ BIN    := target/release/fringeflow
 .PHONY: demo test deps-system deps-python build sample-data bench clean
 
 deps-system:
-	@if ! dpkg -s libhdf5-dev >/dev/null 2>&1 || ! command -v pkg-config >/dev/null 2>&1; then \
-	  echo "== installing libhdf5-dev and pkg-config (apt-get)"; \
-	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq libhdf5-dev pkg-config >/dev/null; \
+	@missing=""; \
+	for p in libhdf5-dev pkg-config libfontconfig1-dev fonts-dejavu-core; do \
+	  dpkg -s $$p >/dev/null 2>&1 || missing="$$missing $$p"; \
+	done; \
+	if [ -n "$$missing" ]; then \
+	  echo "== installing$$missing (apt-get)"; \
+	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq $$missing >/dev/null; \
 	fi
 
 deps-python:

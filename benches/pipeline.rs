@@ -68,7 +68,7 @@ fn bench_pipeline(c: &mut Criterion) {
     config.background.method = fringeflow::pipeline::config::BackgroundMethod::Median;
     config.dispersion.a2 = 20.0;
     config.dispersion.a3 = -5.0;
-    let plan = Plan::new(&config, CaptureGeometry { wavelength_nm: &map, background: None }).unwrap();
+    let plan = Plan::new(&config, CaptureGeometry { wavelength_nm: &map, background: None, source_spectrum: None }).unwrap();
     let mut out = Array2::<f32>::zeros((ALINES, plan.summary.depth_pixels));
     let timer = plan.new_timer();
     let mut group = c.benchmark_group("pipeline");

@@ -12,8 +12,10 @@
 //! touches files; `simulate/` the simulator; `run` one capture end to end.
 
 pub mod analysis;
+pub mod design;
 pub mod inspect;
 pub mod io;
+pub mod measure;
 pub mod physics;
 pub mod pipeline;
 pub mod run;

@@ -101,9 +101,23 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
     let started = Instant::now();
     let capture = Capture::open(input, &config.input)?;
     let sha256 = hash::sha256_file(input).with_context(|| format!("hashing {}", input.display()))?;
+    // Shaping measures the source envelope: the background, else frame 0's mean spectrum.
+    let source_spectrum = match (&capture.background, config.shaping.enabled) {
+        (Some(b), _) => Some(b.clone()),
+        (None, true) => {
+            let mut first = Array2::<f64>::zeros(capture.frame_shape());
+            capture.read_frame(0, &mut first)?;
+            Some(crate::stages::background::mean_spectrum(first.view()))
+        }
+        (None, false) => None,
+    };
     let plan = Plan::new(
         config,
-        CaptureGeometry { wavelength_nm: &capture.wavelength_nm, background: capture.background.as_deref() },
+        CaptureGeometry {
+            wavelength_nm: &capture.wavelength_nm,
+            background: capture.background.as_deref(),
+            source_spectrum: source_spectrum.as_deref(),
+        },
     )?;
     let pipeline_sha256 = config.sha256();
     let summary = plan.summary.clone();

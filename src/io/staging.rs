@@ -9,10 +9,12 @@
 use anyhow::{Context, Result};
 use std::path::{Path, PathBuf};
 
-/// Temporary sibling name for `path`: `.<name>.tmp-<pid>`.
+/// Temporary sibling name for `path`: `.<stem>.tmp-<pid>.<extension>` (the
+/// extension kept, since some encoders choose the format by it).
 pub fn temp_sibling(path: &Path) -> PathBuf {
-    let name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
-    path.with_file_name(format!(".{name}.tmp-{}", std::process::id()))
+    let stem = path.file_stem().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    let ext = path.extension().map(|e| format!(".{}", e.to_string_lossy())).unwrap_or_default();
+    path.with_file_name(format!(".{stem}.tmp-{}{ext}", std::process::id()))
 }
 
 /// Writes `path` by calling `write` on a temporary sibling, then renaming it.

@@ -8,7 +8,7 @@
 use serde::{Deserialize, Deserializer, Serialize};
 use std::path::Path;
 
-use crate::io::toml_file::{self, de_finite, de_positive, de_unit_interval, de_usize_in, ConfigError};
+use crate::io::toml_file::{self, de_finite, de_non_negative, de_positive, de_unit_interval, de_usize_in, ConfigError};
 use crate::stages::k_linearization::Interpolation;
 use crate::stages::log_compression::GreyMapping;
 use crate::stages::window::WindowKind;
@@ -112,6 +112,28 @@ pub struct DispersionConfig {
 impl Default for DispersionConfig {
     fn default() -> Self {
         DispersionConfig { a2: 0.0, a3: 0.0 }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct ShapingConfig {
+    /// Reshape the source spectrum towards a Gaussian (off by default).
+    pub enabled: bool,
+    /// Target centre, nm; 0 means the measured source centre.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub centre_nm: f64,
+    /// Target FWHM, nm; 0 means the measured source FWHM.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub fwhm_nm: f64,
+    /// Envelope level (fraction of its peak) below which the gain is zero.
+    #[serde(deserialize_with = "de_unit_interval")]
+    pub floor: f64,
+}
+
+impl Default for ShapingConfig {
+    fn default() -> Self {
+        ShapingConfig { enabled: false, centre_nm: 0.0, fwhm_nm: 0.0, floor: 0.01 }
     }
 }
 
@@ -221,6 +243,7 @@ pub struct PipelineConfig {
     pub background: BackgroundConfig,
     pub k_linearization: KLinearizationConfig,
     pub dispersion: DispersionConfig,
+    pub shaping: ShapingConfig,
     pub window: WindowConfig,
     pub fft: FftConfig,
     pub log_compression: LogCompressionConfig,

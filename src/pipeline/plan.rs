@@ -21,6 +21,7 @@ use crate::stages::dispersion::Dispersion;
 use crate::stages::fft::Fft;
 use crate::stages::k_linearization::KLinearization;
 use crate::stages::log_compression::LogCompression;
+use crate::stages::shaping::Shaping;
 use crate::stages::window::{self, Window, WindowKind};
 use crate::stages::{ALine, FrameContext, Stage};
 
@@ -33,6 +34,9 @@ pub struct CaptureGeometry<'a> {
     pub wavelength_nm: &'a [f64],
     /// Mean blocked-sample-arm spectrum, when the capture has one.
     pub background: Option<&'a [f64]>,
+    /// Source spectrum in counts per pixel (background, else a frame's mean
+    /// spectrum); needed only by spectral shaping.
+    pub source_spectrum: Option<&'a [f64]>,
 }
 
 /// Quantities derived while planning, logged beside the settings.
@@ -50,6 +54,8 @@ pub struct PlanSummary {
     pub k_max_per_um: f64,
     /// Depth of one output pixel, single pass, in air.
     pub depth_spacing_um: f64,
+    /// Gaussian target of spectral shaping (centre, FWHM in nm), when on.
+    pub shaping_target_nm: Option<[f64; 2]>,
     pub first_depth_bin: usize,
     pub depth_pixels: usize,
     pub stages: Vec<&'static str>,
@@ -105,11 +111,17 @@ impl Plan {
         let klin = KLinearization::new(capture.wavelength_nm, k_samples, config.k_linearization.method);
         let (k_min, k_max) = (klin.k_min_per_um, klin.k_max_per_um);
         let k_span = klin.k_span_per_um();
+        let shaping = Self::plan_shaping(config, &capture, &klin)?;
         stages.push(Box::new(klin));
 
         let d = &config.dispersion;
         if d.a2 != 0.0 || d.a3 != 0.0 {
             stages.push(Box::new(Dispersion::new(d.a2, d.a3, k_samples)));
+        }
+
+        let shaping_target_nm = shaping.as_ref().map(|(_, target)| *target);
+        if let Some((stage, _)) = shaping {
+            stages.push(Box::new(stage));
         }
 
         let w = &config.window;
@@ -153,11 +165,28 @@ impl Plan {
             k_min_per_um: k_min,
             k_max_per_um: k_max,
             depth_spacing_um,
+            shaping_target_nm,
             first_depth_bin: first,
             depth_pixels: end - first,
             stages: stages.iter().map(|s| s.name()).collect(),
         };
         Ok(Plan { stages, summary })
+    }
+
+    /// The shaping stage and its Gaussian target (centre, FWHM in nm), when on.
+    fn plan_shaping(config: &PipelineConfig, capture: &CaptureGeometry<'_>, klin: &KLinearization) -> Result<Option<(Shaping, [f64; 2])>> {
+        let sh = &config.shaping;
+        if !sh.enabled {
+            return Ok(None);
+        }
+        let Some(source) = capture.source_spectrum else {
+            bail!("shaping needs a measured source spectrum (a background dataset or a frame to average)");
+        };
+        let measured = crate::measure::spectrum::estimate(capture.wavelength_nm, source)?;
+        let centre = if sh.centre_nm > 0.0 { sh.centre_nm } else { measured.centre_nm };
+        let fwhm = if sh.fwhm_nm > 0.0 { sh.fwhm_nm } else { measured.fwhm_nm };
+        let (envelope, _) = crate::measure::spectrum::remove_baseline(source);
+        Ok(Some((Shaping::new(klin, &envelope, centre, fwhm, sh.floor), [centre, fwhm])))
     }
 
     /// Names of the stages in order.

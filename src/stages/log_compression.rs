@@ -71,7 +71,8 @@ mod tests {
 
     #[test]
     fn grey_mapping_clamps_and_scales() {
-        let g = grey_levels(&[-10.0, 0.0, 25.0, 50.0, 80.0], 0.0, 50.0, 255.0);
-        assert_eq!(g, vec![0, 0, 128, 255, 255]);
+        // 30 dB of 0..50 dB → 0.6 × 255 = 153.
+        let g = grey_levels(&[-10.0, 0.0, 30.0, 50.0, 80.0], 0.0, 50.0, 255.0);
+        assert_eq!(g, vec![0, 0, 153, 255, 255]);
     }
 }

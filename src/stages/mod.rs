@@ -8,7 +8,7 @@
 //! Data flow through an A-line's buffers:
 //! `spectrum` (camera pixels, real) → background → k-linearization writes
 //! `field` (uniform wavenumber grid, complex, zero-padded) → dispersion →
-//! window → fft writes `amplitude` (positive depths, cropped) → log
+//! shaping → window → fft writes `amplitude` (positive depths, cropped) → log
 //! compression writes `db`.
 
 use ndarray::ArrayView2;
@@ -19,6 +19,7 @@ pub mod dispersion;
 pub mod fft;
 pub mod k_linearization;
 pub mod log_compression;
+pub mod shaping;
 pub mod window;
 
 /// Per-thread working buffers for one A-line, sized once by the plan.

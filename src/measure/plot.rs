@@ -1,0 +1,118 @@
+//! PNG plots of measurements (plotters, bitmap backend, system sans-serif
+//! font via fontconfig).
+
+use anyhow::{anyhow, Result};
+use plotters::prelude::*;
+use std::path::Path;
+
+use super::mirror::MirrorMeasurement;
+use super::rolloff::{model, RolloffReport};
+use crate::io::staging::write_atomically;
+
+pub const WIDTH: u32 = 1000;
+pub const HEIGHT: u32 = 720;
+
+fn err<E: std::fmt::Debug>(e: E) -> anyhow::Error {
+    anyhow!("drawing plot: {e:?}")
+}
+
+/// PSF around its peak: linear amplitude (normalised) above, dB below, with
+/// the FWHM marked.
+pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
+    write_atomically(path, |tmp| {
+        let root = BitMapBackend::new(tmp, (WIDTH, HEIGHT)).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        let (upper, lower) = root.split_vertically(HEIGHT / 2);
+        let peak = m.profile.iter().copied().fold(f64::MIN, f64::max);
+        let span = (12.0 * m.fwhm_um_air).max(20.0);
+        let (z0, z1) = (m.peak_depth_um - span, m.peak_depth_um + span);
+        let pts: Vec<(f64, f64)> = m
+            .depth_um
+            .iter()
+            .zip(m.profile.iter())
+            .filter(|(z, _)| **z >= z0 && **z <= z1)
+            .map(|(z, a)| (*z, *a / peak))
+            .collect();
+        let half = (m.peak_depth_um - m.fwhm_um_air / 2.0, m.peak_depth_um + m.fwhm_um_air / 2.0);
+
+        let mut chart = ChartBuilder::on(&upper)
+            .caption(
+                format!("Axial PSF: FWHM {:.2} µm in air (limit {:.2} µm, ratio {:.3})", m.fwhm_um_air, m.source.coherence_length_um, m.fwhm_over_limit),
+                ("sans-serif", 20),
+            )
+            .margin(12)
+            .x_label_area_size(36)
+            .y_label_area_size(56)
+            .build_cartesian_2d(z0..z1, 0.0..1.05)
+            .map_err(err)?;
+        chart.configure_mesh().x_desc("depth (µm, air)").y_desc("amplitude / peak").draw().map_err(err)?;
+        chart.draw_series(LineSeries::new(pts.iter().copied(), &BLUE)).map_err(err)?;
+        chart
+            .draw_series(std::iter::once(PathElement::new(vec![(half.0, 0.5), (half.1, 0.5)], RED.stroke_width(2))))
+            .map_err(err)?;
+
+        let floor_db = (m.noise_floor_db - m.peak_db - 10.0).max(-100.0).min(-20.0);
+        let mut chart = ChartBuilder::on(&lower)
+            .caption(
+                format!(
+                    "dB: highest side lobe {}, SNR {:.1} dB",
+                    match (m.side_lobe_db, m.side_lobe_above_noise) {
+                        (Some(s), true) => format!("{s:.1} dB"),
+                        _ => "below the noise".into(),
+                    },
+                    m.snr_db
+                ),
+                ("sans-serif", 20),
+            )
+            .margin(12)
+            .x_label_area_size(36)
+            .y_label_area_size(56)
+            .build_cartesian_2d(z0..z1, floor_db..3.0)
+            .map_err(err)?;
+        chart.configure_mesh().x_desc("depth (µm, air)").y_desc("dB re peak").draw().map_err(err)?;
+        chart
+            .draw_series(LineSeries::new(pts.iter().map(|(z, a)| (*z, (20.0 * a.log10()).max(floor_db))), &BLUE))
+            .map_err(err)?;
+        chart
+            .draw_series(std::iter::once(PathElement::new(vec![(half.0, -6.02), (half.1, -6.02)], RED.stroke_width(2))))
+            .map_err(err)?;
+        root.present().map_err(err)?;
+        Ok(())
+    })
+}
+
+/// Peak dB against depth with the fitted model and the −6 dB depth.
+pub fn rolloff(path: &Path, r: &RolloffReport) -> Result<()> {
+    write_atomically(path, |tmp| {
+        let root = BitMapBackend::new(tmp, (WIDTH, HEIGHT)).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        let zmax = r.points.iter().map(|p| p.depth_um).fold(0.0, f64::max).max(r.fit.rolloff_6db_depth_um) * 1.15;
+        let ymax = r.fit.a0_db + 3.0;
+        let ymin = r.points.iter().map(|p| p.peak_db).fold(f64::MAX, f64::min).min(r.fit.a0_db - 6.0) - 6.0;
+        let mut chart = ChartBuilder::on(&root)
+            .caption(format!("Roll-off: −6 dB at {:.0} µm (fit RMS {:.2} dB)", r.fit.rolloff_6db_depth_um, r.fit.rms_residual_db), ("sans-serif", 22))
+            .margin(14)
+            .x_label_area_size(40)
+            .y_label_area_size(60)
+            .build_cartesian_2d(0.0..zmax, ymin..ymax)
+            .map_err(err)?;
+        chart.configure_mesh().x_desc("mirror depth (µm, air)").y_desc("peak (dB)").draw().map_err(err)?;
+        let curve = (0..=400).map(|i| {
+            let z = zmax * i as f64 / 400.0;
+            (z, r.fit.a0_db + 20.0 * model(z, r.fit.pixel_dk_per_um, r.fit.sigma_k_per_um).max(1e-9).log10())
+        });
+        chart.draw_series(LineSeries::new(curve, &BLUE)).map_err(err)?;
+        chart
+            .draw_series(r.points.iter().map(|p| Circle::new((p.depth_um, p.peak_db), 5, RED.filled())))
+            .map_err(err)?;
+        let z6 = r.fit.rolloff_6db_depth_um;
+        chart
+            .draw_series(std::iter::once(PathElement::new(vec![(z6, ymin), (z6, ymax)], BLACK.stroke_width(1))))
+            .map_err(err)?;
+        chart
+            .draw_series(std::iter::once(PathElement::new(vec![(0.0, r.fit.a0_db - 6.02), (zmax, r.fit.a0_db - 6.02)], BLACK.stroke_width(1))))
+            .map_err(err)?;
+        root.present().map_err(err)?;
+        Ok(())
+    })
+}
