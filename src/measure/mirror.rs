@@ -94,7 +94,8 @@ pub fn measure(path: &Path, config: &PipelineConfig, frame: usize, group_index: 
     let skip = 4 * pad;
     let (i, peak) = analysis::peak(&profile, skip, depth);
     let fwhm_px = analysis::fwhm(&profile, i);
-    let guard = (fwhm_px.unwrap_or(pad as f64) * 20.0) as usize + pad;
+    // Exclude ±20 FWHM around the peak from the noise, at most an eighth of the depth.
+    let guard = ((fwhm_px.unwrap_or(pad as f64) * 20.0) as usize + pad).min(depth / 8);
     let noise_index: Vec<usize> = (skip..depth).filter(|&j| j + guard < i || j > i + guard).collect();
     if noise_index.len() < 16 {
         bail!("no room for a noise estimate: the peak fills the depth range");
