@@ -25,6 +25,18 @@ pub enum Interpolation {
 }
 
 /// Precomputed resampling from pixels to a uniform wavenumber grid.
+///
+/// ```
+/// use fringeflow::stages::k_linearization::{Interpolation, KLinearization};
+/// use rustfft::num_complex::Complex64;
+/// // A camera with pixels evenly spaced in wavelength, 800–900 nm.
+/// let map: Vec<f64> = (0..64).map(|p| 800.0 + 100.0 * p as f64 / 63.0).collect();
+/// let plan = KLinearization::new(&map, 64, Interpolation::Cubic);
+/// let spectrum = vec![1.0; 64];
+/// let mut out = vec![Complex64::new(0.0, 0.0); 64];
+/// plan.resample(&spectrum, &mut vec![0.0; 64], &mut vec![0.0; 64], &mut out);
+/// assert!(out.iter().all(|v| (v.re - 1.0).abs() < 1e-12)); // flat stays flat
+/// ```
 #[derive(Debug, Clone)]
 pub struct KLinearization {
     method: Interpolation,

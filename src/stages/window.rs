@@ -25,6 +25,13 @@ pub enum WindowKind {
 }
 
 /// Window coefficients for `samples` points.
+///
+/// ```
+/// use fringeflow::stages::window::{coefficients, WindowKind};
+/// let hann = coefficients(WindowKind::Hann, 5, 0.5, 0.5);
+/// assert_eq!(hann.len(), 5);
+/// assert!((hann[2] - 1.0).abs() < 1e-12 && hann[0].abs() < 1e-12);
+/// ```
 pub fn coefficients(kind: WindowKind, samples: usize, gaussian_fwhm: f64, tukey_alpha: f64) -> Vec<f64> {
     let m = (samples - 1) as f64;
     (0..samples)
