@@ -4,9 +4,11 @@
 //! Formulas (FIELD-NOTES; Leitgeb et al. 2003, Opt. Express 11:889):
 //! axial resolution l_c = (2 ln2/π)·λ0²/Δλ in air, l_c/n in the sample;
 //! depth pixel spacing λ0²/(2·Δλ_span) in air; maximum (Nyquist) depth
-//! λ0²/(4·n·δλ), δλ = span/pixels; −6 dB roll-off depth for a Gaussian
-//! spectral response of FWHM δλ_r: the visibility exp(−2σ_k²z²) falls to ½
-//! at z = (ln2/π)·λ0²/δλ_r (in air), i.e. half the coherence length of a
+//! λ0²/(4·n·δλ), δλ = span/pixels; −6 dB roll-off depth where the fringe
+//! visibility sinc(z·δk)·exp(−2σ_k²z²) falls to ½ (the model of
+//! `measure rolloff`: pixels of width δk that integrate, with a Gaussian
+//! spectral response of FWHM δλ_r; σ_k and δk taken at λ0). Without the
+//! pixel term this is z = (ln2/π)·λ0²/δλ_r, half the coherence length of a
 //! source as wide as the response.
 
 use serde::Serialize;
@@ -47,7 +49,9 @@ pub fn design(input: DesignInput) -> DesignReport {
     let axial = physics::coherence_length_um(l0, input.source_fwhm_nm);
     let spacing = l0 * l0 / (2.0 * input.span_nm) * 1e-3;
     let max_depth = physics::max_depth_um(l0, pixel_width_nm, 1.0);
-    let rolloff = std::f64::consts::LN_2 / std::f64::consts::PI * l0 * l0 / input.resolution_nm * 1e-3;
+    let to_k = |width_nm: f64| 2.0 * std::f64::consts::PI * width_nm * 1e-3 / (l0 * 1e-3).powi(2);
+    let sigma_k = to_k(input.resolution_nm) / (2.0 * (2.0 * std::f64::consts::LN_2).sqrt());
+    let rolloff = crate::measure::rolloff::half_depth(to_k(pixel_width_nm), sigma_k);
     let ratio = input.span_nm / input.source_fwhm_nm;
     let mut warnings = Vec::new();
     if ratio < 3.0 {
@@ -119,12 +123,17 @@ mod tests {
     }
 
     #[test]
-    fn rolloff_depth_is_half_the_coherence_length_of_the_response() {
-        let r = design(DesignInput { resolution_nm: 0.1, ..input(840.0, 50.0, 150.0, 2048) });
-        assert!((r.rolloff_6db_depth_air_um - physics::coherence_length_um(840.0, 0.1) / 2.0).abs() < 1e-9);
-        // Check against the visibility model directly.
+    fn gaussian_response_alone_gives_half_the_coherence_length() {
+        // exp(−2σ_k²z²) = ½ ⇔ z = (ln2/π)·λ0²/δλ_r = l_c(δλ_r)/2.
         let sigma_k = 2.0 * std::f64::consts::PI * 0.1e-3 / 0.84f64.powi(2) / (2.0 * (2.0 * std::f64::consts::LN_2).sqrt());
-        let v = (-2.0 * sigma_k * sigma_k * r.rolloff_6db_depth_air_um.powi(2)).exp();
-        assert!((v - 0.5).abs() < 1e-9, "{v}");
+        let z = crate::measure::rolloff::half_depth(0.0, sigma_k);
+        assert!((z - physics::coherence_length_um(840.0, 0.1) / 2.0).abs() < 1e-6, "{z}");
+    }
+
+    #[test]
+    fn pixel_integration_shortens_the_rolloff() {
+        let r = design(DesignInput { resolution_nm: 0.1, ..input(840.0, 50.0, 150.0, 2048) });
+        let gaussian_only = physics::coherence_length_um(840.0, 0.1) / 2.0;
+        assert!(r.rolloff_6db_depth_air_um < gaussian_only && r.rolloff_6db_depth_air_um > 0.8 * gaussian_only);
     }
 }

@@ -123,6 +123,15 @@ fn design_matches_the_published_formulas() {
     let r = json(&fringeflow(&["design", "--centre-nm", "1300", "--fwhm-nm", "100", "--pixel-width-nm", "0.1", "--pixels", "2048", "--group-index", "1.4", "--json"], dir.path()));
     assert!((r["axial_resolution_air_um"].as_f64().unwrap() - 7.5).abs() < 0.05);
     assert!((r["input"]["span_nm"].as_f64().unwrap() - 204.8).abs() < 1e-9);
+    // The roll-off estimate uses the simulator's visibility model: a scene
+    // with the same source and spectrometer (linear map, 0.1 nm response,
+    // integrating pixels) has its truth within 2 %.
+    let scene = mirror_scene(300.0, "").replace("nonlinearity_nm = [3.0, -1.0]", "resolution_nm = 0.1\npixel_integration = true");
+    let (_, truth) = simulate_scene(dir.path(), "design-check", &scene);
+    let r = json(&fringeflow(&["design", "--centre-nm", "840", "--fwhm-nm", "50", "--span-nm", "150", "--pixels", "2048", "--resolution-nm", "0.1", "--json"], dir.path()));
+    let (est, sim) = (r["rolloff_6db_depth_air_um"].as_f64().unwrap(), truth.rolloff_6db_depth_um.unwrap());
+    eprintln!("design −6 dB depth {est:.0} µm, simulator {sim:.0} µm");
+    assert!((est - sim).abs() / sim < 0.02, "{est} vs {sim}");
     let table = fringeflow(&["design", "--centre-nm", "840", "--fwhm-nm", "50", "--span-nm", "100", "--pixels", "2048"], dir.path());
     let text = String::from_utf8_lossy(&table.stdout);
     assert!(text.contains("axial resolution") && text.contains("6.227"), "{text}");
