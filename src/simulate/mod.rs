@@ -158,7 +158,9 @@ fn optics(scene: &Scene, wl: &[f64]) -> Optics {
 fn sample_offset(scene: &Scene, a: usize, f: usize) -> f64 {
     let Some(s) = &scene.sample else { return 0.0 };
     let u = if scene.alines > 1 { a as f64 / (scene.alines - 1) as f64 } else { 0.5 };
-    let v = if scene.frames > 1 { f as f64 / (scene.frames - 1) as f64 } else { 0.5 };
+    let positions = scene.frames / scene.repeats;
+    let position = f / scene.repeats;
+    let v = if positions > 1 { position as f64 / (positions - 1) as f64 } else { 0.5 };
     s.sag_um * (2.0 * u - 1.0).powi(2) + s.tilt_um * (u - 0.5) + s.frame_tilt_um * (v - 0.5)
 }
 
@@ -176,7 +178,8 @@ fn interfaces(scene: &Scene) -> Vec<(f64, f64)> {
 }
 
 /// One A-line's spectrum in counts, before noise and clipping.
-/// `sample_arm` false gives the blocked-sample-arm background.
+/// `sample_arm` false gives the blocked-sample-arm background. `rng` draws
+/// the scatterers: seeded by position, so repeated B-scans see the same sample.
 fn clean_spectrum(scene: &Scene, o: &Optics, a: usize, f: usize, sample_arm: bool, rng: &mut ChaCha8Rng, out: &mut [f64]) {
     // (depth, reflectivity, takes part in sample–sample terms)
     let mut reflectors: Vec<(f64, f64, bool)> = Vec::new();
@@ -246,11 +249,15 @@ fn simulate_rows(scene: &Scene, o: &Optics, f: usize, rows: usize, sample_arm: b
         .par_chunks_mut(pixels)
         .enumerate()
         .for_each(|(a, line)| {
-            let stream = ((f as u64) << 32) | a as u64 | if sample_arm { 0 } else { 1 << 62 };
-            let mut rng = ChaCha8Rng::seed_from_u64(scene.seed);
-            rng.set_stream(stream);
-            clean_spectrum(scene, o, a, f, sample_arm, &mut rng, line);
-            detect(scene, o, &mut rng, line);
+            // Separate streams: the sample's scatterers (by slow-axis position)
+            // and the detector noise (by frame), for A-line a.
+            let kind = if sample_arm { 0 } else { 1u64 << 62 };
+            let mut sample_rng = ChaCha8Rng::seed_from_u64(scene.seed);
+            sample_rng.set_stream(kind | (1 << 61) | (((f / scene.repeats) as u64) << 32) | a as u64);
+            let mut noise_rng = ChaCha8Rng::seed_from_u64(scene.seed);
+            noise_rng.set_stream(kind | ((f as u64) << 32) | a as u64);
+            clean_spectrum(scene, o, a, f, sample_arm, &mut sample_rng, line);
+            detect(scene, o, &mut noise_rng, line);
         });
     out
 }

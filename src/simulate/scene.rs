@@ -218,6 +218,10 @@ pub struct Scene {
     /// Spectra recorded with the sample arm blocked, stored as /background.
     #[serde(deserialize_with = "de_count0")]
     pub background_lines: usize,
+    /// Repeated B-scans per slow-axis position: groups of this many
+    /// consecutive frames image the same sample with independent noise.
+    #[serde(deserialize_with = "de_count")]
+    pub repeats: usize,
     pub source: SourceSpec,
     pub spectrometer: SpectrometerSpec,
     pub detector: DetectorSpec,
@@ -234,6 +238,7 @@ impl Default for Scene {
             frames: 1,
             alines: 64,
             background_lines: 16,
+            repeats: 1,
             source: SourceSpec::default(),
             spectrometer: SpectrometerSpec::default(),
             detector: DetectorSpec::default(),
@@ -253,6 +258,9 @@ impl Scene {
             line: crate::io::toml_file::line_of_key(text, section, key),
             message: format!("{}{key}: {message}", if section.is_empty() { String::new() } else { format!("{section}.") }),
         };
+        if scene.frames % scene.repeats != 0 {
+            return Err(fail("", "repeats", format!("frames ({}) must be a multiple of repeats ({})", scene.frames, scene.repeats)));
+        }
         let s = &scene.spectrometer;
         if s.stop_nm <= s.start_nm {
             return Err(fail("spectrometer", "stop_nm", format!("must exceed start_nm ({} <= {})", s.stop_nm, s.start_nm)));
