@@ -13,20 +13,63 @@ pub struct Cli {
 
 #[derive(Debug, Subcommand)]
 pub enum Command {
-    /// Reconstruct captures into DIR/<capture-stem>/: PNG per frame, volume.h5, log.json.
+    /// Reconstruct captures into DIR/<capture-stem>/: PNG per frame, volume.h5, log.json; batch.json summarises.
     Run {
-        /// Capture files (HDF5).
-        #[arg(required = true)]
+        /// Capture files, directories of captures, or quoted glob patterns.
+        #[arg(required_unless_present = "list")]
         captures: Vec<PathBuf>,
+        /// A file listing captures, one per line (# starts a comment).
+        #[arg(long)]
+        list: Option<PathBuf>,
         /// Pipeline file (TOML); built-in defaults when omitted.
         #[arg(long, short)]
         pipeline: Option<PathBuf>,
         /// Output directory.
         #[arg(long, short)]
         out: PathBuf,
-        /// No progress bar or per-capture lines.
+        /// Skip captures whose outputs are complete and were made from the
+        /// same input (SHA-256) with the same pipeline.
+        #[arg(long)]
+        resume: bool,
+        /// Process only slice I of N (0 <= I < N) of the sorted inputs; by
+        /// default taken from SLURM_ARRAY_TASK_ID/COUNT when set.
+        #[arg(long, value_name = "I/N")]
+        shard: Option<String>,
+        /// No progress bars, per-capture lines or summary table.
         #[arg(long, short)]
         quiet: bool,
+    },
+    /// Reproduce an output from its log.json alone (input checked by SHA-256).
+    Rerun {
+        log: PathBuf,
+        /// Output directory for the reproduction.
+        #[arg(long, short)]
+        out: PathBuf,
+    },
+    /// Merge the batch summaries in DIR (one per shard) into DIR/summary.json.
+    Summarize { dir: PathBuf },
+    /// Print an sbatch job-array script that reconstructs a list of captures.
+    SlurmScript {
+        /// File listing the captures, one per line.
+        #[arg(long)]
+        list: PathBuf,
+        #[arg(long, short)]
+        pipeline: PathBuf,
+        #[arg(long, short)]
+        out: PathBuf,
+        /// Array tasks (each takes one balanced slice of the list).
+        #[arg(long, default_value_t = 4)]
+        tasks: usize,
+        #[arg(long, default_value_t = 2)]
+        cpus_per_task: usize,
+        #[arg(long, default_value = "2G")]
+        mem: String,
+        #[arg(long, default_value = "04:00:00")]
+        time: String,
+        #[arg(long)]
+        partition: Option<String>,
+        #[arg(long, default_value = "fringeflow")]
+        job_name: String,
     },
     /// Simulate a capture from a scene file, with its ground truth beside it.
     Simulate {

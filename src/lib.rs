@@ -12,6 +12,7 @@
 //! touches files; `simulate/` the simulator; `run` one capture end to end.
 
 pub mod analysis;
+pub mod batch;
 pub mod design;
 pub mod inspect;
 pub mod io;

@@ -6,7 +6,6 @@ mod cli;
 
 use anyhow::Result;
 use clap::Parser;
-use indicatif::{ProgressBar, ProgressStyle};
 use std::collections::BTreeMap;
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
@@ -27,69 +26,144 @@ fn load_pipeline(path: Option<&Path>) -> Result<PipelineConfig, ExitCode> {
     }
 }
 
-fn frames_of(path: &Path, config: &PipelineConfig) -> u64 {
-    fringeflow::io::capture::Capture::open(path, &config.input).map(|c| c.frames as u64).unwrap_or(0)
-}
-
-fn run(captures: &[PathBuf], pipeline: Option<&Path>, out: &Path, quiet: bool) -> ExitCode {
+fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: &Path, resume: bool, shard: Option<&str>, quiet: bool) -> ExitCode {
+    use fringeflow::batch::{self, inputs};
     let config = match load_pipeline(pipeline) {
         Ok(c) => c,
         Err(code) => return code,
     };
+    let all = match inputs::expand(captures, list) {
+        Ok(a) => a,
+        Err(e) => return fail(2, format!("{e:#}")),
+    };
+    if all.is_empty() {
+        return fail(2, "no captures given");
+    }
     let mut names = BTreeMap::new();
-    for c in captures {
+    for c in &all {
         if let Some(other) = names.insert(fringeflow::run::output_name(c), c) {
             return fail(2, format!("{} and {} would both write {}", other.display(), c.display(), out.join(fringeflow::run::output_name(c)).display()));
         }
     }
-    let show = !quiet && std::io::stderr().is_terminal();
-    let bar = show.then(|| {
-        let total: u64 = captures.iter().map(|c| frames_of(c, &config)).sum();
-        let bar = ProgressBar::new(total);
-        bar.set_style(ProgressStyle::with_template("{bar:40} {pos}/{len} frames {elapsed} {msg}").unwrap());
-        bar
-    });
-    let mut failed = 0;
-    for capture in captures {
-        if let Some(b) = &bar {
-            b.set_message(capture.display().to_string());
-        }
-        match fringeflow::run::process_capture(capture, &config, out, bar.as_ref()) {
-            Ok(done) => {
-                if !quiet {
-                    let line = format!(
-                        "{}: {} frames × {} A-lines in {:.2} s ({:.0} A-lines/s) → {}",
-                        capture.display(),
-                        done.frames,
-                        done.alines,
-                        done.seconds,
-                        (done.frames * done.alines) as f64 / done.seconds,
-                        done.output_dir.display()
-                    );
-                    match &bar {
-                        Some(b) => b.println(line),
-                        None => eprintln!("{line}"),
-                    }
-                }
-            }
-            Err(e) => {
-                failed += 1;
-                let line = format!("fringeflow: error: {}: {e:#}", capture.display());
-                match &bar {
-                    Some(b) => b.println(line),
-                    None => eprintln!("{line}"),
-                }
-            }
-        }
+    let shard = match shard {
+        Some(s) => inputs::Shard::parse(s),
+        None => inputs::Shard::from_env(|k| std::env::var(k).ok()).map(|s| s.unwrap_or(inputs::Shard::WHOLE)),
+    };
+    let shard = match shard {
+        Ok(s) => s,
+        Err(e) => return fail(2, format!("{e:#}")),
+    };
+    let mine = shard.select(&all);
+    let stop = match batch::StopSignals::install() {
+        Ok(s) => s,
+        Err(e) => return fail(1, format!("{e:#}")),
+    };
+    let options = batch::BatchOptions { resume, quiet, terminal: std::io::stderr().is_terminal(), shard, inputs_total: all.len() };
+    let report = match batch::run_batch(&mine, &config, out, &options, &stop) {
+        Ok(r) => r,
+        Err(e) => return fail(1, format!("{e:#}")),
+    };
+    if !quiet {
+        print!("{}", report.render());
     }
-    if let Some(b) = bar {
-        b.finish_and_clear();
+    if let Some((_, code)) = stop.stopped() {
+        return ExitCode::from(code);
     }
-    if failed > 0 {
+    if report.counts.failed > 0 {
         ExitCode::from(1)
     } else {
         ExitCode::SUCCESS
     }
+}
+
+fn rerun(log_path: &Path, out: &Path) -> ExitCode {
+    let log: serde_json::Value = match std::fs::read(log_path).map_err(anyhow::Error::from).and_then(|b| Ok(serde_json::from_slice(&b)?)) {
+        Ok(v) => v,
+        Err(e) => return fail(2, format!("{}: not a readable processing log: {e}", log_path.display())),
+    };
+    let (Some(input), Some(sha)) = (log["input"]["path"].as_str(), log["input"]["sha256"].as_str()) else {
+        return fail(2, format!("{}: the log has no input path and SHA-256", log_path.display()));
+    };
+    let config: PipelineConfig = match serde_json::from_value(log["pipeline"].clone()) {
+        Ok(c) => c,
+        Err(e) => return fail(2, format!("{}: its pipeline section does not parse: {e}", log_path.display())),
+    };
+    let input = PathBuf::from(input);
+    match fringeflow::io::hash::sha256_file(&input) {
+        Ok(h) if h == sha => {}
+        Ok(h) => return fail(1, format!("{}: SHA-256 is {h}, the log recorded {sha}: not the same input", input.display())),
+        Err(e) => return fail(1, format!("{}: {e}", input.display())),
+    }
+    match fringeflow::run::process_capture(&input, &config, out, Default::default()) {
+        Ok(o) => {
+            eprintln!("reproduced {} → {}", input.display(), o.output_dir.display());
+            ExitCode::SUCCESS
+        }
+        Err(e) => fail(1, format!("{}: {e:#}", input.display())),
+    }
+}
+
+fn summarize(dir: &Path) -> ExitCode {
+    let (report, problems) = match fringeflow::batch::merge_reports(dir) {
+        Ok(r) => r,
+        Err(e) => return fail(1, format!("{e:#}")),
+    };
+    let path = dir.join("summary.json");
+    let json = serde_json::to_vec_pretty(&serde_json::json!({ "report": report, "problems": problems })).unwrap();
+    if let Err(e) = fringeflow::io::staging::write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &json)?)) {
+        return fail(1, format!("{e:#}"));
+    }
+    print!("{}", report.render());
+    for p in &problems {
+        eprintln!("fringeflow: problem: {p}");
+    }
+    if problems.is_empty() && report.counts.failed == 0 && report.counts.not_run == 0 {
+        ExitCode::SUCCESS
+    } else {
+        ExitCode::from(1)
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: usize, mem: &str, time: &str, partition: Option<&str>, job_name: &str) -> ExitCode {
+    if tasks == 0 || cpus == 0 {
+        return fail(2, "--tasks and --cpus-per-task must be at least 1");
+    }
+    let abs = |p: &Path| std::path::absolute(p).unwrap_or_else(|_| p.to_path_buf());
+    if let Err(e) = PipelineConfig::from_file(pipeline) {
+        return fail(2, e);
+    }
+    let n = match fringeflow::batch::inputs::expand(&[], Some(list)) {
+        Ok(v) => v.len(),
+        Err(e) => return fail(2, format!("{e:#}")),
+    };
+    let exe = std::env::current_exe().map(|p| abs(&p)).unwrap_or_else(|_| PathBuf::from("fringeflow"));
+    let (list, pipeline, out) = (abs(list), abs(pipeline), abs(out));
+    let q = |p: &Path| format!("'{}'", p.display().to_string().replace('\'', "'\\''"));
+    let mut s = String::new();
+    s += "#!/bin/bash\n";
+    s += &format!("#SBATCH --job-name={job_name}\n#SBATCH --array=0-{}\n", tasks - 1);
+    s += &format!("#SBATCH --cpus-per-task={cpus}\n#SBATCH --mem={mem}\n#SBATCH --time={time}\n");
+    if let Some(p) = partition {
+        s += &format!("#SBATCH --partition={p}\n");
+    }
+    s += &format!("#SBATCH --output={}/slurm-%A_%a.log\n", out.display());
+    s += &format!(
+        "# Generated by fringeflow {}: {n} captures in {tasks} array tasks; task i\n\
+         # reconstructs slice i of the sorted list (from SLURM_ARRAY_TASK_ID/COUNT)\n\
+         # and writes batch-i-of-{tasks}.json. Requeued or repeated tasks skip\n\
+         # finished captures (--resume). When all tasks are done:\n\
+         #   {} summarize {}\n",
+        env!("CARGO_PKG_VERSION"),
+        exe.display(),
+        q(&out)
+    );
+    s += "set -euo pipefail\n";
+    s += &format!("mkdir -p {}\n", q(&out));
+    s += "export RAYON_NUM_THREADS=\"${SLURM_CPUS_PER_TASK:-1}\"\n";
+    s += &format!("exec {} run --list {} --pipeline {} --out {} --resume --quiet\n", q(&exe), q(&list), q(&pipeline), q(&out));
+    print!("{s}");
+    ExitCode::SUCCESS
 }
 
 fn measure(command: MeasureCommand) -> ExitCode {
@@ -168,7 +242,14 @@ fn measure(command: MeasureCommand) -> ExitCode {
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match cli.command {
-        Command::Run { captures, pipeline, out, quiet } => run(&captures, pipeline.as_deref(), &out, quiet),
+        Command::Run { captures, list, pipeline, out, resume, shard, quiet } => {
+            run(&captures, list.as_deref(), pipeline.as_deref(), &out, resume, shard.as_deref(), quiet)
+        }
+        Command::Rerun { log, out } => rerun(&log, &out),
+        Command::Summarize { dir } => summarize(&dir),
+        Command::SlurmScript { list, pipeline, out, tasks, cpus_per_task, mem, time, partition, job_name } => {
+            slurm_script(&list, &pipeline, &out, tasks, cpus_per_task, &mem, &time, partition.as_deref(), &job_name)
+        }
         Command::Simulate { scene, out } => {
             let scene = match fringeflow::simulate::scene::Scene::from_file(&scene) {
                 Ok(s) => s,

@@ -1,23 +1,27 @@
-//! Reconstructing one capture: read frames, run the plan, write one PNG per
-//! frame, volume.h5 and log.json, all staged so that a failure leaves nothing.
+//! Reconstructing one capture: read frames, run the plan, optionally average
+//! repeated B-scans, write one PNG per frame (or position), volume.h5, an en
+//! face projection and log.json, all staged so that a failure or an
+//! interruption leaves nothing.
 //!
-//! The log holds everything needed to reproduce the outputs; its `timing`
-//! section is the only part that changes between identical runs.
+//! The log holds everything needed to reproduce the outputs (`rerun` reads
+//! it); its `timing` section is the only part that changes between
+//! identical runs.
 
-use anyhow::{Context, Result};
+use anyhow::{bail, Context, Result};
 use indicatif::ProgressBar;
 use ndarray::Array2;
 use serde::Serialize;
 use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Instant;
 
 use crate::io::capture::{Capture, SampleType, WavelengthSource};
 use crate::io::staging::Staging;
 use crate::io::volume::{VolumeAttributes, VolumeWriter};
 use crate::io::{hash, png};
-use crate::pipeline::config::{AxisName, PipelineConfig};
+use crate::pipeline::config::{AxisName, PipelineConfig, Projection};
 use crate::pipeline::plan::{CaptureGeometry, Plan, PlanSummary};
-use crate::stages::log_compression::{grey_levels, noise_floor_db, GreyMapping};
+use crate::stages::log_compression::{grey_levels, noise_floor_db, to_db, GreyMapping};
 
 #[derive(Debug, Serialize)]
 pub struct ToolInfo {
@@ -43,12 +47,31 @@ pub struct InputInfo {
 
 #[derive(Debug, Serialize)]
 pub struct FrameRecord {
+    /// Output frame (slow-axis position when averaging).
     pub index: usize,
+    /// Input frames that made it.
+    pub input_frames: [usize; 2],
     pub noise_floor_db: f64,
     pub peak_db: f64,
     pub saturated_samples: u64,
     pub grey_black_db: f64,
     pub grey_white_db: f64,
+}
+
+/// Effect of averaging repeated B-scans, measured on the first position.
+#[derive(Debug, Serialize)]
+pub struct AveragingRecord {
+    pub frames_per_position: usize,
+    /// Median dB (noise floor) of one B-scan and of the average.
+    pub noise_floor_single_db: f64,
+    pub noise_floor_averaged_db: f64,
+    /// Standard deviation of the noise (linear amplitude of the pixels below
+    /// the averaged frame's median), one B-scan and averaged, and the
+    /// reduction 20·log10(single/averaged); independent noise gives about
+    /// 10·log10(N) dB.
+    pub noise_sd_single: f64,
+    pub noise_sd_averaged: f64,
+    pub noise_sd_reduction_db: f64,
 }
 
 #[derive(Debug, Serialize)]
@@ -61,6 +84,8 @@ pub struct Timing {
     pub total_seconds: f64,
     pub alines_per_second: f64,
     pub threads: usize,
+    /// Peak resident memory of the process so far (VmHWM), MB.
+    pub peak_resident_mb: Option<f64>,
 }
 
 /// Contents of log.json.
@@ -72,18 +97,36 @@ pub struct ProcessingLog {
     pub pipeline_sha256: String,
     pub derived: PlanSummary,
     pub frames: Vec<FrameRecord>,
+    pub averaging: Option<AveragingRecord>,
     pub outputs: Vec<String>,
     pub warnings: Vec<String>,
     pub timing: Timing,
 }
 
-/// Summary of a finished capture.
+/// What happened to a capture.
 #[derive(Debug, Clone)]
 pub struct CaptureOutcome {
     pub output_dir: PathBuf,
     pub frames: usize,
     pub alines: usize,
     pub seconds: f64,
+    /// Skipped by `resume`: the existing outputs are up to date.
+    pub skipped: bool,
+}
+
+/// The run was stopped by a signal; nothing of this capture was kept.
+#[derive(Debug, thiserror::Error)]
+#[error("interrupted before completion; nothing written")]
+pub struct Interrupted;
+
+/// How a capture is processed beyond its pipeline.
+#[derive(Default, Clone, Copy)]
+pub struct RunContext<'a> {
+    pub progress: Option<&'a ProgressBar>,
+    /// Checked between frames; when set, the capture is abandoned.
+    pub cancel: Option<&'a AtomicBool>,
+    /// Skip when the existing log matches the input's hash and the pipeline's.
+    pub resume: bool,
 }
 
 /// Name of the output directory of a capture: its file stem.
@@ -96,11 +139,48 @@ pub fn frame_png_name(index: usize) -> String {
     format!("frame-{index:04}.png")
 }
 
+/// Peak resident set size of this process, MB (Linux /proc).
+pub fn peak_resident_mb() -> Option<f64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kb: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb / 1024.0)
+}
+
+/// True when `dir/log.json` records this input hash and pipeline hash and
+/// every output it lists exists.
+fn up_to_date(dir: &Path, sha256: &str, pipeline_sha256: &str) -> bool {
+    let Ok(bytes) = std::fs::read(dir.join("log.json")) else { return false };
+    let Ok(log) = serde_json::from_slice::<serde_json::Value>(&bytes) else { return false };
+    log["input"]["sha256"] == sha256
+        && log["pipeline_sha256"] == pipeline_sha256
+        && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file())))
+}
+
+fn round6(v: f64) -> f64 {
+    (v * 1e6).round() / 1e6
+}
+
 /// Reconstructs `input` with `config` into `<out_root>/<stem>/`.
-pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, progress: Option<&ProgressBar>) -> Result<CaptureOutcome> {
+pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: RunContext<'_>) -> Result<CaptureOutcome> {
     let started = Instant::now();
     let capture = Capture::open(input, &config.input)?;
     let sha256 = hash::sha256_file(input).with_context(|| format!("hashing {}", input.display()))?;
+    let pipeline_sha256 = config.sha256();
+    let name = output_name(input);
+    let (frames, alines) = (capture.frames, capture.alines);
+    if ctx.resume && up_to_date(&out_root.join(&name), &sha256, &pipeline_sha256) {
+        if let Some(p) = ctx.progress {
+            p.inc(frames as u64);
+        }
+        return Ok(CaptureOutcome { output_dir: out_root.join(&name), frames, alines, seconds: 0.0, skipped: true });
+    }
+    let average = config.volume.average;
+    if frames % average != 0 {
+        bail!("the capture has {frames} frames, not a multiple of volume.average = {average}");
+    }
+    let positions = frames / average;
+
     // Shaping measures the source envelope: the background, else frame 0's mean spectrum.
     let source_spectrum = match (&capture.background, config.shaping.enabled) {
         (Some(b), _) => Some(b.clone()),
@@ -119,9 +199,19 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
             source_spectrum: source_spectrum.as_deref(),
         },
     )?;
-    let pipeline_sha256 = config.sha256();
     let summary = plan.summary.clone();
-    let (frames, alines, depth) = (capture.frames, capture.alines, summary.depth_pixels);
+    let depth = summary.depth_pixels;
+    let depth_um: Vec<f64> = (0..depth).map(|i| plan.depth_um(i)).collect();
+    let en_face_range = match config.volume.en_face_depth_um {
+        Some([a, b]) => {
+            let r = (depth_um.iter().position(|&z| z >= a).unwrap_or(depth), depth_um.iter().position(|&z| z >= b).unwrap_or(depth));
+            if r.0 >= r.1 {
+                bail!("volume.en_face_depth_um [{a}, {b}] holds no depth pixel of this capture ({:.1}–{:.1} µm)", depth_um[0], depth_um[depth - 1]);
+            }
+            r
+        }
+        None => (0, depth),
+    };
 
     let mut warnings = Vec::new();
     if config.background.method == crate::pipeline::config::BackgroundMethod::Auto && capture.background.is_none() {
@@ -131,12 +221,11 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
         ));
     }
 
-    let staging = Staging::new(out_root, &output_name(input))?;
-    let depth_um: Vec<f64> = (0..depth).map(|i| plan.depth_um(i)).collect();
+    let staging = Staging::new(out_root, &name)?;
     let volume = if config.output.volume {
         Some(VolumeWriter::create(
             &staging.path("volume.h5"),
-            frames,
+            positions,
             &depth_um,
             alines,
             &VolumeAttributes {
@@ -144,6 +233,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
                 first_depth_um: depth_um[0],
                 source_sha256: &sha256,
                 pipeline_sha256: &pipeline_sha256,
+                frames_averaged: average,
             },
         )?)
     } else {
@@ -153,18 +243,40 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
     let timer = plan.new_timer();
     let mut spectra = Array2::<f64>::zeros(capture.frame_shape());
     let mut db = Array2::<f32>::zeros((alines, depth));
+    let mut sum = Array2::<f64>::zeros((alines, depth));
+    let mut first_single: Option<Array2<f32>> = None;
+    let mut en_face: Vec<f32> = Vec::with_capacity(positions * alines);
     let (mut read_s, mut write_s) = (0.0, 0.0);
-    let mut records = Vec::with_capacity(frames);
+    let mut records = Vec::with_capacity(positions);
     let mut outputs = Vec::new();
     let lc = &config.log_compression;
     let max_grey = if lc.bit_depth == 8 { 255.0 } else { 65535.0 };
+    let mut saturated_in_position = 0u64;
+    let mut averaging_record = None;
 
     for f in 0..frames {
+        if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
+            return Err(Interrupted.into());
+        }
         let t = Instant::now();
-        let saturated = capture.read_frame(f, &mut spectra)?;
+        saturated_in_position += capture.read_frame(f, &mut spectra)?;
         read_s += t.elapsed().as_secs_f64();
-
         plan.process_frame(spectra.view(), &mut db, &timer);
+        if let Some(p) = ctx.progress {
+            p.inc(1);
+        }
+        if average > 1 {
+            if f == 0 {
+                first_single = Some(db.clone());
+            }
+            ndarray::Zip::from(&mut sum).and(&db).for_each(|s, &d| *s += crate::analysis::amplitude_from_db(d as f64));
+            if (f + 1) % average != 0 {
+                continue;
+            }
+            ndarray::Zip::from(&mut db).and(&sum).for_each(|d, &s| *d = to_db(s / average as f64) as f32);
+            sum.fill(0.0);
+        }
+        let position = f / average;
 
         let t = Instant::now();
         let values = db.as_slice().expect("standard layout");
@@ -177,33 +289,56 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
         if config.output.png {
             let image = db.t().as_standard_layout().into_owned();
             let levels = grey_levels(image.as_slice().unwrap(), black, white, max_grey);
-            let name = frame_png_name(f);
-            png::write_grey(&staging.path(&name), alines, depth, &levels, lc.bit_depth)?;
-            outputs.push(name);
+            let png_name = frame_png_name(position);
+            png::write_grey(&staging.path(&png_name), alines, depth, &levels, lc.bit_depth)?;
+            outputs.push(png_name);
         }
         if let Some(v) = &volume {
-            v.write_frame(f, &db)?;
+            v.write_frame(position, &db)?;
+        }
+        if config.volume.en_face {
+            for row in db.outer_iter() {
+                let part = &row.as_slice().unwrap()[en_face_range.0..en_face_range.1];
+                en_face.push(match config.volume.en_face_projection {
+                    Projection::Mean => (part.iter().map(|&v| v as f64).sum::<f64>() / part.len() as f64) as f32,
+                    Projection::Max => part.iter().copied().fold(f32::NEG_INFINITY, f32::max),
+                });
+            }
         }
         write_s += t.elapsed().as_secs_f64();
-        if saturated > 0 {
+        if saturated_in_position > 0 {
             warnings.push(format!(
-                "frame {f}: {saturated} samples at or above full scale ({}): fringes clipped",
+                "frame {f}: {saturated_in_position} samples at or above full scale ({}): fringes clipped",
                 capture.full_scale.unwrap_or(f64::NAN)
             ));
         }
         records.push(FrameRecord {
-            index: f,
+            index: position,
+            input_frames: [position * average, (position + 1) * average - 1],
             noise_floor_db: round6(floor),
             peak_db: round6(peak),
-            saturated_samples: saturated,
+            saturated_samples: saturated_in_position,
             grey_black_db: round6(black),
             grey_white_db: round6(white),
         });
-        if let Some(p) = progress {
-            p.inc(1);
+        saturated_in_position = 0;
+        if let Some(single) = first_single.take() {
+            averaging_record = Some(measure_averaging(&single, &db, average));
         }
     }
     let t = Instant::now();
+    if config.volume.en_face {
+        let name = "en-face.png";
+        let mut sorted: Vec<f32> = en_face.clone();
+        sorted.sort_by(f32::total_cmp);
+        let pick = |q: f64| sorted[((sorted.len() - 1) as f64 * q).round() as usize] as f64;
+        let (black, white) = (pick(0.01), pick(0.995).max(pick(0.01) + 1e-3));
+        png::write_grey(&staging.path(name), alines, positions, &grey_levels(&en_face, black, white, max_grey), lc.bit_depth)?;
+        outputs.push(name.into());
+        if let Some(v) = &volume {
+            v.write_en_face(&en_face, positions, alines, [depth_um[en_face_range.0], depth_um[en_face_range.1 - 1]])?;
+        }
+    }
     if let Some(v) = volume {
         v.finish()?;
         outputs.push("volume.h5".into());
@@ -212,8 +347,8 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
 
     let total = started.elapsed().as_secs_f64();
     let mut stage_seconds = serde_json::Map::new();
-    for (name, s) in plan.stage_names().iter().zip(timer.seconds()) {
-        stage_seconds.insert(name.to_string(), serde_json::json!(s));
+    for (stage, s) in plan.stage_names().iter().zip(timer.seconds()) {
+        stage_seconds.insert(stage.to_string(), serde_json::json!(s));
     }
     let log = ProcessingLog {
         tool: ToolInfo { name: "fringeflow", version: env!("CARGO_PKG_VERSION") },
@@ -235,6 +370,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
         pipeline_sha256,
         derived: summary,
         frames: records,
+        averaging: averaging_record,
         outputs,
         warnings,
         timing: Timing {
@@ -245,15 +381,40 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, p
             total_seconds: total,
             alines_per_second: (frames * alines) as f64 / total,
             threads: rayon::current_num_threads(),
+            peak_resident_mb: peak_resident_mb(),
         },
     };
     let json = serde_json::to_vec_pretty(&log).context("serialising log")?;
     std::fs::write(staging.path("log.json"), json).context("writing log.json")?;
+    if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
+        return Err(Interrupted.into());
+    }
     let output_dir = staging.commit()?;
-    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total })
+    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false })
 }
 
-/// Rounds for the log, so that values print stably.
-fn round6(v: f64) -> f64 {
-    (v * 1e6).round() / 1e6
+/// Noise statistics of one B-scan against the average of its position.
+fn measure_averaging(single: &Array2<f32>, averaged: &Array2<f32>, n: usize) -> AveragingRecord {
+    let avg = averaged.as_slice().unwrap();
+    let one = single.as_slice().unwrap();
+    let median = noise_floor_db(avg) as f32;
+    let sd = |values: &[f32]| {
+        let v: Vec<f64> = values
+            .iter()
+            .zip(avg.iter())
+            .filter(|(_, &a)| a < median)
+            .map(|(&x, _)| crate::analysis::amplitude_from_db(x as f64))
+            .collect();
+        let mean = v.iter().sum::<f64>() / v.len() as f64;
+        (v.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (v.len() - 1) as f64).sqrt()
+    };
+    let (sd_one, sd_avg) = (sd(one), sd(avg));
+    AveragingRecord {
+        frames_per_position: n,
+        noise_floor_single_db: round6(noise_floor_db(one)),
+        noise_floor_averaged_db: round6(median as f64),
+        noise_sd_single: round6(sd_one),
+        noise_sd_averaged: round6(sd_avg),
+        noise_sd_reduction_db: round6(20.0 * (sd_one / sd_avg).log10()),
+    }
 }

@@ -3,7 +3,9 @@
 //! Layout: `/volume_db` (frames, depth, A-lines), float32, one chunk per frame,
 //! so `volume_db[f]` is frame f's B-scan as shown in its PNG; 1-D axis
 //! datasets `/depth_um`, `/aline_index`, `/frame_index`; the depth pixel
-//! spacing (µm, in air) and the axis order as attributes of `/volume_db`.
+//! spacing (µm, in air) and the axis order as attributes of `/volume_db`;
+//! with averaging, each stored frame is one slow-axis position; optionally
+//! `/en_face_db` (frames, A-lines), an en face projection in dB.
 
 use anyhow::{Context, Result};
 use hdf5::Dataset;
@@ -23,6 +25,8 @@ pub struct VolumeAttributes<'a> {
     pub first_depth_um: f64,
     pub source_sha256: &'a str,
     pub pipeline_sha256: &'a str,
+    /// Input frames averaged into each stored frame.
+    pub frames_averaged: usize,
 }
 
 impl VolumeWriter {
@@ -42,6 +46,7 @@ impl VolumeWriter {
         write_attr_str(&volume, "depth_medium", "air (divide by the group index for depth in a medium)")?;
         write_attr(&volume, "aline_spacing_index", 1u32)?;
         write_attr(&volume, "frame_spacing_index", 1u32)?;
+        write_attr(&volume, "frames_averaged", attrs.frames_averaged as u32)?;
         write_attr_str(&file, "source_sha256", attrs.source_sha256)?;
         write_attr_str(&file, "pipeline_sha256", attrs.pipeline_sha256)?;
         write_attr_str(&file, "producer", concat!("fringeflow ", env!("CARGO_PKG_VERSION")))?;
@@ -57,6 +62,16 @@ impl VolumeWriter {
         self.volume
             .write_slice(&image, ndarray::s![index, .., ..])
             .with_context(|| format!("writing frame {index} to volume"))
+    }
+
+    /// Writes the en face projection (positions × A-lines, dB) and its depth range.
+    pub fn write_en_face(&self, values: &[f32], positions: usize, alines: usize, depth_range_um: [f64; 2]) -> Result<()> {
+        let image = ndarray::ArrayView2::from_shape((positions, alines), values)?;
+        let ds = self.file.new_dataset_builder().with_data(&image).create("en_face_db").context("writing /en_face_db")?;
+        write_attr_str(&ds, "axes", "frame,aline")?;
+        write_attr(&ds, "first_depth_um", depth_range_um[0])?;
+        write_attr(&ds, "last_depth_um", depth_range_um[1])?;
+        Ok(())
     }
 
     pub fn finish(self) -> Result<()> {

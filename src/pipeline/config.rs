@@ -235,6 +235,39 @@ impl Default for OutputConfig {
     }
 }
 
+/// How an en face image projects the depth range.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Projection {
+    Mean,
+    Max,
+}
+
+fn de_average<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 1, 256)
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct VolumeConfig {
+    /// Repeated B-scans per slow-axis position, averaged (linear amplitude)
+    /// before log compression; frames must be a multiple of it.
+    #[serde(deserialize_with = "de_average")]
+    pub average: usize,
+    /// Write an en face projection (en-face.png and /en_face_db).
+    pub en_face: bool,
+    /// Depth range of the projection, µm in air [start, end); none: all depths.
+    pub en_face_depth_um: Option<[f64; 2]>,
+    /// Mean or maximum of the dB values over the range.
+    pub en_face_projection: Projection,
+}
+
+impl Default for VolumeConfig {
+    fn default() -> Self {
+        VolumeConfig { average: 1, en_face: false, en_face_depth_um: None, en_face_projection: Projection::Mean }
+    }
+}
+
 /// A whole pipeline.
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
@@ -247,6 +280,7 @@ pub struct PipelineConfig {
     pub window: WindowConfig,
     pub fft: FftConfig,
     pub log_compression: LogCompressionConfig,
+    pub volume: VolumeConfig,
     pub output: OutputConfig,
 }
 
@@ -283,6 +317,11 @@ impl PipelineConfig {
         }
         if self.fft.crop_um.is_some() && self.fft.crop_px.is_some() {
             return Err(fail("fft", "crop_px", "give crop_um or crop_px, not both".into()));
+        }
+        if let Some([a, b]) = self.volume.en_face_depth_um {
+            if !(a.is_finite() && b.is_finite() && a >= 0.0 && b > a) {
+                return Err(fail("volume", "en_face_depth_um", format!("needs 0 <= start < end, found [{a}, {b}]")));
+            }
         }
         if self.log_compression.db_max <= self.log_compression.db_min {
             return Err(fail(
