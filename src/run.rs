@@ -65,10 +65,9 @@ pub struct AveragingRecord {
     /// Median dB (noise floor) of one B-scan and of the average.
     pub noise_floor_single_db: f64,
     pub noise_floor_averaged_db: f64,
-    /// Standard deviation of the noise (linear amplitude of the pixels below
-    /// the averaged frame's median), one B-scan and averaged, and the
-    /// reduction 20·log10(single/averaged); independent noise gives about
-    /// 10·log10(N) dB.
+    /// Standard deviation of the noise (linear amplitude over the deepest
+    /// tenth of the depth range), one B-scan and averaged, and the reduction
+    /// 20·log10(single/averaged); independent noise gives about 10·log10(N) dB.
     pub noise_sd_single: f64,
     pub noise_sd_averaged: f64,
     pub noise_sd_reduction_db: f64,
@@ -393,26 +392,24 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false })
 }
 
-/// Noise statistics of one B-scan against the average of its position.
+/// Noise statistics of one B-scan against the average of its position, on
+/// the deepest tenth of the depth range (chosen by position, not by value,
+/// so the selection does not bias either side).
 fn measure_averaging(single: &Array2<f32>, averaged: &Array2<f32>, n: usize) -> AveragingRecord {
-    let avg = averaged.as_slice().unwrap();
-    let one = single.as_slice().unwrap();
-    let median = noise_floor_db(avg) as f32;
-    let sd = |values: &[f32]| {
-        let v: Vec<f64> = values
-            .iter()
-            .zip(avg.iter())
-            .filter(|(_, &a)| a < median)
-            .map(|(&x, _)| crate::analysis::amplitude_from_db(x as f64))
-            .collect();
+    let depth = single.ncols();
+    let region = (depth - depth / 10).min(depth - 1)..depth;
+    let values = |a: &Array2<f32>| -> Vec<f64> {
+        a.outer_iter().flat_map(|row| row.as_slice().unwrap()[region.clone()].iter().map(|&d| crate::analysis::amplitude_from_db(d as f64)).collect::<Vec<_>>()).collect()
+    };
+    let sd = |v: &[f64]| {
         let mean = v.iter().sum::<f64>() / v.len() as f64;
         (v.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (v.len() - 1) as f64).sqrt()
     };
-    let (sd_one, sd_avg) = (sd(one), sd(avg));
+    let (sd_one, sd_avg) = (sd(&values(single)), sd(&values(averaged)));
     AveragingRecord {
         frames_per_position: n,
-        noise_floor_single_db: round6(noise_floor_db(one)),
-        noise_floor_averaged_db: round6(median as f64),
+        noise_floor_single_db: round6(noise_floor_db(single.as_slice().unwrap())),
+        noise_floor_averaged_db: round6(noise_floor_db(averaged.as_slice().unwrap())),
         noise_sd_single: round6(sd_one),
         noise_sd_averaged: round6(sd_avg),
         noise_sd_reduction_db: round6(20.0 * (sd_one / sd_avg).log10()),

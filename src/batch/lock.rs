@@ -23,7 +23,11 @@ impl OutputLock {
         for _ in 0..2 {
             match std::fs::OpenOptions::new().write(true).create_new(true).open(&path) {
                 Ok(mut f) => {
-                    write!(f, "{}", std::process::id()).with_context(|| format!("writing {}", path.display()))?;
+                    if let Err(e) = write!(f, "{}", std::process::id()) {
+                        // e.g. a full disk: do not leave an empty lock behind.
+                        std::fs::remove_file(&path).ok();
+                        return Err(e).with_context(|| format!("writing {}", path.display()));
+                    }
                     return Ok(OutputLock { path });
                 }
                 Err(e) if e.kind() == std::io::ErrorKind::AlreadyExists => {

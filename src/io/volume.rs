@@ -12,7 +12,7 @@ use hdf5::Dataset;
 use ndarray::Array2;
 use std::path::Path;
 
-use super::h5::{create_file, write_1d, write_attr, write_attr_str};
+use super::h5::{concise, create_file, write_1d, write_attr, write_attr_str};
 
 pub struct VolumeWriter {
     file: hdf5::File,
@@ -38,6 +38,7 @@ impl VolumeWriter {
             .shape((frames, depth, alines))
             .chunk((1, depth, alines))
             .create("volume_db")
+            .map_err(concise)
             .context("creating /volume_db")?;
         write_attr_str(&volume, "units", "dB (20 log10 of amplitude in detector counts)")?;
         write_attr_str(&volume, "axes", "frame,depth,aline")?;
@@ -61,13 +62,14 @@ impl VolumeWriter {
         let image = db.t().as_standard_layout().into_owned();
         self.volume
             .write_slice(&image, ndarray::s![index, .., ..])
+            .map_err(concise)
             .with_context(|| format!("writing frame {index} to volume"))
     }
 
     /// Writes the en face projection (positions × A-lines, dB) and its depth range.
     pub fn write_en_face(&self, values: &[f32], positions: usize, alines: usize, depth_range_um: [f64; 2]) -> Result<()> {
         let image = ndarray::ArrayView2::from_shape((positions, alines), values)?;
-        let ds = self.file.new_dataset_builder().with_data(&image).create("en_face_db").context("writing /en_face_db")?;
+        let ds = self.file.new_dataset_builder().with_data(&image).create("en_face_db").map_err(concise).context("writing /en_face_db")?;
         write_attr_str(&ds, "axes", "frame,aline")?;
         write_attr(&ds, "first_depth_um", depth_range_um[0])?;
         write_attr(&ds, "last_depth_um", depth_range_um[1])?;
@@ -75,7 +77,7 @@ impl VolumeWriter {
     }
 
     pub fn finish(self) -> Result<()> {
-        self.file.flush().context("flushing volume")?;
-        self.file.close().context("closing volume")
+        self.file.flush().map_err(concise).context("writing volume.h5")?;
+        self.file.close().map_err(concise).context("closing volume.h5")
     }
 }

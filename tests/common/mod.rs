@@ -114,3 +114,66 @@ pub fn psf(profile: &[f64], spacing_um: f64, first_depth_um: f64) -> (f64, f64) 
     let w = fwhm(profile, i).expect("peak has a half-maximum on both sides");
     (w * spacing_um, first_depth_um + peak_position(profile, i) * spacing_um)
 }
+
+/// A small realistic capture scene (12-bit, noise) with a mirror at `depth_um`.
+pub fn small_scene(depth_um: f64, frames: usize, alines: usize, pixels: usize) -> String {
+    format!(
+        r#"
+seed = {seed}
+frames = {frames}
+alines = {alines}
+background_lines = 8
+[spectrometer]
+pixels = {pixels}
+start_nm = 790.0
+stop_nm = 890.0
+nonlinearity_nm = [2.0, 0.5]
+[detector]
+dtype = "u16"
+[[reflector]]
+depth_um = {depth_um}
+reflectivity = 1e-4
+"#,
+        seed = depth_um as u64
+    )
+}
+
+/// Every file below `dir`, relative, sorted.
+pub fn tree(dir: &Path) -> Vec<String> {
+    fn walk(root: &Path, p: &Path, out: &mut Vec<String>) {
+        let Ok(rd) = std::fs::read_dir(p) else { return };
+        for e in rd.flatten() {
+            let path = e.path();
+            if path.is_dir() {
+                walk(root, &path, out);
+            } else {
+                out.push(path.strip_prefix(root).unwrap().display().to_string());
+            }
+        }
+    }
+    let mut out = Vec::new();
+    walk(dir, dir, &mut out);
+    out.sort();
+    out
+}
+
+/// A log.json without its timing section.
+pub fn log_without_timing(path: &Path) -> serde_json::Value {
+    let mut v: serde_json::Value = serde_json::from_slice(&std::fs::read(path).unwrap()).unwrap();
+    v.as_object_mut().unwrap().remove("timing");
+    v
+}
+
+/// Asserts two capture output directories hold the same files with the same
+/// bytes (log.json compared without timing).
+pub fn assert_same_outputs(a: &Path, b: &Path) {
+    let (ta, tb) = (tree(a), tree(b));
+    assert_eq!(ta, tb, "{} vs {}", a.display(), b.display());
+    for f in ta {
+        if f.ends_with("log.json") {
+            assert_eq!(log_without_timing(&a.join(&f)), log_without_timing(&b.join(&f)), "{f}");
+        } else {
+            assert!(std::fs::read(a.join(&f)).unwrap() == std::fs::read(b.join(&f)).unwrap(), "{f} differs");
+        }
+    }
+}
