@@ -1,7 +1,8 @@
 # fringeflow: the two commands of the README, and their helpers.
 # `make demo` and `make test` install what they need on a fresh Debian 12
 # machine (as root): libhdf5-dev (and fontconfig + a font for plots) with
-# apt-get, numpy/scipy/h5py with pip.
+# apt-get, slurm-wlm for the single-node cluster test, numpy/scipy/h5py
+# with pip.
 
 CARGO  ?= cargo
 PYTHON ?= python3
@@ -11,7 +12,7 @@ BIN    := target/release/fringeflow
 
 deps-system:
 	@missing=""; \
-	for p in libhdf5-dev pkg-config libfontconfig1-dev fonts-dejavu-core; do \
+	for p in libhdf5-dev pkg-config libfontconfig1-dev fonts-dejavu-core slurm-wlm; do \
 	  dpkg -s $$p >/dev/null 2>&1 || missing="$$missing $$p"; \
 	done; \
 	if [ -n "$$missing" ]; then \

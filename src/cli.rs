@@ -48,7 +48,7 @@ pub enum Command {
     },
     /// Merge the batch summaries in DIR (one per shard) into DIR/summary.json.
     Summarize { dir: PathBuf },
-    /// Print an sbatch job-array script that reconstructs a list of captures.
+    /// Print an sbatch job-array script that reconstructs a list of captures (creates the output directory for the task logs).
     SlurmScript {
         /// File listing the captures, one per line.
         #[arg(long)]

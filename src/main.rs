@@ -137,6 +137,11 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
         Ok(v) => v.len(),
         Err(e) => return fail(2, format!("{e:#}")),
     };
+    // Slurm opens each task's log in the output directory before the script
+    // runs, so the directory must exist at submission.
+    if let Err(e) = std::fs::create_dir_all(out) {
+        return fail(1, format!("creating {}: {e}", out.display()));
+    }
     let exe = std::env::current_exe().map(|p| abs(&p)).unwrap_or_else(|_| PathBuf::from("fringeflow"));
     let (list, pipeline, out) = (abs(list), abs(pipeline), abs(out));
     let q = |p: &Path| format!("'{}'", p.display().to_string().replace('\'', "'\\''"));

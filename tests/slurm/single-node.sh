@@ -2,6 +2,7 @@
 # Starts or stops a single-node Slurm (slurmctld + slurmd) whose state,
 # spool, pid and log files all live under DIR, on loopback only, with no
 # authentication daemon (auth/none). For the cluster test only.
+# Ports: SLURM_TEST_PORT (slurmctld) and SLURM_TEST_PORT+1 (slurmd), default 16817.
 #   single-node.sh start DIR   → writes DIR/slurm.conf, starts the daemons,
 #                                waits until the node is idle
 #   single-node.sh stop DIR    → stops them by their pid files
@@ -10,14 +11,16 @@ cmd=$1
 dir=$(cd "$2" && pwd)
 host=$(hostname -s)
 conf=$dir/slurm.conf
+port=${SLURM_TEST_PORT:-16817}
+mem_mb=$(( $(awk '/MemTotal/ {print $2}' /proc/meminfo) / 1024 - 512 ))
 case "$cmd" in
 start)
   mkdir -p "$dir/state" "$dir/spool" "$dir/log"
   cat > "$conf" <<CONF
 ClusterName=fringeflow-test
 SlurmctldHost=$host(127.0.0.1)
-SlurmctldPort=16817
-SlurmdPort=16818
+SlurmctldPort=$port
+SlurmdPort=$((port + 1))
 AuthType=auth/none
 CredType=cred/none
 SlurmUser=root
@@ -39,7 +42,7 @@ JobAcctGatherType=jobacct_gather/none
 MailProg=/bin/true
 ReturnToService=2
 MpiDefault=none
-NodeName=$host NodeAddr=127.0.0.1 CPUs=$(nproc) State=UNKNOWN
+NodeName=$host NodeAddr=127.0.0.1 CPUs=$(nproc) RealMemory=$mem_mb State=UNKNOWN
 PartitionName=test Nodes=$host Default=YES MaxTime=INFINITE State=UP
 CONF
   slurmctld -f "$conf"
