@@ -8,17 +8,23 @@ CARGO  ?= cargo
 PYTHON ?= python3
 BIN    := target/release/fringeflow
 
-.PHONY: demo test deps-system deps-python build sample-data bench clean
+.PHONY: demo test deps-system deps-test deps-python build sample-data bench bench-memory fuzz clean
+
+APT_PACKAGES := libhdf5-dev pkg-config libfontconfig1-dev fonts-dejavu-core
 
 deps-system:
 	@missing=""; \
-	for p in libhdf5-dev pkg-config libfontconfig1-dev fonts-dejavu-core slurm-wlm; do \
+	for p in $(APT_PACKAGES); do \
 	  dpkg -s $$p >/dev/null 2>&1 || missing="$$missing $$p"; \
 	done; \
 	if [ -n "$$missing" ]; then \
 	  echo "== installing$$missing (apt-get)"; \
 	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq $$missing >/dev/null; \
 	fi
+
+# The cluster test needs Slurm's daemons and clients.
+deps-test:
+	@$(MAKE) --no-print-directory deps-system APT_PACKAGES="$(APT_PACKAGES) slurm-wlm"
 
 deps-python:
 	@if ! $(PYTHON) -c "import numpy, scipy, h5py" >/dev/null 2>&1; then \
@@ -34,7 +40,7 @@ demo: build
 	$(BIN) run sample-data/layered-phantom.h5 --pipeline pipelines/default.toml --out out/demo
 	@echo "images: out/demo/layered-phantom/frame-*.png; volume: out/demo/layered-phantom/volume.h5; log: out/demo/layered-phantom/log.json"
 
-test: deps-system deps-python
+test: deps-test deps-python
 	$(CARGO) test --locked -- --test-threads=2
 
 # Rewrite the sample capture from its scene (deterministic: same bytes).
@@ -43,6 +49,21 @@ sample-data: build
 
 bench: deps-system
 	$(CARGO) bench --locked
+
+# Peak memory of `run` on a simulated 2 GB capture (default pipeline).
+# Needs about 4.5 GB of disk under out/bench-memory.
+bench-memory: build
+	@command -v /usr/bin/time >/dev/null || (apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq time >/dev/null)
+	mkdir -p out/bench-memory
+	test -f out/bench-memory/large.h5 || $(BIN) simulate benches/memory-scene.toml --out out/bench-memory/large.h5
+	ls -l out/bench-memory/large.h5
+	/usr/bin/time -v $(BIN) run out/bench-memory/large.h5 --pipeline pipelines/default.toml --out out/bench-memory/recon --quiet 2> out/bench-memory/time.txt
+	@grep -E "Maximum resident|Elapsed" out/bench-memory/time.txt
+	@grep -E '"peak_resident_mb"|"alines_per_second"' out/bench-memory/recon/large/log.json
+
+# Longer property-based fuzzing of the pipeline parser and capture reader.
+fuzz: deps-system
+	PROPTEST_CASES=50000 $(CARGO) test --release --locked --test fuzz_inputs
 
 clean:
 	$(CARGO) clean
