@@ -137,6 +137,9 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
         Ok(v) => v.len(),
         Err(e) => return fail(2, format!("{e:#}")),
     };
+    if tasks > n {
+        eprintln!("fringeflow: warning: {tasks} tasks for {n} captures: {} tasks will have nothing to do", tasks - n);
+    }
     // Slurm opens each task's log in the output directory before the script
     // runs, so the directory must exist at submission.
     if let Err(e) = std::fs::create_dir_all(out) {
