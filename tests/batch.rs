@@ -247,3 +247,27 @@ fn averaging_and_en_face() {
     // The mirror at 350 µm lies in the range: its en face values stand far above the noise.
     assert!(en.iter().all(|&v| v > log["frames"][0]["noise_floor_db"].as_f64().unwrap() as f32 + 20.0));
 }
+
+/// A capture whose output is locked by a live process is not touched: it
+/// fails with a clear reason while the other captures are processed.
+#[test]
+fn a_live_lock_keeps_a_second_run_off_that_capture() {
+    let dir = tempfile::tempdir().unwrap();
+    let a = simulate_scene(dir.path(), "lock-a", &small_scene(250.0, 1, 8, 256)).0;
+    let b = simulate_scene(dir.path(), "lock-b", &small_scene(300.0, 1, 8, 256)).0;
+    let out = dir.path().join("out");
+    std::fs::create_dir_all(&out).unwrap();
+    // This test process plays the other run, holding lock-a.
+    std::fs::write(out.join(".lock-a.lock"), std::process::id().to_string()).unwrap();
+    let o = fringeflow(&["run", s(&a), s(&b), "--out", s(&out)]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(1), "{stderr}");
+    assert!(stderr.contains("lock-a.h5: output 'lock-a' is being written by another run"), "{stderr}");
+    assert!(out.join("lock-b/log.json").exists() && !out.join("lock-a").exists());
+    assert!(out.join(".lock-a.lock").exists(), "another run's lock must stay");
+    // A stale lock (no such process) is taken over.
+    std::fs::write(out.join(".lock-a.lock"), "999999999").unwrap();
+    let o = fringeflow(&["run", s(&a), "--out", s(&out)]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(out.join("lock-a/log.json").exists() && !out.join(".lock-a.lock").exists());
+}

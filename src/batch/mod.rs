@@ -50,6 +50,21 @@ pub struct Counts {
     pub not_run: usize,
 }
 
+impl Counts {
+    pub fn tally(records: &[CaptureRecord]) -> Counts {
+        let mut c = Counts::default();
+        for r in records {
+            match r.status {
+                Status::Done => c.done += 1,
+                Status::Skipped => c.skipped += 1,
+                Status::Failed => c.failed += 1,
+                Status::NotRun => c.not_run += 1,
+            }
+        }
+        c
+    }
+}
+
 /// Contents of batch.json.
 #[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct BatchReport {
@@ -192,15 +207,7 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
     if let Some(b) = overall {
         b.finish_and_clear();
     }
-    let mut counts = Counts::default();
-    for r in &records {
-        match r.status {
-            Status::Done => counts.done += 1,
-            Status::Skipped => counts.skipped += 1,
-            Status::Failed => counts.failed += 1,
-            Status::NotRun => counts.not_run += 1,
-        }
-    }
+    let counts = Counts::tally(&records);
     let report = BatchReport {
         tool_version: env!("CARGO_PKG_VERSION").into(),
         shard: opts.shard,
@@ -272,15 +279,7 @@ pub fn merge_reports(dir: &Path) -> Result<(BatchReport, Vec<String>)> {
     if captures.len() != reports[0].inputs_total {
         problems.push(format!("{} captures reported, {} in the input list", captures.len(), reports[0].inputs_total));
     }
-    let mut counts = Counts::default();
-    for r in &captures {
-        match r.status {
-            Status::Done => counts.done += 1,
-            Status::Skipped => counts.skipped += 1,
-            Status::Failed => counts.failed += 1,
-            Status::NotRun => counts.not_run += 1,
-        }
-    }
+    let counts = Counts::tally(&captures);
     let merged = BatchReport {
         tool_version: reports[0].tool_version.clone(),
         shard: Shard::WHOLE,
