@@ -285,15 +285,16 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             GreyMapping::Auto => (floor + lc.floor_offset_db, floor + lc.floor_offset_db + lc.dynamic_range_db),
             GreyMapping::Fixed => (lc.db_min, lc.db_max),
         };
+        // The B-scan as shown: depth down, A-lines across.
+        let image = db.t().as_standard_layout().into_owned();
         if config.output.png {
-            let image = db.t().as_standard_layout().into_owned();
             let levels = grey_levels(image.as_slice().unwrap(), black, white, max_grey);
             let png_name = frame_png_name(position);
             png::write_grey(&staging.path(&png_name), alines, depth, &levels, lc.bit_depth)?;
             outputs.push(png_name);
         }
         if let Some(v) = &volume {
-            v.write_frame(position, &db)?;
+            v.write_frame(position, &image)?;
         }
         if config.volume.en_face {
             for row in db.outer_iter() {

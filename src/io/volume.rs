@@ -57,11 +57,10 @@ impl VolumeWriter {
         Ok(VolumeWriter { file, volume })
     }
 
-    /// Writes frame `index` from an (A-lines × depth) array.
-    pub fn write_frame(&self, index: usize, db: &Array2<f32>) -> Result<()> {
-        let image = db.t().as_standard_layout().into_owned();
+    /// Writes frame `index` from a (depth × A-lines) image in standard layout.
+    pub fn write_frame(&self, index: usize, image: &Array2<f32>) -> Result<()> {
         self.volume
-            .write_slice(&image, ndarray::s![index, .., ..])
+            .write_slice(image, ndarray::s![index, .., ..])
             .map_err(concise)
             .with_context(|| format!("writing frame {index} to volume"))
     }

@@ -75,6 +75,8 @@ impl StageTimer {
 
 pub struct Plan {
     stages: Vec<Box<dyn Stage>>,
+    /// Scratch length the planned FFT needs.
+    fft_scratch_len: usize,
     pub summary: PlanSummary,
 }
 
@@ -147,6 +149,7 @@ impl Plan {
             );
         }
         let fft = Fft::new(fft_length, first, end - first, window_sum);
+        let fft_scratch_len = fft.scratch_length();
         stages.push(Box::new(fft));
         stages.push(Box::new(LogCompression));
 
@@ -170,7 +173,7 @@ impl Plan {
             depth_pixels: end - first,
             stages: stages.iter().map(|s| s.name()).collect(),
         };
-        Ok(Plan { stages, summary })
+        Ok(Plan { stages, fft_scratch_len, summary })
     }
 
     /// The shaping stage and its Gaussian target (centre, FWHM in nm), when on.
@@ -201,8 +204,7 @@ impl Plan {
     /// Fresh working buffers for one A-line.
     pub fn new_aline(&self) -> ALine {
         let s = &self.summary;
-        let scratch = rustfft::FftPlanner::<f64>::new().plan_fft_forward(s.fft_length).get_inplace_scratch_len();
-        ALine::new(s.pixels, s.fft_length, scratch, s.depth_pixels)
+        ALine::new(s.pixels, s.fft_length, self.fft_scratch_len, s.depth_pixels)
     }
 
     /// Depth of output pixel `i`, µm in air.
@@ -229,9 +231,14 @@ impl Plan {
         let input = frame.as_slice().expect("standard layout");
         let output = db_out.as_slice_mut().expect("output in standard layout");
         let ctx = &ctx;
+        // Few enough rayon jobs that each worker's buffers are made a handful
+        // of times per frame, not once per block.
+        let blocks = alines.div_ceil(BLOCK);
+        let min_blocks_per_job = (blocks / (4 * rayon::current_num_threads())).max(1);
         input
             .par_chunks(BLOCK * pixels)
             .zip(output.par_chunks_mut(BLOCK * depth))
+            .with_min_len(min_blocks_per_job)
             .for_each_init(
                 || (0..BLOCK).map(|_| self.new_aline()).collect::<Vec<_>>(),
                 |lines, (spectra, out)| {
