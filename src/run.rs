@@ -121,7 +121,10 @@ pub struct Interrupted;
 /// How a capture is processed beyond its pipeline.
 #[derive(Default, Clone, Copy)]
 pub struct RunContext<'a> {
+    /// Advanced by one per frame (e.g. the batch's overall bar).
     pub progress: Option<&'a ProgressBar>,
+    /// This capture's own bar: its length is set to the frame count.
+    pub capture_progress: Option<&'a ProgressBar>,
     /// Checked between frames; when set, the capture is abandoned.
     pub cancel: Option<&'a AtomicBool>,
     /// Skip when the existing log matches the input's hash and the pipeline's.
@@ -168,6 +171,9 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     let pipeline_sha256 = config.sha256();
     let name = output_name(input);
     let (frames, alines) = (capture.frames, capture.alines);
+    if let Some(p) = ctx.capture_progress {
+        p.set_length(frames as u64);
+    }
     if ctx.resume && up_to_date(&out_root.join(&name), &sha256, &pipeline_sha256) {
         if let Some(p) = ctx.progress {
             p.inc(frames as u64);
@@ -261,7 +267,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         saturated_in_position += capture.read_frame(f, &mut spectra)?;
         read_s += t.elapsed().as_secs_f64();
         plan.process_frame(spectra.view(), &mut db, &timer);
-        if let Some(p) = ctx.progress {
+        for p in [ctx.progress, ctx.capture_progress].into_iter().flatten() {
             p.inc(1);
         }
         if average > 1 {

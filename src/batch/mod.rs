@@ -176,13 +176,12 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
                 return CaptureRecord { input: input.display().to_string(), status: Status::NotRun, reason: Some("batch interrupted".into()), output: None, seconds: 0.0 };
             }
             let own = show_bars.then(|| {
-                let b = multi.add(ProgressBar::new_spinner());
-                b.set_style(ProgressStyle::with_template("  {spinner} {msg}").unwrap());
+                let b = multi.add(ProgressBar::new(0));
+                b.set_style(ProgressStyle::with_template("  {bar:20} {pos:>5}/{len:5} {msg}").unwrap());
                 b.set_message(input.display().to_string());
-                b.enable_steady_tick(std::time::Duration::from_millis(200));
                 b
             });
-            let ctx = RunContext { progress: overall.as_ref(), cancel: Some(&stop.any), resume: opts.resume };
+            let ctx = RunContext { progress: overall.as_ref(), capture_progress: own.as_ref(), cancel: Some(&stop.any), resume: opts.resume };
             let record = process_one(input, config, out, ctx);
             if let Some(b) = own {
                 b.finish_and_clear();
