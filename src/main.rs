@@ -88,7 +88,13 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
         Ok(c) => c,
         Err(e) => return fail(2, format!("{}: its pipeline section does not parse: {e}", log_path.display())),
     };
-    let input = PathBuf::from(input);
+    // The path as given, else (run from another directory) the absolute one.
+    let mut input = PathBuf::from(input);
+    if !input.exists() {
+        if let Some(abs) = log["input"]["absolute_path"].as_str() {
+            input = PathBuf::from(abs);
+        }
+    }
     match fringeflow::io::hash::sha256_file(&input) {
         Ok(h) if h == sha => {}
         Ok(h) => return fail(1, format!("{}: SHA-256 is {h}, the log recorded {sha}: not the same input", input.display())),

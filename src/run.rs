@@ -31,7 +31,10 @@ pub struct ToolInfo {
 
 #[derive(Debug, Serialize)]
 pub struct InputInfo {
+    /// As given on the command line.
     pub path: String,
+    /// The same made absolute (what `rerun` falls back to from elsewhere).
+    pub absolute_path: String,
     pub sha256: String,
     pub fringes_dataset: String,
     pub shape: Vec<usize>,
@@ -360,6 +363,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         tool: ToolInfo { name: "fringeflow", version: env!("CARGO_PKG_VERSION") },
         input: InputInfo {
             path: input.display().to_string(),
+            absolute_path: std::path::absolute(input).unwrap_or_else(|_| input.to_path_buf()).display().to_string(),
             sha256: sha256.clone(),
             fringes_dataset: capture.fringes_path.clone(),
             shape: capture.shape.clone(),

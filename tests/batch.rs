@@ -149,6 +149,13 @@ fn rerun_from_log_reproduces_the_outputs() {
     let o = fringeflow(&["rerun", s(&first.join("again/log.json")), "--out", s(&second)]);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert_same_outputs(&first.join("again"), &second.join("again"));
+    // A log made with a relative input path still reruns from another directory.
+    let rel = Command::new(bin()).current_dir(dir.path()).env("HDF5_USE_FILE_LOCKING", "FALSE").args(["run", "again.h5", "--out", "relative", "--quiet"]).output().unwrap();
+    assert!(rel.status.success());
+    let elsewhere = tempfile::tempdir().unwrap();
+    let o = Command::new(bin()).current_dir(elsewhere.path()).env("HDF5_USE_FILE_LOCKING", "FALSE").arg("rerun").arg(dir.path().join("relative/again/log.json")).args(["--out", "copy"]).output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(elsewhere.path().join("copy/again/volume.h5").is_file());
     // A changed input is refused.
     std::fs::write(&cap, b"changed").unwrap();
     let o = fringeflow(&["rerun", s(&first.join("again/log.json")), "--out", s(&dir.path().join("third"))]);
