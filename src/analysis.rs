@@ -96,8 +96,9 @@ pub fn polyfit(x: &[f64], y: &[f64], degree: usize) -> Vec<f64> {
         for r in 0..m {
             if r != col {
                 let f = a[r][col] / a[col][col];
-                for c in col..=m {
-                    a[r][c] -= f * a[col][c];
+                let pivot_row = a[col].clone();
+                for (v, p) in a[r].iter_mut().zip(pivot_row.iter()).skip(col) {
+                    *v -= f * p;
                 }
             }
         }

@@ -88,7 +88,7 @@ fn interrupted_run_then_resume_matches_a_clean_run() {
     // Heavier FFTs so the batch runs long enough to be interrupted.
     std::fs::write(&pipeline, "[fft]\nzero_padding = 16\n").unwrap();
     let clean = dir.path().join("clean");
-    let mut args: Vec<&str> = vec!["run", "--pipeline", s(&pipeline), "--out"];
+    let args: Vec<&str> = vec!["run", "--pipeline", s(&pipeline), "--out"];
     let run_into = |out: &Path, extra: &[&str]| {
         let mut a = args.clone();
         a.push(s(out));
@@ -100,7 +100,7 @@ fn interrupted_run_then_resume_matches_a_clean_run() {
     assert!(o.status.success());
 
     let out = dir.path().join("interrupted");
-    let mut child = Command::new(bin())
+    let child = Command::new(bin())
         .env("HDF5_USE_FILE_LOCKING", "FALSE")
         .args(run_into(&out, &[]))
         .stdout(Stdio::piped())
@@ -190,7 +190,7 @@ fn full_disk_fails_cleanly_and_keeps_earlier_outputs() {
     assert_eq!(o.status.code(), Some(1), "{stderr}");
     assert!(stderr.lines().any(|l| l.starts_with("fringeflow: error:") && l.contains("No space left on device")), "{stderr}");
     let complete = assert_complete(&out);
-    assert!(complete >= 1 && complete < 6, "{complete} complete");
+    assert!((1..6).contains(&complete), "{complete} complete");
     assert_no_partials(&out);
 }
 

@@ -14,8 +14,8 @@ use std::path::{Path, PathBuf};
 
 use crate::pipeline::config::{AxisName, InputConfig};
 
-/// Sample types a fringe dataset may have.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+/// Sample types a fringe dataset may have (also what the simulator writes).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum SampleType {
     U8,

@@ -53,14 +53,16 @@ pub fn parse<T: DeserializeOwned>(file: &str, text: &str) -> Result<T, ConfigErr
     })
 }
 
+/// Reads a text file: (its name for messages, its text).
+pub fn read_text(path: &Path) -> Result<(String, String), ConfigError> {
+    let file = path.display().to_string();
+    let text = std::fs::read_to_string(path).map_err(|e| ConfigError { file: file.clone(), line: None, message: format!("cannot read: {e}") })?;
+    Ok((file, text))
+}
+
 /// Reads and parses a TOML file.
 pub fn read<T: DeserializeOwned>(path: &Path) -> Result<(T, String), ConfigError> {
-    let file = path.display().to_string();
-    let text = std::fs::read_to_string(path).map_err(|e| ConfigError {
-        file: file.clone(),
-        line: None,
-        message: format!("cannot read: {e}"),
-    })?;
+    let (file, text) = read_text(path)?;
     Ok((parse(&file, &text)?, text))
 }
 

@@ -51,7 +51,7 @@ pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
             .draw_series(std::iter::once(PathElement::new(vec![(half.0, 0.5), (half.1, 0.5)], RED.stroke_width(2))))
             .map_err(err)?;
 
-        let floor_db = (m.noise_floor_db - m.peak_db - 10.0).max(-100.0).min(-20.0);
+        let floor_db = (m.noise_floor_db - m.peak_db - 10.0).clamp(-100.0, -20.0);
         let mut chart = ChartBuilder::on(&lower)
             .caption(
                 format!(

@@ -36,7 +36,8 @@ pub fn remove_baseline(counts: &[f64]) -> (Vec<f64>, f64) {
 pub fn estimate(wavelength_nm: &[f64], counts: &[f64]) -> Result<SourceSpectrum> {
     let (s, baseline) = remove_baseline(counts);
     let (peak_i, peak) = s.iter().enumerate().fold((0, f64::NEG_INFINITY), |b, (i, &v)| if v > b.1 { (i, v) } else { b });
-    if !(peak > 0.0) {
+    // NaN-safe: a spectrum without any positive value has no light.
+    if peak.partial_cmp(&0.0) != Some(std::cmp::Ordering::Greater) {
         bail!("source spectrum is flat: no light above the dark level");
     }
     let half = peak / 2.0;

@@ -34,7 +34,8 @@ use crate::analysis::polyfit;
 use crate::io::h5::{create_file, write_1d, write_attr, write_attr_str};
 use crate::io::staging::write_atomically;
 use crate::physics::{self, fused_silica_chirp_rad, wavenumber_per_um};
-use scene::{Scene, SimDtype, SpectrometerSpec, SpectrumShape};
+use crate::io::capture::SampleType;
+use scene::{Scene, SpectrometerSpec, SpectrumShape};
 
 /// The spectrometer's per-pixel wavelength map, nm.
 pub fn wavelength_map(s: &SpectrometerSpec) -> Vec<f64> {
@@ -223,7 +224,7 @@ fn clean_spectrum(scene: &Scene, o: &Optics, a: usize, f: usize, sample_arm: boo
 /// Adds noise and the detector's offsets, then clips to [0, full_scale].
 fn detect(scene: &Scene, o: &Optics, rng: &mut ChaCha8Rng, line: &mut [f64]) {
     let d = &scene.detector;
-    let integer = !matches!(d.dtype, SimDtype::F32 | SimDtype::F64);
+    let integer = !d.dtype.is_float();
     for (p, v) in line.iter_mut().enumerate() {
         let signal = v.max(0.0);
         let mut counts = signal + d.dark_counts + o.pattern[p];
@@ -274,12 +275,12 @@ fn write_rows<T: H5Type + Copy>(ds: &hdf5::Dataset, rows: &Array2<f64>, frame: O
 macro_rules! with_dtype {
     ($dtype:expr, $f:ident, $($arg:expr),*) => {
         match $dtype {
-            SimDtype::U8 => $f::<u8>($($arg),*, |v| v as u8),
-            SimDtype::U16 => $f::<u16>($($arg),*, |v| v as u16),
-            SimDtype::I16 => $f::<i16>($($arg),*, |v| v as i16),
-            SimDtype::U32 => $f::<u32>($($arg),*, |v| v as u32),
-            SimDtype::F32 => $f::<f32>($($arg),*, |v| v as f32),
-            SimDtype::F64 => $f::<f64>($($arg),*, |v| v),
+            SampleType::U8 => $f::<u8>($($arg),*, |v| v as u8),
+            SampleType::U16 => $f::<u16>($($arg),*, |v| v as u16),
+            SampleType::I16 => $f::<i16>($($arg),*, |v| v as i16),
+            SampleType::U32 => $f::<u32>($($arg),*, |v| v as u32),
+            SampleType::F32 => $f::<f32>($($arg),*, |v| v as f32),
+            SampleType::F64 => $f::<f64>($($arg),*, |v| v),
         }
     };
 }

@@ -8,6 +8,7 @@
 
 use serde::{Deserialize, Deserializer, Serialize};
 
+use crate::io::capture::SampleType;
 use crate::io::toml_file::{de_finite, de_non_negative, de_positive, de_usize_in, ConfigError};
 
 fn de_count<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
@@ -100,21 +101,10 @@ impl Default for SpectrometerSpec {
     }
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum SimDtype {
-    U8,
-    U16,
-    I16,
-    U32,
-    F32,
-    F64,
-}
-
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
 pub struct DetectorSpec {
-    pub dtype: SimDtype,
+    pub dtype: SampleType,
     /// Saturation level in counts; samples are clipped to [0, full_scale].
     #[serde(deserialize_with = "de_positive")]
     pub full_scale: f64,
@@ -137,7 +127,7 @@ pub struct DetectorSpec {
 impl Default for DetectorSpec {
     fn default() -> Self {
         DetectorSpec {
-            dtype: SimDtype::U16,
+            dtype: SampleType::U16,
             full_scale: 4095.0,
             reference_counts: 2000.0,
             electrons_per_count: 4.0,
@@ -271,26 +261,14 @@ impl Scene {
         if scene.source.shape == SpectrumShape::Gaussians && scene.source.components.is_empty() {
             return Err(fail("source", "components", "shape = \"gaussians\" needs at least one component".into()));
         }
-        let max = match scene.detector.dtype {
-            SimDtype::U8 => u8::MAX as f64,
-            SimDtype::U16 => u16::MAX as f64,
-            SimDtype::I16 => i16::MAX as f64,
-            SimDtype::U32 => u32::MAX as f64,
-            SimDtype::F32 | SimDtype::F64 => f64::INFINITY,
-        };
-        if scene.detector.full_scale > max {
+        if scene.detector.full_scale > scene.detector.dtype.integer_max().unwrap_or(f64::INFINITY) {
             return Err(fail("detector", "full_scale", format!("{} exceeds the {:?} range", scene.detector.full_scale, scene.detector.dtype)));
         }
         Ok(scene)
     }
 
     pub fn from_file(path: &std::path::Path) -> Result<Scene, ConfigError> {
-        let name = path.display().to_string();
-        let text = std::fs::read_to_string(path).map_err(|e| ConfigError {
-            file: name.clone(),
-            line: None,
-            message: format!("cannot read: {e}"),
-        })?;
+        let (name, text) = crate::io::toml_file::read_text(path)?;
         Scene::from_str(&name, &text)
     }
 }
