@@ -278,3 +278,37 @@ fn a_live_lock_keeps_a_second_run_off_that_capture() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(out.join("lock-a/log.json").exists() && !out.join(".lock-a.lock").exists());
 }
+
+/// SIGTERM (what a scheduler sends at a time limit) stops as cleanly as
+/// SIGINT, with exit status 143.
+#[test]
+fn sigterm_stops_cleanly_with_143() {
+    let dir = tempfile::tempdir().unwrap();
+    let caps = make_captures(dir.path(), 6, 24);
+    std::fs::write(dir.path().join("slow.toml"), "[fft]\nzero_padding = 16\n").unwrap();
+    let out = dir.path().join("out");
+    let mut child = Command::new(bin())
+        .env("HDF5_USE_FILE_LOCKING", "FALSE")
+        .args(["run", "--pipeline", s(&dir.path().join("slow.toml")), "--out", s(&out)])
+        .args(caps.iter().map(|c| s(c)))
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    // Wait until the first frame of work is under way (a staging directory exists).
+    let t0 = std::time::Instant::now();
+    while !std::fs::read_dir(&out).map(|rd| rd.flatten().any(|e| e.file_name().to_string_lossy().contains(".partial-"))).unwrap_or(false) {
+        assert!(t0.elapsed().as_secs() < 60, "nothing started");
+        std::thread::sleep(std::time::Duration::from_millis(2));
+    }
+    Command::new("kill").arg("-TERM").arg(child.id().to_string()).status().unwrap();
+    let o = child.wait_with_output().unwrap();
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(o.status.code(), Some(143), "{stdout}");
+    assert!(stdout.contains("stopped by SIGTERM"), "{stdout}");
+    let batch: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("batch.json")).unwrap()).unwrap();
+    assert_eq!(batch["interrupted"], "SIGTERM");
+    assert!(batch["counts"]["not_run"].as_u64().unwrap() > 0);
+    assert_complete(&out);
+    assert_no_partials(&out);
+}
