@@ -287,7 +287,7 @@ fn sigterm_stops_cleanly_with_143() {
     let caps = make_captures(dir.path(), 6, 24);
     std::fs::write(dir.path().join("slow.toml"), "[fft]\nzero_padding = 16\n").unwrap();
     let out = dir.path().join("out");
-    let mut child = Command::new(bin())
+    let child = Command::new(bin())
         .env("HDF5_USE_FILE_LOCKING", "FALSE")
         .args(["run", "--pipeline", s(&dir.path().join("slow.toml")), "--out", s(&out)])
         .args(caps.iter().map(|c| s(c)))
