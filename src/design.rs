@@ -1,7 +1,7 @@
 //! `fringeflow design`: planning an SD-OCT system on paper from its source
 //! and spectrometer.
 //!
-//! Formulas (FIELD-NOTES; Leitgeb et al. 2003, Opt. Express 11:889):
+//! Formulas (FIELD-NOTES; common practice for SD-OCT design):
 //! axial resolution l_c = (2 ln2/π)·λ0²/Δλ in air, l_c/n in the sample;
 //! depth pixel spacing λ0²/(2·Δλ_span) in air; maximum (Nyquist) depth
 //! λ0²/(4·n·δλ), δλ = span/pixels; −6 dB roll-off depth where the fringe

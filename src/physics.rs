@@ -23,8 +23,8 @@ pub fn wavelength_nm(wavenumber_per_um: f64) -> f64 {
 /// Axial resolution (FWHM of the amplitude PSF) in µm in air for a source
 /// that is Gaussian in wavenumber: l_c = (2 ln2 / π) · λ0² / Δλ.
 /// Standard result for Gaussian-spectrum low-coherence interferometry
-/// (e.g. Swanson et al. 1992, Opt. Lett. 17:151; Fercher et al. 2003,
-/// Rep. Prog. Phys. 66:239).
+/// (FIELD-NOTES; the papers usually cited for it, from memory: Swanson et
+/// al. 1992, Opt. Lett. 17:151; Fercher et al. 2003, Rep. Prog. Phys. 66:239).
 ///
 /// ```
 /// // An 840 nm source with 50 nm FWHM resolves about 6.2 µm in air.
@@ -108,7 +108,7 @@ mod tests {
     #[test]
     fn coherence_length_matches_published_examples() {
         // lc = (2 ln2/π) λ0²/Δλ: 840/50 → 6.23 µm, 1300/100 → 7.46 µm
-        // (values worked from the formula, see FIELD-NOTES and Fercher et al. 2003).
+        // (values worked from the formula; FIELD-NOTES gives the same two examples).
         assert!((coherence_length_um(840.0, 50.0) - 6.23).abs() < 0.01);
         assert!((coherence_length_um(1300.0, 100.0) - 7.46).abs() < 0.01);
     }

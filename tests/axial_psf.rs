@@ -4,8 +4,9 @@
 mod common;
 use common::*;
 
-/// l_c = (2 ln2/π)·λ0²/Δλ for a Gaussian source (Swanson et al. 1992, Opt.
-/// Lett. 17:151; Fercher et al. 2003, Rep. Prog. Phys. 66:239):
+/// l_c = (2 ln2/π)·λ0²/Δλ for a Gaussian source (FIELD-NOTES; usually cited
+/// to Swanson et al. 1992, Opt. Lett. 17:151, and Fercher et al. 2003, Rep.
+/// Prog. Phys. 66:239 — citations from memory):
 /// 840 nm / 50 nm → 6.23 µm. Window none, band 3 FWHM wide so truncation
 /// does not broaden the PSF.
 #[test]
@@ -24,7 +25,7 @@ fn mirror_psf_fwhm_matches_coherence_length() {
 }
 
 /// Depth scale: bin m sits at z = π·m·(N−1)/(N·K); spacing ≈ λ0²/(2·Δλ_span)
-/// (standard SD-OCT relation, e.g. Leitgeb et al. 2003, Opt. Express 11:889).
+/// (FIELD-NOTES; common practice for SD-OCT, no single source).
 /// A mirror at 500 µm must come back at 500 µm ± one depth pixel.
 #[test]
 fn mirror_depth_and_depth_spacing() {

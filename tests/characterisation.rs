@@ -28,7 +28,7 @@ fn assert_plot(path: &Path) {
 const NO_WINDOW: &str = "[window]\nkind = \"none\"\n";
 
 /// measure psf on a simulated 840 nm / 50 nm Gaussian mirror: FWHM within 5 %
-/// of l_c = (2 ln2/π)·λ0²/Δλ ≈ 6.2 µm (formula: Swanson et al. 1992, Opt.
+/// of l_c = (2 ln2/π)·λ0²/Δλ ≈ 6.2 µm (formula per FIELD-NOTES; citation from memory: Swanson et al. 1992, Opt.
 /// Lett. 17:151), ratio measured/limit within 0.95–1.05.
 #[test]
 fn psf_of_a_gaussian_mirror_meets_the_coherence_length_limit() {

@@ -47,6 +47,8 @@ pub struct MirrorMeasurement {
     pub saturated_samples: u64,
     pub zero_padding: usize,
     pub depth_spacing_um: f64,
+    /// Mean width of one camera pixel in wavenumber, rad/µm (for roll-off models).
+    pub pixel_dk_per_um: f64,
     pub warnings: Vec<String>,
     /// The averaged amplitude profile and its depth axis (µm), for plots.
     #[serde(skip)]
@@ -150,6 +152,7 @@ pub fn measure(path: &Path, config: &PipelineConfig, frame: usize, group_index: 
         saturated_samples: saturated,
         zero_padding: pad,
         depth_spacing_um: spacing,
+        pixel_dk_per_um: (plan.summary.k_max_per_um - plan.summary.k_min_per_um) / (capture.pixels - 1) as f64,
         warnings,
         depth_um: (0..depth).map(|j| plan.depth_um(j)).collect(),
         profile,

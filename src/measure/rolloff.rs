@@ -95,10 +95,7 @@ pub fn measure_rolloff(captures: &[PathBuf], config: &PipelineConfig, attenuatio
         bail!("two mirror captures sit at the same depth ({:.1} µm apart or less); roll-off needs distinct depths", 2.0 * found[0].fwhm_um_air);
     }
 
-    let capture = crate::io::capture::Capture::open(&captures[0], &config.input)?;
-    let wl = &capture.wavelength_nm;
-    let (k_a, k_b) = (crate::physics::wavenumber_per_um(wl[0]), crate::physics::wavenumber_per_um(wl[wl.len() - 1]));
-    let pixel_dk = (k_a - k_b).abs() / (wl.len() - 1) as f64;
+    let pixel_dk = found[0].pixel_dk_per_um;
 
     // ln(A/sinc) = ln A0 − 2σ²·z²
     let z2: Vec<f64> = depths.iter().map(|z| z * z).collect();
