@@ -54,9 +54,7 @@ pub fn run(dir: &Path, captures: &[&Path], pipeline: &str, out: &Path) -> Output
     let p = dir.join(format!("pipeline-{}.toml", sha(pipeline)));
     std::fs::write(&p, pipeline).unwrap();
     Command::new(bin())
-        // Test threads write HDF5 files while others spawn the binary; a child
-        // inherits those open descriptors and with them HDF5's file locks, so
-        // the children skip locking (they only read captures other threads finished).
+        // See .cargo/config.toml: tests run without HDF5 file locking.
         .env("HDF5_USE_FILE_LOCKING", "FALSE")
         .arg("run")
         .args(captures)
