@@ -79,15 +79,22 @@ pub fn highest_side_lobe_db(profile: &[f64], index: usize, reach: usize) -> Opti
 /// by Gaussian elimination with partial pivoting; fine for low degrees on
 /// well-scaled abscissae.
 pub fn polyfit(x: &[f64], y: &[f64], degree: usize) -> Vec<f64> {
+    polyfit_weighted(x, y, None, degree)
+}
+
+/// Weighted least-squares polynomial fit: minimises Σ w·(y − p(x))²
+/// (w = 1 when `weights` is None).
+pub fn polyfit_weighted(x: &[f64], y: &[f64], weights: Option<&[f64]>, degree: usize) -> Vec<f64> {
     let m = degree + 1;
     let mut a = vec![vec![0.0; m + 1]; m];
-    for (&xi, &yi) in x.iter().zip(y.iter()) {
+    for (i, (&xi, &yi)) in x.iter().zip(y.iter()).enumerate() {
+        let w = weights.map_or(1.0, |w| w[i]);
         let powers: Vec<f64> = (0..2 * m).map(|p| xi.powi(p as i32)).collect();
         for r in 0..m {
             for c in 0..m {
-                a[r][c] += powers[r + c];
+                a[r][c] += w * powers[r + c];
             }
-            a[r][m] += powers[r] * yi;
+            a[r][m] += w * powers[r] * yi;
         }
     }
     for col in 0..m {

@@ -109,6 +109,12 @@ pub enum Command {
         #[arg(long)]
         json: bool,
     },
+    /// Calibrate the spectrometer from mirror captures.
+    #[command(subcommand)]
+    Calibrate(CalibrateCommand),
+    /// Estimate dispersion coefficients or compare settings on a frame.
+    #[command(subcommand)]
+    Dispersion(DispersionCommand),
     /// List a capture's datasets, shapes, types, value ranges and problems.
     Inspect {
         capture: PathBuf,
@@ -152,5 +158,73 @@ pub enum MeasureCommand {
         plot: PathBuf,
         #[arg(long)]
         json: bool,
+    },
+}
+
+#[derive(Debug, Subcommand)]
+pub enum CalibrateCommand {
+    /// Per-pixel wavelength map from the fringe phase of mirror captures at two or more depths (or one at a known depth).
+    Wavelength {
+        #[arg(required = true)]
+        mirrors: Vec<PathBuf>,
+        /// Calibration file to write (JSON).
+        #[arg(long, short)]
+        out: PathBuf,
+        /// Wavelength at the middle pixel, nm.
+        #[arg(long)]
+        centre_nm: Option<f64>,
+        /// Wavelength span from the first to the last pixel, nm.
+        #[arg(long)]
+        span_nm: Option<f64>,
+        /// Mirror depths in µm (single pass, in air), one per capture, comma-separated.
+        #[arg(long, value_delimiter = ',')]
+        depths_um: Option<Vec<f64>>,
+        /// The wavelength decreases with pixel index (default: increases).
+        #[arg(long)]
+        decreasing: bool,
+        /// Degree of the polynomial fitted to the map.
+        #[arg(long, default_value_t = 3)]
+        degree: usize,
+        /// Pipeline file whose [input] section names the datasets.
+        #[arg(long, short)]
+        pipeline: Option<PathBuf>,
+        /// Frame whose A-lines are averaged.
+        #[arg(long, default_value_t = 0)]
+        frame: usize,
+        /// Print the calibration as JSON instead of a summary.
+        #[arg(long)]
+        json: bool,
+    },
+}
+
+#[derive(Debug, Subcommand)]
+pub enum DispersionCommand {
+    /// Find the a2/a3 that minimise image entropy (what `method = "auto"` does).
+    Estimate {
+        capture: PathBuf,
+        #[arg(long, short)]
+        pipeline: Option<PathBuf>,
+        /// Frame to estimate from (default: the pipeline's, else the middle frame).
+        #[arg(long)]
+        frame: Option<usize>,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Reconstruct one frame for each a2/a3 on a grid: contact sheet, CSV/JSON table, metric plot.
+    Sweep {
+        capture: PathBuf,
+        /// a2 values, START:STOP:STEP (rad) or one value.
+        #[arg(long, allow_hyphen_values = true)]
+        a2: String,
+        /// a3 values, START:STOP:STEP (rad) or one value.
+        #[arg(long, allow_hyphen_values = true, default_value = "0")]
+        a3: String,
+        #[arg(long, default_value_t = 0)]
+        frame: usize,
+        #[arg(long, short)]
+        pipeline: Option<PathBuf>,
+        /// Output directory.
+        #[arg(long, short)]
+        out: PathBuf,
     },
 }

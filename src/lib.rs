@@ -13,6 +13,7 @@
 
 pub mod analysis;
 pub mod batch;
+pub mod calibration;
 pub mod design;
 pub mod inspect;
 pub mod io;

@@ -2,6 +2,7 @@
 //! Errors print as one line on stderr; exit 2 for usage and settings
 //! errors, 1 when a capture could not be processed.
 
+mod calibration_commands;
 mod cli;
 
 use anyhow::Result;
@@ -14,12 +15,12 @@ use std::process::ExitCode;
 use cli::{Cli, Command, MeasureCommand};
 use fringeflow::pipeline::config::PipelineConfig;
 
-fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
+pub(crate) fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
     eprintln!("fringeflow: error: {message}");
     ExitCode::from(code)
 }
 
-fn load_pipeline(path: Option<&Path>) -> Result<PipelineConfig, ExitCode> {
+pub(crate) fn load_pipeline(path: Option<&Path>) -> Result<PipelineConfig, ExitCode> {
     match path {
         Some(p) => PipelineConfig::from_file(p).map_err(|e| fail(2, e)),
         None => Ok(PipelineConfig::default()),
@@ -278,6 +279,8 @@ fn main() -> ExitCode {
             }
         }
         Command::Measure(m) => measure(m),
+        Command::Calibrate(c) => calibration_commands::calibrate(c),
+        Command::Dispersion(c) => calibration_commands::dispersion(c),
         Command::Design { centre_nm, fwhm_nm, span_nm, pixel_width_nm, pixels, group_index, resolution_nm, json } => {
             let span = span_nm.unwrap_or_else(|| pixel_width_nm.unwrap_or(0.0) * pixels as f64);
             let values = [centre_nm, fwhm_nm, span, group_index, resolution_nm.unwrap_or(1.0)];

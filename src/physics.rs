@@ -101,6 +101,37 @@ pub fn fused_silica_chirp_rad(thickness_um: f64, k_per_um: f64, k0_per_um: f64) 
     2.0 * thickness_um * beta
 }
 
+/// A quadratic dispersion coefficient a2 (rad, in the correction
+/// polynomial's coordinate x = (k − k_c)/(k_max − k_min)) expressed in
+/// physical units for the band `k_min..k_max` (rad/µm).
+#[derive(Debug, Clone, Copy, PartialEq, serde::Serialize)]
+pub struct DispersionEquivalent {
+    /// Group-delay-dispersion mismatch d²φ/dω² (sample arm minus reference
+    /// arm, round trip), fs²: 2·a2/(K²·c²) with K = k_max − k_min.
+    pub gdd_fs2: f64,
+    /// Thickness of fused silica (mm) whose round-trip chirp over the same
+    /// band has the same fitted quadratic coefficient; positive: glass in
+    /// the sample arm (Sellmeier, Malitson 1965).
+    pub fused_silica_mm: f64,
+}
+
+/// Physical equivalents of a2 over a wavenumber band.
+///
+/// The glass thickness uses the same least-squares cubic fit in x that the
+/// simulator's truth and the calibration use, so the two are linear in each
+/// other exactly.
+pub fn dispersion_equivalent(a2: f64, k_min_per_um: f64, k_max_per_um: f64) -> DispersionEquivalent {
+    let span = k_max_per_um - k_min_per_um;
+    let c = SPEED_OF_LIGHT_UM_PER_FS;
+    let gdd_fs2 = 2.0 * a2 / (span * span * c * c);
+    let k0 = 0.5 * (k_min_per_um + k_max_per_um);
+    let n = 512;
+    let xs: Vec<f64> = (0..n).map(|j| j as f64 / (n - 1) as f64 - 0.5).collect();
+    let phase: Vec<f64> = xs.iter().map(|&x| fused_silica_chirp_rad(1000.0, k0 + x * span, k0)).collect();
+    let per_mm = crate::analysis::polyfit(&xs, &phase, 3)[2];
+    DispersionEquivalent { gdd_fs2, fused_silica_mm: a2 / per_mm }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -129,6 +160,24 @@ mod tests {
         // Malitson coefficients give 36.2 fs²/mm. Within 3 %.
         let gvd = fused_silica_gvd_fs2_per_mm(0.8);
         assert!((gvd - 36.2).abs() / 36.2 < 0.03, "gvd {gvd}");
+    }
+
+    #[test]
+    fn gdd_of_a2_matches_glass_gvd() {
+        // 10 mm of fused silica, round trip, 840 nm band of ±75 nm: the a2 it
+        // produces must convert back to 10 mm and to ≈ 2·10·GVD(840 nm) fs²
+        // (GVD from the Malitson Sellmeier equation; the band-averaged
+        // curvature differs from the centre value by a few %).
+        let (k_min, k_max) = (wavenumber_per_um(915.0), wavenumber_per_um(765.0));
+        let span = k_max - k_min;
+        let k0 = 0.5 * (k_min + k_max);
+        let xs: Vec<f64> = (0..400).map(|j| j as f64 / 399.0 - 0.5).collect();
+        let phase: Vec<f64> = xs.iter().map(|&x| fused_silica_chirp_rad(10_000.0, k0 + x * span, k0)).collect();
+        let a2 = crate::analysis::polyfit(&xs, &phase, 3)[2];
+        let eq = dispersion_equivalent(a2, k_min, k_max);
+        assert!((eq.fused_silica_mm - 10.0).abs() < 1e-6, "{eq:?}");
+        let expected = 2.0 * 10.0 * fused_silica_gvd_fs2_per_mm(wavelength_nm(k0) * 1e-3);
+        assert!((eq.gdd_fs2 - expected).abs() / expected < 0.05, "{eq:?} vs {expected}");
     }
 
     #[test]

@@ -98,6 +98,8 @@ pub struct ProcessingLog {
     pub pipeline: PipelineConfig,
     pub pipeline_sha256: String,
     pub derived: PlanSummary,
+    /// The automatic dispersion estimate, when `dispersion.method = "auto"`.
+    pub dispersion_estimate: Option<crate::calibration::dispersion::DispersionEstimate>,
     pub frames: Vec<FrameRecord>,
     pub averaging: Option<AveragingRecord>,
     pub outputs: Vec<String>,
@@ -199,8 +201,9 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         }
         (None, false) => None,
     };
+    let (resolved, dispersion_estimate) = crate::calibration::resolve_dispersion(&capture, config, source_spectrum.as_deref())?;
     let plan = Plan::new(
-        config,
+        &resolved,
         CaptureGeometry {
             wavelength_nm: &capture.wavelength_nm,
             background: capture.background.as_deref(),
@@ -379,6 +382,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         pipeline: config.clone(),
         pipeline_sha256,
         derived: summary,
+        dispersion_estimate,
         frames: records,
         averaging: averaging_record,
         outputs,

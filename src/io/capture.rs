@@ -61,6 +61,7 @@ impl SampleType {
 pub enum WavelengthSource {
     Dataset { path: String },
     Polynomial { coefficients_nm: Vec<f64> },
+    Calibration { path: String, sha256: String },
 }
 
 /// An opened, validated capture.
@@ -185,14 +186,24 @@ impl Capture {
             )
         })?;
 
-        let (wavelength_nm, wavelength_source) = match &input.wavelength_poly_nm {
-            Some(c) => {
+        let (wavelength_nm, wavelength_source) = match (&input.wavelength_poly_nm, &input.calibration) {
+            (_, Some(cal_path)) => {
+                let (cal, sha256) = crate::calibration::wavelength::WavelengthCalibration::load(Path::new(cal_path))?;
+                if cal.wavelength_nm.len() != pixels {
+                    bail!(
+                        "calibration file {cal_path} has {} pixels but the fringes have {pixels} pixels",
+                        cal.wavelength_nm.len()
+                    );
+                }
+                (cal.wavelength_nm, WavelengthSource::Calibration { path: cal_path.clone(), sha256 })
+            }
+            (Some(c), None) => {
                 let map = (0..pixels)
                     .map(|p| c.iter().rev().fold(0.0, |acc, &ci| acc * p as f64 + ci))
                     .collect::<Vec<_>>();
                 (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
             }
-            None => {
+            (None, None) => {
                 let ds = open_dataset(&file, &input.wavelength).ok_or_else(|| {
                     anyhow!(
                         "dataset '{}' not found (give the map in the capture or as input.wavelength_poly_nm)",
@@ -209,6 +220,7 @@ impl Capture {
         let source_name = match &wavelength_source {
             WavelengthSource::Dataset { path } => format!("'{path}'"),
             WavelengthSource::Polynomial { .. } => "input.wavelength_poly_nm".to_string(),
+            WavelengthSource::Calibration { path, .. } => format!("from calibration {path}"),
         };
         check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
 

@@ -73,7 +73,7 @@ pub fn measure(path: &Path, config: &PipelineConfig, frame: usize, group_index: 
     let frame_mean = mean_spectrum(&spectra);
     let source_counts = capture.background.clone().unwrap_or_else(|| frame_mean.clone());
 
-    let mut cfg = config.clone();
+    let (mut cfg, _) = crate::calibration::resolve_dispersion(&capture, config, Some(&source_counts))?;
     cfg.fft.zero_padding = cfg.fft.zero_padding.max(MEASURE_ZERO_PADDING);
     cfg.fft.crop_um = None;
     cfg.fft.crop_px = None;

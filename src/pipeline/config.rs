@@ -37,6 +37,10 @@ pub struct InputConfig {
     /// Wavelength map as a polynomial in the pixel index p (nm):
     /// λ(p) = c0 + c1·p + c2·p² + …; used instead of the dataset when given.
     pub wavelength_poly_nm: Option<Vec<f64>>,
+    /// Wavelength calibration file (JSON written by `fringeflow calibrate
+    /// wavelength`); used instead of the dataset when given. A relative path
+    /// is taken from the pipeline file's directory.
+    pub calibration: Option<String>,
 }
 
 impl Default for InputConfig {
@@ -47,6 +51,7 @@ impl Default for InputConfig {
             background: "/background".into(),
             axes: None,
             wavelength_poly_nm: None,
+            calibration: None,
         }
     }
 }
@@ -101,17 +106,49 @@ impl Default for KLinearizationConfig {
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
 pub struct DispersionConfig {
+    /// `fixed`: use a2 and a3 as given; `auto`: estimate them per capture
+    /// by minimising the image entropy.
+    pub method: DispersionMethod,
     /// Quadratic phase coefficient, rad (0: off).
     #[serde(deserialize_with = "de_finite")]
     pub a2: f64,
     /// Cubic phase coefficient, rad (0: off).
     #[serde(deserialize_with = "de_finite")]
     pub a3: f64,
+    /// auto: range searched for a2, rad.
+    pub a2_range: [f64; 2],
+    /// auto: range searched for a3, rad.
+    pub a3_range: [f64; 2],
+    /// auto: number of brightest A-lines the metric is computed on.
+    #[serde(deserialize_with = "de_search_alines")]
+    pub search_alines: usize,
+    /// auto: frame to estimate from (default: the middle frame).
+    pub search_frame: Option<usize>,
+}
+
+fn de_search_alines<'de, D: serde::Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    toml_file::de_usize_in(d, 1, 100_000)
+}
+
+/// How the dispersion coefficients are chosen.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum DispersionMethod {
+    Fixed,
+    Auto,
 }
 
 impl Default for DispersionConfig {
     fn default() -> Self {
-        DispersionConfig { a2: 0.0, a3: 0.0 }
+        DispersionConfig {
+            method: DispersionMethod::Fixed,
+            a2: 0.0,
+            a3: 0.0,
+            a2_range: [-300.0, 300.0],
+            a3_range: [-150.0, 150.0],
+            search_alines: 64,
+            search_frame: None,
+        }
     }
 }
 
@@ -287,8 +324,19 @@ pub struct PipelineConfig {
 impl PipelineConfig {
     /// Reads a pipeline file and checks the settings that involve several keys.
     pub fn from_file(path: &Path) -> Result<Self, ConfigError> {
-        let (config, text): (PipelineConfig, String) = toml_file::read(path)?;
+        let (mut config, text): (PipelineConfig, String) = toml_file::read(path)?;
         config.check(&path.display().to_string(), &text)?;
+        // A relative calibration path is relative to the pipeline file; store
+        // it absolute so the log alone is enough to rerun.
+        if let Some(c) = &config.input.calibration {
+            let p = Path::new(c);
+            if p.is_relative() {
+                let dir = path.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new("."));
+                let joined = dir.join(p);
+                let absolute = std::path::absolute(&joined).unwrap_or(joined);
+                config.input.calibration = Some(absolute.display().to_string());
+            }
+        }
         Ok(config)
     }
 
@@ -329,6 +377,14 @@ impl PipelineConfig {
                 "db_max",
                 format!("must exceed db_min ({} <= {})", self.log_compression.db_max, self.log_compression.db_min),
             ));
+        }
+        for (key, [a, b]) in [("a2_range", self.dispersion.a2_range), ("a3_range", self.dispersion.a3_range)] {
+            if !(a.is_finite() && b.is_finite() && a <= b) {
+                return Err(fail("dispersion", key, format!("needs finite start <= end, found [{a}, {b}]")));
+            }
+        }
+        if self.input.calibration.is_some() && self.input.wavelength_poly_nm.is_some() {
+            return Err(fail("input", "calibration", "give calibration or wavelength_poly_nm, not both".into()));
         }
         if let Some(axes) = &self.input.axes {
             let ok = matches!(axes.len(), 2 | 3)

@@ -77,6 +77,8 @@ pub struct Plan {
     stages: Vec<Box<dyn Stage>>,
     /// Scratch length the planned FFT needs.
     fft_scratch_len: usize,
+    /// Scale of |FFT| to fringe amplitude: 2/Σw.
+    amplitude_scale: f64,
     pub summary: PlanSummary,
 }
 
@@ -173,7 +175,7 @@ impl Plan {
             depth_pixels: end - first,
             stages: stages.iter().map(|s| s.name()).collect(),
         };
-        Ok(Plan { stages, fft_scratch_len, summary })
+        Ok(Plan { stages, fft_scratch_len, amplitude_scale: 2.0 / window_sum, summary })
     }
 
     /// The shaping stage and its Gaussian target (centre, FWHM in nm), when on.
@@ -190,6 +192,49 @@ impl Plan {
         let fwhm = if sh.fwhm_nm > 0.0 { sh.fwhm_nm } else { measured.fwhm_nm };
         let (envelope, _) = crate::measure::spectrum::remove_baseline(source);
         Ok(Some((Shaping::new(klin, &envelope, centre, fwhm, sh.floor), [centre, fwhm])))
+    }
+
+    /// Scale from |FFT| of the windowed fringe to fringe amplitude (2/Σw).
+    pub fn amplitude_scale(&self) -> f64 {
+        self.amplitude_scale
+    }
+
+    /// Background-free fringes of the chosen A-lines of a frame on the
+    /// uniform wavenumber grid (lines × k samples): the stages before
+    /// dispersion, with the frame's reference spectrum as in `process_frame`.
+    pub fn resampled_fringes(&self, frame: ArrayView2<'_, f64>, lines: &[usize]) -> Array2<f64> {
+        let mut ctx = FrameContext::default();
+        for stage in &self.stages {
+            stage.begin_frame(frame, &mut ctx);
+        }
+        let before: Vec<&dyn Stage> =
+            self.stages.iter().filter(|s| matches!(s.name(), "background" | "k_linearization")).map(|s| s.as_ref()).collect();
+        let n = self.summary.k_samples;
+        let mut out = Array2::<f64>::zeros((lines.len(), n));
+        out.as_slice_mut().expect("standard layout").par_chunks_mut(n).zip(lines.par_iter()).for_each_init(
+            || self.new_aline(),
+            |line, (row, &a)| {
+                line.spectrum.iter_mut().zip(frame.row(a).iter()).for_each(|(d, s)| *d = *s);
+                for stage in &before {
+                    stage.apply(&ctx, line);
+                }
+                row.iter_mut().zip(line.field.iter()).for_each(|(d, v)| *d = v.re);
+            },
+        );
+        out
+    }
+
+    /// Per-sample real gain the stages after k-linearization apply besides
+    /// dispersion (spectral shaping × window), on the k grid.
+    pub fn spectral_gain(&self) -> Vec<f64> {
+        let mut line = self.new_aline();
+        let n = self.summary.k_samples;
+        line.field[..n].fill(rustfft::num_complex::Complex64::new(1.0, 0.0));
+        let ctx = FrameContext::default();
+        for stage in self.stages.iter().filter(|s| matches!(s.name(), "shaping" | "window")) {
+            stage.apply(&ctx, &mut line);
+        }
+        line.field[..n].iter().map(|v| v.re).collect()
     }
 
     /// Names of the stages in order.

@@ -1,0 +1,123 @@
+//! The binary's `calibrate` and `dispersion` commands: argument checks,
+//! calls into `fringeflow::calibration`, and what they print.
+
+use std::process::ExitCode;
+
+use crate::cli::{CalibrateCommand, DispersionCommand};
+use crate::{fail, load_pipeline};
+use fringeflow::calibration::{dispersion, sweep, wavelength};
+use fringeflow::io::capture::Capture;
+use fringeflow::io::staging::write_atomically;
+
+pub fn calibrate(command: CalibrateCommand) -> ExitCode {
+    let CalibrateCommand::Wavelength { mirrors, out, centre_nm, span_nm, depths_um, decreasing, degree, pipeline, frame, json } = command;
+    let config = match load_pipeline(pipeline.as_deref()) {
+        Ok(c) => c,
+        Err(code) => return code,
+    };
+    let hints = wavelength::ScaleHints { centre_nm, span_nm, depths_um, decreasing };
+    let cal = match wavelength::calibrate_files(&mirrors, &config, frame, &hints, degree) {
+        Ok(c) => c,
+        Err(e) => return fail(1, format!("{e:#}")),
+    };
+    let written = write_atomically(&out, |tmp| {
+        std::fs::write(tmp, serde_json::to_vec_pretty(&cal)?)?;
+        Ok(())
+    });
+    if let Err(e) = written {
+        return fail(1, format!("{}: {e:#}", out.display()));
+    }
+    if json {
+        println!("{}", serde_json::to_string_pretty(&cal).unwrap());
+        return ExitCode::SUCCESS;
+    }
+    let n = cal.pixels;
+    println!(
+        "wavelength map: {:.3} nm (pixel 0) … {:.3} nm (pixel {}), centre {:.3} nm",
+        cal.wavelength_nm[0],
+        cal.wavelength_nm[n - 1],
+        n - 1,
+        cal.wavelength_nm[n / 2]
+    );
+    println!(
+        "degree-{} fit over pixels {}–{}: RMS residual {:.4} nm",
+        cal.polynomial_nm.len() - 1,
+        cal.fit_pixels[0],
+        cal.fit_pixels[1],
+        cal.fit_residual_rms_nm
+    );
+    for m in &cal.inputs {
+        println!("  {}: {:.1} fringe cycles, {:.1} dB", m.path.display(), m.fringe_cycles, m.fringe_snr_db);
+    }
+    match &cal.residual_dispersion {
+        Some(d) => println!(
+            "residual dispersion: a2 {:.2} rad, a3 {:.2} rad = GDD {:.0} fs² ≈ {:.2} mm of fused silica",
+            d.a2_rad, d.a3_rad, d.gdd_fs2, d.fused_silica_mm
+        ),
+        None => println!("residual dispersion: needs two mirror depths (with one, it is folded into the map)"),
+    }
+    println!("wrote {}", out.display());
+    ExitCode::SUCCESS
+}
+
+pub fn dispersion(command: DispersionCommand) -> ExitCode {
+    match command {
+        DispersionCommand::Estimate { capture: path, pipeline, frame, json } => {
+            let config = match load_pipeline(pipeline.as_deref()) {
+                Ok(c) => c,
+                Err(code) => return code,
+            };
+            let result = (|| {
+                let capture = Capture::open(&path, &config.input)?;
+                let frame = match frame {
+                    Some(f) if f >= capture.frames => anyhow::bail!("frame {f} does not exist (the capture has {} frames)", capture.frames),
+                    Some(f) => f,
+                    None => dispersion::search_frame(&config, capture.frames)?,
+                };
+                let mut source = capture.background.clone();
+                if source.is_none() && config.shaping.enabled {
+                    let mut first = ndarray::Array2::<f64>::zeros(capture.frame_shape());
+                    capture.read_frame(frame, &mut first)?;
+                    source = Some(fringeflow::stages::background::mean_spectrum(first.view()));
+                }
+                dispersion::estimate(&capture, &config, frame, source.as_deref())
+            })();
+            let e = match result {
+                Ok(e) => e,
+                Err(e) => return fail(1, format!("{}: {e:#}", path.display())),
+            };
+            if json {
+                println!("{}", serde_json::to_string_pretty(&e).unwrap());
+            } else {
+                println!("a2 {:.3} rad, a3 {:.3} rad (frame {}, {} A-lines, {} evaluations, {:.2} s)", e.a2_rad, e.a3_rad, e.frame, e.alines_used, e.evaluations, e.seconds);
+                println!("entropy {:.4} (uncorrected {:.4}); peak {:.1} dB over the noise floor", e.entropy, e.entropy_uncorrected, e.peak_over_floor_db);
+                println!("equivalent: GDD mismatch {:.0} fs², {:.2} mm of fused silica (positive: in the sample arm)", e.equivalent.gdd_fs2, e.equivalent.fused_silica_mm);
+                if e.at_range_limit {
+                    eprintln!("fringeflow: warning: the estimate is on the edge of the search range; widen dispersion.a2_range / a3_range");
+                }
+            }
+            ExitCode::SUCCESS
+        }
+        DispersionCommand::Sweep { capture, a2, a3, frame, pipeline, out } => {
+            let config = match load_pipeline(pipeline.as_deref()) {
+                Ok(c) => c,
+                Err(code) => return code,
+            };
+            let (a2, a3) = match (sweep::parse_range(&a2, "a2"), sweep::parse_range(&a3, "a3")) {
+                (Ok(a), Ok(b)) => (a, b),
+                (Err(e), _) | (_, Err(e)) => return fail(2, e),
+            };
+            let report = match sweep::sweep(&capture, &config, frame, &a2, &a3, &out) {
+                Ok(r) => r,
+                Err(e) => return fail(1, format!("{}: {e:#}", capture.display())),
+            };
+            println!("{:>10} {:>10} {:>10} {:>9} {:>9}", "a2 rad", "a3 rad", "entropy", "FWHM µm", "peak dB");
+            for (i, r) in report.rows.iter().enumerate() {
+                let fwhm = r.fwhm_um.map(|v| format!("{v:.2}")).unwrap_or_else(|| "-".into());
+                println!("{:>10.2} {:>10.2} {:>10.4} {:>9} {:>9.1}{}", r.a2_rad, r.a3_rad, r.entropy, fwhm, r.peak_db, if i == report.best { "  ← best" } else { "" });
+            }
+            println!("wrote contact-sheet.png, sweep.csv, sweep.json, metric.png in {}", out.display());
+            ExitCode::SUCCESS
+        }
+    }
+}
