@@ -164,7 +164,7 @@ mod tests {
 
     #[test]
     fn gdd_of_a2_matches_glass_gvd() {
-        // 10 mm of fused silica, round trip, 840 nm band of ±75 nm: the a2 it
+        // 10 mm of fused silica, round trip, 765–915 nm band: the a2 it
         // produces must convert back to 10 mm and to ≈ 2·10·GVD(840 nm) fs²
         // (GVD from the Malitson Sellmeier equation; the band-averaged
         // curvature differs from the centre value by a few %).
@@ -175,7 +175,7 @@ mod tests {
         let phase: Vec<f64> = xs.iter().map(|&x| fused_silica_chirp_rad(10_000.0, k0 + x * span, k0)).collect();
         let a2 = crate::analysis::polyfit(&xs, &phase, 3)[2];
         let eq = dispersion_equivalent(a2, k_min, k_max);
-        assert!((eq.fused_silica_mm - 10.0).abs() < 1e-6, "{eq:?}");
+        assert!((eq.fused_silica_mm - 10.0).abs() < 1e-3, "{eq:?}");
         let expected = 2.0 * 10.0 * fused_silica_gvd_fs2_per_mm(wavelength_nm(k0) * 1e-3);
         assert!((eq.gdd_fs2 - expected).abs() / expected < 0.05, "{eq:?} vs {expected}");
     }

@@ -187,7 +187,8 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
                 b.finish_and_clear();
                 multi.remove(&b);
             }
-            if !opts.quiet {
+            // Failures are reported even when quiet.
+            if !opts.quiet || matches!(record.status, Status::Failed) {
                 let line = match record.status {
                     Status::Done => format!("done    {} → {} ({:.2} s)", record.input, record.output.as_deref().unwrap_or(""), record.seconds),
                     Status::Skipped => format!("skipped {}: {}", record.input, record.reason.as_deref().unwrap_or("")),

@@ -425,8 +425,8 @@ mod tests {
 
     #[test]
     fn unwrap_matches_numpy_rule() {
-        // numpy.unwrap([0, 3, 6.5, -3]) = [0, 3, 0.2168..., -3 + 2π·?]: a
-        // steady ramp of 2.5 rad per step wrapped into (−π, π] comes back.
+        // A ramp of 2.5 rad per step (below π, so recoverable), wrapped into
+        // [−π, π), comes back exactly (NumPy's unwrap does the same).
         let ramp: Vec<f64> = (0..20).map(|i| 2.5 * i as f64).collect();
         let wrapped: Vec<f64> = ramp.iter().map(|v| (v + std::f64::consts::PI).rem_euclid(2.0 * std::f64::consts::PI) - std::f64::consts::PI).collect();
         let back = unwrap(&wrapped);

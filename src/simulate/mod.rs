@@ -376,7 +376,14 @@ pub fn simulate(scene: &Scene, out: &Path) -> Result<Truth> {
             let rows = simulate_rows(scene, &o, f, scene.alines, true);
             with_dtype!(scene.detector.dtype, write_rows, &fringes, &rows, Some(f))?;
         }
-        let map = write_1d(&file, "wavelength_nm", &wl)?;
+        let recorded = match scene.spectrometer.recorded_map {
+            scene::RecordedMap::True => wl.clone(),
+            scene::RecordedMap::Nominal => {
+                let s = &scene.spectrometer;
+                (0..pixels).map(|p| s.start_nm + (s.stop_nm - s.start_nm) * p as f64 / (pixels - 1) as f64).collect()
+            }
+        };
+        let map = write_1d(&file, "wavelength_nm", &recorded)?;
         write_attr_str(&map, "units", "nm")?;
         if scene.background_lines > 0 {
             let rows = simulate_rows(scene, &o, 0, scene.background_lines, false);

@@ -86,6 +86,25 @@ pub struct SpectrometerSpec {
     pub resolution_nm: f64,
     /// Integrate each pixel over its width (adds a sinc roll-off factor).
     pub pixel_integration: bool,
+    /// What the capture records as its wavelength map: the true map
+    /// (`true`, default) or the nominal linear one from start_nm to stop_nm
+    /// (`nominal`: a spectrometer that was never calibrated).
+    #[serde(skip_serializing_if = "RecordedMap::is_true")]
+    pub recorded_map: RecordedMap,
+}
+
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum RecordedMap {
+    #[default]
+    True,
+    Nominal,
+}
+
+impl RecordedMap {
+    fn is_true(&self) -> bool {
+        *self == RecordedMap::True
+    }
 }
 
 impl Default for SpectrometerSpec {
@@ -97,6 +116,7 @@ impl Default for SpectrometerSpec {
             nonlinearity_nm: [0.0, 0.0],
             resolution_nm: 0.0,
             pixel_integration: false,
+            recorded_map: RecordedMap::True,
         }
     }
 }
