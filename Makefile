@@ -8,7 +8,7 @@ CARGO  ?= cargo
 PYTHON ?= python3
 BIN    := target/release/fringeflow
 
-.PHONY: demo test deps-system deps-test deps-python build sample-data bench bench-memory fuzz clean
+.PHONY: demo test deps-system deps-test deps-python build sample-data bench bench-report bench-memory fuzz clean
 
 APT_PACKAGES := libhdf5-dev pkg-config libfontconfig1-dev fonts-dejavu-core
 
@@ -49,6 +49,13 @@ sample-data: build
 
 bench: deps-system
 	$(CARGO) bench --locked
+
+# Throughput report: bare FFT vs the full pipeline in one process (Rust),
+# then the NumPy/SciPy peer on the same capture and the speed-up.
+bench-report: build deps-python
+	mkdir -p out/bench
+	$(BIN) bench --json out/bench/report.json
+	$(PYTHON) benches/numpy_peer.py out/bench/throughput-v2.h5 --report out/bench/report.json
 
 # Peak memory of `run` on a simulated 2 GB capture (default pipeline).
 # Needs about 4.5 GB of disk under out/bench-memory.

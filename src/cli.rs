@@ -38,6 +38,10 @@ pub enum Command {
         /// No progress bars, per-capture lines or summary table.
         #[arg(long, short)]
         quiet: bool,
+        /// `fused`: the f32 fast path; `reference`: the plain f64 stage chain
+        /// (slower; the fast path is tested against it).
+        #[arg(long, value_enum, default_value_t = Engine::Fused)]
+        engine: Engine,
     },
     /// Reproduce an output from its log.json alone (input checked by SHA-256).
     Rerun {
@@ -115,6 +119,30 @@ pub enum Command {
     /// Estimate dispersion coefficients or compare settings on a frame.
     #[command(subcommand)]
     Dispersion(DispersionCommand),
+    /// Throughput report: bare FFT against the full pipeline, in one process and one run.
+    Bench {
+        /// Capture to time (default: simulate benches/throughput-scene.toml into the work directory).
+        #[arg(long)]
+        capture: Option<PathBuf>,
+        /// Working directory (bench capture, end-to-end outputs).
+        #[arg(long, default_value = "out/bench")]
+        work_dir: PathBuf,
+        /// A-lines per timed run.
+        #[arg(long, default_value_t = 100_000)]
+        alines: usize,
+        /// Timed runs per figure (the median is reported).
+        #[arg(long, default_value_t = 5)]
+        repeats: usize,
+        /// Skip the 10k/100k/1M A-line scaling runs.
+        #[arg(long)]
+        no_scaling: bool,
+        /// Skip timing `run` end to end.
+        #[arg(long)]
+        no_end_to_end: bool,
+        /// Also write the report as JSON here.
+        #[arg(long)]
+        json: Option<PathBuf>,
+    },
     /// List a capture's datasets, shapes, types, value ranges and problems.
     Inspect {
         capture: PathBuf,
@@ -122,6 +150,12 @@ pub enum Command {
         #[arg(long, short)]
         pipeline: Option<PathBuf>,
     },
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Engine {
+    Fused,
+    Reference,
 }
 
 #[derive(Debug, Subcommand)]

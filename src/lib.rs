@@ -23,3 +23,4 @@ pub mod pipeline;
 pub mod run;
 pub mod simulate;
 pub mod stages;
+pub mod throughput;

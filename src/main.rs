@@ -27,7 +27,8 @@ pub(crate) fn load_pipeline(path: Option<&Path>) -> Result<PipelineConfig, ExitC
     }
 }
 
-fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: &Path, resume: bool, shard: Option<&str>, quiet: bool) -> ExitCode {
+#[allow(clippy::too_many_arguments)]
+fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: &Path, resume: bool, shard: Option<&str>, quiet: bool, reference_engine: bool) -> ExitCode {
     use fringeflow::batch::{self, inputs};
     let config = match load_pipeline(pipeline) {
         Ok(c) => c,
@@ -59,7 +60,7 @@ fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: 
         Ok(s) => s,
         Err(e) => return fail(1, format!("{e:#}")),
     };
-    let options = batch::BatchOptions { resume, quiet, terminal: std::io::stderr().is_terminal(), shard, inputs_total: all.len() };
+    let options = batch::BatchOptions { resume, quiet, terminal: std::io::stderr().is_terminal(), shard, inputs_total: all.len(), reference_engine };
     let report = match batch::run_batch(&mine, &config, out, &options, &stop) {
         Ok(r) => r,
         Err(e) => return fail(1, format!("{e:#}")),
@@ -101,7 +102,8 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
         Ok(h) => return fail(1, format!("{}: SHA-256 is {h}, the log recorded {sha}: not the same input", input.display())),
         Err(e) => return fail(1, format!("{}: {e}", input.display())),
     }
-    match fringeflow::run::process_capture(&input, &config, out, Default::default()) {
+    let ctx = fringeflow::run::RunContext { reference_engine: log["engine"] == "reference", ..Default::default() };
+    match fringeflow::run::process_capture(&input, &config, out, ctx) {
         Ok(o) => {
             eprintln!("reproduced {} → {}", input.display(), o.output_dir.display());
             ExitCode::SUCCESS
@@ -257,8 +259,8 @@ fn measure(command: MeasureCommand) -> ExitCode {
 fn main() -> ExitCode {
     let cli = Cli::parse();
     match cli.command {
-        Command::Run { captures, list, pipeline, out, resume, shard, quiet } => {
-            run(&captures, list.as_deref(), pipeline.as_deref(), &out, resume, shard.as_deref(), quiet)
+        Command::Run { captures, list, pipeline, out, resume, shard, quiet, engine } => {
+            run(&captures, list.as_deref(), pipeline.as_deref(), &out, resume, shard.as_deref(), quiet, engine == cli::Engine::Reference)
         }
         Command::Rerun { log, out } => rerun(&log, &out),
         Command::Summarize { dir } => summarize(&dir),
@@ -279,6 +281,25 @@ fn main() -> ExitCode {
             }
         }
         Command::Measure(m) => measure(m),
+        Command::Bench { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, json } => {
+            let opts = fringeflow::throughput::BenchOptions { capture, work_dir, alines, repeats, scaling: !no_scaling, end_to_end: !no_end_to_end };
+            match fringeflow::throughput::run_bench(&opts) {
+                Ok(report) => {
+                    print!("{}", report.render());
+                    if let Some(path) = json {
+                        let written = fringeflow::io::staging::write_atomically(&path, |tmp| {
+                            std::fs::write(tmp, serde_json::to_vec_pretty(&report)?)?;
+                            Ok(())
+                        });
+                        if let Err(e) = written {
+                            return fail(1, format!("{}: {e:#}", path.display()));
+                        }
+                    }
+                    ExitCode::SUCCESS
+                }
+                Err(e) => fail(1, format!("{e:#}")),
+            }
+        }
         Command::Calibrate(c) => calibration_commands::calibrate(c),
         Command::Dispersion(c) => calibration_commands::dispersion(c),
         Command::Design { centre_nm, fwhm_nm, span_nm, pixel_width_nm, pixels, group_index, resolution_nm, json } => {

@@ -15,13 +15,15 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Instant;
 
-use crate::io::capture::{Capture, SampleType, WavelengthSource};
+use crate::io::capture::{Capture, RawFrame, SampleType, WavelengthSource};
 use crate::io::staging::Staging;
 use crate::io::volume::{VolumeAttributes, VolumeWriter};
 use crate::io::{hash, png};
 use crate::pipeline::config::{AxisName, PipelineConfig, Projection};
+use crate::pipeline::fused::{FusedPlan, FusedTimer};
 use crate::pipeline::plan::{CaptureGeometry, Plan, PlanSummary};
-use crate::stages::log_compression::{grey_levels, noise_floor_db, to_db, GreyMapping};
+use crate::stages::log_compression::{grey_levels, grey_levels_u8, noise_floor_db, peak_db, to_db, GreyMapping};
+use rayon::prelude::*;
 
 #[derive(Debug, Serialize)]
 pub struct ToolInfo {
@@ -97,6 +99,8 @@ pub struct ProcessingLog {
     pub input: InputInfo,
     pub pipeline: PipelineConfig,
     pub pipeline_sha256: String,
+    /// `fused` (f32 fast path) or `reference` (f64 stage chain).
+    pub engine: &'static str,
     pub derived: PlanSummary,
     /// The automatic dispersion estimate, when `dispersion.method = "auto"`.
     pub dispersion_estimate: Option<crate::calibration::dispersion::DispersionEstimate>,
@@ -134,6 +138,8 @@ pub struct RunContext<'a> {
     pub cancel: Option<&'a AtomicBool>,
     /// Skip when the existing log matches the input's hash and the pipeline's.
     pub resume: bool,
+    /// Use the plain f64 stage chain instead of the fused f32 fast path.
+    pub reference_engine: bool,
 }
 
 /// Name of the output directory of a capture: its file stem.
@@ -162,6 +168,34 @@ fn up_to_date(dir: &Path, sha256: &str, pipeline_sha256: &str) -> bool {
     log["input"]["sha256"] == sha256
         && log["pipeline_sha256"] == pipeline_sha256
         && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file())))
+}
+
+/// (rows × cols) → (cols × rows), in parallel over bands of 32 output rows.
+pub fn transpose(a: &Array2<f32>) -> Array2<f32> {
+    let (rows, cols) = a.dim();
+    let src = a.as_slice().expect("standard layout");
+    let mut out = vec![0.0f32; rows * cols];
+    const BAND: usize = 32;
+    out.par_chunks_mut(BAND * rows).enumerate().for_each(|(b, dst)| {
+        let c0 = b * BAND;
+        let width = dst.len() / rows;
+        for r in 0..rows {
+            let row = &src[r * cols + c0..r * cols + c0 + width];
+            for (c, &v) in row.iter().enumerate() {
+                dst[c * rows + r] = v;
+            }
+        }
+    });
+    Array2::from_shape_vec((cols, rows), out).expect("shape")
+}
+
+/// 8-bit grey levels of dB values. Sequential on purpose: it runs on the
+/// writer thread, which must never wait for the rayon pool (the pool's
+/// workers may be blocked handing frames to this very thread).
+pub fn grey8(db: &[f32], black: f64, white: f64) -> Vec<u8> {
+    let mut bytes = vec![0u8; db.len()];
+    grey_levels_u8(db, black, white, &mut bytes);
+    bytes
 }
 
 fn round6(v: f64) -> f64 {
@@ -251,93 +285,173 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         None
     };
 
+    let fused = (!ctx.reference_engine).then(|| FusedPlan::new(&plan));
     let timer = plan.new_timer();
-    let mut spectra = Array2::<f64>::zeros(capture.frame_shape());
-    let mut db = Array2::<f32>::zeros((alines, depth));
-    let mut sum = Array2::<f64>::zeros((alines, depth));
-    let mut first_single: Option<Array2<f32>> = None;
-    let mut en_face: Vec<f32> = Vec::with_capacity(positions * alines);
-    let (mut read_s, mut write_s) = (0.0, 0.0);
-    let mut records = Vec::with_capacity(positions);
-    let mut outputs = Vec::new();
+    let fused_timer = FusedTimer::default();
     let lc = &config.log_compression;
     let max_grey = if lc.bit_depth == 8 { 255.0 } else { 65535.0 };
-    let mut saturated_in_position = 0u64;
     let mut averaging_record = None;
 
-    for f in 0..frames {
-        if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
-            return Err(Interrupted.into());
-        }
-        let t = Instant::now();
-        saturated_in_position += capture.read_frame(f, &mut spectra)?;
-        read_s += t.elapsed().as_secs_f64();
-        plan.process_frame(spectra.view(), &mut db, &timer);
-        for p in [ctx.progress, ctx.capture_progress].into_iter().flatten() {
-            p.inc(1);
-        }
-        if average > 1 {
-            if f == 0 {
-                first_single = Some(db.clone());
+    // Three threads overlap: the reader fetches frame f+1 while frame f is
+    // reconstructed, and the writer maps, encodes and stores frame f−1.
+    // Reader and writer are plain threads that never use the rayon pool:
+    // this loop may run on a pool worker and block on their channels.
+    let (records, en_face, mut outputs, read_s, mut write_s, frame_warnings, volume) = std::thread::scope(|scope| -> Result<_> {
+        let (raw_tx, raw_rx) = std::sync::mpsc::sync_channel::<Result<(RawFrame, u64, f64)>>(2);
+        let capture_ref = &capture;
+        let cancel = ctx.cancel;
+        scope.spawn(move || {
+            for f in 0..frames {
+                if cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
+                    break;
+                }
+                let t = Instant::now();
+                let r = capture_ref.read_raw_frame(f).map(|(raw, sat)| (raw, sat, t.elapsed().as_secs_f64()));
+                let failed = r.is_err();
+                if raw_tx.send(r).is_err() || failed {
+                    break;
+                }
             }
-            ndarray::Zip::from(&mut sum).and(&db).for_each(|s, &d| *s += crate::analysis::amplitude_from_db(d as f64));
-            if (f + 1) % average != 0 {
-                continue;
-            }
-            ndarray::Zip::from(&mut db).and(&sum).for_each(|d, &s| *d = to_db(s / average as f64) as f32);
-            sum.fill(0.0);
-        }
-        let position = f / average;
-
-        let t = Instant::now();
-        let values = db.as_slice().expect("standard layout");
-        let floor = noise_floor_db(values);
-        let peak = values.iter().copied().fold(f32::NEG_INFINITY, f32::max) as f64;
-        let (black, white) = match lc.mapping {
-            GreyMapping::Auto => (floor + lc.floor_offset_db, floor + lc.floor_offset_db + lc.dynamic_range_db),
-            GreyMapping::Fixed => (lc.db_min, lc.db_max),
-        };
-        // The B-scan as shown: depth down, A-lines across.
-        let image = db.t().as_standard_layout().into_owned();
-        if config.output.png {
-            let levels = grey_levels(image.as_slice().unwrap(), black, white, max_grey);
-            let png_name = frame_png_name(position);
-            png::write_grey(&staging.path(&png_name), alines, depth, &levels, lc.bit_depth)?;
-            outputs.push(png_name);
-        }
-        if let Some(v) = &volume {
-            v.write_frame(position, &image)?;
-        }
-        if config.volume.en_face {
-            for row in db.outer_iter() {
-                let part = &row.as_slice().unwrap()[en_face_range.0..en_face_range.1];
-                en_face.push(match config.volume.en_face_projection {
-                    Projection::Mean => (part.iter().map(|&v| v as f64).sum::<f64>() / part.len() as f64) as f32,
-                    Projection::Max => part.iter().copied().fold(f32::NEG_INFINITY, f32::max),
-                });
-            }
-        }
-        write_s += t.elapsed().as_secs_f64();
-        if saturated_in_position > 0 {
-            warnings.push(format!(
-                "frame {f}: {saturated_in_position} samples at or above full scale ({}): fringes clipped",
-                capture.full_scale.unwrap_or(f64::NAN)
-            ));
-        }
-        records.push(FrameRecord {
-            index: position,
-            input_frames: [position * average, (position + 1) * average - 1],
-            noise_floor_db: round6(floor),
-            peak_db: round6(peak),
-            saturated_samples: saturated_in_position,
-            grey_black_db: round6(black),
-            grey_white_db: round6(white),
         });
-        saturated_in_position = 0;
-        if let Some(single) = first_single.take() {
-            averaging_record = Some(measure_averaging(&single, &db, average));
+        let (img_tx, img_rx) = std::sync::mpsc::sync_channel::<(usize, Array2<f32>, u64)>(2);
+        let (free_tx, free_rx) = std::sync::mpsc::channel::<Array2<f32>>();
+        let staging_ref = &staging;
+        let depth_um_ref = &depth_um;
+        let writer = scope.spawn(move || -> Result<_> {
+            let mut records = Vec::with_capacity(positions);
+            let mut en_face: Vec<f32> = Vec::with_capacity(positions * alines);
+            let mut outputs = Vec::new();
+            let mut warnings = Vec::new();
+            let mut write_s = 0.0;
+            for (position, image, saturated) in img_rx {
+                // `image` is the B-scan as shown: depth down, A-lines across.
+                let t = Instant::now();
+                let values = image.as_slice().expect("standard layout");
+                let floor = noise_floor_db(values);
+                let peak = peak_db(values) as f64;
+                let (black, white) = match lc.mapping {
+                    GreyMapping::Auto => (floor + lc.floor_offset_db, floor + lc.floor_offset_db + lc.dynamic_range_db),
+                    GreyMapping::Fixed => (lc.db_min, lc.db_max),
+                };
+                if config.output.png {
+                    let png_name = frame_png_name(position);
+                    let path = staging_ref.path(&png_name);
+                    if lc.bit_depth == 8 {
+                        png::write_grey8(&path, alines, depth, &grey8(values, black, white))?;
+                    } else {
+                        png::write_grey(&path, alines, depth, &grey_levels(values, black, white, max_grey), lc.bit_depth)?;
+                    }
+                    outputs.push(png_name);
+                }
+                if let Some(v) = &volume {
+                    v.write_frame(position, &image)?;
+                }
+                if config.volume.en_face {
+                    let rows = image.slice(ndarray::s![en_face_range.0..en_face_range.1, ..]);
+                    let n = rows.nrows() as f64;
+                    let mut acc = vec![match config.volume.en_face_projection {
+                        Projection::Mean => 0.0f64,
+                        Projection::Max => f64::NEG_INFINITY,
+                    }; alines];
+                    for row in rows.outer_iter() {
+                        for (a, &v) in acc.iter_mut().zip(row.iter()) {
+                            match config.volume.en_face_projection {
+                                Projection::Mean => *a += v as f64,
+                                Projection::Max => *a = a.max(v as f64),
+                            }
+                        }
+                    }
+                    en_face.extend(acc.iter().map(|&a| match config.volume.en_face_projection {
+                        Projection::Mean => (a / n) as f32,
+                        Projection::Max => a as f32,
+                    }));
+                }
+                if saturated > 0 {
+                    warnings.push(format!(
+                        "frame {}: {saturated} samples at or above full scale ({}): fringes clipped",
+                        (position + 1) * average - 1,
+                        capture_ref.full_scale.unwrap_or(f64::NAN)
+                    ));
+                }
+                records.push(FrameRecord {
+                    index: position,
+                    input_frames: [position * average, (position + 1) * average - 1],
+                    noise_floor_db: round6(floor),
+                    peak_db: round6(peak),
+                    saturated_samples: saturated,
+                    grey_black_db: round6(black),
+                    grey_white_db: round6(white),
+                });
+                let _ = free_tx.send(image);
+                write_s += t.elapsed().as_secs_f64();
+            }
+            let _ = depth_um_ref;
+            Ok((records, en_face, outputs, write_s, warnings, volume))
+        });
+
+        let mut read_s = 0.0;
+        let mut sum = Array2::<f64>::zeros((depth, alines));
+        let mut first_single: Option<Array2<f32>> = None;
+        let mut saturated_in_position = 0u64;
+        let mut result: Result<()> = Ok(());
+        for f in 0..frames {
+            if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
+                result = Err(Interrupted.into());
+                break;
+            }
+            let (raw, saturated, secs) = match raw_rx.recv() {
+                Ok(Ok(r)) => r,
+                Ok(Err(e)) => {
+                    result = Err(e);
+                    break;
+                }
+                Err(_) => {
+                    result = Err(Interrupted.into());
+                    break;
+                }
+            };
+            read_s += secs;
+            saturated_in_position += saturated;
+            let mut db = free_rx.try_recv().unwrap_or_else(|_| Array2::<f32>::zeros((depth, alines)));
+            match &fused {
+                Some(fp) => fp.process_raw_image(&raw, &mut db, &fused_timer),
+                None => {
+                    let mut rows = Array2::<f32>::zeros((alines, depth));
+                    plan.process_frame(raw.to_f64().view(), &mut rows, &timer);
+                    db = transpose(&rows);
+                }
+            }
+            drop(raw);
+            for p in [ctx.progress, ctx.capture_progress].into_iter().flatten() {
+                p.inc(1);
+            }
+            if average > 1 {
+                if f == 0 {
+                    first_single = Some(db.clone());
+                }
+                ndarray::Zip::from(&mut sum).and(&db).for_each(|s, &d| *s += crate::analysis::amplitude_from_db(d as f64));
+                if (f + 1) % average != 0 {
+                    continue;
+                }
+                ndarray::Zip::from(&mut db).and(&sum).for_each(|d, &s| *d = to_db(s / average as f64) as f32);
+                sum.fill(0.0);
+            }
+            if let Some(single) = first_single.take() {
+                averaging_record = Some(measure_averaging(&single, &db, average));
+            }
+            if img_tx.send((f / average, db, saturated_in_position)).is_err() {
+                break; // the writer failed; its error is returned below
+            }
+            saturated_in_position = 0;
         }
-    }
+        drop(img_tx);
+        drop(raw_rx);
+        let written = writer.join().map_err(|_| anyhow::anyhow!("the writer thread panicked"))?;
+        result?;
+        let (records, en_face, outputs, write_s, warnings, volume_back) = written?;
+        Ok((records, en_face, outputs, read_s, write_s, warnings, volume_back))
+    })?;
+    warnings.extend(frame_warnings);
     let t = Instant::now();
     if config.volume.en_face {
         let name = "en-face.png";
@@ -356,11 +470,18 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         outputs.push("volume.h5".into());
     }
     outputs.push("log.json".into());
+    write_s += t.elapsed().as_secs_f64();
 
     let total = started.elapsed().as_secs_f64();
     let mut stage_seconds = serde_json::Map::new();
-    for (stage, s) in plan.stage_names().iter().zip(timer.seconds()) {
-        stage_seconds.insert(stage.to_string(), serde_json::json!(s));
+    if fused.is_some() {
+        for (part, s) in FusedTimer::PARTS.iter().zip(fused_timer.seconds()) {
+            stage_seconds.insert(format!("fused:{part}"), serde_json::json!(s));
+        }
+    } else {
+        for (stage, s) in plan.stage_names().iter().zip(timer.seconds()) {
+            stage_seconds.insert(stage.to_string(), serde_json::json!(s));
+        }
     }
     let log = ProcessingLog {
         tool: ToolInfo { name: "fringeflow", version: env!("CARGO_PKG_VERSION") },
@@ -381,6 +502,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         },
         pipeline: config.clone(),
         pipeline_sha256,
+        engine: if fused.is_some() { "fused" } else { "reference" },
         derived: summary,
         dispersion_estimate,
         frames: records,
@@ -391,7 +513,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             note: "the only section that differs between identical runs",
             read_seconds: read_s,
             stage_thread_seconds: stage_seconds,
-            write_seconds: write_s + t.elapsed().as_secs_f64(),
+            write_seconds: write_s,
             total_seconds: total,
             alines_per_second: (frames * alines) as f64 / total,
             threads: rayon::current_num_threads(),
@@ -411,10 +533,11 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
 /// the deepest tenth of the depth range (chosen by position, not by value,
 /// so the selection does not bias either side).
 fn measure_averaging(single: &Array2<f32>, averaged: &Array2<f32>, n: usize) -> AveragingRecord {
-    let depth = single.ncols();
+    // Images are depth × A-lines: the deepest tenth of the rows.
+    let depth = single.nrows();
     let region = (depth - depth / 10).min(depth - 1)..depth;
     let values = |a: &Array2<f32>| -> Vec<f64> {
-        a.outer_iter().flat_map(|row| row.as_slice().unwrap()[region.clone()].iter().map(|&d| crate::analysis::amplitude_from_db(d as f64)).collect::<Vec<_>>()).collect()
+        a.slice(ndarray::s![region.clone(), ..]).iter().map(|&d| crate::analysis::amplitude_from_db(d as f64)).collect()
     };
     let sd = |v: &[f64]| {
         let mean = v.iter().sum::<f64>() / v.len() as f64;

@@ -121,6 +121,8 @@ pub struct BatchOptions {
     pub terminal: bool,
     pub shard: Shard,
     pub inputs_total: usize,
+    /// Use the plain f64 stage chain instead of the fused fast path.
+    pub reference_engine: bool,
 }
 
 /// Name of the batch summary for a shard.
@@ -181,7 +183,7 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
                 b.set_message(input.display().to_string());
                 b
             });
-            let ctx = RunContext { progress: overall.as_ref(), capture_progress: own.as_ref(), cancel: Some(&stop.any), resume: opts.resume };
+            let ctx = RunContext { progress: overall.as_ref(), capture_progress: own.as_ref(), cancel: Some(&stop.any), resume: opts.resume, reference_engine: opts.reference_engine };
             let record = process_one(input, config, out, ctx);
             if let Some(b) = own {
                 b.finish_and_clear();

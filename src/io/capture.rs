@@ -64,6 +64,32 @@ pub enum WavelengthSource {
     Calibration { path: String, sha256: String },
 }
 
+/// One frame of spectra (A-lines × pixels, standard layout) in the type it
+/// is stored in.
+#[derive(Debug, Clone)]
+pub enum RawFrame {
+    U8(Array2<u8>),
+    U16(Array2<u16>),
+    I16(Array2<i16>),
+    U32(Array2<u32>),
+    F32(Array2<f32>),
+    F64(Array2<f64>),
+}
+
+impl RawFrame {
+    /// The frame as f64 (for the reference path).
+    pub fn to_f64(&self) -> Array2<f64> {
+        match self {
+            RawFrame::U8(a) => a.mapv(|v| v as f64),
+            RawFrame::U16(a) => a.mapv(|v| v as f64),
+            RawFrame::I16(a) => a.mapv(|v| v as f64),
+            RawFrame::U32(a) => a.mapv(|v| v as f64),
+            RawFrame::F32(a) => a.mapv(|v| v as f64),
+            RawFrame::F64(a) => a.clone(),
+        }
+    }
+}
+
 /// An opened, validated capture.
 pub struct Capture {
     pub path: PathBuf,
@@ -267,6 +293,57 @@ impl Capture {
             wavelength_source,
             background,
             full_scale,
+        })
+    }
+
+    /// Reads frame `index` as (A-lines × pixels) in the stored sample type,
+    /// with the number of saturated samples. Fails on NaN or infinite values.
+    pub fn read_raw_frame(&self, index: usize) -> Result<(RawFrame, u64)> {
+        let slab: Vec<SliceOrIndex> = self
+            .axes
+            .iter()
+            .zip(self.shape.iter())
+            .map(|(&a, &n)| match a {
+                AxisName::Frame => SliceOrIndex::Index(index),
+                _ => SliceOrIndex::SliceCount { start: 0, step: 1, count: n, block: 1 },
+            })
+            .collect();
+        let aline_first = {
+            let rest: Vec<AxisName> = self.axes.iter().copied().filter(|&a| a != AxisName::Frame).collect();
+            rest[0] == AxisName::Aline
+        };
+        let fs = self.full_scale;
+        macro_rules! read_as {
+            ($t:ty, $variant:ident) => {{
+                let raw: Array2<$t> = self
+                    .fringes
+                    .read_slice(Hyperslab::from(slab))
+                    .with_context(|| format!("reading frame {index} of '{}'", self.fringes_path))?;
+                let raw = if aline_first { raw } else { raw.reversed_axes().as_standard_layout().into_owned() };
+                let v = raw.as_slice().expect("standard layout");
+                #[allow(clippy::unnecessary_cast)]
+                if let Some(pos) = v.iter().position(|x| !(*x as f64).is_finite()) {
+                    bail!(
+                        "NaN or infinite value in '{}' frame {index} (A-line {}, pixel {})",
+                        self.fringes_path,
+                        pos / self.pixels,
+                        pos % self.pixels
+                    );
+                }
+                let saturated = match fs {
+                    Some(fs) => v.iter().filter(|&&x| x as f64 >= fs).count() as u64,
+                    None => 0,
+                };
+                (RawFrame::$variant(raw), saturated)
+            }};
+        }
+        Ok(match self.sample_type {
+            SampleType::U8 => read_as!(u8, U8),
+            SampleType::U16 => read_as!(u16, U16),
+            SampleType::I16 => read_as!(i16, I16),
+            SampleType::U32 => read_as!(u32, U32),
+            SampleType::F32 => read_as!(f32, F32),
+            SampleType::F64 => read_as!(f64, F64),
         })
     }
 

@@ -6,6 +6,19 @@ use image::{ExtendedColorType, ImageEncoder};
 use std::io::{BufWriter, Write};
 use std::path::Path;
 
+/// Writes an 8-bit grey image of `width` × `height` (row-major bytes).
+pub fn write_grey8(path: &Path, width: usize, height: usize, bytes: &[u8]) -> Result<()> {
+    assert_eq!(bytes.len(), width * height);
+    let file = std::fs::File::create(path).with_context(|| format!("creating {}", path.display()))?;
+    let mut out = BufWriter::new(file);
+    let encoder = PngEncoder::new_with_quality(&mut out, CompressionType::Fast, FilterType::Sub);
+    encoder
+        .write_image(bytes, width as u32, height as u32, ExtendedColorType::L8)
+        .with_context(|| format!("encoding {}", path.display()))?;
+    out.flush().with_context(|| format!("writing {}", path.display()))?;
+    Ok(())
+}
+
 /// Writes a grey image of `width` × `height` (row-major `levels`) at 8 or 16 bits.
 pub fn write_grey(path: &Path, width: usize, height: usize, levels: &[u16], bit_depth: u8) -> Result<()> {
     assert_eq!(levels.len(), width * height);

@@ -2,4 +2,5 @@
 //! into precomputed stages and runs frames through them ([`plan`]).
 
 pub mod config;
+pub mod fused;
 pub mod plan;

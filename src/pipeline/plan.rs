@@ -79,6 +79,11 @@ pub struct Plan {
     fft_scratch_len: usize,
     /// Scale of |FFT| to fringe amplitude: 2/Σw.
     amplitude_scale: f64,
+    /// Copies of what the fused fast path needs.
+    pub(crate) resampling: KLinearization,
+    pub(crate) background_source: Option<BackgroundSource>,
+    pub(crate) dispersion: [f64; 2],
+    pub(crate) wavelength_nm: Vec<f64>,
     pub summary: PlanSummary,
 }
 
@@ -108,7 +113,7 @@ impl Plan {
             BackgroundMethod::Median => Some(BackgroundSource::FrameMedian),
             BackgroundMethod::None | BackgroundMethod::Auto => None,
         };
-        if let Some(source) = source {
+        if let Some(source) = source.clone() {
             stages.push(Box::new(Background { source }));
         }
 
@@ -116,6 +121,7 @@ impl Plan {
         let (k_min, k_max) = (klin.k_min_per_um, klin.k_max_per_um);
         let k_span = klin.k_span_per_um();
         let shaping = Self::plan_shaping(config, &capture, &klin)?;
+        let resampling = klin.clone();
         stages.push(Box::new(klin));
 
         let d = &config.dispersion;
@@ -175,7 +181,16 @@ impl Plan {
             depth_pixels: end - first,
             stages: stages.iter().map(|s| s.name()).collect(),
         };
-        Ok(Plan { stages, fft_scratch_len, amplitude_scale: 2.0 / window_sum, summary })
+        Ok(Plan {
+            stages,
+            fft_scratch_len,
+            amplitude_scale: 2.0 / window_sum,
+            resampling,
+            background_source: source,
+            dispersion: [d.a2, d.a3],
+            wavelength_nm: capture.wavelength_nm.to_vec(),
+            summary,
+        })
     }
 
     /// The shaping stage and its Gaussian target (centre, FWHM in nm), when on.

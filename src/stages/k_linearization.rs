@@ -63,6 +63,20 @@ pub struct KLinearization {
     pub samples: usize,
 }
 
+/// Read-only view of a [`KLinearization`]'s tables (see its fields).
+pub struct ResamplingTables<'a> {
+    pub cubic: bool,
+    pub order: &'a [usize],
+    pub interval: &'a [usize],
+    pub left_weight: &'a [f64],
+    pub left_curvature: &'a [f64],
+    pub right_curvature: &'a [f64],
+    pub h: &'a [f64],
+    pub inv_h: &'a [f64],
+    pub c_prime: &'a [f64],
+    pub inv_pivot: &'a [f64],
+}
+
 impl KLinearization {
     /// Plans the resampling for a per-pixel wavelength map (nm), which must be
     /// strictly monotonic (checked by the capture reader), onto `samples`
@@ -131,6 +145,22 @@ impl KLinearization {
             k_min_per_um: k_min,
             k_max_per_um: k_max,
             samples,
+        }
+    }
+
+    /// The precomputed tables, for the fused fast path (`pipeline::fused`).
+    pub fn tables(&self) -> ResamplingTables<'_> {
+        ResamplingTables {
+            cubic: self.method == Interpolation::Cubic,
+            order: &self.order,
+            interval: &self.interval,
+            left_weight: &self.left_weight,
+            left_curvature: &self.left_curvature,
+            right_curvature: &self.right_curvature,
+            h: &self.h,
+            inv_h: &self.inv_h,
+            c_prime: &self.c_prime,
+            inv_pivot: &self.inv_pivot,
         }
     }
 

@@ -40,13 +40,58 @@ pub enum GreyMapping {
     Fixed,
 }
 
-/// Noise floor estimate of a frame in dB: the median of its values.
+/// Most values the noise-floor median looks at; larger frames are sampled
+/// at a fixed stride.
+pub const NOISE_FLOOR_SAMPLES: usize = 16_384;
+
+/// Noise floor estimate of a frame in dB: the median of its values, or for
+/// frames of more than [`NOISE_FLOOR_SAMPLES`] values the median of every
+/// s-th value (s = ⌈n / NOISE_FLOOR_SAMPLES⌉; deterministic).
 pub fn noise_floor_db(db: &[f32]) -> f64 {
     if db.is_empty() {
         return f64::NAN;
     }
-    let mut v: Vec<f64> = db.iter().map(|&x| x as f64).collect();
-    crate::stages::background::median_in_place(&mut v)
+    let stride = db.len().div_ceil(NOISE_FLOOR_SAMPLES);
+    let mut v: Vec<f32> = db.iter().step_by(stride).copied().collect();
+    let n = v.len();
+    let mid = n / 2;
+    let (lower, upper_mid, _) = v.select_nth_unstable_by(mid, f32::total_cmp);
+    let upper = *upper_mid as f64;
+    if n % 2 == 1 {
+        upper
+    } else {
+        // NumPy convention for an even count: the mean of the two middle values.
+        let below = lower.iter().copied().fold(f32::NEG_INFINITY, f32::max) as f64;
+        0.5 * (below + upper)
+    }
+}
+
+/// Largest value (NaN-free input), in SIMD-friendly chunks.
+pub fn peak_db(db: &[f32]) -> f32 {
+    let mut acc = [f32::NEG_INFINITY; 16];
+    let mut chunks = db.chunks_exact(16);
+    for c in &mut chunks {
+        for (a, &v) in acc.iter_mut().zip(c) {
+            *a = if v > *a { v } else { *a };
+        }
+    }
+    let rest = chunks.remainder().iter().copied().fold(f32::NEG_INFINITY, f32::max);
+    acc.iter().copied().fold(rest, f32::max)
+}
+
+/// 8-bit grey levels of dB values: [black, white] → [0, 255], rounded,
+/// clamped (the f32 twin of [`grey_levels`]).
+pub fn grey_levels_u8(db: &[f32], black_db: f64, white_db: f64, out: &mut [u8]) {
+    let scale = (255.0 / (white_db - black_db)) as f32;
+    let black = black_db as f32;
+    for (o, &d) in out.iter_mut().zip(db) {
+        // Round half up (values are ≥ 0 after the clamp): the same as round().
+        let v = ((d - black) * scale).clamp(0.0, 255.0) + 0.5;
+        // f32::max/min drop a NaN, so v ends up finite in [0, 255.5].
+        let v = v.max(0.0).min(255.5);
+        // SAFETY: v is finite and within i32's range.
+        *o = unsafe { v.to_int_unchecked::<i32>() } as u8;
+    }
 }
 
 /// Maps dB values linearly from [black_db, white_db] to [0, max_grey],

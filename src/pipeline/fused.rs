@@ -1,0 +1,994 @@
+//! The fused fast path: the same reconstruction as the stage chain of
+//! [`Plan`], in f32, with every step before the FFT done in one pass over a
+//! block of A-lines.
+//!
+//! Everything between the camera and the FFT is linear in the spectrum, so
+//! per A-line the path is: samples (native type) − reference spectrum →
+//! natural cubic spline (or linear) onto the k grid → × one precomputed
+//! complex factor per k sample (dispersion phase × spectral shaping ×
+//! window) → FFT → |·|² → dB by a polynomial log2 → output row.
+//!
+//! A-lines go through in blocks of [`LANES`]: the block is stored
+//! pixel-major with one A-line per lane, so the spline's serial tridiagonal
+//! sweeps and the interpolation run on all lanes at once (SIMD), and the
+//! FFTs of the block run as one batched rustfft call. The kernels are
+//! compiled twice, for AVX2+FMA (chosen at run time when the CPU has it) and
+//! for the baseline. No allocation per A-line: each worker thread owns one
+//! workspace. The plain stage modules stay the reference implementation;
+//! tests hold this path to them within 1e-4 of the peak amplitude.
+
+use ndarray::{Array2, ArrayView2};
+use rayon::prelude::*;
+use rustfft::num_complex::Complex32;
+use rustfft::{Fft, FftPlanner};
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::Arc;
+use std::time::Instant;
+
+use super::plan::Plan;
+use crate::io::capture::RawFrame;
+use crate::stages::background::{median_spectrum, BackgroundSource};
+use crate::stages::dispersion::{correction_phase, normalised_coordinate};
+use crate::stages::log_compression::AMPLITUDE_FLOOR;
+
+/// A-lines processed together, one per SIMD lane.
+pub const LANES: usize = 16;
+type Lane = [f32; LANES];
+/// 10·log10(2): dB of power per unit of log2.
+const DB_PER_LOG2: f32 = 3.010_299_956_639_812;
+/// Degree of the log2 polynomial (see [`FastLog2`]).
+const LOG2_DEGREE: usize = 8;
+
+/// A camera sample type.
+pub trait Sample: Copy + Send + Sync + 'static {
+    fn to_f32(self) -> f32;
+}
+macro_rules! sample {
+    ($($t:ty),*) => {$(impl Sample for $t {
+        #[inline(always)]
+        fn to_f32(self) -> f32 { self as f32 }
+    })*};
+}
+sample!(u8, u16, i16, u32, f32, f64);
+
+/// log2 for positive normal f32 by range reduction to m ∈ [0.75, 1.5) and a
+/// degree-8 polynomial in m − 1, fitted by least squares on 2049 points when
+/// the plan is made. Worst error about 1e-6 in log2 (3e-6 dB), checked in
+/// the tests.
+#[derive(Debug, Clone, Copy)]
+pub struct FastLog2 {
+    /// Coefficients in u = (t − 0.125)/0.375, t = m − 1 ∈ [−0.25, 0.5).
+    c: [f32; LOG2_DEGREE + 1],
+}
+
+impl Default for FastLog2 {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+impl FastLog2 {
+    pub fn new() -> Self {
+        let n = 2049;
+        let us: Vec<f64> = (0..n).map(|i| -1.0 + 2.0 * i as f64 / (n - 1) as f64).collect();
+        let ys: Vec<f64> = us.iter().map(|u| (1.0 + 0.125 + 0.375 * u).log2()).collect();
+        let fit = crate::analysis::polyfit(&us, &ys, LOG2_DEGREE);
+        let mut c = [0.0f32; LOG2_DEGREE + 1];
+        for (d, v) in c.iter_mut().zip(fit.iter()) {
+            *d = *v as f32;
+        }
+        FastLog2 { c }
+    }
+
+    #[inline(always)]
+    pub fn log2(&self, x: f32) -> f32 {
+        // x = 2^e · m with m ∈ [0.75, 1.5): subtract the bits of 0.75.
+        let bits = x.to_bits() as i32;
+        let e = (bits - 0x3f40_0000) >> 23;
+        let m = f32::from_bits((bits - (e << 23)) as u32);
+        let u = (m - 1.125) * (1.0 / 0.375);
+        let mut p = self.c[LOG2_DEGREE];
+        for k in (0..LOG2_DEGREE).rev() {
+            p = p * u + self.c[k];
+        }
+        e as f32 + p
+    }
+}
+
+/// Natural cubic spline tables in pixel order (k increasing or decreasing
+/// with the pixel index), built like `stages::k_linearization` builds its
+/// own in increasing-k order: the same interpolant.
+struct PixelOrderSpline {
+    interval: Vec<u32>,
+    left_weight: Vec<f64>,
+    left_curvature: Vec<f64>,
+    right_curvature: Vec<f64>,
+    h: Vec<f64>,
+    inv_h: Vec<f64>,
+    c_prime: Vec<f64>,
+    inv_pivot: Vec<f64>,
+}
+
+impl PixelOrderSpline {
+    fn new(wavelength_nm: &[f64], k_min: f64, k_max: f64, samples: usize) -> Self {
+        let k: Vec<f64> = wavelength_nm.iter().map(|&l| crate::physics::wavenumber_per_um(l)).collect();
+        let n = k.len();
+        let h: Vec<f64> = k.windows(2).map(|w| w[1] - w[0]).collect();
+        let increasing = k[n - 1] > k[0];
+        let mut interval = Vec::with_capacity(samples);
+        let (mut left_weight, mut left_curvature, mut right_curvature) = (Vec::new(), Vec::new(), Vec::new());
+        for j in 0..samples {
+            let t = if j + 1 == samples { k_max } else { k_min + (k_max - k_min) * j as f64 / (samples - 1) as f64 };
+            // First q with t between k[q] and k[q+1] (binary search on the monotonic map).
+            let q = if increasing {
+                k.partition_point(|&v| v < t).clamp(1, n - 1) - 1
+            } else {
+                k.partition_point(|&v| v > t).clamp(1, n - 1) - 1
+            };
+            let a = ((k[q + 1] - t) / h[q]).clamp(0.0, 1.0);
+            let b = 1.0 - a;
+            interval.push(q as u32);
+            left_weight.push(a);
+            left_curvature.push((a * a * a - a) * h[q] * h[q] / 6.0);
+            right_curvature.push((b * b * b - b) * h[q] * h[q] / 6.0);
+        }
+        let rows = n - 2;
+        let mut c_prime = vec![0.0; rows];
+        let mut inv_pivot = vec![0.0; rows];
+        for r in 0..rows {
+            let lower = if r == 0 { 0.0 } else { h[r] };
+            let diag = 2.0 * (h[r] + h[r + 1]);
+            let upper = if r + 1 == rows { 0.0 } else { h[r + 1] };
+            let pivot = diag - if r == 0 { 0.0 } else { lower * c_prime[r - 1] };
+            inv_pivot[r] = 1.0 / pivot;
+            c_prime[r] = upper / pivot;
+        }
+        let inv_h = h.iter().map(|v| 1.0 / v).collect();
+        PixelOrderSpline { interval, left_weight, left_curvature, right_curvature, h, inv_h, c_prime, inv_pivot }
+    }
+}
+
+/// Reference spectrum per frame.
+#[derive(Debug, Clone)]
+enum Reference {
+    None,
+    Fixed(Vec<f32>),
+    Mean,
+    Median,
+}
+
+/// Seconds (summed over threads) in the fused path's three parts.
+#[derive(Debug, Default)]
+pub struct FusedTimer {
+    nanos: [AtomicU64; 4],
+}
+
+impl FusedTimer {
+    pub const PARTS: [&'static str; 4] = ["background", "resample_disperse_window", "fft", "magnitude_log"];
+    pub fn seconds(&self) -> [f64; 4] {
+        let mut out = [0.0; 4];
+        for (o, n) in out.iter_mut().zip(self.nanos.iter()) {
+            *o = n.load(Ordering::Relaxed) as f64 * 1e-9;
+        }
+        out
+    }
+    fn add(&self, part: usize, since: Instant) {
+        self.nanos[part].fetch_add(since.elapsed().as_nanos() as u64, Ordering::Relaxed);
+    }
+}
+
+/// Per-worker buffers, made once per worker.
+struct Workspace {
+    /// One block's spectra as f32, line by line.
+    rows: Vec<f32>,
+    y: Vec<Lane>,
+    m: Vec<Lane>,
+    buf: Vec<Complex32>,
+    scratch: Vec<Complex32>,
+}
+
+/// The fused plan, built from a reference [`Plan`].
+pub struct FusedPlan {
+    pixels: usize,
+    k_samples: usize,
+    fft_length: usize,
+    first_bin: usize,
+    depth: usize,
+    reference: Reference,
+    cubic: bool,
+    /// For each k sample: the pixel interval (q, q+1) it falls in, in pixel
+    /// order (the spline is the same function whichever way k runs).
+    interval: Vec<u32>,
+    left_weight: Vec<f32>,
+    left_curvature: Vec<f32>,
+    right_curvature: Vec<f32>,
+    inv_h: Vec<f32>,
+    c_prime: Vec<f32>,
+    inv_pivot: Vec<f32>,
+    /// h[r]·inv_pivot[r]: the forward sweep's coefficient on m[r].
+    sweep_alpha: Vec<f32>,
+    /// exp(−iφ_c)·shaping·window per k sample.
+    factor: Vec<Complex32>,
+    fft: Arc<dyn Fft<f32>>,
+    fft_scratch: usize,
+    /// 20·log10 of the amplitude scale; floor on |X|².
+    db_offset: f32,
+    power_floor: f32,
+    log2: FastLog2,
+    /// Last frame's per-pixel lower middle values (median background).
+    median_hint: std::sync::Mutex<Vec<u16>>,
+}
+
+fn to_f32(v: &[f64]) -> Vec<f32> {
+    v.iter().map(|&x| x as f32).collect()
+}
+
+impl FusedPlan {
+    pub fn new(plan: &Plan) -> Self {
+        let s = &plan.summary;
+        let t = plan.resampling.tables();
+        let n = s.k_samples;
+        let gain = plan.spectral_gain();
+        let [a2, a3] = plan.dispersion;
+        let factor = (0..n)
+            .map(|j| {
+                let phi = correction_phase(a2, a3, normalised_coordinate(j, n));
+                let c = rustfft::num_complex::Complex64::from_polar(gain[j], -phi);
+                Complex32::new(c.re as f32, c.im as f32)
+            })
+            .collect();
+        let reference = match &plan.background_source {
+            None => Reference::None,
+            Some(BackgroundSource::Fixed(b)) => Reference::Fixed(to_f32(b)),
+            Some(BackgroundSource::FrameMean) => Reference::Mean,
+            Some(BackgroundSource::FrameMedian) => Reference::Median,
+        };
+        let tables = PixelOrderSpline::new(&plan.wavelength_nm, plan.resampling.k_min_per_um, plan.resampling.k_max_per_um, n);
+        let fft = FftPlanner::<f32>::new().plan_fft_forward(s.fft_length);
+        let scale = plan.amplitude_scale();
+        FusedPlan {
+            pixels: s.pixels,
+            k_samples: n,
+            fft_length: s.fft_length,
+            first_bin: s.first_depth_bin,
+            depth: s.depth_pixels,
+            reference,
+            cubic: t.cubic,
+            interval: tables.interval,
+            left_weight: to_f32(&tables.left_weight),
+            left_curvature: to_f32(&tables.left_curvature),
+            right_curvature: to_f32(&tables.right_curvature),
+            inv_h: to_f32(&tables.inv_h),
+            c_prime: to_f32(&tables.c_prime),
+            inv_pivot: to_f32(&tables.inv_pivot),
+            sweep_alpha: tables.inv_pivot.iter().zip(tables.h.iter()).enumerate().map(|(r, (ip, h))| if r == 0 { 0.0 } else { (h * ip) as f32 }).collect(),
+            factor,
+            fft_scratch: fft.get_inplace_scratch_len(),
+            fft,
+            db_offset: (20.0 * scale.log10()) as f32,
+            power_floor: ((AMPLITUDE_FLOOR / scale) * (AMPLITUDE_FLOOR / scale)) as f32,
+            log2: FastLog2::new(),
+            median_hint: std::sync::Mutex::new(Vec::new()),
+        }
+    }
+
+    pub fn new_timer(&self) -> FusedTimer {
+        FusedTimer::default()
+    }
+
+    fn workspace(&self) -> Workspace {
+        Workspace {
+            rows: vec![0.0; LANES * self.pixels],
+            y: vec![[0.0; LANES]; self.pixels],
+            m: vec![[0.0; LANES]; self.pixels],
+            buf: vec![Complex32::new(0.0, 0.0); LANES * self.fft_length],
+            scratch: vec![Complex32::new(0.0, 0.0); self.fft_scratch],
+        }
+    }
+
+    /// Processes a raw frame (A-lines × pixels) into `db_out` (A-lines ×
+    /// depth pixels, 20·log10|A| like the reference path).
+    pub fn process_raw(&self, frame: &RawFrame, db_out: &mut Array2<f32>, timer: &FusedTimer) {
+        match frame {
+            RawFrame::U8(a) => self.process_frame(a.view(), db_out, timer),
+            RawFrame::U16(a) => self.process_frame(a.view(), db_out, timer),
+            RawFrame::I16(a) => self.process_frame(a.view(), db_out, timer),
+            RawFrame::U32(a) => self.process_frame(a.view(), db_out, timer),
+            RawFrame::F32(a) => self.process_frame(a.view(), db_out, timer),
+            RawFrame::F64(a) => self.process_frame(a.view(), db_out, timer),
+        }
+    }
+
+    /// The frame's reference spectrum per pixel, as f32.
+    fn reference_sorted<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>) -> Vec<f32> {
+        let pixels = self.pixels;
+        let by_pixel: Vec<f32> = match &self.reference {
+            Reference::None => vec![0.0; pixels],
+            Reference::Fixed(b) => b.clone(),
+            Reference::Mean => {
+                let mut sum = vec![0.0f64; pixels];
+                for row in frame.rows() {
+                    for (s, v) in sum.iter_mut().zip(row.iter()) {
+                        *s += v.to_f32() as f64;
+                    }
+                }
+                sum.iter().map(|s| (s / frame.nrows() as f64) as f32).collect()
+            }
+            Reference::Median => match T::median_columns(frame, &mut self.median_hint.lock().unwrap_or_else(|e| e.into_inner())) {
+                Some(m) => m,
+                None => to_f32(&median_spectrum(frame.mapv(|v| v.to_f32() as f64).view())),
+            },
+        };
+        by_pixel
+    }
+
+    /// Processes a frame (A-lines × pixels) of samples into `db_out`.
+    pub fn process_frame<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, db_out: &mut Array2<f32>, timer: &FusedTimer) {
+        let (alines, pixels) = frame.dim();
+        assert_eq!(pixels, self.pixels);
+        assert_eq!(db_out.dim(), (alines, self.depth));
+        let t = Instant::now();
+        let frame = frame.as_standard_layout();
+        let reference = self.reference_sorted(frame.view());
+        timer.add(0, t);
+        let input = frame.as_slice().expect("standard layout");
+        let output = db_out.as_slice_mut().expect("standard layout");
+        let depth = self.depth;
+        let blocks = alines.div_ceil(LANES);
+        let min_blocks_per_job = (blocks / (4 * rayon::current_num_threads())).max(1);
+        input
+            .par_chunks(LANES * pixels)
+            .zip(output.par_chunks_mut(LANES * depth))
+            .with_min_len(min_blocks_per_job)
+            .for_each_init(|| self.workspace(), |ws, (spectra, out)| self.block(spectra, &reference, out, ws, timer));
+    }
+
+    /// Processes a raw frame straight into the B-scan image (depth pixels ×
+    /// A-lines, depth down, as shown and stored), dB like the reference.
+    pub fn process_raw_image(&self, frame: &RawFrame, image: &mut Array2<f32>, timer: &FusedTimer) {
+        match frame {
+            RawFrame::U8(a) => self.process_frame_image(a.view(), image, timer),
+            RawFrame::U16(a) => self.process_frame_image(a.view(), image, timer),
+            RawFrame::I16(a) => self.process_frame_image(a.view(), image, timer),
+            RawFrame::U32(a) => self.process_frame_image(a.view(), image, timer),
+            RawFrame::F32(a) => self.process_frame_image(a.view(), image, timer),
+            RawFrame::F64(a) => self.process_frame_image(a.view(), image, timer),
+        }
+    }
+
+    /// As [`Self::process_frame`], but writes the image (depth × A-lines):
+    /// each block's 16 dB rows are transposed into 16 adjacent columns.
+    pub fn process_frame_image<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, timer: &FusedTimer) {
+        let (alines, pixels) = frame.dim();
+        assert_eq!(pixels, self.pixels);
+        assert_eq!(image.dim(), (self.depth, alines));
+        let t = Instant::now();
+        let frame = frame.as_standard_layout();
+        let reference = self.reference_sorted(frame.view());
+        timer.add(0, t);
+        let input = frame.as_slice().expect("standard layout");
+        let target = ImagePtr { ptr: image.as_slice_mut().expect("standard layout").as_mut_ptr(), alines, depth: self.depth };
+        let blocks = alines.div_ceil(LANES);
+        let min_blocks_per_job = (blocks / (4 * rayon::current_num_threads())).max(1);
+        input.par_chunks(LANES * pixels).enumerate().with_min_len(min_blocks_per_job).for_each_init(
+            || (self.workspace(), vec![0.0f32; LANES * self.depth]),
+            |(ws, rows), (b, spectra)| {
+                let lines = spectra.len() / pixels;
+                self.block(spectra, &reference, &mut rows[..lines * self.depth], ws, timer);
+                // SAFETY: block b writes only columns b·LANES .. b·LANES + lines
+                // of each image row; blocks are disjoint and the image outlives
+                // the parallel loop.
+                unsafe { target.write_columns(rows, lines, b * LANES) };
+            },
+        );
+    }
+
+    fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], ws: &mut Workspace, timer: &FusedTimer) {
+        #[cfg(target_arch = "x86_64")]
+        {
+            if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+                // SAFETY: the CPU supports the features the function is compiled for.
+                unsafe { self.block_avx2(spectra, reference, out, ws, timer) };
+                return;
+            }
+        }
+        self.block_inline(spectra, reference, out, ws, timer);
+    }
+
+    /// Interpolation and scatter of the whole 8-sample tiles with AVX2+FMA;
+    /// returns the first k sample left for the portable loop.
+    #[inline(always)]
+    fn eval_whole_tiles(&self, y: &[Lane], m: &[Lane], lines: usize, buf: &mut [Complex32]) -> usize {
+        #[cfg(target_arch = "x86_64")]
+        {
+            if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+                let whole = self.k_samples / 8 * 8;
+                let t = avx2::SplineTables {
+                    interval: &self.interval[..whole],
+                    left_weight: &self.left_weight[..whole],
+                    left_curvature: &self.left_curvature[..whole],
+                    right_curvature: &self.right_curvature[..whole],
+                    factor: &self.factor[..whole],
+                    cubic: self.cubic,
+                };
+                // SAFETY: AVX2 and FMA are present; indices are checked inside.
+                unsafe { avx2::eval_scatter(&t, y, m, lines, self.fft_length, buf) };
+                return whole;
+            }
+        }
+        0
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx2,fma")]
+    unsafe fn block_avx2<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], ws: &mut Workspace, timer: &FusedTimer) {
+        self.block_inline(spectra, reference, out, ws, timer);
+    }
+
+    #[inline(always)]
+    fn block_inline<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], ws: &mut Workspace, timer: &FusedTimer) {
+        let pixels = self.pixels;
+        let lines = spectra.len() / pixels;
+        let len = self.fft_length;
+        let k = self.k_samples;
+        let t0 = Instant::now();
+        // Spectra as f32 (contiguous, vectorised), then transposed to
+        // pixel-major with one lane per A-line, minus the reference.
+        for (dst, row) in ws.rows.chunks_exact_mut(pixels).zip(spectra.chunks_exact(pixels)) {
+            for (d, v) in dst.iter_mut().zip(row) {
+                *d = v.to_f32();
+            }
+        }
+        ws.rows[lines * pixels..].fill(0.0);
+        let y = &mut ws.y;
+        transpose_in(&ws.rows, pixels, reference, y);
+        let m = &mut ws.m;
+        if self.cubic {
+            // Natural spline second derivatives: forward sweep then back
+            // substitution with the precomputed factors (as the reference),
+            // written so that only one multiply-add per row sits on the
+            // serial chain: m[r+1] = rhs·ip − (h·ip)·m[r].
+            let rows = pixels - 2;
+            m[0] = [0.0; LANES];
+            let mut prev = [0.0f32; LANES];
+            for r in 0..rows {
+                let (ih0, ih1, ip, alpha) = (self.inv_h[r], self.inv_h[r + 1], self.inv_pivot[r], self.sweep_alpha[r]);
+                let (y0, y1, y2) = (&y[r], &y[r + 1], &y[r + 2]);
+                let mut next = [0.0f32; LANES];
+                for l in 0..LANES {
+                    let rhs = 6.0 * ((y2[l] - y1[l]) * ih1 - (y1[l] - y0[l]) * ih0);
+                    next[l] = rhs * ip - alpha * prev[l];
+                }
+                m[r + 1] = next;
+                prev = next;
+            }
+            let mut after = m[rows];
+            for r in (0..rows.saturating_sub(1)).rev() {
+                let c = self.c_prime[r];
+                let mut cur = m[r + 1];
+                for l in 0..LANES {
+                    cur[l] -= c * after[l];
+                }
+                m[r + 1] = cur;
+                after = cur;
+            }
+            m[pixels - 1] = [0.0; LANES];
+        }
+        // Interpolate, scale by the complex factor, scatter to the lanes' FFT rows.
+        let buf = &mut ws.buf;
+        let whole = self.eval_whole_tiles(y, m, lines, buf);
+        let mut tile = [[0.0f32; LANES]; 8];
+        for j0 in (whole..k).step_by(8) {
+            let width = (k - j0).min(8);
+            for (q, v) in tile.iter_mut().enumerate().take(width) {
+                let j = j0 + q;
+                let i = self.interval[j] as usize;
+                let a = self.left_weight[j];
+                let b = 1.0 - a;
+                let (ya, yb) = (&y[i], &y[i + 1]);
+                let (lc, rc) = if self.cubic { (self.left_curvature[j], self.right_curvature[j]) } else { (0.0, 0.0) };
+                let (ma, mb) = (&m[i], &m[i + 1]);
+                for l in 0..LANES {
+                    v[l] = a * ya[l] + b * yb[l] + lc * ma[l] + rc * mb[l];
+                }
+            }
+            scatter_tile(&tile, width, &self.factor[j0..j0 + width], lines, len, j0, buf);
+        }
+        for l in 0..lines {
+            buf[l * len + k..(l + 1) * len].fill(Complex32::new(0.0, 0.0));
+        }
+        timer.add(1, t0);
+        let t1 = Instant::now();
+        self.fft.process_with_scratch(&mut buf[..lines * len], &mut ws.scratch);
+        timer.add(2, t1);
+        let t2 = Instant::now();
+        let depth = self.depth;
+        for l in 0..lines {
+            let src = &buf[l * len + self.first_bin..l * len + self.first_bin + depth];
+            let dst = &mut out[l * depth..(l + 1) * depth];
+            for (d, x) in dst.iter_mut().zip(src.iter()) {
+                let p = (x.re * x.re + x.im * x.im).max(self.power_floor);
+                *d = DB_PER_LOG2 * self.log2.log2(p) + self.db_offset;
+            }
+        }
+        timer.add(3, t2);
+    }
+}
+
+/// The output image shared by the parallel blocks of a frame.
+#[derive(Clone, Copy)]
+struct ImagePtr {
+    ptr: *mut f32,
+    alines: usize,
+    depth: usize,
+}
+
+// SAFETY: blocks write disjoint columns (see `process_frame_image`).
+unsafe impl Send for ImagePtr {}
+unsafe impl Sync for ImagePtr {}
+
+impl ImagePtr {
+    /// image[d][a0 + l] = rows[l·depth + d] for l < lines, d < depth.
+    ///
+    /// # Safety
+    /// Columns a0 .. a0 + lines must be in the image and written by no one else.
+    unsafe fn write_columns(&self, rows: &[f32], lines: usize, a0: usize) {
+        assert!(a0 + lines <= self.alines && rows.len() >= lines * self.depth);
+        #[cfg(target_arch = "x86_64")]
+        {
+            if lines == LANES && std::is_x86_feature_detected!("avx2") {
+                let whole = self.depth / 8 * 8;
+                avx2::transpose_out(rows, self.depth, whole, self.ptr, self.alines, a0);
+                for d in whole..self.depth {
+                    for l in 0..lines {
+                        *self.ptr.add(d * self.alines + a0 + l) = rows[l * self.depth + d];
+                    }
+                }
+                return;
+            }
+        }
+        for d in 0..self.depth {
+            for l in 0..lines {
+                *self.ptr.add(d * self.alines + a0 + l) = rows[l * self.depth + d];
+            }
+        }
+    }
+}
+
+/// y[p][l] = rows[l·pixels + p] − reference[p] for the LANES rows.
+#[inline(always)]
+fn transpose_in(rows: &[f32], pixels: usize, reference: &[f32], y: &mut [Lane]) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::is_x86_feature_detected!("avx2") {
+            let whole = pixels / 8 * 8;
+            // SAFETY: AVX2 is present; every access is in bounds (checked
+            // by the slicing below).
+            unsafe { avx2::transpose_in(rows, pixels, whole, reference, y) };
+            for p in whole..pixels {
+                for l in 0..LANES {
+                    y[p][l] = rows[l * pixels + p] - reference[p];
+                }
+            }
+            return;
+        }
+    }
+    for (p, yp) in y.iter_mut().enumerate().take(pixels) {
+        for l in 0..LANES {
+            yp[l] = rows[l * pixels + p] - reference[p];
+        }
+    }
+}
+
+/// For the tile of ≤ 8 k samples (tile[q][lane]) starting at j0: writes
+/// factor[q]·tile[q][l] into lane l's FFT row.
+#[inline(always)]
+fn scatter_tile(tile: &[Lane; 8], width: usize, factor: &[Complex32], lines: usize, len: usize, j0: usize, buf: &mut [Complex32]) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if width == 8 && std::is_x86_feature_detected!("avx2") {
+            // SAFETY: AVX2 is present; the destination ranges are in bounds
+            // (j0 + 8 ≤ k ≤ len, l < lines ≤ LANES, buf holds LANES·len).
+            unsafe { avx2::scatter_tile(tile, factor, lines, len, j0, buf) };
+            return;
+        }
+    }
+    for (q, f) in factor.iter().enumerate().take(width) {
+        for l in 0..lines {
+            let v = tile[q][l];
+            buf[l * len + j0 + q] = Complex32::new(f.re * v, f.im * v);
+        }
+    }
+}
+
+#[cfg(target_arch = "x86_64")]
+mod avx2 {
+    //! 8 × 8 transposes with AVX2 for the two layout changes of a block.
+    use super::{Complex32, Lane, LANES};
+    use std::arch::x86_64::*;
+
+    #[inline(always)]
+    unsafe fn transpose8(r: [__m256; 8]) -> [__m256; 8] {
+        let t0 = _mm256_unpacklo_ps(r[0], r[1]);
+        let t1 = _mm256_unpackhi_ps(r[0], r[1]);
+        let t2 = _mm256_unpacklo_ps(r[2], r[3]);
+        let t3 = _mm256_unpackhi_ps(r[2], r[3]);
+        let t4 = _mm256_unpacklo_ps(r[4], r[5]);
+        let t5 = _mm256_unpackhi_ps(r[4], r[5]);
+        let t6 = _mm256_unpacklo_ps(r[6], r[7]);
+        let t7 = _mm256_unpackhi_ps(r[6], r[7]);
+        let u0 = _mm256_shuffle_ps::<0x44>(t0, t2);
+        let u1 = _mm256_shuffle_ps::<0xEE>(t0, t2);
+        let u2 = _mm256_shuffle_ps::<0x44>(t1, t3);
+        let u3 = _mm256_shuffle_ps::<0xEE>(t1, t3);
+        let u4 = _mm256_shuffle_ps::<0x44>(t4, t6);
+        let u5 = _mm256_shuffle_ps::<0xEE>(t4, t6);
+        let u6 = _mm256_shuffle_ps::<0x44>(t5, t7);
+        let u7 = _mm256_shuffle_ps::<0xEE>(t5, t7);
+        [
+            _mm256_permute2f128_ps::<0x20>(u0, u4),
+            _mm256_permute2f128_ps::<0x20>(u1, u5),
+            _mm256_permute2f128_ps::<0x20>(u2, u6),
+            _mm256_permute2f128_ps::<0x20>(u3, u7),
+            _mm256_permute2f128_ps::<0x31>(u0, u4),
+            _mm256_permute2f128_ps::<0x31>(u1, u5),
+            _mm256_permute2f128_ps::<0x31>(u2, u6),
+            _mm256_permute2f128_ps::<0x31>(u3, u7),
+        ]
+    }
+
+    #[target_feature(enable = "avx2")]
+    pub unsafe fn transpose_in(rows: &[f32], pixels: usize, whole: usize, reference: &[f32], y: &mut [Lane]) {
+        assert!(rows.len() >= LANES * pixels && y.len() >= pixels && reference.len() >= pixels && whole <= pixels);
+        let src = rows.as_ptr();
+        for p0 in (0..whole).step_by(8) {
+            for half in 0..2 {
+                let mut r = [_mm256_setzero_ps(); 8];
+                for (i, ri) in r.iter_mut().enumerate() {
+                    *ri = _mm256_loadu_ps(src.add((half * 8 + i) * pixels + p0));
+                }
+                let c = transpose8(r);
+                for (q, cq) in c.iter().enumerate() {
+                    let v = _mm256_sub_ps(*cq, _mm256_set1_ps(*reference.get_unchecked(p0 + q)));
+                    _mm256_storeu_ps(y.as_mut_ptr().add(p0 + q).cast::<f32>().add(half * 8), v);
+                }
+            }
+        }
+    }
+
+    /// image[d][a0 + l] = rows[l·depth + d] for 16 lanes and d < whole (a
+    /// multiple of 8), by 8 × 8 transposes.
+    #[target_feature(enable = "avx2")]
+    pub unsafe fn transpose_out(rows: &[f32], depth: usize, whole: usize, image: *mut f32, alines: usize, a0: usize) {
+        assert!(rows.len() >= LANES * depth && whole <= depth && a0 + LANES <= alines);
+        let src = rows.as_ptr();
+        for d0 in (0..whole).step_by(8) {
+            for half in 0..2 {
+                let mut r = [_mm256_setzero_ps(); 8];
+                for (i, ri) in r.iter_mut().enumerate() {
+                    *ri = _mm256_loadu_ps(src.add((half * 8 + i) * depth + d0));
+                }
+                let c = transpose8(r);
+                for (q, cq) in c.iter().enumerate() {
+                    _mm256_storeu_ps(image.add((d0 + q) * alines + a0 + half * 8), *cq);
+                }
+            }
+        }
+    }
+
+    /// The interpolation tables of whole tiles.
+    pub struct SplineTables<'a> {
+        pub interval: &'a [u32],
+        pub left_weight: &'a [f32],
+        pub left_curvature: &'a [f32],
+        pub right_curvature: &'a [f32],
+        pub factor: &'a [Complex32],
+        pub cubic: bool,
+    }
+
+    /// For each tile of 8 k samples: v = a·y[i] + b·y[i+1] + lc·m[i] +
+    /// rc·m[i+1] on all 16 lanes, then the lanes' FFT rows get factor·v.
+    #[target_feature(enable = "avx2,fma")]
+    pub unsafe fn eval_scatter(t: &SplineTables<'_>, y: &[Lane], m: &[Lane], lines: usize, len: usize, buf: &mut [Complex32]) {
+        let k = t.interval.len();
+        assert!(k % 8 == 0 && t.left_weight.len() == k && t.left_curvature.len() == k && t.right_curvature.len() == k && t.factor.len() == k);
+        assert!(t.interval.iter().all(|&i| (i as usize) + 1 < y.len() && (i as usize) + 1 < m.len()));
+        assert!(lines <= LANES && buf.len() >= LANES * len && k <= len);
+        let mut tile = [[0.0f32; LANES]; 8];
+        for j0 in (0..k).step_by(8) {
+            for (q, v) in tile.iter_mut().enumerate() {
+                let j = j0 + q;
+                let i = *t.interval.get_unchecked(j) as usize;
+                let a = _mm256_set1_ps(*t.left_weight.get_unchecked(j));
+                let b = _mm256_set1_ps(1.0 - *t.left_weight.get_unchecked(j));
+                let ya = y.as_ptr().add(i).cast::<f32>();
+                let yb = y.as_ptr().add(i + 1).cast::<f32>();
+                for half in 0..2 {
+                    let o = half * 8;
+                    let mut acc = _mm256_mul_ps(a, _mm256_loadu_ps(ya.add(o)));
+                    acc = _mm256_fmadd_ps(b, _mm256_loadu_ps(yb.add(o)), acc);
+                    if t.cubic {
+                        let ma = m.as_ptr().add(i).cast::<f32>();
+                        let mb = m.as_ptr().add(i + 1).cast::<f32>();
+                        acc = _mm256_fmadd_ps(_mm256_set1_ps(*t.left_curvature.get_unchecked(j)), _mm256_loadu_ps(ma.add(o)), acc);
+                        acc = _mm256_fmadd_ps(_mm256_set1_ps(*t.right_curvature.get_unchecked(j)), _mm256_loadu_ps(mb.add(o)), acc);
+                    }
+                    _mm256_storeu_ps(v.as_mut_ptr().add(o), acc);
+                }
+            }
+            scatter_tile(&tile, &t.factor[j0..j0 + 8], lines, len, j0, buf);
+        }
+    }
+
+    #[target_feature(enable = "avx2")]
+    pub unsafe fn scatter_tile(tile: &[Lane; 8], factor: &[Complex32], lines: usize, len: usize, j0: usize, buf: &mut [Complex32]) {
+        assert!(factor.len() >= 8 && lines <= LANES && buf.len() >= lines.saturating_sub(1) * len + j0 + 8);
+        let mut fr = [0.0f32; 8];
+        let mut fi = [0.0f32; 8];
+        for q in 0..8 {
+            fr[q] = factor[q].re;
+            fi[q] = factor[q].im;
+        }
+        let (fr, fi) = (_mm256_loadu_ps(fr.as_ptr()), _mm256_loadu_ps(fi.as_ptr()));
+        for half in 0..2 {
+            let mut r = [_mm256_setzero_ps(); 8];
+            for (q, rq) in r.iter_mut().enumerate() {
+                *rq = _mm256_loadu_ps(tile[q].as_ptr().add(half * 8));
+            }
+            let c = transpose8(r);
+            for (i, ci) in c.iter().enumerate() {
+                let l = half * 8 + i;
+                if l >= lines {
+                    break;
+                }
+                let re = _mm256_mul_ps(*ci, fr);
+                let im = _mm256_mul_ps(*ci, fi);
+                let lo = _mm256_unpacklo_ps(re, im);
+                let hi = _mm256_unpackhi_ps(re, im);
+                let dst = buf.as_mut_ptr().add(l * len + j0).cast::<f32>();
+                _mm256_storeu_ps(dst, _mm256_permute2f128_ps::<0x20>(lo, hi));
+                _mm256_storeu_ps(dst.add(8), _mm256_permute2f128_ps::<0x31>(lo, hi));
+            }
+        }
+    }
+}
+
+/// Exact per-pixel median over A-lines for small unsigned integer samples,
+/// by bisection on the value with SIMD-friendly counting passes.
+pub trait MedianKey: Sized {
+    /// Median of each column (NumPy convention for even counts), or None
+    /// when this type has no fast path.
+    /// `hint` holds last frame's lower middle values, which usually bracket
+    /// this frame's closely (used only to start the search; the result is
+    /// exact either way) and is updated.
+    fn median_columns(_frame: ArrayView2<'_, Self>, _hint: &mut Vec<u16>) -> Option<Vec<f32>> {
+        None
+    }
+}
+impl MedianKey for u8 {}
+impl MedianKey for i16 {}
+impl MedianKey for u32 {}
+impl MedianKey for f32 {}
+impl MedianKey for f64 {}
+impl MedianKey for u16 {
+    fn median_columns(frame: ArrayView2<'_, u16>, hint: &mut Vec<u16>) -> Option<Vec<f32>> {
+        let (rows, pixels) = frame.dim();
+        if rows == 0 || rows > u16::MAX as usize || pixels % MEDIAN_ALIGN != 0 {
+            return None;
+        }
+        let data = frame.as_slice()?;
+        let chunk = pixels.div_ceil(2 * rayon::current_num_threads()).next_multiple_of(MEDIAN_ALIGN);
+        if hint.len() != pixels {
+            hint.clear();
+        }
+        let has_hint = !hint.is_empty();
+        hint.resize(pixels, 0);
+        let mut out = vec![0.0f32; pixels];
+        out.par_chunks_mut(chunk).zip(hint.par_chunks_mut(chunk)).enumerate().for_each(|(c, (dst, h))| {
+            median_u16_chunk(data, rows, pixels, c * chunk, dst, h, has_hint);
+        });
+        Some(out)
+    }
+}
+
+fn median_u16_chunk(data: &[u16], rows: usize, pixels: usize, p0: usize, dst: &mut [f32], hint: &mut [u16], has_hint: bool) {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::is_x86_feature_detected!("avx2") {
+            // SAFETY: the CPU supports AVX2.
+            unsafe { median_u16_chunk_avx2(data, rows, pixels, p0, dst, hint, has_hint) };
+            return;
+        }
+    }
+    median_u16_chunk_inline(data, rows, pixels, p0, dst, hint, has_hint);
+}
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn median_u16_chunk_avx2(data: &[u16], rows: usize, pixels: usize, p0: usize, dst: &mut [f32], hint: &mut [u16], has_hint: bool) {
+    median_u16_chunk_inline(data, rows, pixels, p0, dst, hint, has_hint);
+}
+
+/// Column ranges per task are multiples of this (one AVX2 vector of u16).
+const MEDIAN_ALIGN: usize = 16;
+
+/// Half-width of the bracket tried around last frame's median.
+const HINT_HALF_WIDTH: u16 = 24;
+
+/// Thresholds per counting pass of the median search.
+const SPLITS: usize = 7;
+
+/// One counting pass: counts[i][q] = #{rows r : x[r][q] ≤ t[i][q]}.
+#[inline(always)]
+fn count_at_most(data: &[u16], rows: usize, pixels: usize, p0: usize, t: &[Vec<u16>; SPLITS], counts: &mut [Vec<u16>; SPLITS]) {
+    let w = t[0].len();
+    for c in counts.iter_mut() {
+        assert_eq!(c.len(), w);
+        c.fill(0);
+    }
+    for ti in t.iter() {
+        assert_eq!(ti.len(), w);
+    }
+    for r in 0..rows {
+        let x = &data[r * pixels + p0..r * pixels + p0 + w];
+        for i in 0..SPLITS {
+            let (c, ti) = (&mut counts[i][..w], &t[i][..w]);
+            for q in 0..w {
+                c[q] += (x[q] <= ti[q]) as u16;
+            }
+        }
+    }
+}
+
+#[inline(always)]
+fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, dst: &mut [f32], hint: &mut [u16], has_hint: bool) {
+    let w = dst.len();
+    assert!(hint.len() == w);
+    // Lower middle (0-based rank (rows−1)/2): the smallest v with
+    // #(x ≤ v) ≥ target = rank + 1, for all columns at once. Each counting
+    // pass streams the frame row by row (columns contiguous, counters in
+    // L1) against SPLITS thresholds per column, shrinking every bracket
+    // [lo, hi] about eightfold. The first pass tries the bracket around last
+    // frame's answer, which usually holds; columns where it does not start
+    // again from [min, max].
+    let target = ((rows - 1) / 2 + 1) as u16;
+    let mut t: [Vec<u16>; SPLITS] = std::array::from_fn(|_| vec![0u16; w]);
+    let mut counts: [Vec<u16>; SPLITS] = std::array::from_fn(|_| vec![0u16; w]);
+    let (mut lo, mut hi) = (vec![0u16; w], vec![u16::MAX; w]);
+    let mut settled = vec![false; w];
+    if has_hint {
+        // Thresholds: below the bracket, SPLITS−2 inside, its top.
+        for q in 0..w {
+            let (a, b) = (hint[q].saturating_sub(HINT_HALF_WIDTH), hint[q].saturating_add(HINT_HALF_WIDTH));
+            t[0][q] = a.saturating_sub(1);
+            for i in 1..SPLITS - 1 {
+                t[i][q] = (a as u32 + i as u32 * (b - a) as u32 / (SPLITS as u32 - 1)) as u16;
+            }
+            t[SPLITS - 1][q] = b;
+        }
+        count_at_most(data, rows, pixels, p0, &t, &mut counts);
+        for q in 0..w {
+            let a = hint[q].saturating_sub(HINT_HALF_WIDTH);
+            let below_ok = a == 0 || counts[0][q] < target;
+            if below_ok && counts[SPLITS - 1][q] >= target {
+                let (mut l, mut h) = (a, t[SPLITS - 1][q]);
+                for i in 1..SPLITS {
+                    if counts[i][q] >= target {
+                        h = h.min(t[i][q]);
+                    } else {
+                        l = l.max(t[i][q] + 1);
+                    }
+                }
+                lo[q] = l;
+                hi[q] = h;
+                settled[q] = true;
+            }
+        }
+    }
+    if settled.iter().any(|s| !s) {
+        // [min, max] for the columns the hint did not settle.
+        let (mut mn, mut mx) = (vec![u16::MAX; w], vec![0u16; w]);
+        for r in 0..rows {
+            let x = &data[r * pixels + p0..r * pixels + p0 + w];
+            for q in 0..w {
+                mn[q] = mn[q].min(x[q]);
+                mx[q] = mx[q].max(x[q]);
+            }
+        }
+        for q in 0..w {
+            if !settled[q] {
+                lo[q] = mn[q];
+                hi[q] = mx[q];
+            }
+        }
+    }
+    while lo.iter().zip(hi.iter()).any(|(a, b)| a < b) {
+        for q in 0..w {
+            let (a, span) = (lo[q] as u32, (hi[q] - lo[q]) as u32);
+            for (i, ti) in t.iter_mut().enumerate() {
+                ti[q] = (a + (i as u32 + 1) * span / (SPLITS as u32 + 1)) as u16;
+            }
+        }
+        count_at_most(data, rows, pixels, p0, &t, &mut counts);
+        for q in 0..w {
+            if lo[q] >= hi[q] {
+                continue;
+            }
+            let (mut l, mut h) = (lo[q], hi[q]);
+            for i in 0..SPLITS {
+                if counts[i][q] >= target {
+                    h = h.min(t[i][q]);
+                } else {
+                    l = l.max(t[i][q] + 1);
+                }
+            }
+            lo[q] = l;
+            hi[q] = h;
+        }
+    }
+    hint.copy_from_slice(&lo);
+    if rows % 2 == 1 {
+        for (d, &v) in dst.iter_mut().zip(lo.iter()) {
+            *d = v as f32;
+        }
+        return;
+    }
+    // Upper middle: the lower one again when it repeats past the middle,
+    // else the smallest value above it; one more pass finds both.
+    let (mut at_most, mut above) = (vec![0u16; w], vec![u16::MAX; w]);
+    for r in 0..rows {
+        for (((n, a), &v), &l) in at_most.iter_mut().zip(above.iter_mut()).zip(&data[r * pixels + p0..r * pixels + p0 + w]).zip(lo.iter()) {
+            *n += (v <= l) as u16;
+            *a = (*a).min(if v > l { v } else { u16::MAX });
+        }
+    }
+    for q in 0..w {
+        let upper = if at_most[q] > target { lo[q] } else { above[q] };
+        dst[q] = 0.5 * (lo[q] as f32 + upper as f32);
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn fast_log2_is_accurate() {
+        let f = FastLog2::new();
+        let mut worst = 0.0f64;
+        let mut x = 1e-30f32;
+        while x < 1e30 {
+            let e = (f.log2(x) as f64 - (x as f64).log2()).abs();
+            worst = worst.max(e);
+            x *= 1.0137;
+        }
+        // ≤ 0.01 dB is the requirement; this is far inside it.
+        let db = worst * DB_PER_LOG2 as f64;
+        assert!(db < 1e-4, "worst error {worst} in log2 = {db} dB");
+    }
+
+    #[test]
+    fn integer_median_matches_the_reference_median() {
+        use rand::{Rng, SeedableRng};
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
+        for rows in [1usize, 2, 7, 64, 101] {
+            let pixels = 304;
+            let data: Vec<u16> = (0..rows * pixels).map(|_| rng.random_range(1000..1400) + if rng.random_bool(0.05) { 3000 } else { 0 }).collect();
+            let a = Array2::from_shape_vec((rows, pixels), data).unwrap();
+            let reference = median_spectrum(a.mapv(|v| v as f64).view());
+            // Without a hint, with a good one (itself), and with a wrong one.
+            let mut hint = Vec::new();
+            for _ in 0..2 {
+                let fast = u16::median_columns(a.view(), &mut hint).unwrap();
+                for (f, r) in fast.iter().zip(reference.iter()) {
+                    assert_eq!(*f as f64, *r, "rows {rows}");
+                }
+            }
+            let mut wrong = vec![3500u16; pixels];
+            let fast = u16::median_columns(a.view(), &mut wrong).unwrap();
+            for (f, r) in fast.iter().zip(reference.iter()) {
+                assert_eq!(*f as f64, *r, "rows {rows}, wrong hint");
+            }
+        }
+    }
+}

@@ -1,0 +1,302 @@
+//! `fringeflow bench`: throughput of the reconstruction in one process and
+//! one run, against the irreducible cost, a bare rustfft forward FFT of the
+//! same number of 2048-point A-lines, both on all cores.
+//!
+//! The capture is simulated once from `benches/throughput-scene.toml`
+//! (embedded) unless one is given; its frames are held in memory, so the
+//! in-memory figures exclude disk. Each figure is the median of several
+//! runs. Also measured: the same pipeline at 10k, 100k and 1M A-lines (cost
+//! linear in A-lines), the plain f64 stage chain, and `run` end to end
+//! (HDF5 read, pipeline, PNG and volume.h5 writes).
+
+use anyhow::{bail, Context, Result};
+use ndarray::Array2;
+use rayon::prelude::*;
+use rustfft::num_complex::Complex32;
+use rustfft::FftPlanner;
+use serde::Serialize;
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+use crate::io::capture::{Capture, RawFrame};
+use crate::pipeline::config::PipelineConfig;
+use crate::pipeline::fused::{FusedPlan, LANES};
+use crate::pipeline::plan::{CaptureGeometry, Plan};
+use crate::stages::log_compression::noise_floor_db;
+
+/// The scene simulated when no capture is given.
+pub const SCENE: &str = include_str!("../benches/throughput-scene.toml");
+/// The pipeline timed.
+pub const PIPELINE: &str = include_str!("../pipelines/throughput.toml");
+
+#[derive(Debug, Clone)]
+pub struct BenchOptions {
+    pub capture: Option<PathBuf>,
+    pub work_dir: PathBuf,
+    /// A-lines per timed run.
+    pub alines: usize,
+    pub repeats: usize,
+    /// Also time 10k, 100k and 1M A-lines.
+    pub scaling: bool,
+    /// Also time `run` end to end.
+    pub end_to_end: bool,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Machine {
+    pub cpu: String,
+    pub logical_cpus: usize,
+    pub threads: usize,
+    pub avx2_fma: bool,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct ScalingPoint {
+    pub alines: usize,
+    pub alines_per_second: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct BenchReport {
+    pub machine: Machine,
+    pub capture: PathBuf,
+    pub pixels: usize,
+    pub alines_per_run: usize,
+    pub repeats: usize,
+    pub pipeline: String,
+    /// Medians, A-lines per second.
+    pub bare_fft_alines_per_second: f64,
+    pub pipeline_alines_per_second: f64,
+    pub pipeline_over_fft: f64,
+    /// The same with the capture's recorded background instead of the
+    /// per-frame median (what the default pipeline does when a capture has one).
+    pub capture_background_alines_per_second: f64,
+    pub capture_background_over_fft: f64,
+    /// Where the fused pipeline's time goes (thread-seconds per part, one run).
+    pub pipeline_parts_seconds: serde_json::Map<String, serde_json::Value>,
+    pub reference_alines_per_second: f64,
+    pub scaling: Vec<ScalingPoint>,
+    pub end_to_end_alines_per_second: Option<f64>,
+    pub end_to_end_over_pipeline: Option<f64>,
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    v.sort_by(f64::total_cmp);
+    let n = v.len();
+    if n % 2 == 1 {
+        v[n / 2]
+    } else {
+        0.5 * (v[n / 2 - 1] + v[n / 2])
+    }
+}
+
+fn machine() -> Machine {
+    let cpu = std::fs::read_to_string("/proc/cpuinfo")
+        .ok()
+        .and_then(|t| t.lines().find(|l| l.starts_with("model name")).and_then(|l| l.split(':').nth(1)).map(|s| s.trim().to_string()))
+        .unwrap_or_else(|| "unknown".into());
+    #[cfg(target_arch = "x86_64")]
+    let avx2_fma = std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma");
+    #[cfg(not(target_arch = "x86_64"))]
+    let avx2_fma = false;
+    Machine {
+        cpu,
+        logical_cpus: std::thread::available_parallelism().map(|n| n.get()).unwrap_or(1),
+        threads: rayon::current_num_threads(),
+        avx2_fma,
+    }
+}
+
+/// The bench capture: the given one, or the embedded scene simulated once.
+fn bench_capture(opts: &BenchOptions) -> Result<PathBuf> {
+    if let Some(c) = &opts.capture {
+        return Ok(c.clone());
+    }
+    std::fs::create_dir_all(&opts.work_dir).with_context(|| format!("creating {}", opts.work_dir.display()))?;
+    let path = opts.work_dir.join("throughput-v2.h5");
+    if !path.exists() {
+        eprintln!("simulating the bench capture {} (once)", path.display());
+        let scene = crate::simulate::scene::Scene::from_str("benches/throughput-scene.toml", SCENE)?;
+        crate::simulate::simulate(&scene, &path)?;
+    }
+    Ok(path)
+}
+
+/// The frames (A-lines × pixels, stored type) of a capture.
+fn load_frames(capture: &Capture) -> Result<Vec<RawFrame>> {
+    (0..capture.frames).map(|f| capture.read_raw_frame(f).map(|(r, _)| r)).collect()
+}
+
+/// Times the fused pipeline plus the 8-bit mapping over `alines` A-lines,
+/// cycling through the frames.
+fn time_pipeline(fused: &FusedPlan, frames: &[RawFrame], alines_per_frame: usize, depth: usize, alines: usize) -> (f64, crate::pipeline::fused::FusedTimer) {
+    let timer = fused.new_timer();
+    let mut image = Array2::<f32>::zeros((depth, alines_per_frame));
+    let count = alines.div_ceil(alines_per_frame);
+    let start = Instant::now();
+    let mut sink = 0u64;
+    for i in 0..count {
+        fused.process_raw_image(&frames[i % frames.len()], &mut image, &timer);
+        let values = image.as_slice().unwrap();
+        let floor = noise_floor_db(values);
+        let grey = crate::run::grey8(values, floor + 3.0, floor + 48.0);
+        sink = sink.wrapping_add(grey[grey.len() / 2] as u64);
+    }
+    let s = start.elapsed().as_secs_f64();
+    std::hint::black_box(sink);
+    ((count * alines_per_frame) as f64 / s, timer)
+}
+
+/// Times bare forward FFTs of `alines` 2048-point (or `length`) complex
+/// A-lines in blocks of LANES per worker, refilling each block from a
+/// source block (as the pipeline fills its buffer).
+fn time_bare_fft(length: usize, alines: usize) -> f64 {
+    let fft = FftPlanner::<f32>::new().plan_fft_forward(length);
+    let source: Vec<Complex32> = (0..LANES * length).map(|i| Complex32::new(((i * 7919) % 1000) as f32 * 1e-3, 0.0)).collect();
+    let blocks = alines.div_ceil(LANES);
+    let start = Instant::now();
+    (0..blocks).into_par_iter().with_min_len(8).for_each_init(
+        || (vec![Complex32::new(0.0, 0.0); LANES * length], vec![Complex32::new(0.0, 0.0); fft.get_inplace_scratch_len()]),
+        |(buf, scratch), _| {
+            buf.copy_from_slice(&source);
+            fft.process_with_scratch(buf, scratch);
+            std::hint::black_box(&buf[1]);
+        },
+    );
+    (blocks * LANES) as f64 / start.elapsed().as_secs_f64()
+}
+
+pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
+    if opts.repeats == 0 || opts.alines == 0 {
+        bail!("--repeats and --alines must be at least 1");
+    }
+    let path = bench_capture(opts)?;
+    let config = PipelineConfig::from_str("pipelines/throughput.toml", PIPELINE).map_err(|e| anyhow::anyhow!("{e}"))?;
+    let capture = Capture::open(&path, &config.input)?;
+    let frames = load_frames(&capture)?;
+    let plan = Plan::new(&config, CaptureGeometry { wavelength_nm: &capture.wavelength_nm, background: capture.background.as_deref(), source_spectrum: None })?;
+    let fused = FusedPlan::new(&plan);
+    let depth = plan.summary.depth_pixels;
+    let (alines_per_frame, pixels) = capture.frame_shape();
+    let length = plan.summary.fft_length;
+
+    // Warm up both, then alternate so that both see the same machine state.
+    time_bare_fft(length, opts.alines.min(20_000));
+    time_pipeline(&fused, &frames, alines_per_frame, depth, opts.alines.min(20_000));
+    let (mut fft_runs, mut pipe_runs) = (Vec::new(), Vec::new());
+    let mut parts = serde_json::Map::new();
+    for r in 0..opts.repeats {
+        fft_runs.push(time_bare_fft(length, opts.alines));
+        let (rate, timer) = time_pipeline(&fused, &frames, alines_per_frame, depth, opts.alines);
+        pipe_runs.push(rate);
+        if r == 0 {
+            for (name, s) in crate::pipeline::fused::FusedTimer::PARTS.iter().zip(timer.seconds()) {
+                parts.insert(name.to_string(), serde_json::json!(s));
+            }
+        }
+    }
+    let (fft_rate, pipe_rate) = (median(fft_runs), median(pipe_runs));
+    let capture_bg_rate = {
+        let mut cfg = config.clone();
+        cfg.background.method = crate::pipeline::config::BackgroundMethod::Capture;
+        let plan_b = Plan::new(&cfg, CaptureGeometry { wavelength_nm: &capture.wavelength_nm, background: capture.background.as_deref(), source_spectrum: None })?;
+        let fused_b = FusedPlan::new(&plan_b);
+        let runs: Vec<f64> = (0..opts.repeats).map(|_| time_pipeline(&fused_b, &frames, alines_per_frame, depth, opts.alines).0).collect();
+        median(runs)
+    };
+
+    // The plain f64 stage chain on a smaller count.
+    let reference_rate = {
+        let timer = plan.new_timer();
+        let mut db = Array2::<f32>::zeros((alines_per_frame, depth));
+        let n = (10_000usize).div_ceil(alines_per_frame);
+        let start = Instant::now();
+        for i in 0..n {
+            plan.process_frame(frames[i % frames.len()].to_f64().view(), &mut db, &timer);
+        }
+        (n * alines_per_frame) as f64 / start.elapsed().as_secs_f64()
+    };
+
+    let mut scaling = Vec::new();
+    if opts.scaling {
+        for n in [10_000usize, 100_000, 1_000_000] {
+            let repeats = if n >= 1_000_000 { 1 } else { opts.repeats };
+            let runs: Vec<f64> = (0..repeats).map(|_| time_pipeline(&fused, &frames, alines_per_frame, depth, n).0).collect();
+            scaling.push(ScalingPoint { alines: n, alines_per_second: median(runs) });
+        }
+    }
+
+    let end_to_end = if opts.end_to_end {
+        let out = opts.work_dir.join("end-to-end");
+        let mut runs = Vec::new();
+        for _ in 0..opts.repeats.min(3) {
+            let outcome = crate::run::process_capture(&path, &config, &out, crate::run::RunContext::default())?;
+            runs.push((outcome.frames * outcome.alines) as f64 / outcome.seconds);
+        }
+        std::fs::remove_dir_all(&out).ok();
+        Some(median(runs))
+    } else {
+        None
+    };
+
+    Ok(BenchReport {
+        machine: machine(),
+        capture: path,
+        pixels,
+        alines_per_run: opts.alines.div_ceil(alines_per_frame) * alines_per_frame,
+        repeats: opts.repeats,
+        pipeline: "pipelines/throughput.toml: u16, median background, cubic k-resampling, a2/a3 on, Hann, FFT, dB, 8-bit mapping".into(),
+        bare_fft_alines_per_second: fft_rate,
+        pipeline_alines_per_second: pipe_rate,
+        pipeline_over_fft: pipe_rate / fft_rate,
+        capture_background_alines_per_second: capture_bg_rate,
+        capture_background_over_fft: capture_bg_rate / fft_rate,
+        pipeline_parts_seconds: parts,
+        reference_alines_per_second: reference_rate,
+        scaling,
+        end_to_end_alines_per_second: end_to_end,
+        end_to_end_over_pipeline: end_to_end.map(|e| e / pipe_rate),
+    })
+}
+
+impl BenchReport {
+    pub fn render(&self) -> String {
+        let m = &self.machine;
+        let mut s = format!(
+            "machine: {} ({} logical CPUs, {} threads, AVX2+FMA {})\ncapture: {} ({} pixels), {} A-lines per run, median of {}\npipeline: {}\n\n",
+            m.cpu,
+            m.logical_cpus,
+            m.threads,
+            if m.avx2_fma { "yes" } else { "no" },
+            self.capture.display(),
+            self.pixels,
+            self.alines_per_run,
+            self.repeats,
+            self.pipeline
+        );
+        s += &format!("{:<44} {:>14}\n", "", "A-lines/s");
+        s += &format!("{:<44} {:>14.0}\n", "bare rustfft forward FFT (f32)", self.bare_fft_alines_per_second);
+        s += &format!("{:<44} {:>14.0}\n", "full pipeline (fused f32 path)", self.pipeline_alines_per_second);
+        s += &format!("{:<44} {:>14.3}\n", "ratio pipeline / bare FFT", self.pipeline_over_fft);
+        s += &format!("{:<44} {:>14.0}\n", "same, capture background instead of median", self.capture_background_alines_per_second);
+        s += &format!("{:<44} {:>14.3}\n", "ratio (capture background) / bare FFT", self.capture_background_over_fft);
+        s += &format!("{:<44} {:>14.0}\n", "plain f64 stage chain (reference)", self.reference_alines_per_second);
+        for p in &self.scaling {
+            s += &format!("{:<44} {:>14.0}\n", format!("pipeline over {} A-lines", p.alines), p.alines_per_second);
+        }
+        if let (Some(e), Some(r)) = (self.end_to_end_alines_per_second, self.end_to_end_over_pipeline) {
+            s += &format!("{:<44} {:>14.0}\n", "`run` end to end (read, pipeline, PNG, volume)", e);
+            s += &format!("{:<44} {:>14.3}\n", "ratio end to end / in-memory pipeline", r);
+        }
+        s += "\nfused pipeline, thread-seconds per part (first run):\n";
+        for (k, v) in &self.pipeline_parts_seconds {
+            s += &format!("  {k:<28} {:.3} s\n", v.as_f64().unwrap_or(0.0));
+        }
+        s
+    }
+}
+
+/// Where the report is written by default.
+pub fn default_work_dir() -> PathBuf {
+    Path::new("out").join("bench")
+}
