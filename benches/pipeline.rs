@@ -1,6 +1,12 @@
 //! Criterion benchmarks: each stage alone and the whole default pipeline on
 //! 2048-pixel A-lines, reported as A-lines per second (criterion's element
 //! throughput). Speed targets live here, never in timed unit tests.
+//!
+//! Groups: `stage` (the reference f64 stages, one A-line), `pipeline` (the
+//! reference stage chain on a frame), `fused` (the f32 fast path on a u16
+//! frame: the whole pipeline with median or fixed background, the median
+//! background alone, and a bare batched f32 FFT of the same A-lines for
+//! comparison). `fringeflow bench` prints the ratios in one run.
 
 use criterion::{criterion_group, criterion_main, BatchSize, BenchmarkId, Criterion, Throughput};
 use fringeflow::pipeline::config::PipelineConfig;
@@ -80,5 +86,44 @@ fn bench_pipeline(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, bench_stages, bench_pipeline);
+fn bench_fused(c: &mut Criterion) {
+    use fringeflow::pipeline::fused::{FusedPlan, MedianKey, LANES};
+    let map = wavelength_map();
+    let input_u16: Array2<u16> = frame().mapv(|v| v as u16);
+    let mut group = c.benchmark_group("fused");
+    group.throughput(Throughput::Elements(ALINES as u64));
+    group.sample_size(20);
+    for (name, method) in [
+        ("frame_u16_median_background", fringeflow::pipeline::config::BackgroundMethod::Median),
+        ("frame_u16_fixed_background", fringeflow::pipeline::config::BackgroundMethod::Capture),
+    ] {
+        let mut config = PipelineConfig::default();
+        config.background.method = method;
+        config.dispersion.a2 = 20.0;
+        config.dispersion.a3 = -5.0;
+        let background = vec![2000.0; PIXELS];
+        let plan = Plan::new(&config, CaptureGeometry { wavelength_nm: &map, background: Some(&background), source_spectrum: None }).unwrap();
+        let fused = FusedPlan::new(&plan);
+        let mut image = Array2::<f32>::zeros((plan.summary.depth_pixels, ALINES));
+        let timer = fused.new_timer();
+        group.bench_function(name, |b| b.iter(|| fused.process_frame_image(input_u16.view(), &mut image, &timer)));
+    }
+    let mut hint = Vec::new();
+    group.bench_function("median_background_u16", |b| b.iter(|| u16::median_columns(input_u16.view(), &mut hint)));
+    let fft = rustfft::FftPlanner::<f32>::new().plan_fft_forward(PIXELS);
+    let source = vec![rustfft::num_complex::Complex32::new(0.5, 0.1); LANES * PIXELS];
+    let mut buf = source.clone();
+    let mut scratch = vec![rustfft::num_complex::Complex32::new(0.0, 0.0); fft.get_inplace_scratch_len()];
+    group.bench_function("bare_fft_f32_one_thread", |b| {
+        b.iter(|| {
+            for _ in 0..ALINES / LANES {
+                buf.copy_from_slice(&source);
+                fft.process_with_scratch(&mut buf, &mut scratch);
+            }
+        })
+    });
+    group.finish();
+}
+
+criterion_group!(benches, bench_stages, bench_pipeline, bench_fused);
 criterion_main!(benches);

@@ -206,14 +206,23 @@ fn round6(v: f64) -> f64 {
 pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: RunContext<'_>) -> Result<CaptureOutcome> {
     let started = Instant::now();
     let capture = Capture::open(input, &config.input)?;
-    let sha256 = hash::sha256_file(input).with_context(|| format!("hashing {}", input.display()))?;
+    // The input's SHA-256 is needed up front only to resume; otherwise it is
+    // computed on its own thread while the frames are processed.
+    let hash_input = |p: &Path| hash::sha256_file(p).with_context(|| format!("hashing {}", p.display()));
+    let sha_now = if ctx.resume { Some(hash_input(input)?) } else { None };
+    let hasher = if ctx.resume {
+        None
+    } else {
+        let p = input.to_path_buf();
+        Some(std::thread::spawn(move || hash_input(&p)))
+    };
     let pipeline_sha256 = config.sha256();
     let name = output_name(input);
     let (frames, alines) = (capture.frames, capture.alines);
     if let Some(p) = ctx.capture_progress {
         p.set_length(frames as u64);
     }
-    if ctx.resume && up_to_date(&out_root.join(&name), &sha256, &pipeline_sha256) {
+    if ctx.resume && up_to_date(&out_root.join(&name), sha_now.as_deref().unwrap_or(""), &pipeline_sha256) {
         if let Some(p) = ctx.progress {
             p.inc(frames as u64);
         }
@@ -276,7 +285,6 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             &VolumeAttributes {
                 depth_spacing_um: summary.depth_spacing_um,
                 first_depth_um: depth_um[0],
-                source_sha256: &sha256,
                 pipeline_sha256: &pipeline_sha256,
                 frames_averaged: average,
             },
@@ -465,8 +473,13 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             v.write_en_face(&en_face, positions, alines, [depth_um[en_face_range.0], depth_um[en_face_range.1 - 1]])?;
         }
     }
+    let sha256 = match (sha_now, hasher) {
+        (Some(s), _) => s,
+        (None, Some(h)) => h.join().map_err(|_| anyhow::anyhow!("the hashing thread panicked"))??,
+        (None, None) => unreachable!("hashed up front or on a thread"),
+    };
     if let Some(v) = volume {
-        v.finish()?;
+        v.finish(&sha256)?;
         outputs.push("volume.h5".into());
     }
     outputs.push("log.json".into());

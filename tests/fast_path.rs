@@ -61,6 +61,10 @@ fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize) ->
     fused.process_raw(&raw, &mut fast, &fused.new_timer());
     let amp = |d: f32| 10f64.powf(d as f64 / 20.0);
     let peak = reference.iter().map(|&d| amp(d)).fold(0.0, f64::max);
+    // The image path (what `run` uses) must equal the row path transposed.
+    let mut image = Array2::<f32>::zeros((depth, capture.alines));
+    fused.process_raw_image(&raw, &mut image, &fused.new_timer());
+    assert_eq!(image.t(), fast.view(), "image path differs from the row path");
     reference.iter().zip(fast.iter()).map(|(&r, &f)| (amp(r) - amp(f)).abs()).fold(0.0, f64::max) / peak
 }
 

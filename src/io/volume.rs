@@ -23,7 +23,6 @@ pub struct VolumeWriter {
 pub struct VolumeAttributes<'a> {
     pub depth_spacing_um: f64,
     pub first_depth_um: f64,
-    pub source_sha256: &'a str,
     pub pipeline_sha256: &'a str,
     /// Input frames averaged into each stored frame.
     pub frames_averaged: usize,
@@ -48,7 +47,6 @@ impl VolumeWriter {
         write_attr(&volume, "aline_spacing_index", 1u32)?;
         write_attr(&volume, "frame_spacing_index", 1u32)?;
         write_attr(&volume, "frames_averaged", attrs.frames_averaged as u32)?;
-        write_attr_str(&file, "source_sha256", attrs.source_sha256)?;
         write_attr_str(&file, "pipeline_sha256", attrs.pipeline_sha256)?;
         write_attr_str(&file, "producer", concat!("fringeflow ", env!("CARGO_PKG_VERSION")))?;
         write_1d(&file, "depth_um", depth_um)?;
@@ -75,7 +73,9 @@ impl VolumeWriter {
         Ok(())
     }
 
-    pub fn finish(self) -> Result<()> {
+    /// Records the input's SHA-256 and closes the file.
+    pub fn finish(self, source_sha256: &str) -> Result<()> {
+        write_attr_str(&self.file, "source_sha256", source_sha256)?;
         self.file.flush().map_err(concise).context("writing volume.h5")?;
         self.file.close().map_err(concise).context("closing volume.h5")
     }

@@ -179,6 +179,10 @@ impl FusedTimer {
 
 /// Per-worker buffers, made once per worker.
 struct Workspace {
+    /// Sizes it was made for: pixels, FFT length, FFT scratch, depth.
+    shape: [usize; 4],
+    /// One block's dB rows (lines × depth) before they go into the image.
+    db_rows: Vec<f32>,
     /// One block's spectra as f32, line by line.
     rows: Vec<f32>,
     y: Vec<Lane>,
@@ -276,8 +280,27 @@ impl FusedPlan {
         FusedTimer::default()
     }
 
+    /// Runs `f` with this thread's workspace, made (or remade for other
+    /// sizes) once per thread rather than once per parallel job, so jobs can
+    /// be small enough to keep both cores busy to the end of a frame.
+    fn with_workspace<R>(&self, f: impl FnOnce(&mut Workspace) -> R) -> R {
+        thread_local! {
+            static WORKSPACE: std::cell::RefCell<Option<Workspace>> = const { std::cell::RefCell::new(None) };
+        }
+        let shape = [self.pixels, self.fft_length, self.fft_scratch, self.depth];
+        WORKSPACE.with(|cell| {
+            let mut slot = cell.borrow_mut();
+            if slot.as_ref().is_none_or(|w| w.shape != shape) {
+                *slot = Some(self.workspace());
+            }
+            f(slot.as_mut().expect("workspace"))
+        })
+    }
+
     fn workspace(&self) -> Workspace {
         Workspace {
+            shape: [self.pixels, self.fft_length, self.fft_scratch, self.depth],
+            db_rows: vec![0.0; LANES * self.depth],
             rows: vec![0.0; LANES * self.pixels],
             y: vec![[0.0; LANES]; self.pixels],
             m: vec![[0.0; LANES]; self.pixels],
@@ -368,19 +391,18 @@ impl FusedPlan {
         timer.add(0, t);
         let input = frame.as_slice().expect("standard layout");
         let target = ImagePtr { ptr: image.as_slice_mut().expect("standard layout").as_mut_ptr(), alines, depth: self.depth };
-        let blocks = alines.div_ceil(LANES);
-        let min_blocks_per_job = (blocks / (4 * rayon::current_num_threads())).max(1);
-        input.par_chunks(LANES * pixels).enumerate().with_min_len(min_blocks_per_job).for_each_init(
-            || (self.workspace(), vec![0.0f32; LANES * self.depth]),
-            |(ws, rows), (b, spectra)| {
+        input.par_chunks(LANES * pixels).enumerate().for_each(|(b, spectra)| {
+            self.with_workspace(|ws| {
                 let lines = spectra.len() / pixels;
+                let mut rows = std::mem::take(&mut ws.db_rows);
                 self.block(spectra, &reference, &mut rows[..lines * self.depth], ws, timer);
                 // SAFETY: block b writes only columns b·LANES .. b·LANES + lines
                 // of each image row; blocks are disjoint and the image outlives
                 // the parallel loop.
-                unsafe { target.write_columns(rows, lines, b * LANES) };
-            },
-        );
+                unsafe { target.write_columns(&rows, lines, b * LANES) };
+                ws.db_rows = rows;
+            })
+        });
     }
 
     fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], ws: &mut Workspace, timer: &FusedTimer) {
