@@ -834,8 +834,10 @@ unsafe fn median_u16_chunk_avx2(data: &[u16], rows: usize, pixels: usize, p0: us
 /// Column ranges per task are multiples of this (one AVX2 vector of u16).
 const MEDIAN_ALIGN: usize = 16;
 
-/// Half-width of the bracket tried around last frame's median.
-const HINT_HALF_WIDTH: u16 = 24;
+/// Half-width of the bracket tried around last frame's median: 41 values,
+/// which the first pass's SPLITS thresholds cut into ranges of at most
+/// SPLITS values, so that one final pass settles them.
+const HINT_HALF_WIDTH: u16 = 20;
 
 /// Thresholds per counting pass of the median search.
 const SPLITS: usize = 7;
@@ -924,7 +926,8 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
             }
         }
     }
-    while lo.iter().zip(hi.iter()).any(|(a, b)| a < b) {
+    // Narrow until every bracket holds at most SPLITS values.
+    while lo.iter().zip(hi.iter()).any(|(a, b)| (b - a) as usize >= SPLITS) {
         for q in 0..w {
             let (a, span) = (lo[q] as u32, (hi[q] - lo[q]) as u32);
             for (i, ti) in t.iter_mut().enumerate() {
@@ -948,25 +951,46 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
             hi[q] = h;
         }
     }
+    // Final pass: a threshold at each of lo, lo+1, …, lo+SPLITS−1 gives the
+    // lower middle and, for an even count, usually the upper middle too
+    // (the smallest v with #(x ≤ v) ≥ target + 1).
+    for q in 0..w {
+        for (i, ti) in t.iter_mut().enumerate() {
+            ti[q] = lo[q].saturating_add(i as u16);
+        }
+    }
+    count_at_most(data, rows, pixels, p0, &t, &mut counts);
+    let even = rows % 2 == 0;
+    let mut upper: Vec<Option<u16>> = vec![None; w];
+    for q in 0..w {
+        let first = |need: u16| (0..SPLITS).find(|&i| counts[i][q] >= need).map(|i| t[i][q]);
+        lo[q] = first(target).expect("the bracket holds the lower middle");
+        if even {
+            upper[q] = first(target + 1);
+        }
+    }
     hint.copy_from_slice(&lo);
-    if rows % 2 == 1 {
+    if !even {
         for (d, &v) in dst.iter_mut().zip(lo.iter()) {
             *d = v as f32;
         }
         return;
     }
-    // Upper middle: the lower one again when it repeats past the middle,
-    // else the smallest value above it; one more pass finds both.
-    let (mut at_most, mut above) = (vec![0u16; w], vec![u16::MAX; w]);
-    for r in 0..rows {
-        for (((n, a), &v), &l) in at_most.iter_mut().zip(above.iter_mut()).zip(&data[r * pixels + p0..r * pixels + p0 + w]).zip(lo.iter()) {
-            *n += (v <= l) as u16;
-            *a = (*a).min(if v > l { v } else { u16::MAX });
+    if upper.iter().any(|u| u.is_none()) {
+        // Upper middle beyond the thresholds: the smallest value above the
+        // lower one (one more pass, rarely needed).
+        let mut above = vec![u16::MAX; w];
+        for r in 0..rows {
+            for ((a, &v), &l) in above.iter_mut().zip(&data[r * pixels + p0..r * pixels + p0 + w]).zip(lo.iter()) {
+                *a = (*a).min(if v > l { v } else { u16::MAX });
+            }
+        }
+        for q in 0..w {
+            upper[q] = upper[q].or(Some(above[q]));
         }
     }
     for q in 0..w {
-        let upper = if at_most[q] > target { lo[q] } else { above[q] };
-        dst[q] = 0.5 * (lo[q] as f32 + upper as f32);
+        dst[q] = 0.5 * (lo[q] as f32 + upper[q].expect("set above") as f32);
     }
 }
 
