@@ -7,9 +7,12 @@
 //! them. A simulator writes captures of invented scenes with their ground
 //! truth. Research tool, not a diagnostic device.
 //!
-//! Layout: `stages/` one module per stage behind [`stages::Stage`];
-//! `pipeline/` the settings file and the planner; `io/` everything that
-//! touches files; `simulate/` the simulator; `run` one capture end to end.
+//! Layout: `stages/` one module per stage behind [`stages::Stage`] (the
+//! plain f64 reference implementation); `pipeline/` the settings file, the
+//! planner and the fused f32 fast path built from a plan (`pipeline::fused`);
+//! `io/` everything that touches files; `simulate/` the simulator; `run` one
+//! capture end to end; `calibration/` wavelength map and dispersion from the
+//! data; `measure/` system characterisation; `throughput` the bench report.
 
 pub mod analysis;
 pub mod batch;
