@@ -263,7 +263,7 @@ pub fn estimate(capture: &Capture, config: &PipelineConfig, frame: usize, source
     let d = &config.dispersion;
     let ((a2, a3), value, evaluations) = minimise(|a2, a3| set.entropy(a2, a3), d.a2_range, d.a3_range);
     let peak_over_floor = peak_over_floor_db(&set.amplitudes(a2, a3));
-    if !(peak_over_floor >= MIN_PEAK_OVER_FLOOR_DB) {
+    if peak_over_floor.is_nan() || peak_over_floor < MIN_PEAK_OVER_FLOOR_DB {
         bail!(
             "no reflector bright enough to estimate dispersion from in frame {frame}: the brightest A-lines peak {peak_over_floor:.1} dB above their noise floor (need {MIN_PEAK_OVER_FLOOR_DB} dB)"
         );

@@ -395,11 +395,11 @@ fn to_pixel_powers(coeff_t: &[f64], m: f64) -> Vec<f64> {
     for (j, &a) in coeff_t.iter().enumerate() {
         // a·((p − m)/m)^j = a·m^−j·Σ_i C(j,i)·p^i·(−m)^(j−i)
         let mut binom = 1.0;
-        for i in 0..=j {
+        for (i, o) in out.iter_mut().enumerate().take(j + 1) {
             if i > 0 {
                 binom = binom * (j - i + 1) as f64 / i as f64;
             }
-            out[i] += a * m.powi(-(j as i32)) * binom * (-m).powi((j - i) as i32);
+            *o += a * m.powi(-(j as i32)) * binom * (-m).powi((j - i) as i32);
         }
     }
     out

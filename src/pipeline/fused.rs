@@ -35,7 +35,7 @@ use crate::stages::log_compression::AMPLITUDE_FLOOR;
 pub const LANES: usize = 16;
 type Lane = [f32; LANES];
 /// 10·log10(2): dB of power per unit of log2.
-const DB_PER_LOG2: f32 = 3.010_299_956_639_812;
+const DB_PER_LOG2: f32 = 10.0 * std::f32::consts::LOG10_2;
 /// Degree of the log2 polynomial (see [`FastLog2`]).
 const LOG2_DEGREE: usize = 8;
 
@@ -885,8 +885,8 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
         for q in 0..w {
             let (a, b) = (hint[q].saturating_sub(HINT_HALF_WIDTH), hint[q].saturating_add(HINT_HALF_WIDTH));
             t[0][q] = a.saturating_sub(1);
-            for i in 1..SPLITS - 1 {
-                t[i][q] = (a as u32 + i as u32 * (b - a) as u32 / (SPLITS as u32 - 1)) as u16;
+            for (i, ti) in t.iter_mut().enumerate().take(SPLITS - 1).skip(1) {
+                ti[q] = (a as u32 + i as u32 * (b - a) as u32 / (SPLITS as u32 - 1)) as u16;
             }
             t[SPLITS - 1][q] = b;
         }

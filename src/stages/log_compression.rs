@@ -87,7 +87,9 @@ pub fn grey_levels_u8(db: &[f32], black_db: f64, white_db: f64, out: &mut [u8]) 
     for (o, &d) in out.iter_mut().zip(db) {
         // Round half up (values are ≥ 0 after the clamp): the same as round().
         let v = ((d - black) * scale).clamp(0.0, 255.0) + 0.5;
-        // f32::max/min drop a NaN, so v ends up finite in [0, 255.5].
+        // f32::max/min drop a NaN (clamp would keep it), so v ends up
+        // finite in [0, 255.5].
+        #[allow(clippy::manual_clamp)]
         let v = v.max(0.0).min(255.5);
         // SAFETY: v is finite and within i32's range.
         *o = unsafe { v.to_int_unchecked::<i32>() } as u8;
