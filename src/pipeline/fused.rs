@@ -742,6 +742,7 @@ mod avx2 {
         }
     }
 
+    #[inline]
     #[target_feature(enable = "avx2")]
     pub unsafe fn scatter_tile(tile: &[Lane; 8], factor: &[Complex32], lines: usize, len: usize, j0: usize, buf: &mut [Complex32]) {
         assert!(factor.len() >= 8 && lines <= LANES && buf.len() >= lines.saturating_sub(1) * len + j0 + 8);
