@@ -29,6 +29,7 @@ use super::plan::Plan;
 use crate::io::capture::RawFrame;
 use crate::stages::background::{median_spectrum, BackgroundSource};
 use crate::stages::dispersion::{correction_phase, normalised_coordinate};
+use crate::stages::k_linearization::{curvature_weights, natural_spline_factors};
 use crate::stages::log_compression::AMPLITUDE_FLOOR;
 
 /// A-lines processed together, one per SIMD lane.
@@ -126,23 +127,13 @@ impl PixelOrderSpline {
                 k.partition_point(|&v| v > t).clamp(1, n - 1) - 1
             };
             let a = ((k[q + 1] - t) / h[q]).clamp(0.0, 1.0);
-            let b = 1.0 - a;
+            let (lc, rc) = curvature_weights(a, h[q]);
             interval.push(q as u32);
             left_weight.push(a);
-            left_curvature.push((a * a * a - a) * h[q] * h[q] / 6.0);
-            right_curvature.push((b * b * b - b) * h[q] * h[q] / 6.0);
+            left_curvature.push(lc);
+            right_curvature.push(rc);
         }
-        let rows = n - 2;
-        let mut c_prime = vec![0.0; rows];
-        let mut inv_pivot = vec![0.0; rows];
-        for r in 0..rows {
-            let lower = if r == 0 { 0.0 } else { h[r] };
-            let diag = 2.0 * (h[r] + h[r + 1]);
-            let upper = if r + 1 == rows { 0.0 } else { h[r + 1] };
-            let pivot = diag - if r == 0 { 0.0 } else { lower * c_prime[r - 1] };
-            inv_pivot[r] = 1.0 / pivot;
-            c_prime[r] = upper / pivot;
-        }
+        let (c_prime, inv_pivot) = natural_spline_factors(&h);
         let inv_h = h.iter().map(|v| 1.0 / v).collect();
         PixelOrderSpline { interval, left_weight, left_curvature, right_curvature, h, inv_h, c_prime, inv_pivot }
     }

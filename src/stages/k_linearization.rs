@@ -63,6 +63,33 @@ pub struct KLinearization {
     pub samples: usize,
 }
 
+/// Weights of the left and right knot's second derivative for a point whose
+/// left (linear) weight is `a` in an interval of width `h` (either sign).
+pub fn curvature_weights(a: f64, h: f64) -> (f64, f64) {
+    let b = 1.0 - a;
+    ((a * a * a - a) * h * h / 6.0, (b * b * b - b) * h * h / 6.0)
+}
+
+/// Thomas-algorithm factors (modified super-diagonal, inverse pivots) of the
+/// natural spline's tridiagonal system for knot spacings `h`: for rows
+/// r = 1..n−2, h[r−1]·M[r−1] + 2(h[r−1]+h[r])·M[r] + h[r]·M[r+1] =
+/// 6·(Δ_r − Δ_{r−1}), with M[0] = M[n−1] = 0. Valid for knots in either
+/// order (all h of one sign).
+pub fn natural_spline_factors(h: &[f64]) -> (Vec<f64>, Vec<f64>) {
+    let rows = h.len() - 1;
+    let mut c_prime = vec![0.0; rows];
+    let mut inv_pivot = vec![0.0; rows];
+    for r in 0..rows {
+        let lower = if r == 0 { 0.0 } else { h[r] };
+        let diag = 2.0 * (h[r] + h[r + 1]);
+        let upper = if r + 1 == rows { 0.0 } else { h[r + 1] };
+        let pivot = diag - if r == 0 { 0.0 } else { lower * c_prime[r - 1] };
+        inv_pivot[r] = 1.0 / pivot;
+        c_prime[r] = upper / pivot;
+    }
+    (c_prime, inv_pivot)
+}
+
 /// Read-only view of a [`KLinearization`]'s tables (see its fields).
 pub struct ResamplingTables<'a> {
     pub cubic: bool,
@@ -108,27 +135,15 @@ impl KLinearization {
                 i += 1;
             }
             let a = ((k[i + 1] - t) / h[i]).clamp(0.0, 1.0);
-            let b = 1.0 - a;
+            let (lc, rc) = curvature_weights(a, h[i]);
             interval.push(i);
             left_weight.push(a);
-            left_curvature.push((a * a * a - a) * h[i] * h[i] / 6.0);
-            right_curvature.push((b * b * b - b) * h[i] * h[i] / 6.0);
+            left_curvature.push(lc);
+            right_curvature.push(rc);
         }
 
-        // Natural spline: for rows r = 1..n−2,
-        // h[r−1]·M[r−1] + 2(h[r−1]+h[r])·M[r] + h[r]·M[r+1] = 6·(Δ_r − Δ_{r−1}),
-        // with M[0] = M[n−1] = 0. Factorise the tridiagonal matrix once.
-        let rows = n - 2;
-        let mut c_prime = vec![0.0; rows];
-        let mut inv_pivot = vec![0.0; rows];
-        for r in 0..rows {
-            let lower = if r == 0 { 0.0 } else { h[r] };
-            let diag = 2.0 * (h[r] + h[r + 1]);
-            let upper = if r + 1 == rows { 0.0 } else { h[r + 1] };
-            let pivot = diag - if r == 0 { 0.0 } else { lower * c_prime[r - 1] };
-            inv_pivot[r] = 1.0 / pivot;
-            c_prime[r] = upper / pivot;
-        }
+        // Factorise the natural spline's tridiagonal system once.
+        let (c_prime, inv_pivot) = natural_spline_factors(&h);
 
         let inv_h = h.iter().map(|v| 1.0 / v).collect();
         KLinearization {
