@@ -350,51 +350,9 @@ impl Capture {
     /// Reads frame `index` as (A-lines × pixels) f64 into `out`, returning the
     /// number of saturated samples. Fails on NaN or infinite values.
     pub fn read_frame(&self, index: usize, out: &mut Array2<f64>) -> Result<u64> {
-        let slab: Vec<SliceOrIndex> = self
-            .axes
-            .iter()
-            .zip(self.shape.iter())
-            .map(|(&a, &n)| match a {
-                AxisName::Frame => SliceOrIndex::Index(index),
-                _ => SliceOrIndex::SliceCount { start: 0, step: 1, count: n, block: 1 },
-            })
-            .collect();
-        let aline_first = {
-            let rest: Vec<AxisName> = self.axes.iter().copied().filter(|&a| a != AxisName::Frame).collect();
-            rest[0] == AxisName::Aline
-        };
-        macro_rules! read_as {
-            ($t:ty) => {{
-                let raw: Array2<$t> = self
-                    .fringes
-                    .read_slice(Hyperslab::from(slab))
-                    .with_context(|| format!("reading frame {index} of '{}'", self.fringes_path))?;
-                let view = if aline_first { raw.view() } else { raw.view().reversed_axes() };
-                ndarray::Zip::from(out.view_mut()).and(view).for_each(|o, &v| *o = v as f64);
-            }};
-        }
-        match self.sample_type {
-            SampleType::U8 => read_as!(u8),
-            SampleType::U16 => read_as!(u16),
-            SampleType::I16 => read_as!(i16),
-            SampleType::U32 => read_as!(u32),
-            SampleType::F32 => read_as!(f32),
-            SampleType::F64 => read_as!(f64),
-        }
-        if self.sample_type.is_float() {
-            if let Some(pos) = out.iter().position(|v| !v.is_finite()) {
-                bail!(
-                    "NaN or infinite value in '{}' frame {index} (A-line {}, pixel {})",
-                    self.fringes_path,
-                    pos / self.pixels,
-                    pos % self.pixels
-                );
-            }
-        }
-        Ok(match self.full_scale {
-            Some(fs) => out.iter().filter(|&&v| v >= fs).count() as u64,
-            None => 0,
-        })
+        let (raw, saturated) = self.read_raw_frame(index)?;
+        out.assign(&raw.to_f64());
+        Ok(saturated)
     }
 
     /// Shape of one frame, (A-lines, pixels).
