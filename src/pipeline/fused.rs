@@ -650,17 +650,28 @@ mod avx2 {
         ]
     }
 
+    /// The 16 rows × 8 columns at `src[row·stride + col ..]`, transposed:
+    /// for each of the 8 columns, its 16 row values as two vectors (rows
+    /// 0–7, rows 8–15).
+    #[inline(always)]
+    unsafe fn load_16x8_transposed(src: *const f32, stride: usize, col: usize) -> [[__m256; 8]; 2] {
+        let mut halves = [[_mm256_setzero_ps(); 8]; 2];
+        for (half, out) in halves.iter_mut().enumerate() {
+            let mut r = [_mm256_setzero_ps(); 8];
+            for (i, ri) in r.iter_mut().enumerate() {
+                *ri = _mm256_loadu_ps(src.add((half * 8 + i) * stride + col));
+            }
+            *out = transpose8(r);
+        }
+        halves
+    }
+
     #[target_feature(enable = "avx2")]
     pub unsafe fn transpose_in(rows: &[f32], pixels: usize, whole: usize, reference: &[f32], y: &mut [Lane]) {
         assert!(rows.len() >= LANES * pixels && y.len() >= pixels && reference.len() >= pixels && whole <= pixels);
-        let src = rows.as_ptr();
         for p0 in (0..whole).step_by(8) {
-            for half in 0..2 {
-                let mut r = [_mm256_setzero_ps(); 8];
-                for (i, ri) in r.iter_mut().enumerate() {
-                    *ri = _mm256_loadu_ps(src.add((half * 8 + i) * pixels + p0));
-                }
-                let c = transpose8(r);
+            let halves = load_16x8_transposed(rows.as_ptr(), pixels, p0);
+            for (half, c) in halves.iter().enumerate() {
                 for (q, cq) in c.iter().enumerate() {
                     let v = _mm256_sub_ps(*cq, _mm256_set1_ps(*reference.get_unchecked(p0 + q)));
                     _mm256_storeu_ps(y.as_mut_ptr().add(p0 + q).cast::<f32>().add(half * 8), v);
@@ -674,14 +685,9 @@ mod avx2 {
     #[target_feature(enable = "avx2")]
     pub unsafe fn transpose_out(rows: &[f32], depth: usize, whole: usize, image: *mut f32, alines: usize, a0: usize) {
         assert!(rows.len() >= LANES * depth && whole <= depth && a0 + LANES <= alines);
-        let src = rows.as_ptr();
         for d0 in (0..whole).step_by(8) {
-            for half in 0..2 {
-                let mut r = [_mm256_setzero_ps(); 8];
-                for (i, ri) in r.iter_mut().enumerate() {
-                    *ri = _mm256_loadu_ps(src.add((half * 8 + i) * depth + d0));
-                }
-                let c = transpose8(r);
+            let halves = load_16x8_transposed(rows.as_ptr(), depth, d0);
+            for (half, c) in halves.iter().enumerate() {
                 for (q, cq) in c.iter().enumerate() {
                     _mm256_storeu_ps(image.add((d0 + q) * alines + a0 + half * 8), *cq);
                 }
