@@ -34,6 +34,13 @@ use crate::stages::log_compression::AMPLITUDE_FLOOR;
 
 /// A-lines processed together, one per SIMD lane.
 pub const LANES: usize = 16;
+
+/// Padding (f32 values) after each line of a block's spectra and dB rows,
+/// and (complex values) after each FFT row: line strides that are a power
+/// of two put all 16 lines of a block into the same L1 cache set, so the
+/// transposes between line order and lane order miss on every access.
+const ROW_PAD: usize = 16;
+const FFT_ROW_PAD: usize = 8;
 type Lane = [f32; LANES];
 /// 10·log10(2): dB of power per unit of log2.
 const DB_PER_LOG2: f32 = 10.0 * std::f32::consts::LOG10_2;
@@ -291,11 +298,11 @@ impl FusedPlan {
     fn workspace(&self) -> Workspace {
         Workspace {
             shape: [self.pixels, self.fft_length, self.fft_scratch, self.depth],
-            db_rows: vec![0.0; LANES * self.depth],
-            rows: vec![0.0; LANES * self.pixels],
+            db_rows: vec![0.0; LANES * (self.depth + ROW_PAD)],
+            rows: vec![0.0; LANES * (self.pixels + ROW_PAD)],
             y: vec![[0.0; LANES]; self.pixels],
             m: vec![[0.0; LANES]; self.pixels],
-            buf: vec![Complex32::new(0.0, 0.0); LANES * self.fft_length],
+            buf: vec![Complex32::new(0.0, 0.0); LANES * (self.fft_length + FFT_ROW_PAD)],
             scratch: vec![Complex32::new(0.0, 0.0); self.fft_scratch],
         }
     }
@@ -354,7 +361,7 @@ impl FusedPlan {
             .par_chunks(LANES * pixels)
             .zip(output.par_chunks_mut(LANES * depth))
             .with_min_len(min_blocks_per_job)
-            .for_each_init(|| self.workspace(), |ws, (spectra, out)| self.block(spectra, &reference, out, ws, timer));
+            .for_each_init(|| self.workspace(), |ws, (spectra, out)| self.block(spectra, &reference, out, depth, ws, timer));
     }
 
     /// Processes a raw frame straight into the B-scan image (depth pixels ×
@@ -386,32 +393,35 @@ impl FusedPlan {
             self.with_workspace(|ws| {
                 let lines = spectra.len() / pixels;
                 let mut rows = std::mem::take(&mut ws.db_rows);
-                self.block(spectra, &reference, &mut rows[..lines * self.depth], ws, timer);
+                let stride = self.depth + ROW_PAD;
+                self.block(spectra, &reference, &mut rows[..lines * stride], stride, ws, timer);
                 // SAFETY: block b writes only columns b·LANES .. b·LANES + lines
                 // of each image row; blocks are disjoint and the image outlives
                 // the parallel loop.
-                unsafe { target.write_columns(&rows, lines, b * LANES) };
+                unsafe { target.write_columns(&rows, stride, lines, b * LANES) };
                 ws.db_rows = rows;
             })
         });
     }
 
-    fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], ws: &mut Workspace, timer: &FusedTimer) {
+    /// One block of ≤ LANES A-lines: line l's dB values go to
+    /// out[l·out_stride ..][..depth].
+    fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], out_stride: usize, ws: &mut Workspace, timer: &FusedTimer) {
         #[cfg(target_arch = "x86_64")]
         {
             if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
                 // SAFETY: the CPU supports the features the function is compiled for.
-                unsafe { self.block_avx2(spectra, reference, out, ws, timer) };
+                unsafe { self.block_avx2(spectra, reference, out, out_stride, ws, timer) };
                 return;
             }
         }
-        self.block_inline(spectra, reference, out, ws, timer);
+        self.block_inline(spectra, reference, out, out_stride, ws, timer);
     }
 
     /// Interpolation and scatter of the whole 8-sample tiles with AVX2+FMA;
     /// returns the first k sample left for the portable loop.
     #[inline(always)]
-    fn eval_whole_tiles(&self, y: &[Lane], m: &[Lane], lines: usize, buf: &mut [Complex32]) -> usize {
+    fn eval_whole_tiles(&self, y: &[Lane], m: &[Lane], lines: usize, stride: usize, buf: &mut [Complex32]) -> usize {
         #[cfg(target_arch = "x86_64")]
         {
             if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
@@ -425,7 +435,7 @@ impl FusedPlan {
                     cubic: self.cubic,
                 };
                 // SAFETY: AVX2 and FMA are present; indices are checked inside.
-                unsafe { avx2::eval_scatter(&t, y, m, lines, self.fft_length, buf) };
+                unsafe { avx2::eval_scatter(&t, y, m, lines, stride, buf) };
                 return whole;
             }
         }
@@ -434,12 +444,12 @@ impl FusedPlan {
 
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2,fma")]
-    unsafe fn block_avx2<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], ws: &mut Workspace, timer: &FusedTimer) {
-        self.block_inline(spectra, reference, out, ws, timer);
+    unsafe fn block_avx2<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], out_stride: usize, ws: &mut Workspace, timer: &FusedTimer) {
+        self.block_inline(spectra, reference, out, out_stride, ws, timer);
     }
 
     #[inline(always)]
-    fn block_inline<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], ws: &mut Workspace, timer: &FusedTimer) {
+    fn block_inline<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], out_stride: usize, ws: &mut Workspace, timer: &FusedTimer) {
         let pixels = self.pixels;
         let lines = spectra.len() / pixels;
         let len = self.fft_length;
@@ -447,14 +457,15 @@ impl FusedPlan {
         let t0 = Instant::now();
         // Spectra as f32 (contiguous, vectorised), then transposed to
         // pixel-major with one lane per A-line, minus the reference.
-        for (dst, row) in ws.rows.chunks_exact_mut(pixels).zip(spectra.chunks_exact(pixels)) {
+        let rs = pixels + ROW_PAD;
+        for (dst, row) in ws.rows.chunks_exact_mut(rs).zip(spectra.chunks_exact(pixels)) {
             for (d, v) in dst.iter_mut().zip(row) {
                 *d = v.to_f32();
             }
         }
-        ws.rows[lines * pixels..].fill(0.0);
+        ws.rows[lines * rs..].fill(0.0);
         let y = &mut ws.y;
-        transpose_in(&ws.rows, pixels, reference, y);
+        transpose_in(&ws.rows, pixels, rs, reference, y);
         let m = &mut ws.m;
         if self.cubic {
             // Natural spline second derivatives: forward sweep then back
@@ -489,7 +500,8 @@ impl FusedPlan {
         }
         // Interpolate, scale by the complex factor, scatter to the lanes' FFT rows.
         let buf = &mut ws.buf;
-        let whole = self.eval_whole_tiles(y, m, lines, buf);
+        let fs = len + FFT_ROW_PAD;
+        let whole = self.eval_whole_tiles(y, m, lines, fs, buf);
         let mut tile = [[0.0f32; LANES]; 8];
         for j0 in (whole..k).step_by(8) {
             let width = (k - j0).min(8);
@@ -505,20 +517,22 @@ impl FusedPlan {
                     v[l] = a * ya[l] + b * yb[l] + lc * ma[l] + rc * mb[l];
                 }
             }
-            scatter_tile(&tile, width, &self.factor[j0..j0 + width], lines, len, j0, buf);
+            scatter_tile(&tile, width, &self.factor[j0..j0 + width], lines, fs, j0, buf);
         }
         for l in 0..lines {
-            buf[l * len + k..(l + 1) * len].fill(Complex32::new(0.0, 0.0));
+            buf[l * fs + k..l * fs + len].fill(Complex32::new(0.0, 0.0));
         }
         timer.add(1, t0);
         let t1 = Instant::now();
-        self.fft.process_with_scratch(&mut buf[..lines * len], &mut ws.scratch);
+        for l in 0..lines {
+            self.fft.process_with_scratch(&mut buf[l * fs..l * fs + len], &mut ws.scratch);
+        }
         timer.add(2, t1);
         let t2 = Instant::now();
         let depth = self.depth;
         for l in 0..lines {
-            let src = &buf[l * len + self.first_bin..l * len + self.first_bin + depth];
-            let dst = &mut out[l * depth..(l + 1) * depth];
+            let src = &buf[l * fs + self.first_bin..l * fs + self.first_bin + depth];
+            let dst = &mut out[l * out_stride..l * out_stride + depth];
             for (d, x) in dst.iter_mut().zip(src.iter()) {
                 let p = (x.re * x.re + x.im * x.im).max(self.power_floor);
                 *d = DB_PER_LOG2 * self.log2.log2(p) + self.db_offset;
@@ -545,16 +559,16 @@ impl ImagePtr {
     ///
     /// # Safety
     /// Columns a0 .. a0 + lines must be in the image and written by no one else.
-    unsafe fn write_columns(&self, rows: &[f32], lines: usize, a0: usize) {
-        assert!(a0 + lines <= self.alines && rows.len() >= lines * self.depth);
+    unsafe fn write_columns(&self, rows: &[f32], stride: usize, lines: usize, a0: usize) {
+        assert!(a0 + lines <= self.alines && stride >= self.depth && rows.len() >= (lines.max(1) - 1) * stride + self.depth);
         #[cfg(target_arch = "x86_64")]
         {
             if lines == LANES && std::is_x86_feature_detected!("avx2") {
                 let whole = self.depth / 8 * 8;
-                avx2::transpose_out(rows, self.depth, whole, self.ptr, self.alines, a0);
+                avx2::transpose_out(rows, stride, whole, self.ptr, self.alines, a0);
                 for d in whole..self.depth {
                     for l in 0..lines {
-                        *self.ptr.add(d * self.alines + a0 + l) = rows[l * self.depth + d];
+                        *self.ptr.add(d * self.alines + a0 + l) = rows[l * stride + d];
                     }
                 }
                 return;
@@ -562,7 +576,7 @@ impl ImagePtr {
         }
         for d in 0..self.depth {
             for l in 0..lines {
-                *self.ptr.add(d * self.alines + a0 + l) = rows[l * self.depth + d];
+                *self.ptr.add(d * self.alines + a0 + l) = rows[l * stride + d];
             }
         }
     }
@@ -570,17 +584,17 @@ impl ImagePtr {
 
 /// y[p][l] = rows[l·pixels + p] − reference[p] for the LANES rows.
 #[inline(always)]
-fn transpose_in(rows: &[f32], pixels: usize, reference: &[f32], y: &mut [Lane]) {
+fn transpose_in(rows: &[f32], pixels: usize, stride: usize, reference: &[f32], y: &mut [Lane]) {
     #[cfg(target_arch = "x86_64")]
     {
         if std::is_x86_feature_detected!("avx2") {
             let whole = pixels / 8 * 8;
             // SAFETY: AVX2 is present; every access is in bounds (checked
             // by the slicing below).
-            unsafe { avx2::transpose_in(rows, pixels, whole, reference, y) };
+            unsafe { avx2::transpose_in(rows, stride, whole, reference, y) };
             for p in whole..pixels {
                 for l in 0..LANES {
-                    y[p][l] = rows[l * pixels + p] - reference[p];
+                    y[p][l] = rows[l * stride + p] - reference[p];
                 }
             }
             return;
@@ -588,7 +602,7 @@ fn transpose_in(rows: &[f32], pixels: usize, reference: &[f32], y: &mut [Lane]) 
     }
     for (p, yp) in y.iter_mut().enumerate().take(pixels) {
         for l in 0..LANES {
-            yp[l] = rows[l * pixels + p] - reference[p];
+            yp[l] = rows[l * stride + p] - reference[p];
         }
     }
 }
@@ -596,20 +610,20 @@ fn transpose_in(rows: &[f32], pixels: usize, reference: &[f32], y: &mut [Lane]) 
 /// For the tile of ≤ 8 k samples (tile[q][lane]) starting at j0: writes
 /// factor[q]·tile[q][l] into lane l's FFT row.
 #[inline(always)]
-fn scatter_tile(tile: &[Lane; 8], width: usize, factor: &[Complex32], lines: usize, len: usize, j0: usize, buf: &mut [Complex32]) {
+fn scatter_tile(tile: &[Lane; 8], width: usize, factor: &[Complex32], lines: usize, stride: usize, j0: usize, buf: &mut [Complex32]) {
     #[cfg(target_arch = "x86_64")]
     {
         if width == 8 && std::is_x86_feature_detected!("avx2") {
             // SAFETY: AVX2 is present; the destination ranges are in bounds
             // (j0 + 8 ≤ k ≤ len, l < lines ≤ LANES, buf holds LANES·len).
-            unsafe { avx2::scatter_tile(tile, factor, lines, len, j0, buf) };
+            unsafe { avx2::scatter_tile(tile, factor, lines, stride, j0, buf) };
             return;
         }
     }
     for (q, f) in factor.iter().enumerate().take(width) {
         for l in 0..lines {
             let v = tile[q][l];
-            buf[l * len + j0 + q] = Complex32::new(f.re * v, f.im * v);
+            buf[l * stride + j0 + q] = Complex32::new(f.re * v, f.im * v);
         }
     }
 }
@@ -711,10 +725,10 @@ mod avx2 {
     }
 
     #[target_feature(enable = "avx2")]
-    pub unsafe fn transpose_in(rows: &[f32], pixels: usize, whole: usize, reference: &[f32], y: &mut [Lane]) {
-        assert!(rows.len() >= LANES * pixels && y.len() >= pixels && reference.len() >= pixels && whole <= pixels);
+    pub unsafe fn transpose_in(rows: &[f32], stride: usize, whole: usize, reference: &[f32], y: &mut [Lane]) {
+        assert!(rows.len() >= LANES * stride && y.len() >= whole && reference.len() >= whole && whole <= stride);
         for p0 in (0..whole).step_by(8) {
-            let halves = load_16x8_transposed(rows.as_ptr(), pixels, p0);
+            let halves = load_16x8_transposed(rows.as_ptr(), stride, p0);
             for (half, c) in halves.iter().enumerate() {
                 for (q, cq) in c.iter().enumerate() {
                     let v = _mm256_sub_ps(*cq, _mm256_set1_ps(*reference.get_unchecked(p0 + q)));
@@ -727,10 +741,10 @@ mod avx2 {
     /// image[d][a0 + l] = rows[l·depth + d] for 16 lanes and d < whole (a
     /// multiple of 8), by 8 × 8 transposes.
     #[target_feature(enable = "avx2")]
-    pub unsafe fn transpose_out(rows: &[f32], depth: usize, whole: usize, image: *mut f32, alines: usize, a0: usize) {
-        assert!(rows.len() >= LANES * depth && whole <= depth && a0 + LANES <= alines);
+    pub unsafe fn transpose_out(rows: &[f32], stride: usize, whole: usize, image: *mut f32, alines: usize, a0: usize) {
+        assert!(rows.len() >= (LANES - 1) * stride + whole && whole <= stride && a0 + LANES <= alines);
         for d0 in (0..whole).step_by(8) {
-            let halves = load_16x8_transposed(rows.as_ptr(), depth, d0);
+            let halves = load_16x8_transposed(rows.as_ptr(), stride, d0);
             for (half, c) in halves.iter().enumerate() {
                 for (q, cq) in c.iter().enumerate() {
                     _mm256_storeu_ps(image.add((d0 + q) * alines + a0 + half * 8), *cq);
@@ -752,11 +766,11 @@ mod avx2 {
     /// For each tile of 8 k samples: v = a·y[i] + b·y[i+1] + lc·m[i] +
     /// rc·m[i+1] on all 16 lanes, then the lanes' FFT rows get factor·v.
     #[target_feature(enable = "avx2,fma")]
-    pub unsafe fn eval_scatter(t: &SplineTables<'_>, y: &[Lane], m: &[Lane], lines: usize, len: usize, buf: &mut [Complex32]) {
+    pub unsafe fn eval_scatter(t: &SplineTables<'_>, y: &[Lane], m: &[Lane], lines: usize, stride: usize, buf: &mut [Complex32]) {
         let k = t.interval.len();
         assert!(k % 8 == 0 && t.left_weight.len() == k && t.left_curvature.len() == k && t.right_curvature.len() == k && t.factor.len() == k);
         assert!(t.interval.iter().all(|&i| (i as usize) + 1 < y.len() && (i as usize) + 1 < m.len()));
-        assert!(lines <= LANES && buf.len() >= LANES * len && k <= len);
+        assert!(lines <= LANES && buf.len() >= LANES * stride && k <= stride);
         let mut tile = [[0.0f32; LANES]; 8];
         for j0 in (0..k).step_by(8) {
             for (q, v) in tile.iter_mut().enumerate() {
@@ -779,14 +793,14 @@ mod avx2 {
                     _mm256_storeu_ps(v.as_mut_ptr().add(o), acc);
                 }
             }
-            scatter_tile(&tile, &t.factor[j0..j0 + 8], lines, len, j0, buf);
+            scatter_tile(&tile, &t.factor[j0..j0 + 8], lines, stride, j0, buf);
         }
     }
 
     #[inline]
     #[target_feature(enable = "avx2")]
-    pub unsafe fn scatter_tile(tile: &[Lane; 8], factor: &[Complex32], lines: usize, len: usize, j0: usize, buf: &mut [Complex32]) {
-        assert!(factor.len() >= 8 && lines <= LANES && buf.len() >= lines.saturating_sub(1) * len + j0 + 8);
+    pub unsafe fn scatter_tile(tile: &[Lane; 8], factor: &[Complex32], lines: usize, stride: usize, j0: usize, buf: &mut [Complex32]) {
+        assert!(factor.len() >= 8 && lines <= LANES && buf.len() >= lines.saturating_sub(1) * stride + j0 + 8);
         let mut fr = [0.0f32; 8];
         let mut fi = [0.0f32; 8];
         for q in 0..8 {
@@ -809,7 +823,7 @@ mod avx2 {
                 let im = _mm256_mul_ps(*ci, fi);
                 let lo = _mm256_unpacklo_ps(re, im);
                 let hi = _mm256_unpackhi_ps(re, im);
-                let dst = buf.as_mut_ptr().add(l * len + j0).cast::<f32>();
+                let dst = buf.as_mut_ptr().add(l * stride + j0).cast::<f32>();
                 _mm256_storeu_ps(dst, _mm256_permute2f128_ps::<0x20>(lo, hi));
                 _mm256_storeu_ps(dst.add(8), _mm256_permute2f128_ps::<0x31>(lo, hi));
             }
