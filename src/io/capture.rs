@@ -314,15 +314,25 @@ impl Capture {
         };
         let fs = self.full_scale;
         macro_rules! read_as {
-            ($t:ty, $variant:ident) => {{
+            ($t:ty, $variant:ident, $kind:ident) => {{
                 let raw: Array2<$t> = self
                     .fringes
                     .read_slice(Hyperslab::from(slab))
                     .with_context(|| format!("reading frame {index} of '{}'", self.fringes_path))?;
                 let raw = if aline_first { raw } else { raw.reversed_axes().as_standard_layout().into_owned() };
                 let v = raw.as_slice().expect("standard layout");
+                read_as!(@check $kind, $t, v);
+                let saturated = match fs {
+                    Some(fs) => read_as!(@saturated $kind, $t, v, fs),
+                    None => 0,
+                };
+                (RawFrame::$variant(raw), saturated)
+            }};
+            // Integers are always finite; floats are checked.
+            (@check int, $t:ty, $v:expr) => {};
+            (@check float, $t:ty, $v:expr) => {{
                 #[allow(clippy::unnecessary_cast)]
-                if let Some(pos) = v.iter().position(|x| !(*x as f64).is_finite()) {
+                if let Some(pos) = $v.iter().position(|x| !(*x as f64).is_finite()) {
                     bail!(
                         "NaN or infinite value in '{}' frame {index} (A-line {}, pixel {})",
                         self.fringes_path,
@@ -330,20 +340,31 @@ impl Capture {
                         pos % self.pixels
                     );
                 }
-                let saturated = match fs {
-                    Some(fs) => v.iter().filter(|&&x| x as f64 >= fs).count() as u64,
-                    None => 0,
-                };
-                (RawFrame::$variant(raw), saturated)
+            }};
+            // x ≥ full scale, compared in the stored type for integers
+            // (x ≥ fs ⇔ x ≥ ⌈fs⌉), which vectorises.
+            (@saturated int, $t:ty, $v:expr, $fs:expr) => {{
+                let t = $fs.ceil();
+                if t > <$t>::MAX as f64 {
+                    0
+                } else {
+                    let t = t.max(<$t>::MIN as f64) as $t;
+                    $v.iter().map(|&x| (x >= t) as u64).sum::<u64>()
+                }
+            }};
+            (@saturated float, $t:ty, $v:expr, $fs:expr) => {{
+                #[allow(clippy::unnecessary_cast)]
+                let n = $v.iter().filter(|&&x| x as f64 >= $fs).count() as u64;
+                n
             }};
         }
         Ok(match self.sample_type {
-            SampleType::U8 => read_as!(u8, U8),
-            SampleType::U16 => read_as!(u16, U16),
-            SampleType::I16 => read_as!(i16, I16),
-            SampleType::U32 => read_as!(u32, U32),
-            SampleType::F32 => read_as!(f32, F32),
-            SampleType::F64 => read_as!(f64, F64),
+            SampleType::U8 => read_as!(u8, U8, int),
+            SampleType::U16 => read_as!(u16, U16, int),
+            SampleType::I16 => read_as!(i16, I16, int),
+            SampleType::U32 => read_as!(u32, U32, int),
+            SampleType::F32 => read_as!(f32, F32, float),
+            SampleType::F64 => read_as!(f64, F64, float),
         })
     }
 
