@@ -88,6 +88,10 @@ impl FastLog2 {
         FastLog2 { c }
     }
 
+    pub fn coefficients(&self) -> [f32; LOG2_DEGREE + 1] {
+        self.c
+    }
+
     #[inline(always)]
     pub fn log2(&self, x: f32) -> f32 {
         // x = 2^e · m with m ∈ [0.75, 1.5): subtract the bits of 0.75.
@@ -361,7 +365,7 @@ impl FusedPlan {
             .par_chunks(LANES * pixels)
             .zip(output.par_chunks_mut(LANES * depth))
             .with_min_len(min_blocks_per_job)
-            .for_each_init(|| self.workspace(), |ws, (spectra, out)| self.block(spectra, &reference, out, depth, ws, timer));
+            .for_each_init(|| self.workspace(), |ws, (spectra, out)| self.block(spectra, &reference, Sink::Rows(out, depth), ws, timer));
     }
 
     /// Processes a raw frame straight into the B-scan image (depth pixels ×
@@ -392,30 +396,34 @@ impl FusedPlan {
         input.par_chunks(LANES * pixels).enumerate().for_each(|(b, spectra)| {
             self.with_workspace(|ws| {
                 let lines = spectra.len() / pixels;
-                let mut rows = std::mem::take(&mut ws.db_rows);
-                let stride = self.depth + ROW_PAD;
-                self.block(spectra, &reference, &mut rows[..lines * stride], stride, ws, timer);
-                // SAFETY: block b writes only columns b·LANES .. b·LANES + lines
-                // of each image row; blocks are disjoint and the image outlives
+                // Block b writes only columns b·LANES .. b·LANES + lines of
+                // each image row; blocks are disjoint and the image outlives
                 // the parallel loop.
-                unsafe { target.write_columns(&rows, stride, lines, b * LANES) };
-                ws.db_rows = rows;
+                if lines == LANES {
+                    self.block(spectra, &reference, Sink::Image(target, b * LANES), ws, timer);
+                } else {
+                    let mut rows = std::mem::take(&mut ws.db_rows);
+                    let stride = self.depth + ROW_PAD;
+                    self.block(spectra, &reference, Sink::Rows(&mut rows[..lines * stride], stride), ws, timer);
+                    // SAFETY: as above.
+                    unsafe { target.write_columns(&rows, stride, lines, b * LANES) };
+                    ws.db_rows = rows;
+                }
             })
         });
     }
 
-    /// One block of ≤ LANES A-lines: line l's dB values go to
-    /// out[l·out_stride ..][..depth].
-    fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], out_stride: usize, ws: &mut Workspace, timer: &FusedTimer) {
+    /// One block of ≤ LANES A-lines into `sink`.
+    fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
         #[cfg(target_arch = "x86_64")]
         {
             if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
                 // SAFETY: the CPU supports the features the function is compiled for.
-                unsafe { self.block_avx2(spectra, reference, out, out_stride, ws, timer) };
+                unsafe { self.block_avx2(spectra, reference, sink, ws, timer) };
                 return;
             }
         }
-        self.block_inline(spectra, reference, out, out_stride, ws, timer);
+        self.block_inline(spectra, reference, sink, ws, timer);
     }
 
     /// Interpolation and scatter of the whole 8-sample tiles with AVX2+FMA;
@@ -444,12 +452,12 @@ impl FusedPlan {
 
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2,fma")]
-    unsafe fn block_avx2<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], out_stride: usize, ws: &mut Workspace, timer: &FusedTimer) {
-        self.block_inline(spectra, reference, out, out_stride, ws, timer);
+    unsafe fn block_avx2<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
+        self.block_inline(spectra, reference, sink, ws, timer);
     }
 
     #[inline(always)]
-    fn block_inline<T: Sample>(&self, spectra: &[T], reference: &[f32], out: &mut [f32], out_stride: usize, ws: &mut Workspace, timer: &FusedTimer) {
+    fn block_inline<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
         let pixels = self.pixels;
         let lines = spectra.len() / pixels;
         let len = self.fft_length;
@@ -530,16 +538,50 @@ impl FusedPlan {
         timer.add(2, t1);
         let t2 = Instant::now();
         let depth = self.depth;
-        for l in 0..lines {
-            let src = &buf[l * fs + self.first_bin..l * fs + self.first_bin + depth];
-            let dst = &mut out[l * out_stride..l * out_stride + depth];
-            for (d, x) in dst.iter_mut().zip(src.iter()) {
-                let p = (x.re * x.re + x.im * x.im).max(self.power_floor);
-                *d = DB_PER_LOG2 * self.log2.log2(p) + self.db_offset;
+        let db = |x: &Complex32| DB_PER_LOG2 * self.log2.log2((x.re * x.re + x.im * x.im).max(self.power_floor)) + self.db_offset;
+        match sink {
+            Sink::Rows(out, out_stride) => {
+                for l in 0..lines {
+                    let src = &buf[l * fs + self.first_bin..l * fs + self.first_bin + depth];
+                    let dst = &mut out[l * out_stride..l * out_stride + depth];
+                    for (d, x) in dst.iter_mut().zip(src.iter()) {
+                        *d = db(x);
+                    }
+                }
+            }
+            Sink::Image(image, a0) => {
+                assert!(lines == LANES && a0 + LANES <= image.alines && image.depth == depth);
+                assert!(buf.len() >= (LANES - 1) * fs + self.first_bin + depth);
+                let mut first = 0;
+                #[cfg(target_arch = "x86_64")]
+                {
+                    if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+                        first = depth / 8 * 8;
+                        let to_db = avx2::ToDb { log2: &self.log2, power_floor: self.power_floor, db_offset: self.db_offset };
+                        // SAFETY: AVX2 and FMA are present; the reads are in
+                        // `buf` (asserted above) and the writes are this
+                        // block's columns of the image.
+                        unsafe { avx2::db_into_image(&buf[self.first_bin..], fs, first, &to_db, image.ptr, image.alines, a0) };
+                    }
+                }
+                for d in first..depth {
+                    for l in 0..LANES {
+                        // SAFETY: d < depth, a0 + l < alines; this block's columns.
+                        unsafe { *image.ptr.add(d * image.alines + a0 + l) = db(&buf[l * fs + self.first_bin + d]) };
+                    }
+                }
             }
         }
         timer.add(3, t2);
     }
+}
+
+/// Where a block's dB values go.
+enum Sink<'a> {
+    /// Line l at out[l·stride ..][..depth].
+    Rows(&'a mut [f32], usize),
+    /// Straight into columns a0 .. a0 + LANES of the image (full blocks only).
+    Image(ImagePtr, usize),
 }
 
 /// The output image shared by the parallel blocks of a frame.
@@ -751,6 +793,57 @@ mod avx2 {
                 }
             }
         }
+    }
+
+    /// Power to dB: the fast log2 and its constants.
+    pub struct ToDb<'a> {
+        pub log2: &'a super::FastLog2,
+        pub power_floor: f32,
+        pub db_offset: f32,
+    }
+
+    /// image[d·alines + a0 + l] = dB(|src[l·stride + d]|²) for 16 lines and
+    /// d < whole (a multiple of 8): |x|², log and the transpose into image
+    /// columns in one pass over 8 depths × 16 lines at a time.
+    #[target_feature(enable = "avx2,fma")]
+    pub unsafe fn db_into_image(src: &[Complex32], stride: usize, whole: usize, to_db: &ToDb<'_>, image: *mut f32, alines: usize, a0: usize) {
+        assert!(whole % 8 == 0 && src.len() >= (LANES - 1) * stride + whole && a0 + LANES <= alines);
+        let c = to_db.log2.coefficients();
+        let floor = _mm256_set1_ps(to_db.power_floor);
+        let (scale, offset) = (_mm256_set1_ps(super::DB_PER_LOG2), _mm256_set1_ps(to_db.db_offset));
+        for d0 in (0..whole).step_by(8) {
+            for half in 0..2 {
+                let mut r = [_mm256_setzero_ps(); 8];
+                for (i, ri) in r.iter_mut().enumerate() {
+                    let p = src.as_ptr().add((half * 8 + i) * stride + d0).cast::<f32>();
+                    let (a, b) = (_mm256_loadu_ps(p), _mm256_loadu_ps(p.add(8)));
+                    // [p0 p1 p4 p5 | p2 p3 p6 p7] → [p0 … p7]
+                    let h = _mm256_hadd_ps(_mm256_mul_ps(a, a), _mm256_mul_ps(b, b));
+                    let power = _mm256_castpd_ps(_mm256_permute4x64_pd::<0xD8>(_mm256_castps_pd(h)));
+                    *ri = _mm256_add_ps(_mm256_mul_ps(scale, log2_ps(_mm256_max_ps(power, floor), &c)), offset);
+                }
+                let t = transpose8(r);
+                for (q, tq) in t.iter().enumerate() {
+                    _mm256_storeu_ps(image.add((d0 + q) * alines + a0 + half * 8), *tq);
+                }
+            }
+        }
+    }
+
+    /// [`super::FastLog2::log2`] on 8 values (the same operations).
+    #[inline(always)]
+    unsafe fn log2_ps(x: __m256, c: &[f32; super::LOG2_DEGREE + 1]) -> __m256 {
+        let bits = _mm256_castps_si256(x);
+        let e = _mm256_srai_epi32::<23>(_mm256_sub_epi32(bits, _mm256_set1_epi32(0x3f40_0000)));
+        let m = _mm256_castsi256_ps(_mm256_sub_epi32(bits, _mm256_slli_epi32::<23>(e)));
+        let u = _mm256_mul_ps(_mm256_sub_ps(m, _mm256_set1_ps(1.125)), _mm256_set1_ps(1.0 / 0.375));
+        let mut p = _mm256_set1_ps(c[super::LOG2_DEGREE]);
+        // Multiply then add, not FMA: bit for bit what the scalar code does,
+        // so the image and row outputs are identical (tested).
+        for k in (0..super::LOG2_DEGREE).rev() {
+            p = _mm256_add_ps(_mm256_mul_ps(p, u), _mm256_set1_ps(c[k]));
+        }
+        _mm256_add_ps(_mm256_cvtepi32_ps(e), p)
     }
 
     /// The interpolation tables of whole tiles.
