@@ -426,6 +426,32 @@ impl FusedPlan {
         self.block_inline(spectra, reference, sink, ws, timer);
     }
 
+    /// For a full block of u16 spectra on an AVX2 machine: converts and
+    /// transposes straight from the frame into lane order (no f32 copy of
+    /// the block). Returns false when it does not apply.
+    #[inline(always)]
+    fn transpose_u16_in<T: Sample>(&self, spectra: &[T], lines: usize, reference: &[f32], y: &mut [Lane]) -> bool {
+        #[cfg(target_arch = "x86_64")]
+        {
+            if lines == LANES && std::any::TypeId::of::<T>() == std::any::TypeId::of::<u16>() && std::is_x86_feature_detected!("avx2") {
+                // SAFETY: T is u16 (same size and alignment), checked above.
+                let samples = unsafe { std::slice::from_raw_parts(spectra.as_ptr().cast::<u16>(), spectra.len()) };
+                let pixels = self.pixels;
+                let whole = pixels / 8 * 8;
+                // SAFETY: AVX2 is present; bounds are asserted inside.
+                unsafe { avx2::transpose_u16_in(samples, pixels, whole, reference, y) };
+                for p in whole..pixels {
+                    for l in 0..LANES {
+                        y[p][l] = samples[l * pixels + p] as f32 - reference[p];
+                    }
+                }
+                return true;
+            }
+        }
+        let _ = (spectra, lines, reference, y);
+        false
+    }
+
     /// Interpolation and scatter of the whole 8-sample tiles with AVX2+FMA;
     /// returns the first k sample left for the portable loop.
     #[inline(always)]
@@ -465,15 +491,17 @@ impl FusedPlan {
         let t0 = Instant::now();
         // Spectra as f32 (contiguous, vectorised), then transposed to
         // pixel-major with one lane per A-line, minus the reference.
-        let rs = pixels + ROW_PAD;
-        for (dst, row) in ws.rows.chunks_exact_mut(rs).zip(spectra.chunks_exact(pixels)) {
-            for (d, v) in dst.iter_mut().zip(row) {
-                *d = v.to_f32();
-            }
-        }
-        ws.rows[lines * rs..].fill(0.0);
         let y = &mut ws.y;
-        transpose_in(&ws.rows, pixels, rs, reference, y);
+        if !self.transpose_u16_in(spectra, lines, reference, y) {
+            let rs = pixels + ROW_PAD;
+            for (dst, row) in ws.rows.chunks_exact_mut(rs).zip(spectra.chunks_exact(pixels)) {
+                for (d, v) in dst.iter_mut().zip(row) {
+                    *d = v.to_f32();
+                }
+            }
+            ws.rows[lines * rs..].fill(0.0);
+            transpose_in(&ws.rows, pixels, rs, reference, y);
+        }
         let m = &mut ws.m;
         if self.cubic {
             // Natural spline second derivatives: forward sweep then back
@@ -772,6 +800,29 @@ mod avx2 {
         for p0 in (0..whole).step_by(8) {
             let halves = load_16x8_transposed(rows.as_ptr(), stride, p0);
             for (half, c) in halves.iter().enumerate() {
+                for (q, cq) in c.iter().enumerate() {
+                    let v = _mm256_sub_ps(*cq, _mm256_set1_ps(*reference.get_unchecked(p0 + q)));
+                    _mm256_storeu_ps(y.as_mut_ptr().add(p0 + q).cast::<f32>().add(half * 8), v);
+                }
+            }
+        }
+    }
+
+    /// As [`transpose_in`], from 16 rows of u16 samples (stride `pixels`).
+    #[target_feature(enable = "avx2")]
+    pub unsafe fn transpose_u16_in(samples: &[u16], pixels: usize, whole: usize, reference: &[f32], y: &mut [Lane]) {
+        assert!(samples.len() >= LANES * pixels && y.len() >= whole && reference.len() >= whole && whole <= pixels && whole % 8 == 0);
+        // Lines 0–7 over all pixels, then lines 8–15: the frame's rows are
+        // 4 KB apart (one L1 set), and 8 of them stay cached across the four
+        // 8-pixel steps that share each cache line; 16 would not.
+        for half in 0..2 {
+            for p0 in (0..whole).step_by(8) {
+                let mut r = [_mm256_setzero_ps(); 8];
+                for (i, ri) in r.iter_mut().enumerate() {
+                    let v = _mm_loadu_si128(samples.as_ptr().add((half * 8 + i) * pixels + p0).cast());
+                    *ri = _mm256_cvtepi32_ps(_mm256_cvtepu16_epi32(v));
+                }
+                let c = transpose8(r);
                 for (q, cq) in c.iter().enumerate() {
                     let v = _mm256_sub_ps(*cq, _mm256_set1_ps(*reference.get_unchecked(p0 + q)));
                     _mm256_storeu_ps(y.as_mut_ptr().add(p0 + q).cast::<f32>().add(half * 8), v);
