@@ -349,7 +349,9 @@ impl Capture {
                     0
                 } else {
                     let t = t.max(<$t>::MIN as f64) as $t;
-                    $v.iter().map(|&x| (x >= t) as u64).sum::<u64>()
+                    // u32 counts per 64 Ki samples: the loop vectorises 4×
+                    // wider than with u64.
+                    $v.chunks(1 << 16).map(|c| c.iter().fold(0u32, |n, &x| n + (x >= t) as u32) as u64).sum::<u64>()
                 }
             }};
             (@saturated float, $t:ty, $v:expr, $fs:expr) => {{
