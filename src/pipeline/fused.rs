@@ -1146,6 +1146,20 @@ fn count_at_most(data: &[u16], rows: usize, pixels: usize, p0: usize, t: &[Vec<u
     }
 }
 
+/// The bracket [lo, hi] of the lower middle (the smallest v with
+/// #(x ≤ v) ≥ target), narrowed by (threshold, #(x ≤ threshold)) pairs.
+#[inline(always)]
+fn narrow(mut lo: u16, mut hi: u16, counted: impl Iterator<Item = (u16, u16)>, target: u16) -> (u16, u16) {
+    for (t, c) in counted {
+        if c >= target {
+            hi = hi.min(t);
+        } else {
+            lo = lo.max(t + 1);
+        }
+    }
+    (lo, hi)
+}
+
 #[inline(always)]
 fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, dst: &mut [f32], hint: &mut [u16], has_hint: bool) {
     let w = dst.len();
@@ -1177,16 +1191,7 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
             let a = hint[q].saturating_sub(HINT_HALF_WIDTH);
             let below_ok = a == 0 || counts[0][q] < target;
             if below_ok && counts[SPLITS - 1][q] >= target {
-                let (mut l, mut h) = (a, t[SPLITS - 1][q]);
-                for i in 1..SPLITS {
-                    if counts[i][q] >= target {
-                        h = h.min(t[i][q]);
-                    } else {
-                        l = l.max(t[i][q] + 1);
-                    }
-                }
-                lo[q] = l;
-                hi[q] = h;
+                (lo[q], hi[q]) = narrow(a, t[SPLITS - 1][q], (1..SPLITS).map(|i| (t[i][q], counts[i][q])), target);
                 settled[q] = true;
             }
         }
@@ -1221,16 +1226,7 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
             if lo[q] >= hi[q] {
                 continue;
             }
-            let (mut l, mut h) = (lo[q], hi[q]);
-            for i in 0..SPLITS {
-                if counts[i][q] >= target {
-                    h = h.min(t[i][q]);
-                } else {
-                    l = l.max(t[i][q] + 1);
-                }
-            }
-            lo[q] = l;
-            hi[q] = h;
+            (lo[q], hi[q]) = narrow(lo[q], hi[q], (0..SPLITS).map(|i| (t[i][q], counts[i][q])), target);
         }
     }
     // Final pass: a threshold at each of lo, lo+1, …, lo+SPLITS−1 gives the
