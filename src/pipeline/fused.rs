@@ -811,7 +811,7 @@ mod avx2 {
     /// As [`transpose_in`], from 16 rows of u16 samples (stride `pixels`).
     #[target_feature(enable = "avx2")]
     pub unsafe fn transpose_u16_in(samples: &[u16], pixels: usize, whole: usize, reference: &[f32], y: &mut [Lane]) {
-        assert!(samples.len() >= LANES * pixels && y.len() >= whole && reference.len() >= whole && whole <= pixels && whole % 8 == 0);
+        assert!(samples.len() >= LANES * pixels && y.len() >= whole && reference.len() >= whole && whole <= pixels && whole.is_multiple_of(8));
         // Lines 0–7 over all pixels, then lines 8–15: the frame's rows are
         // 4 KB apart (one L1 set), and 8 of them stay cached across the four
         // 8-pixel steps that share each cache line; 16 would not.
@@ -858,7 +858,7 @@ mod avx2 {
     /// columns in one pass over 8 depths × 16 lines at a time.
     #[target_feature(enable = "avx2,fma")]
     pub unsafe fn db_into_image(src: &[Complex32], stride: usize, whole: usize, to_db: &ToDb<'_>, image: *mut f32, alines: usize, a0: usize) {
-        assert!(whole % 8 == 0 && src.len() >= (LANES - 1) * stride + whole && a0 + LANES <= alines);
+        assert!(whole.is_multiple_of(8) && src.len() >= (LANES - 1) * stride + whole && a0 + LANES <= alines);
         let c = to_db.log2.coefficients();
         let floor = _mm256_set1_ps(to_db.power_floor);
         let (scale, offset) = (_mm256_set1_ps(super::DB_PER_LOG2), _mm256_set1_ps(to_db.db_offset));
@@ -912,7 +912,7 @@ mod avx2 {
     #[target_feature(enable = "avx2,fma")]
     pub unsafe fn eval_scatter(t: &SplineTables<'_>, y: &[Lane], m: &[Lane], lines: usize, stride: usize, buf: &mut [Complex32]) {
         let k = t.interval.len();
-        assert!(k % 8 == 0 && t.left_weight.len() == k && t.left_curvature.len() == k && t.right_curvature.len() == k && t.factor.len() == k);
+        assert!(k.is_multiple_of(8) && t.left_weight.len() == k && t.left_curvature.len() == k && t.right_curvature.len() == k && t.factor.len() == k);
         assert!(t.interval.iter().all(|&i| (i as usize) + 1 < y.len() && (i as usize) + 1 < m.len()));
         assert!(lines <= LANES && buf.len() >= LANES * stride && k <= stride);
         let mut tile = [[0.0f32; LANES]; 8];
@@ -1063,7 +1063,7 @@ fn median_u16_chunk_near(data: &[u16], rows: usize, pixels: usize, p0: usize, ds
         avx512::count_near(data, rows, pixels, p0, &base, &mut counts)
     };
     let target = ((rows - 1) / 2 + 1) as u16;
-    let even = rows % 2 == 0;
+    let even = rows.is_multiple_of(2);
     let mut unsettled = vec![false; w.div_ceil(MEDIAN_ALIGN)];
     for q in 0..w {
         let c = |i: usize| counts[i * w + q];
@@ -1238,7 +1238,7 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
         }
     }
     count_at_most(data, rows, pixels, p0, &t, &mut counts);
-    let even = rows % 2 == 0;
+    let even = rows.is_multiple_of(2);
     let mut upper: Vec<Option<u16>> = vec![None; w];
     for q in 0..w {
         let first = |need: u16| (0..SPLITS).find(|&i| counts[i][q] >= need).map(|i| t[i][q]);

@@ -268,7 +268,7 @@ impl Scene {
             line: crate::io::toml_file::line_of_key(text, section, key),
             message: format!("{}{key}: {message}", if section.is_empty() { String::new() } else { format!("{section}.") }),
         };
-        if scene.frames % scene.repeats != 0 {
+        if !scene.frames.is_multiple_of(scene.repeats) {
             return Err(fail("", "repeats", format!("frames ({}) must be a multiple of repeats ({})", scene.frames, scene.repeats)));
         }
         let s = &scene.spectrometer;
