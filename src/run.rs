@@ -287,6 +287,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
                 first_depth_um: depth_um[0],
                 pipeline_sha256: &pipeline_sha256,
                 frames_averaged: average,
+                volume_type: config.output.volume_type,
             },
         )?)
     } else {

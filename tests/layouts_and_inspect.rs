@@ -90,3 +90,32 @@ fn clipped_fringes_are_counted_and_warned() {
     let warnings = log["warnings"].as_array().unwrap();
     assert!(warnings.iter().any(|w| w.as_str().unwrap().contains("fringes clipped")), "{warnings:?}");
 }
+
+#[test]
+fn uint16_volume_holds_the_float32_db_to_within_half_a_step() {
+    // `[output] volume_type = "uint16"`: half the bytes, dB in 0.01 dB steps
+    // unpacked with the CF packing attributes (scale_factor, add_offset).
+    let dir = tempfile::tempdir().unwrap();
+    let capture = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-data/layered-phantom.h5");
+    let pipeline = std::fs::read_to_string(std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines/default.toml")).unwrap();
+    let packed = pipeline.replace("volume = true", "volume = true\nvolume_type = \"uint16\"");
+    assert_ne!(packed, pipeline);
+    let (a, b) = (dir.path().join("f32"), dir.path().join("u16"));
+    run_ok(dir.path(), &[&capture], &pipeline, &a);
+    run_ok(dir.path(), &[&capture], &packed, &b);
+    let (va, vb) = (a.join("layered-phantom/volume.h5"), b.join("layered-phantom/volume.h5"));
+    let f = hdf5::File::open(&vb).unwrap();
+    let ds = f.dataset("volume_db").unwrap();
+    assert!(ds.dtype().unwrap().is::<u16>());
+    assert_eq!(ds.attr("scale_factor").unwrap().read_scalar::<f64>().unwrap(), 0.01);
+    assert_eq!(ds.attr("add_offset").unwrap().read_scalar::<f64>().unwrap(), -240.0);
+    let (x, y) = (read_volume(&va), read_volume(&vb));
+    assert_eq!(x.db.dim(), y.db.dim());
+    let worst = x.db.iter().zip(y.db.iter()).map(|(p, q)| (p - q).abs()).fold(0.0f32, f32::max);
+    assert!(worst <= 0.005 + 1e-4, "worst |ΔdB| {worst}");
+    assert!(worst > 0.0, "the packed volume should round");
+    let (sa, sb) = (std::fs::metadata(&va).unwrap().len(), std::fs::metadata(&vb).unwrap().len());
+    assert!((sb as f64) < 0.55 * sa as f64, "uint16 volume {sb} bytes against float32 {sa}");
+    // The PNGs do not depend on how the volume is stored.
+    assert_eq!(std::fs::read(a.join("layered-phantom/frame-0000.png")).unwrap(), std::fs::read(b.join("layered-phantom/frame-0000.png")).unwrap());
+}

@@ -1,6 +1,7 @@
-//! volume.h5: the float32 dB volume of a reconstructed capture with its axes.
+//! volume.h5: the dB volume of a reconstructed capture with its axes.
 //!
-//! Layout: `/volume_db` (frames, depth, A-lines), float32, one chunk per frame,
+//! Layout: `/volume_db` (frames, depth, A-lines), float32 (or uint16 packed
+//! dB with CF `scale_factor`/`add_offset` attributes), one chunk per frame,
 //! so `volume_db[f]` is frame f's B-scan as shown in its PNG; 1-D axis
 //! datasets `/depth_um`, `/aline_index`, `/frame_index`; the depth pixel
 //! spacing (µm, in air) and the axis order as attributes of `/volume_db`;
@@ -13,10 +14,18 @@ use ndarray::Array2;
 use std::path::Path;
 
 use super::h5::{concise, create_file, write_1d, write_attr, write_attr_str};
+use crate::pipeline::config::VolumeType;
+
+/// uint16 volumes: dB = stored · PACKED_DB_STEP + PACKED_DB_OFFSET. The
+/// offset is the dB of the amplitude floor (nothing is lower), the step
+/// keeps the rounding error within ±0.005 dB.
+pub const PACKED_DB_STEP: f64 = 0.01;
+pub const PACKED_DB_OFFSET: f64 = -240.0;
 
 pub struct VolumeWriter {
     file: hdf5::File,
     volume: Dataset,
+    volume_type: VolumeType,
 }
 
 /// Facts stored as attributes of the volume.
@@ -26,20 +35,30 @@ pub struct VolumeAttributes<'a> {
     pub pipeline_sha256: &'a str,
     /// Input frames averaged into each stored frame.
     pub frames_averaged: usize,
+    pub volume_type: VolumeType,
 }
 
 impl VolumeWriter {
     pub fn create(path: &Path, frames: usize, depth_um: &[f64], alines: usize, attrs: &VolumeAttributes<'_>) -> Result<Self> {
         let file = create_file(path)?;
         let depth = depth_um.len();
-        let volume = file
-            .new_dataset::<f32>()
+        let builder = file.new_dataset_builder();
+        let builder = match attrs.volume_type {
+            VolumeType::Float32 => builder.empty::<f32>(),
+            VolumeType::Uint16 => builder.empty::<u16>(),
+        };
+        let volume = builder
             .shape((frames, depth, alines))
             .chunk((1, depth, alines))
             .create("volume_db")
             .map_err(concise)
             .context("creating /volume_db")?;
         write_attr_str(&volume, "units", "dB (20 log10 of amplitude in detector counts)")?;
+        if attrs.volume_type == VolumeType::Uint16 {
+            // CF conventions' packed data: unpacked = packed·scale_factor + add_offset.
+            write_attr(&volume, "scale_factor", PACKED_DB_STEP)?;
+            write_attr(&volume, "add_offset", PACKED_DB_OFFSET)?;
+        }
         write_attr_str(&volume, "axes", "frame,depth,aline")?;
         write_attr(&volume, "depth_spacing_um", attrs.depth_spacing_um)?;
         write_attr(&volume, "first_depth_um", attrs.first_depth_um)?;
@@ -52,15 +71,16 @@ impl VolumeWriter {
         write_1d(&file, "depth_um", depth_um)?;
         write_1d(&file, "aline_index", &(0..alines as u32).collect::<Vec<_>>())?;
         write_1d(&file, "frame_index", &(0..frames as u32).collect::<Vec<_>>())?;
-        Ok(VolumeWriter { file, volume })
+        Ok(VolumeWriter { file, volume, volume_type: attrs.volume_type })
     }
 
     /// Writes frame `index` from a (depth × A-lines) image in standard layout.
     pub fn write_frame(&self, index: usize, image: &Array2<f32>) -> Result<()> {
-        self.volume
-            .write_slice(image, ndarray::s![index, .., ..])
-            .map_err(concise)
-            .with_context(|| format!("writing frame {index} to volume"))
+        let written = match self.volume_type {
+            VolumeType::Float32 => self.volume.write_slice(image, ndarray::s![index, .., ..]),
+            VolumeType::Uint16 => self.volume.write_slice(&pack_db(image), ndarray::s![index, .., ..]),
+        };
+        written.map_err(concise).with_context(|| format!("writing frame {index} to volume"))
     }
 
     /// Writes the en face projection (positions × A-lines, dB) and its depth range.
@@ -79,4 +99,11 @@ impl VolumeWriter {
         self.file.flush().map_err(concise).context("writing volume.h5")?;
         self.file.close().map_err(concise).context("closing volume.h5")
     }
+}
+
+/// dB to uint16 in PACKED_DB_STEP steps from PACKED_DB_OFFSET, rounded to
+/// nearest and clamped to the type's range.
+pub fn pack_db(image: &Array2<f32>) -> Array2<u16> {
+    let (inv_step, offset) = ((1.0 / PACKED_DB_STEP) as f32, PACKED_DB_OFFSET as f32);
+    image.mapv(|d| ((d - offset) * inv_step + 0.5).clamp(0.0, u16::MAX as f32) as u16)
 }

@@ -262,13 +262,35 @@ impl Default for LogCompressionConfig {
 pub struct OutputConfig {
     /// One PNG per frame.
     pub png: bool,
-    /// volume.h5 with the float32 dB volume.
+    /// volume.h5 with the dB volume.
     pub volume: bool,
+    /// How volume.h5 stores dB: float32, or uint16 in 0.01 dB steps (half
+    /// the bytes). Left out of the pipeline's serialised form (and so of its
+    /// SHA-256) when it is the default.
+    #[serde(skip_serializing_if = "VolumeType::is_float32")]
+    pub volume_type: VolumeType,
 }
 
 impl Default for OutputConfig {
     fn default() -> Self {
-        OutputConfig { png: true, volume: true }
+        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32 }
+    }
+}
+
+/// The stored type of volume.h5's dB values.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum VolumeType {
+    #[default]
+    Float32,
+    /// dB = stored · scale_factor + add_offset (CF packing attributes):
+    /// 0.01 dB steps from −240 dB (the amplitude floor) to +415 dB.
+    Uint16,
+}
+
+impl VolumeType {
+    pub fn is_float32(&self) -> bool {
+        *self == VolumeType::Float32
     }
 }
 

@@ -98,8 +98,17 @@ impl Volume {
 pub fn read_volume(path: &Path) -> Volume {
     let f = hdf5::File::open(path).expect("volume opens");
     let ds = f.dataset("volume_db").unwrap();
+    // uint16 volumes are packed dB: dB = stored·scale_factor + add_offset
+    // (CF conventions §8.1, packed data).
+    let db = if ds.dtype().unwrap().is::<u16>() {
+        let scale = ds.attr("scale_factor").unwrap().read_scalar::<f64>().unwrap();
+        let offset = ds.attr("add_offset").unwrap().read_scalar::<f64>().unwrap();
+        ds.read::<u16, ndarray::Ix3>().unwrap().mapv(|v| (v as f64 * scale + offset) as f32)
+    } else {
+        ds.read::<f32, ndarray::Ix3>().unwrap()
+    };
     Volume {
-        db: ds.read::<f32, ndarray::Ix3>().unwrap(),
+        db,
         depth_um: f.dataset("depth_um").unwrap().read_raw::<f64>().unwrap(),
         spacing_um: ds.attr("depth_spacing_um").unwrap().read_scalar::<f64>().unwrap(),
     }
