@@ -249,7 +249,6 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
             std::fs::remove_dir_all(&out).ok();
             let outcome = crate::run::process_capture(&path, &config, &out, crate::run::RunContext::default())?;
             runs.push((outcome.frames * outcome.alines) as f64 / outcome.seconds);
-            if std::env::var_os("FF_DEBUG").is_some() { eprintln!("e2e run: {:.0}/s; log: {}", runs.last().unwrap(), std::fs::read_to_string(out.join("throughput-v2/log.json")).unwrap_or_default().lines().filter(|l| l.contains("seconds")).collect::<Vec<_>>().join(" ")); }
         }
         std::fs::remove_dir_all(&out).ok();
         Some(median(runs))
