@@ -78,6 +78,9 @@ pub struct BenchReport {
     pub scaling: Vec<ScalingPoint>,
     pub end_to_end_alines_per_second: Option<f64>,
     pub end_to_end_over_pipeline: Option<f64>,
+    /// The same with `[output] volume_type = "uint16"` (half the volume bytes).
+    pub end_to_end_uint16_alines_per_second: Option<f64>,
+    pub end_to_end_uint16_over_pipeline: Option<f64>,
 }
 
 fn median(mut v: Vec<f64>) -> f64 {
@@ -240,20 +243,26 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         }
     }
 
-    let end_to_end = if opts.end_to_end {
+    // `run` end to end, median of up to 3 runs, each into a fresh output
+    // directory: replacing the last run's files (freeing their page cache)
+    // is not part of `run`.
+    let time_run = |config: &PipelineConfig| -> Result<f64> {
         let out = opts.work_dir.join("end-to-end");
         let mut runs = Vec::new();
         for _ in 0..opts.repeats.min(3) {
-            // Each run writes a fresh output directory: replacing the last
-            // run's files (freeing their page cache) is not part of `run`.
             std::fs::remove_dir_all(&out).ok();
-            let outcome = crate::run::process_capture(&path, &config, &out, crate::run::RunContext::default())?;
+            let outcome = crate::run::process_capture(&path, config, &out, crate::run::RunContext::default())?;
             runs.push((outcome.frames * outcome.alines) as f64 / outcome.seconds);
         }
         std::fs::remove_dir_all(&out).ok();
-        Some(median(runs))
+        Ok(median(runs))
+    };
+    let (end_to_end, end_to_end_uint16) = if opts.end_to_end {
+        let mut packed = config.clone();
+        packed.output.volume_type = crate::pipeline::config::VolumeType::Uint16;
+        (Some(time_run(&config)?), Some(time_run(&packed)?))
     } else {
-        None
+        (None, None)
     };
 
     Ok(BenchReport {
@@ -273,6 +282,8 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         scaling,
         end_to_end_alines_per_second: end_to_end,
         end_to_end_over_pipeline: end_to_end.map(|e| e / pipe_rate),
+        end_to_end_uint16_alines_per_second: end_to_end_uint16,
+        end_to_end_uint16_over_pipeline: end_to_end_uint16.map(|e| e / pipe_rate),
     })
 }
 
@@ -304,6 +315,10 @@ impl BenchReport {
         if let (Some(e), Some(r)) = (self.end_to_end_alines_per_second, self.end_to_end_over_pipeline) {
             s += &format!("{:<44} {:>14.0}\n", "`run` end to end (read, pipeline, PNG, volume)", e);
             s += &format!("{:<44} {:>14.3}\n", "ratio end to end / in-memory pipeline", r);
+        }
+        if let (Some(e), Some(r)) = (self.end_to_end_uint16_alines_per_second, self.end_to_end_uint16_over_pipeline) {
+            s += &format!("{:<44} {:>14.0}\n", "same, uint16 volume (half the bytes)", e);
+            s += &format!("{:<44} {:>14.3}\n", "ratio (uint16 volume) / in-memory pipeline", r);
         }
         s += "\nfused pipeline, thread-seconds per part (first run):\n";
         for (k, v) in &self.pipeline_parts_seconds {
