@@ -1,6 +1,6 @@
 //! The fused f32 fast path against the plain f64 stage chain (the reference
 //! implementation): for every kind of setting, the two amplitudes differ by
-//! at most 1e-4 of the frame's peak.
+//! at most 1e-4 of the frame's peak. Also: the `bench` report runs and is consistent.
 
 mod common;
 use common::*;
@@ -121,4 +121,39 @@ fn run_with_either_engine_gives_the_same_volume() {
     let worst = volumes[0].db.iter().zip(volumes[1].db.iter()).map(|(&a, &b)| (amp(a) - amp(b)).abs()).fold(0.0, f64::max) / peak;
     eprintln!("run, fused vs reference engine: max |ΔA|/peak = {worst:.2e}");
     assert!(worst <= 1e-4, "{worst:e}");
+}
+
+#[test]
+fn bench_report_runs_on_a_small_capture() {
+    // `fringeflow bench` end to end on a small capture: the report's fields
+    // are present and consistent (no speed is asserted: speed targets live
+    // in the benchmark, not in tests).
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "small", &small_scene(300.0, 2, 64, 2048));
+    let json = dir.path().join("report.json");
+    let out = std::process::Command::new(bin())
+        .env("HDF5_USE_FILE_LOCKING", "FALSE")
+        .args(["bench", "--alines", "512", "--repeats", "1", "--no-scaling", "--capture"])
+        .arg(&capture)
+        .arg("--work-dir")
+        .arg(dir.path().join("work"))
+        .arg("--json")
+        .arg(&json)
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(String::from_utf8_lossy(&out.stdout).contains("ratio pipeline / bare FFT"));
+    let r: serde_json::Value = serde_json::from_slice(&std::fs::read(&json).unwrap()).unwrap();
+    let get = |k: &str| r[k].as_f64().unwrap_or_else(|| panic!("{k} missing"));
+    assert_eq!(r["alines_per_run"], 512);
+    for k in ["bare_fft_alines_per_second", "pipeline_alines_per_second", "reference_alines_per_second", "end_to_end_alines_per_second", "end_to_end_uint16_alines_per_second"] {
+        assert!(get(k) > 0.0 && get(k).is_finite(), "{k} = {}", get(k));
+    }
+    let ratio = get("pipeline_alines_per_second") / get("bare_fft_alines_per_second");
+    assert!((get("pipeline_over_fft") - ratio).abs() <= 1e-9 * ratio);
+    let parts = r["pipeline_parts_seconds"].as_object().unwrap();
+    assert_eq!(parts.len(), 4);
+    assert!(parts.values().all(|v| v.as_f64().unwrap() >= 0.0));
+    // The end-to-end runs leave nothing behind in the work directory.
+    assert!(!dir.path().join("work/end-to-end").exists());
 }
