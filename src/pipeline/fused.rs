@@ -35,7 +35,7 @@ use crate::stages::log_compression::AMPLITUDE_FLOOR;
 /// A-lines processed together, one per SIMD lane.
 pub const LANES: usize = 16;
 
-/// Padding (f32 values) after each line of a block's spectra and dB rows,
+/// Padding (f32 values) after each line of a block's spectra,
 /// and (complex values) after each FFT row: line strides that are a power
 /// of two put all 16 lines of a block into the same L1 cache set, so the
 /// transposes between line order and lane order miss on every access.
@@ -184,8 +184,6 @@ impl FusedTimer {
 struct Workspace {
     /// Sizes it was made for: pixels, FFT length, FFT scratch, depth.
     shape: [usize; 4],
-    /// One block's dB rows (lines × depth) before they go into the image.
-    db_rows: Vec<f32>,
     /// One block's spectra as f32, line by line.
     rows: Vec<f32>,
     y: Vec<Lane>,
@@ -303,7 +301,6 @@ impl FusedPlan {
     fn workspace(&self) -> Workspace {
         Workspace {
             shape: [self.pixels, self.fft_length, self.fft_scratch, self.depth],
-            db_rows: vec![0.0; LANES * (self.depth + ROW_PAD)],
             rows: vec![0.0; LANES * (self.pixels + ROW_PAD)],
             y: vec![[0.0; LANES]; self.pixels],
             m: vec![[0.0; LANES]; self.pixels],
@@ -383,7 +380,7 @@ impl FusedPlan {
     }
 
     /// As [`Self::process_frame`], but writes the image (depth × A-lines):
-    /// each block's 16 dB rows are transposed into 16 adjacent columns.
+    /// each block's dB values go straight into its 16 adjacent columns.
     pub fn process_frame_image<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, timer: &FusedTimer) {
         let (alines, pixels) = frame.dim();
         assert_eq!(pixels, self.pixels);
@@ -396,20 +393,10 @@ impl FusedPlan {
         let target = ImagePtr { ptr: image.as_slice_mut().expect("standard layout").as_mut_ptr(), alines, depth: self.depth };
         input.par_chunks(LANES * pixels).enumerate().for_each(|(b, spectra)| {
             self.with_workspace(|ws| {
-                let lines = spectra.len() / pixels;
                 // Block b writes only columns b·LANES .. b·LANES + lines of
                 // each image row; blocks are disjoint and the image outlives
                 // the parallel loop.
-                if lines == LANES {
-                    self.block(spectra, &reference, Sink::Image(target, b * LANES), ws, timer);
-                } else {
-                    let mut rows = std::mem::take(&mut ws.db_rows);
-                    let stride = self.depth + ROW_PAD;
-                    self.block(spectra, &reference, Sink::Rows(&mut rows[..lines * stride], stride), ws, timer);
-                    // SAFETY: as above.
-                    unsafe { target.write_columns(&rows, stride, lines, b * LANES) };
-                    ws.db_rows = rows;
-                }
+                self.block(spectra, &reference, Sink::Image(target, b * LANES), ws, timer);
             })
         });
     }
@@ -579,12 +566,14 @@ impl FusedPlan {
                 }
             }
             Sink::Image(image, a0) => {
-                assert!(lines == LANES && a0 + LANES <= image.alines && image.depth == depth);
+                assert!(a0 + lines <= image.alines && image.depth == depth);
                 assert!(buf.len() >= (LANES - 1) * fs + self.first_bin + depth);
+                // Full blocks: 8 depths × 16 lines at a time with AVX2; the
+                // rest (and a frame's last, partial block) one value at a time.
                 let mut first = 0;
                 #[cfg(target_arch = "x86_64")]
                 {
-                    if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+                    if lines == LANES && std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
                         first = depth / 8 * 8;
                         let to_db = avx2::ToDb { log2: &self.log2, power_floor: self.power_floor, db_offset: self.db_offset };
                         // SAFETY: AVX2 and FMA are present; the reads are in
@@ -594,7 +583,7 @@ impl FusedPlan {
                     }
                 }
                 for d in first..depth {
-                    for l in 0..LANES {
+                    for l in 0..lines {
                         // SAFETY: d < depth, a0 + l < alines; this block's columns.
                         unsafe { *image.ptr.add(d * image.alines + a0 + l) = db(&buf[l * fs + self.first_bin + d]) };
                     }
@@ -624,34 +613,6 @@ struct ImagePtr {
 // SAFETY: blocks write disjoint columns (see `process_frame_image`).
 unsafe impl Send for ImagePtr {}
 unsafe impl Sync for ImagePtr {}
-
-impl ImagePtr {
-    /// image[d][a0 + l] = rows[l·depth + d] for l < lines, d < depth.
-    ///
-    /// # Safety
-    /// Columns a0 .. a0 + lines must be in the image and written by no one else.
-    unsafe fn write_columns(&self, rows: &[f32], stride: usize, lines: usize, a0: usize) {
-        assert!(a0 + lines <= self.alines && stride >= self.depth && rows.len() >= (lines.max(1) - 1) * stride + self.depth);
-        #[cfg(target_arch = "x86_64")]
-        {
-            if lines == LANES && std::is_x86_feature_detected!("avx2") {
-                let whole = self.depth / 8 * 8;
-                avx2::transpose_out(rows, stride, whole, self.ptr, self.alines, a0);
-                for d in whole..self.depth {
-                    for l in 0..lines {
-                        *self.ptr.add(d * self.alines + a0 + l) = rows[l * stride + d];
-                    }
-                }
-                return;
-            }
-        }
-        for d in 0..self.depth {
-            for l in 0..lines {
-                *self.ptr.add(d * self.alines + a0 + l) = rows[l * stride + d];
-            }
-        }
-    }
-}
 
 /// y[p][l] = rows[l·pixels + p] − reference[p] for the LANES rows.
 #[inline(always)]
@@ -745,7 +706,8 @@ mod avx512 {
 
 #[cfg(target_arch = "x86_64")]
 mod avx2 {
-    //! 8 × 8 transposes with AVX2 for the two layout changes of a block.
+    //! AVX2 kernels: 8 × 8 transposes into lane order, interpolation with the
+    //! scatter into FFT rows, and dB with the transpose into image columns.
     use super::{Complex32, Lane, LANES};
     use std::arch::x86_64::*;
 
@@ -827,21 +789,6 @@ mod avx2 {
                 for (q, cq) in c.iter().enumerate() {
                     let v = _mm256_sub_ps(*cq, _mm256_set1_ps(*reference.get_unchecked(p0 + q)));
                     _mm256_storeu_ps(y.as_mut_ptr().add(p0 + q).cast::<f32>().add(half * 8), v);
-                }
-            }
-        }
-    }
-
-    /// image[d][a0 + l] = rows[l·depth + d] for 16 lanes and d < whole (a
-    /// multiple of 8), by 8 × 8 transposes.
-    #[target_feature(enable = "avx2")]
-    pub unsafe fn transpose_out(rows: &[f32], stride: usize, whole: usize, image: *mut f32, alines: usize, a0: usize) {
-        assert!(rows.len() >= (LANES - 1) * stride + whole && whole <= stride && a0 + LANES <= alines);
-        for d0 in (0..whole).step_by(8) {
-            let halves = load_16x8_transposed(rows.as_ptr(), stride, d0);
-            for (half, c) in halves.iter().enumerate() {
-                for (q, cq) in c.iter().enumerate() {
-                    _mm256_storeu_ps(image.add((d0 + q) * alines + a0 + half * 8), *cq);
                 }
             }
         }
