@@ -25,6 +25,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::Arc;
 use std::time::Instant;
 
+use super::lane_fft::{LaneComplex, LaneFft};
 use super::plan::Plan;
 use crate::io::capture::RawFrame;
 use crate::stages::background::{median_spectrum, BackgroundSource};
@@ -182,14 +183,16 @@ impl FusedTimer {
 
 /// Per-worker buffers, made once per worker.
 struct Workspace {
-    /// Sizes it was made for: pixels, FFT length, FFT scratch, depth.
-    shape: [usize; 4],
+    /// Sizes it was made for: pixels, FFT length, FFT scratch, depth, lane FFT.
+    shape: [usize; 5],
     /// One block's spectra as f32, line by line.
     rows: Vec<f32>,
     y: Vec<Lane>,
     m: Vec<Lane>,
     buf: Vec<Complex32>,
     scratch: Vec<Complex32>,
+    /// The block in lane order for the lane FFT (empty without it).
+    lanes: Vec<LaneComplex>,
 }
 
 /// The fused plan, built from a reference [`Plan`].
@@ -216,6 +219,12 @@ pub struct FusedPlan {
     factor: Vec<Complex32>,
     fft: Arc<dyn Fft<f32>>,
     fft_scratch: usize,
+    /// The FFT across lanes, used instead of rustfft on CPUs with AVX-512F
+    /// when the FFT length is a power of two: the block then stays in lane
+    /// order from the spectra to the image.
+    lane_fft: Option<LaneFft>,
+    /// Where the lane FFT leaves each depth bin, in depth order.
+    lane_bins: Vec<u32>,
     /// 20·log10 of the amplitude scale; floor on |X|².
     db_offset: f32,
     power_floor: f32,
@@ -251,6 +260,7 @@ impl FusedPlan {
         let tables = PixelOrderSpline::new(&plan.wavelength_nm, plan.resampling.k_min_per_um, plan.resampling.k_max_per_um, n);
         let fft = FftPlanner::<f32>::new().plan_fft_forward(s.fft_length);
         let scale = plan.amplitude_scale();
+        let lane_fft = if lane_fft_available() { LaneFft::new(s.fft_length) } else { None };
         FusedPlan {
             pixels: s.pixels,
             k_samples: n,
@@ -270,11 +280,29 @@ impl FusedPlan {
             factor,
             fft_scratch: fft.get_inplace_scratch_len(),
             fft,
+            lane_bins: match lane_fft.as_ref() {
+                Some(f) => (0..s.depth_pixels).map(|d| f.position(s.first_depth_bin + d) as u32).collect(),
+                None => Vec::new(),
+            },
+            lane_fft,
             db_offset: (20.0 * scale.log10()) as f32,
             power_floor: ((AMPLITUDE_FLOOR / scale) * (AMPLITUDE_FLOOR / scale)) as f32,
             log2: FastLog2::new(),
             median_hint: std::sync::Mutex::new(Vec::new()),
         }
+    }
+
+    /// The same plan without the lane FFT: rustfft per A-line with the
+    /// AVX2 (or portable) kernels around it, as on CPUs without AVX-512.
+    pub fn without_lane_fft(mut self) -> Self {
+        self.lane_fft = None;
+        self.lane_bins.clear();
+        self
+    }
+
+    /// Whether blocks go through the lane FFT.
+    pub fn uses_lane_fft(&self) -> bool {
+        self.lane_fft.is_some()
     }
 
     pub fn new_timer(&self) -> FusedTimer {
@@ -288,7 +316,7 @@ impl FusedPlan {
         thread_local! {
             static WORKSPACE: std::cell::RefCell<Option<Workspace>> = const { std::cell::RefCell::new(None) };
         }
-        let shape = [self.pixels, self.fft_length, self.fft_scratch, self.depth];
+        let shape = [self.pixels, self.fft_length, self.fft_scratch, self.depth, self.lane_fft.is_some() as usize];
         WORKSPACE.with(|cell| {
             let mut slot = cell.borrow_mut();
             if slot.as_ref().is_none_or(|w| w.shape != shape) {
@@ -300,12 +328,13 @@ impl FusedPlan {
 
     fn workspace(&self) -> Workspace {
         Workspace {
-            shape: [self.pixels, self.fft_length, self.fft_scratch, self.depth],
+            shape: [self.pixels, self.fft_length, self.fft_scratch, self.depth, self.lane_fft.is_some() as usize],
             rows: vec![0.0; LANES * (self.pixels + ROW_PAD)],
             y: vec![[0.0; LANES]; self.pixels],
             m: vec![[0.0; LANES]; self.pixels],
             buf: vec![Complex32::new(0.0, 0.0); LANES * (self.fft_length + FFT_ROW_PAD)],
             scratch: vec![Complex32::new(0.0, 0.0); self.fft_scratch],
+            lanes: vec![LaneComplex::default(); if self.lane_fft.is_some() { self.fft_length } else { 0 }],
         }
     }
 
@@ -405,6 +434,12 @@ impl FusedPlan {
     fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
         #[cfg(target_arch = "x86_64")]
         {
+            if let Some(lane_fft) = &self.lane_fft {
+                // SAFETY: lane_fft is only planned when the CPU has AVX-512F/BW,
+                // AVX2 and FMA (lane_fft_available).
+                unsafe { self.block_lanes(lane_fft, spectra, reference, sink, ws, timer) };
+                return;
+            }
             if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
                 // SAFETY: the CPU supports the features the function is compiled for.
                 unsafe { self.block_avx2(spectra, reference, sink, ws, timer) };
@@ -464,23 +499,70 @@ impl FusedPlan {
         0
     }
 
+    /// One block in lane order throughout: spectra → lanes (the one
+    /// transpose), spline, interpolation × factor, lane FFT, dB straight
+    /// from the FFT's output order into the sink.
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx512f,avx512bw,avx2,fma")]
+    unsafe fn block_lanes<T: Sample>(&self, lane_fft: &LaneFft, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
+        let lines = spectra.len() / self.pixels;
+        let t0 = Instant::now();
+        self.load_block(spectra, lines, reference, ws);
+        self.spline_curvatures(&ws.y, &mut ws.m);
+        let tables = avx2::SplineTables {
+            interval: &self.interval,
+            left_weight: &self.left_weight,
+            left_curvature: &self.left_curvature,
+            right_curvature: &self.right_curvature,
+            factor: &self.factor,
+            cubic: self.cubic,
+        };
+        // SAFETY: AVX-512F is present (this function's features); bounds are
+        // checked inside.
+        unsafe { lanes::eval(&tables, &ws.y, &ws.m, &mut ws.lanes) };
+        timer.add(1, t0);
+        let t1 = Instant::now();
+        // SAFETY: as above.
+        unsafe { lane_fft.forward(&mut ws.lanes) };
+        timer.add(2, t1);
+        let t2 = Instant::now();
+        let depth = self.depth;
+        let to_db = avx2::ToDb { log2: &self.log2, power_floor: self.power_floor, db_offset: self.db_offset };
+        let bins = &self.lane_bins;
+        assert_eq!(bins.len(), depth);
+        let (base, depth_step, line_step) = match sink {
+            Sink::Rows(out, stride) => {
+                assert!(lines >= 1 && out.len() >= (lines - 1) * stride + depth);
+                (out.as_mut_ptr(), 1, stride)
+            }
+            Sink::Image(image, a0) => {
+                assert!(a0 + lines <= image.alines && image.depth == depth);
+                // SAFETY: a0 < alines, inside the image.
+                (unsafe { image.ptr.add(a0) }, image.alines, 1)
+            }
+        };
+        // SAFETY: AVX-512F is present; every (d < depth, l < lines) store
+        // lands at base + d·depth_step + l·line_step, inside the sink
+        // (asserted above); this block's lines only.
+        unsafe { lanes::db(&ws.lanes, bins, &to_db, base, depth_step, line_step, lines) };
+        timer.add(3, t2);
+    }
+
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx2,fma")]
     unsafe fn block_avx2<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
         self.block_inline(spectra, reference, sink, ws, timer);
     }
 
+
+    /// The block's spectra minus the reference into lane order (ws.y):
+    /// pixel-major with one lane per A-line; lanes past `lines` are zero.
     #[inline(always)]
-    fn block_inline<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
+    fn load_block<T: Sample>(&self, spectra: &[T], lines: usize, reference: &[f32], ws: &mut Workspace) {
         let pixels = self.pixels;
-        let lines = spectra.len() / pixels;
-        let len = self.fft_length;
-        let k = self.k_samples;
-        let t0 = Instant::now();
-        // Spectra as f32 (contiguous, vectorised), then transposed to
-        // pixel-major with one lane per A-line, minus the reference.
         let y = &mut ws.y;
         if !self.transpose_u16_in(spectra, lines, reference, y) {
+            // Spectra as f32 (contiguous, vectorised), then transposed.
             let rs = pixels + ROW_PAD;
             for (dst, row) in ws.rows.chunks_exact_mut(rs).zip(spectra.chunks_exact(pixels)) {
                 for (d, v) in dst.iter_mut().zip(row) {
@@ -490,38 +572,57 @@ impl FusedPlan {
             ws.rows[lines * rs..].fill(0.0);
             transpose_in(&ws.rows, pixels, rs, reference, y);
         }
-        let m = &mut ws.m;
-        if self.cubic {
-            // Natural spline second derivatives: forward sweep then back
-            // substitution with the precomputed factors (as the reference),
-            // written so that only one multiply-add per row sits on the
-            // serial chain: m[r+1] = rhs·ip − (h·ip)·m[r].
-            let rows = pixels - 2;
-            m[0] = [0.0; LANES];
-            let mut prev = [0.0f32; LANES];
-            for r in 0..rows {
-                let (ih0, ih1, ip, alpha) = (self.inv_h[r], self.inv_h[r + 1], self.inv_pivot[r], self.sweep_alpha[r]);
-                let (y0, y1, y2) = (&y[r], &y[r + 1], &y[r + 2]);
-                let mut next = [0.0f32; LANES];
-                for l in 0..LANES {
-                    let rhs = 6.0 * ((y2[l] - y1[l]) * ih1 - (y1[l] - y0[l]) * ih0);
-                    next[l] = rhs * ip - alpha * prev[l];
-                }
-                m[r + 1] = next;
-                prev = next;
-            }
-            let mut after = m[rows];
-            for r in (0..rows.saturating_sub(1)).rev() {
-                let c = self.c_prime[r];
-                let mut cur = m[r + 1];
-                for l in 0..LANES {
-                    cur[l] -= c * after[l];
-                }
-                m[r + 1] = cur;
-                after = cur;
-            }
-            m[pixels - 1] = [0.0; LANES];
+    }
+
+    /// The natural spline's second derivatives m (all lanes) for samples y;
+    /// nothing for linear resampling.
+    #[inline(always)]
+    fn spline_curvatures(&self, y: &[Lane], m: &mut [Lane]) {
+        if !self.cubic {
+            return;
         }
+        let pixels = self.pixels;
+        // Natural spline second derivatives: forward sweep then back
+        // substitution with the precomputed factors (as the reference),
+        // written so that only one multiply-add per row sits on the
+        // serial chain: m[r+1] = rhs·ip − (h·ip)·m[r].
+        let rows = pixels - 2;
+        m[0] = [0.0; LANES];
+        let mut prev = [0.0f32; LANES];
+        for r in 0..rows {
+            let (ih0, ih1, ip, alpha) = (self.inv_h[r], self.inv_h[r + 1], self.inv_pivot[r], self.sweep_alpha[r]);
+            let (y0, y1, y2) = (&y[r], &y[r + 1], &y[r + 2]);
+            let mut next = [0.0f32; LANES];
+            for l in 0..LANES {
+                let rhs = 6.0 * ((y2[l] - y1[l]) * ih1 - (y1[l] - y0[l]) * ih0);
+                next[l] = rhs * ip - alpha * prev[l];
+            }
+            m[r + 1] = next;
+            prev = next;
+        }
+        let mut after = m[rows];
+        for r in (0..rows.saturating_sub(1)).rev() {
+            let c = self.c_prime[r];
+            let mut cur = m[r + 1];
+            for l in 0..LANES {
+                cur[l] -= c * after[l];
+            }
+            m[r + 1] = cur;
+            after = cur;
+        }
+        m[pixels - 1] = [0.0; LANES];
+    }
+
+    #[inline(always)]
+    fn block_inline<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
+        let pixels = self.pixels;
+        let lines = spectra.len() / pixels;
+        let len = self.fft_length;
+        let k = self.k_samples;
+        let t0 = Instant::now();
+        self.load_block(spectra, lines, reference, ws);
+        self.spline_curvatures(&ws.y, &mut ws.m);
+        let (y, m) = (&ws.y, &ws.m);
         // Interpolate, scale by the complex factor, scatter to the lanes' FFT rows.
         let buf = &mut ws.buf;
         let fs = len + FFT_ROW_PAD;
@@ -591,6 +692,95 @@ impl FusedPlan {
             }
         }
         timer.add(3, t2);
+    }
+}
+
+/// Whether this CPU runs the lane FFT path (AVX-512F/BW besides AVX2 and FMA).
+fn lane_fft_available() -> bool {
+    #[cfg(target_arch = "x86_64")]
+    {
+        std::is_x86_feature_detected!("avx512f") && std::is_x86_feature_detected!("avx512bw") && std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma")
+    }
+    #[cfg(not(target_arch = "x86_64"))]
+    false
+}
+
+#[cfg(target_arch = "x86_64")]
+mod lanes {
+    //! AVX-512 kernels of the lane-order path: one vector holds one sample
+    //! of the block's 16 A-lines, so nothing is transposed.
+    use super::avx2::{SplineTables, ToDb};
+    use super::{Lane, LaneComplex, LANES};
+    use std::arch::x86_64::*;
+
+    /// out[j] = factor[j]·(a·y[i] + b·y[i+1] + lc·m[i] + rc·m[i+1]) for the k
+    /// samples of the tables, and zero from k to the end (the FFT's padding).
+    #[target_feature(enable = "avx512f")]
+    pub unsafe fn eval(t: &SplineTables<'_>, y: &[Lane], m: &[Lane], out: &mut [LaneComplex]) {
+        let k = t.interval.len();
+        assert!(t.left_weight.len() == k && t.left_curvature.len() == k && t.right_curvature.len() == k && t.factor.len() == k && out.len() >= k);
+        assert!(t.interval.iter().all(|&i| (i as usize) + 1 < y.len() && (i as usize) + 1 < m.len()));
+        for j in 0..k {
+            unsafe {
+                let i = *t.interval.get_unchecked(j) as usize;
+                let w = *t.left_weight.get_unchecked(j);
+                let mut acc = _mm512_mul_ps(_mm512_set1_ps(w), _mm512_loadu_ps(y.as_ptr().add(i).cast()));
+                acc = _mm512_fmadd_ps(_mm512_set1_ps(1.0 - w), _mm512_loadu_ps(y.as_ptr().add(i + 1).cast()), acc);
+                if t.cubic {
+                    acc = _mm512_fmadd_ps(_mm512_set1_ps(*t.left_curvature.get_unchecked(j)), _mm512_loadu_ps(m.as_ptr().add(i).cast()), acc);
+                    acc = _mm512_fmadd_ps(_mm512_set1_ps(*t.right_curvature.get_unchecked(j)), _mm512_loadu_ps(m.as_ptr().add(i + 1).cast()), acc);
+                }
+                let f = *t.factor.get_unchecked(j);
+                let dst = out.as_mut_ptr().add(j).cast::<f32>();
+                _mm512_store_ps(dst, _mm512_mul_ps(acc, _mm512_set1_ps(f.re)));
+                _mm512_store_ps(dst.add(LANES), _mm512_mul_ps(acc, _mm512_set1_ps(f.im)));
+            }
+        }
+        out[k..].fill(LaneComplex::default());
+    }
+
+    /// For each depth d: dB(|x[bins[d]]|²) of the first `lines` lanes to
+    /// base + d·depth_step + l·line_step (contiguous when line_step is 1).
+    /// The same operations as the scalar and AVX2 dB (multiply then add, no
+    /// FMA), so every sink gets the same bits.
+    #[target_feature(enable = "avx512f")]
+    pub unsafe fn db(x: &[LaneComplex], bins: &[u32], to_db: &ToDb<'_>, base: *mut f32, depth_step: usize, line_step: usize, lines: usize) {
+        assert!(lines <= LANES && bins.iter().all(|&b| (b as usize) < x.len()));
+        let c = to_db.log2.coefficients();
+        let floor = _mm512_set1_ps(to_db.power_floor);
+        let (scale, offset) = (_mm512_set1_ps(super::DB_PER_LOG2), _mm512_set1_ps(to_db.db_offset));
+        let mask: __mmask16 = if lines == LANES { u16::MAX } else { (1u16 << lines) - 1 };
+        let index = _mm512_mullo_epi32(_mm512_setr_epi32(0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12, 13, 14, 15), _mm512_set1_epi32(line_step as i32));
+        assert!((LANES - 1) * line_step <= i32::MAX as usize);
+        for (d, &b) in bins.iter().enumerate() {
+            unsafe {
+                let src = x.as_ptr().add(b as usize).cast::<f32>();
+                let (re, im) = (_mm512_load_ps(src), _mm512_load_ps(src.add(LANES)));
+                let power = _mm512_add_ps(_mm512_mul_ps(re, re), _mm512_mul_ps(im, im));
+                let v = _mm512_add_ps(_mm512_mul_ps(scale, log2_ps(_mm512_max_ps(power, floor), &c)), offset);
+                let dst = base.add(d * depth_step);
+                if line_step == 1 {
+                    _mm512_mask_storeu_ps(dst, mask, v);
+                } else {
+                    _mm512_mask_i32scatter_ps::<4>(dst.cast(), mask, index, v);
+                }
+            }
+        }
+    }
+
+    /// [`super::FastLog2::log2`] on 16 values (the same operations).
+    #[inline]
+    #[target_feature(enable = "avx512f")]
+    fn log2_ps(x: __m512, c: &[f32; super::LOG2_DEGREE + 1]) -> __m512 {
+        let bits = _mm512_castps_si512(x);
+        let e = _mm512_srai_epi32::<23>(_mm512_sub_epi32(bits, _mm512_set1_epi32(0x3f40_0000)));
+        let m = _mm512_castsi512_ps(_mm512_sub_epi32(bits, _mm512_slli_epi32::<23>(e)));
+        let u = _mm512_mul_ps(_mm512_sub_ps(m, _mm512_set1_ps(1.125)), _mm512_set1_ps(1.0 / 0.375));
+        let mut p = _mm512_set1_ps(c[super::LOG2_DEGREE]);
+        for k in (0..super::LOG2_DEGREE).rev() {
+            p = _mm512_add_ps(_mm512_mul_ps(p, u), _mm512_set1_ps(c[k]));
+        }
+        _mm512_add_ps(_mm512_cvtepi32_ps(e), p)
     }
 }
 

@@ -3,4 +3,5 @@
 
 pub mod config;
 pub mod fused;
+pub mod lane_fft;
 pub mod plan;
