@@ -507,8 +507,14 @@ impl FusedPlan {
     unsafe fn block_lanes<T: Sample>(&self, lane_fft: &LaneFft, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
         let lines = spectra.len() / self.pixels;
         let t0 = Instant::now();
-        self.load_block(spectra, lines, reference, ws);
-        self.spline_curvatures(&ws.y, &mut ws.m);
+        if !self.transpose_u16_lanes(spectra, lines, reference, &mut ws.y) {
+            self.load_block(spectra, lines, reference, ws);
+        }
+        if self.cubic {
+            let sweep = lanes::Sweep { inv_h: &self.inv_h, inv_pivot: &self.inv_pivot, sweep_alpha: &self.sweep_alpha, c_prime: &self.c_prime };
+            // SAFETY: AVX-512F and FMA are present; lengths are checked inside.
+            unsafe { lanes::spline_curvatures(&sweep, &ws.y, &mut ws.m) };
+        }
         let tables = avx2::SplineTables {
             interval: &self.interval,
             left_weight: &self.left_weight,
@@ -546,6 +552,29 @@ impl FusedPlan {
         // (asserted above); this block's lines only.
         unsafe { lanes::db(&ws.lanes, bins, &to_db, base, depth_step, line_step, lines) };
         timer.add(3, t2);
+    }
+
+    /// A full block of u16 spectra straight from the frame into lane order
+    /// with AVX-512 (16 × 16 transposes); false when it does not apply.
+    #[cfg(target_arch = "x86_64")]
+    #[inline(always)]
+    fn transpose_u16_lanes<T: Sample>(&self, spectra: &[T], lines: usize, reference: &[f32], y: &mut [Lane]) -> bool {
+        if lines != LANES || std::any::TypeId::of::<T>() != std::any::TypeId::of::<u16>() {
+            return false;
+        }
+        // SAFETY: T is u16 (same size and alignment), checked above.
+        let samples = unsafe { std::slice::from_raw_parts(spectra.as_ptr().cast::<u16>(), spectra.len()) };
+        let pixels = self.pixels;
+        let whole = pixels / 32 * 32;
+        // SAFETY: only reached from block_lanes (AVX-512F/BW present); bounds
+        // are asserted inside.
+        unsafe { lanes::transpose_u16_in(samples, pixels, whole, reference, y) };
+        for p in whole..pixels {
+            for l in 0..LANES {
+                y[p][l] = samples[l * pixels + p] as f32 - reference[p];
+            }
+        }
+        true
     }
 
     #[cfg(target_arch = "x86_64")]
@@ -712,6 +741,114 @@ mod lanes {
     use super::avx2::{SplineTables, ToDb};
     use super::{Lane, LaneComplex, LANES};
     use std::arch::x86_64::*;
+
+    /// The spline's sweep factors (see `FusedPlan::spline_curvatures`).
+    pub struct Sweep<'a> {
+        pub inv_h: &'a [f32],
+        pub inv_pivot: &'a [f32],
+        pub sweep_alpha: &'a [f32],
+        pub c_prime: &'a [f32],
+    }
+
+    /// The natural spline's second derivatives on all lanes: the same
+    /// recurrences as `FusedPlan::spline_curvatures`, with the serial
+    /// multiply-add of each row as one FMA (half the latency on the chain).
+    #[target_feature(enable = "avx512f,fma")]
+    pub unsafe fn spline_curvatures(t: &Sweep<'_>, y: &[Lane], m: &mut [Lane]) {
+        let pixels = y.len();
+        assert!(pixels >= 3 && m.len() == pixels);
+        let rows = pixels - 2;
+        assert!(t.inv_h.len() > rows && t.inv_pivot.len() >= rows && t.sweep_alpha.len() >= rows && t.c_prime.len() + 1 >= rows);
+        let six = _mm512_set1_ps(6.0);
+        unsafe {
+            let yp = y.as_ptr().cast::<f32>();
+            let mp = m.as_mut_ptr().cast::<f32>();
+            _mm512_storeu_ps(mp, _mm512_setzero_ps());
+            let mut prev = _mm512_setzero_ps();
+            let mut y0 = _mm512_loadu_ps(yp);
+            let mut y1 = _mm512_loadu_ps(yp.add(LANES));
+            for r in 0..rows {
+                let y2 = _mm512_loadu_ps(yp.add((r + 2) * LANES));
+                let ih0 = _mm512_set1_ps(*t.inv_h.get_unchecked(r));
+                let ih1 = _mm512_set1_ps(*t.inv_h.get_unchecked(r + 1));
+                let rhs = _mm512_mul_ps(six, _mm512_fmsub_ps(_mm512_sub_ps(y2, y1), ih1, _mm512_mul_ps(_mm512_sub_ps(y1, y0), ih0)));
+                let scaled = _mm512_mul_ps(rhs, _mm512_set1_ps(*t.inv_pivot.get_unchecked(r)));
+                let next = _mm512_fnmadd_ps(_mm512_set1_ps(*t.sweep_alpha.get_unchecked(r)), prev, scaled);
+                _mm512_storeu_ps(mp.add((r + 1) * LANES), next);
+                prev = next;
+                y0 = y1;
+                y1 = y2;
+            }
+            let mut after = prev;
+            for r in (0..rows.saturating_sub(1)).rev() {
+                let cur = _mm512_loadu_ps(mp.add((r + 1) * LANES));
+                let cur = _mm512_fnmadd_ps(_mm512_set1_ps(*t.c_prime.get_unchecked(r)), after, cur);
+                _mm512_storeu_ps(mp.add((r + 1) * LANES), cur);
+                after = cur;
+            }
+            _mm512_storeu_ps(mp.add((pixels - 1) * LANES), _mm512_setzero_ps());
+        }
+    }
+
+    /// y[p][l] = samples[l·pixels + p] − reference[p] for the 16 lines and
+    /// p < whole (a multiple of 32): each row's 64-byte run is loaded once
+    /// and goes through two 16 × 16 transposes.
+    #[target_feature(enable = "avx512f,avx512bw")]
+    pub unsafe fn transpose_u16_in(samples: &[u16], pixels: usize, whole: usize, reference: &[f32], y: &mut [Lane]) {
+        assert!(samples.len() >= LANES * pixels && y.len() >= whole && reference.len() >= whole && whole <= pixels && whole.is_multiple_of(32));
+        unsafe {
+            for p0 in (0..whole).step_by(32) {
+                let rows: [__m512i; 16] = std::array::from_fn(|l| _mm512_loadu_si512(samples.as_ptr().add(l * pixels + p0).cast()));
+                for half in 0..2 {
+                    let r: [__m512; 16] = std::array::from_fn(|l| {
+                        let h = if half == 0 { _mm512_castsi512_si256(rows[l]) } else { _mm512_extracti64x4_epi64::<1>(rows[l]) };
+                        _mm512_cvtepi32_ps(_mm512_cvtepu16_epi32(h))
+                    });
+                    let c = transpose16(r);
+                    let base = p0 + half * 16;
+                    for (q, cq) in c.iter().enumerate() {
+                        let v = _mm512_sub_ps(*cq, _mm512_set1_ps(*reference.get_unchecked(base + q)));
+                        _mm512_storeu_ps(y.as_mut_ptr().add(base + q).cast::<f32>(), v);
+                    }
+                }
+            }
+        }
+    }
+
+    /// 16 × 16 transpose: out[q][l] = r[l][q].
+    #[inline]
+    #[target_feature(enable = "avx512f")]
+    fn transpose16(r: [__m512; 16]) -> [__m512; 16] {
+        // Stage 1: interleave pairs of rows (32-bit), stage 2: 64-bit,
+        // stages 3 and 4: 128-bit blocks across the four lanes of 4.
+        let t: [__m512; 16] = std::array::from_fn(|i| {
+            let (a, b) = (r[(i / 2) * 2 & !1], r[(i / 2) * 2 | 1]);
+            if i % 2 == 0 { _mm512_unpacklo_ps(a, b) } else { _mm512_unpackhi_ps(a, b) }
+        });
+        // In each 128-bit block c: t[2k] = (r2k, r2k+1) at columns 4c, 4c+1,
+        // t[2k+1] the same at 4c+2, 4c+3.
+        let u: [__m512; 16] = std::array::from_fn(|i| {
+            // i = 4g + j: g = row quad, j ∈ 0..4 picks (lo/hi 32-bit) × (lo/hi 64-bit)
+            let (g, j) = (i / 4, i % 4);
+            let (a, b) = (t[4 * g + (j / 2)], t[4 * g + 2 + (j / 2)]);
+            let (a, b) = (_mm512_castps_pd(a), _mm512_castps_pd(b));
+            _mm512_castpd_ps(if j % 2 == 0 { _mm512_unpacklo_pd(a, b) } else { _mm512_unpackhi_pd(a, b) })
+        });
+        // u[4g + j], block c: column 4c + j of rows 4g .. 4g + 3.
+        let v: [__m512; 16] = std::array::from_fn(|i| {
+            // i = 8h + 4k + j, quads 2h and 2h + 1: blocks (4k + j, 8 + 4k + j)
+            // of quad 2h, then the same of quad 2h + 1.
+            let (h, k, j) = (i / 8, (i / 4) % 2, i % 4);
+            let (a, b) = (u[8 * h + j], u[8 * h + 4 + j]);
+            if k == 0 { _mm512_shuffle_f32x4::<0x88>(a, b) } else { _mm512_shuffle_f32x4::<0xDD>(a, b) }
+        });
+        std::array::from_fn(|i| {
+            // Column q = 4c + j from quad pairs 0 and 1.
+            let (c, j) = (i / 4, i % 4);
+            let (a, b) = (v[4 * (c % 2) + j], v[8 + 4 * (c % 2) + j]);
+            if c / 2 == 0 { _mm512_shuffle_f32x4::<0x88>(a, b) } else { _mm512_shuffle_f32x4::<0xDD>(a, b) }
+        })
+    }
 
     /// out[j] = factor[j]·(a·y[i] + b·y[i+1] + lc·m[i] + rc·m[i+1]) for the k
     /// samples of the tables, and zero from k to the end (the FFT's padding).
@@ -1144,14 +1281,13 @@ impl MedianKey for u16 {
         let has_hint = !hint.is_empty();
         hint.resize(pixels, 0);
         let mut out = vec![0.0f32; pixels];
-        let near = has_hint && near_pass_available();
-        out.par_chunks_mut(chunk).zip(hint.par_chunks_mut(chunk)).enumerate().for_each(|(c, (dst, h))| {
-            if near {
-                median_u16_chunk_near(data, rows, pixels, c * chunk, dst, h);
-            } else {
+        if has_hint && near_pass_available() {
+            median_u16_near(data, rows, pixels, &mut out, hint);
+        } else {
+            out.par_chunks_mut(chunk).zip(hint.par_chunks_mut(chunk)).enumerate().for_each(|(c, (dst, h))| {
                 median_u16_chunk(data, rows, pixels, c * chunk, dst, h, has_hint);
-            }
-        });
+            });
+        }
         Some(out)
     }
 }
@@ -1182,24 +1318,45 @@ thread_local! {
 const NEAR: usize = 10;
 const NEAR_BELOW: u16 = 5;
 /// Rows per tile of the one-pass search: the counters of one 32-column
-/// vector stay in registers while the tile's rows stream past (16 was the
-/// fastest of 4–1000 on the bench capture).
-const NEAR_TILE_ROWS: usize = 16;
+/// vector stay in registers while the tile's rows stream past (with the
+/// pass split by rows, 32 was the fastest of 16, 32 and 64 on the bench
+/// capture: 0.088 against 0.104 and 0.106–0.123 s per 100k A-lines).
+const NEAR_TILE_ROWS: usize = 32;
 
-/// Median of columns p0 .. p0 + dst.len(): one counting pass against NEAR
-/// consecutive thresholds around `hint`, then the bisection for any
-/// 16-column group it did not settle. Exact either way.
-fn median_u16_chunk_near(data: &[u16], rows: usize, pixels: usize, p0: usize, dst: &mut [f32], hint: &mut [u16]) {
-    let w = dst.len();
-    assert!(hint.len() == w && p0 + w <= pixels && data.len() >= rows * pixels && rows > 0);
+/// Median of every column: one counting pass against NEAR consecutive
+/// thresholds around `hint`, then the bisection for any 16-column group it
+/// did not settle. Exact either way. The pass is split by rows, not
+/// columns: each worker streams whole rows (contiguous memory, so the
+/// hardware prefetchers see long runs; a frame's rows are one 4 KB page
+/// each) into its own counts, and the counts are summed.
+fn median_u16_near(data: &[u16], rows: usize, pixels: usize, dst: &mut [f32], hint: &mut [u16]) {
+    let w = pixels;
+    assert!(hint.len() == w && dst.len() == w && data.len() >= rows * pixels && rows > 0 && rows <= u16::MAX as usize);
     let base: Vec<u16> = hint.iter().map(|&h| h.saturating_sub(NEAR_BELOW).min(u16::MAX - (NEAR as u16 - 1))).collect();
-    let mut counts = vec![0u16; NEAR * w];
-    #[cfg(target_arch = "x86_64")]
-    // SAFETY: only called when near_pass_available() saw AVX-512F/BW;
-    // bounds are asserted above and inside.
-    unsafe {
-        avx512::count_near(data, rows, pixels, p0, &base, &mut counts)
-    };
+    let parts = (2 * rayon::current_num_threads()).clamp(1, rows.div_ceil(NEAR_TILE_ROWS));
+    let per = rows.div_ceil(parts).next_multiple_of(NEAR_TILE_ROWS);
+    let counts = (0..rows.div_ceil(per))
+        .into_par_iter()
+        .map(|i| {
+            let (r0, r1) = (i * per, ((i + 1) * per).min(rows));
+            let mut c = vec![0u16; NEAR * w];
+            #[cfg(target_arch = "x86_64")]
+            // SAFETY: only called when near_pass_available() saw AVX-512F/BW;
+            // bounds are asserted inside.
+            unsafe {
+                avx512::count_near(&data[r0 * pixels..r1 * pixels], r1 - r0, pixels, 0, &base, &mut c)
+            };
+            c
+        })
+        .reduce_with(|mut a, b| {
+            // Counts add up to at most `rows` ≤ u16::MAX.
+            for (x, y) in a.iter_mut().zip(b) {
+                *x += y;
+            }
+            a
+        })
+        .expect("at least one row");
+    let p0 = 0;
     let target = ((rows - 1) / 2 + 1) as u16;
     let even = rows.is_multiple_of(2);
     let mut unsettled = vec![false; w.div_ceil(MEDIAN_ALIGN)];
@@ -1427,6 +1584,29 @@ mod tests {
         // ≤ 0.01 dB is the requirement; this is far inside it.
         let db = worst * DB_PER_LOG2 as f64;
         assert!(db < 1e-4, "worst error {worst} in log2 = {db} dB");
+    }
+
+    /// The AVX-512 16 × 16 transposes into lane order against plain indexing.
+    #[cfg(target_arch = "x86_64")]
+    #[test]
+    fn lane_transpose_matches_plain_indexing() {
+        if !lane_fft_available() {
+            eprintln!("no AVX-512 here: lane transpose not exercised");
+            return;
+        }
+        for pixels in [2048usize, 2080] {
+            let samples: Vec<u16> = (0..LANES * pixels).map(|i| ((i * 2654435761usize) >> 7) as u16 & 0x0fff).collect();
+            let reference: Vec<f32> = (0..pixels).map(|p| (p % 37) as f32 * 0.5).collect();
+            let mut y = vec![[0.0f32; LANES]; pixels];
+            let whole = pixels / 32 * 32;
+            // SAFETY: AVX-512F/BW checked above.
+            unsafe { lanes::transpose_u16_in(&samples, pixels, whole, &reference, &mut y) };
+            for p in 0..whole {
+                for l in 0..LANES {
+                    assert_eq!(y[p][l], samples[l * pixels + p] as f32 - reference[p], "pixel {p} lane {l}");
+                }
+            }
+        }
     }
 
     #[test]
