@@ -25,7 +25,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::Arc;
 use std::time::Instant;
 
-use super::lane_fft::{LaneComplex, LaneFft};
+use super::lane_fft::{LaneComplex, LaneFft, Resampled};
 use super::plan::Plan;
 use crate::io::capture::RawFrame;
 use crate::stages::background::{median_spectrum, BackgroundSource};
@@ -515,21 +515,23 @@ impl FusedPlan {
             // SAFETY: AVX-512F and FMA are present; lengths are checked inside.
             unsafe { lanes::spline_curvatures(&sweep, &ws.y, &mut ws.m) };
         }
-        let tables = avx2::SplineTables {
+        timer.add(1, t0);
+        // The interpolation × factor is computed inside the FFT's first
+        // level (no pass of its own), so its time counts as FFT time here.
+        let t1 = Instant::now();
+        let resampled = Resampled {
             interval: &self.interval,
             left_weight: &self.left_weight,
             left_curvature: &self.left_curvature,
             right_curvature: &self.right_curvature,
             factor: &self.factor,
             cubic: self.cubic,
+            y: &ws.y,
+            m: &ws.m,
         };
-        // SAFETY: AVX-512F is present (this function's features); bounds are
-        // checked inside.
-        unsafe { lanes::eval(&tables, &ws.y, &ws.m, &mut ws.lanes) };
-        timer.add(1, t0);
-        let t1 = Instant::now();
-        // SAFETY: as above.
-        unsafe { lane_fft.forward(&mut ws.lanes) };
+        // SAFETY: AVX-512F and FMA are present (this function's features);
+        // bounds are checked inside.
+        unsafe { lane_fft.forward_resampled(&mut ws.lanes, &resampled) };
         timer.add(2, t1);
         let t2 = Instant::now();
         let depth = self.depth;
@@ -738,7 +740,7 @@ fn lane_fft_available() -> bool {
 mod lanes {
     //! AVX-512 kernels of the lane-order path: one vector holds one sample
     //! of the block's 16 A-lines, so nothing is transposed.
-    use super::avx2::{SplineTables, ToDb};
+    use super::avx2::ToDb;
     use super::{Lane, LaneComplex, LANES};
     use std::arch::x86_64::*;
 
@@ -848,32 +850,6 @@ mod lanes {
             let (a, b) = (v[4 * (c % 2) + j], v[8 + 4 * (c % 2) + j]);
             if c / 2 == 0 { _mm512_shuffle_f32x4::<0x88>(a, b) } else { _mm512_shuffle_f32x4::<0xDD>(a, b) }
         })
-    }
-
-    /// out[j] = factor[j]·(a·y[i] + b·y[i+1] + lc·m[i] + rc·m[i+1]) for the k
-    /// samples of the tables, and zero from k to the end (the FFT's padding).
-    #[target_feature(enable = "avx512f")]
-    pub unsafe fn eval(t: &SplineTables<'_>, y: &[Lane], m: &[Lane], out: &mut [LaneComplex]) {
-        let k = t.interval.len();
-        assert!(t.left_weight.len() == k && t.left_curvature.len() == k && t.right_curvature.len() == k && t.factor.len() == k && out.len() >= k);
-        assert!(t.interval.iter().all(|&i| (i as usize) + 1 < y.len() && (i as usize) + 1 < m.len()));
-        for j in 0..k {
-            unsafe {
-                let i = *t.interval.get_unchecked(j) as usize;
-                let w = *t.left_weight.get_unchecked(j);
-                let mut acc = _mm512_mul_ps(_mm512_set1_ps(w), _mm512_loadu_ps(y.as_ptr().add(i).cast()));
-                acc = _mm512_fmadd_ps(_mm512_set1_ps(1.0 - w), _mm512_loadu_ps(y.as_ptr().add(i + 1).cast()), acc);
-                if t.cubic {
-                    acc = _mm512_fmadd_ps(_mm512_set1_ps(*t.left_curvature.get_unchecked(j)), _mm512_loadu_ps(m.as_ptr().add(i).cast()), acc);
-                    acc = _mm512_fmadd_ps(_mm512_set1_ps(*t.right_curvature.get_unchecked(j)), _mm512_loadu_ps(m.as_ptr().add(i + 1).cast()), acc);
-                }
-                let f = *t.factor.get_unchecked(j);
-                let dst = out.as_mut_ptr().add(j).cast::<f32>();
-                _mm512_store_ps(dst, _mm512_mul_ps(acc, _mm512_set1_ps(f.re)));
-                _mm512_store_ps(dst.add(LANES), _mm512_mul_ps(acc, _mm512_set1_ps(f.im)));
-            }
-        }
-        out[k..].fill(LaneComplex::default());
     }
 
     /// For each depth d: dB(|x[bins[d]]|²) of the first `lines` lanes to

@@ -14,8 +14,26 @@
 //! pass is spent. rustfft stays the FFT of the reference path; the tests hold
 //! this one to it.
 
+use rustfft::num_complex::Complex32;
+
 /// Transforms per call, one per lane of a 512-bit vector of f32.
 pub const LANES: usize = 16;
+
+/// The fused path's resampling, as the source of the transform's input:
+/// sample j < k is factor[j]·(a·y[i] + (1 − a)·y[i+1] + lc·m[i] + rc·m[i+1])
+/// with i = interval[j], a = left_weight[j] (lc, rc = left and right
+/// curvature weights, used when `cubic`); samples from k on are zero (the
+/// FFT's padding). y and m hold one A-line per lane.
+pub struct Resampled<'a> {
+    pub interval: &'a [u32],
+    pub left_weight: &'a [f32],
+    pub left_curvature: &'a [f32],
+    pub right_curvature: &'a [f32],
+    pub factor: &'a [Complex32],
+    pub cubic: bool,
+    pub y: &'a [[f32; LANES]],
+    pub m: &'a [[f32; LANES]],
+}
 
 /// Sample j of 16 A-lines: real parts, then imaginary parts.
 #[repr(C, align(64))]
@@ -92,6 +110,40 @@ impl LaneFft {
         assert_eq!(x.len(), self.len, "lane FFT length");
         // SAFETY: the length is checked; the levels stay inside x.
         unsafe { self.level(x.as_mut_ptr(), self.len, 0) }
+    }
+
+    /// Resamples (see [`Resampled`]) and transforms in one go: the first
+    /// radix-4 level computes its four inputs from the interpolation instead
+    /// of reading them back, which saves a pass over the block. Same result
+    /// as writing the samples out and calling [`Self::forward`].
+    ///
+    /// # Safety
+    /// The CPU must support AVX-512F and FMA.
+    #[cfg(target_arch = "x86_64")]
+    #[target_feature(enable = "avx512f,fma")]
+    pub unsafe fn forward_resampled(&self, x: &mut [LaneComplex], r: &Resampled<'_>) {
+        let k = r.interval.len();
+        assert!(x.len() == self.len && k <= self.len, "lane FFT length");
+        assert!(r.left_weight.len() == k && r.factor.len() == k && (!r.cubic || (r.left_curvature.len() == k && r.right_curvature.len() == k)));
+        assert!(r.interval.iter().all(|&i| (i as usize) + 1 < r.y.len() && (!r.cubic || (i as usize) + 1 < r.m.len())));
+        let p = x.as_mut_ptr();
+        // SAFETY: indices are checked above; x has self.len elements.
+        unsafe {
+            if self.twiddles.is_empty() {
+                for j in 0..self.len {
+                    kernels::store_resampled(p.add(j), r, j);
+                }
+                self.level(p, self.len, 0);
+                return;
+            }
+            let m = self.len / 4;
+            for (j, t) in self.twiddles[0].iter().enumerate() {
+                kernels::radix4_resampled(p.add(j), m, j, t, r);
+            }
+            for q in 0..4 {
+                self.level(p.add(q * m), m, 1);
+            }
+        }
     }
 
     #[cfg(target_arch = "x86_64")]
@@ -213,6 +265,49 @@ mod kernels {
         }
     }
 
+    /// Sample j of the resampled input (zero from k on).
+    #[inline]
+    #[target_feature(enable = "avx512f,fma")]
+    unsafe fn resampled(r: &super::Resampled<'_>, j: usize) -> V {
+        unsafe {
+            if j >= r.interval.len() {
+                return V { re: _mm512_setzero_ps(), im: _mm512_setzero_ps() };
+            }
+            let i = *r.interval.get_unchecked(j) as usize;
+            let w = *r.left_weight.get_unchecked(j);
+            let (y, m) = (r.y.as_ptr(), r.m.as_ptr());
+            let mut acc = _mm512_mul_ps(_mm512_set1_ps(w), _mm512_loadu_ps(y.add(i).cast()));
+            acc = _mm512_fmadd_ps(_mm512_set1_ps(1.0 - w), _mm512_loadu_ps(y.add(i + 1).cast()), acc);
+            if r.cubic {
+                acc = _mm512_fmadd_ps(_mm512_set1_ps(*r.left_curvature.get_unchecked(j)), _mm512_loadu_ps(m.add(i).cast()), acc);
+                acc = _mm512_fmadd_ps(_mm512_set1_ps(*r.right_curvature.get_unchecked(j)), _mm512_loadu_ps(m.add(i + 1).cast()), acc);
+            }
+            let f = *r.factor.get_unchecked(j);
+            V { re: _mm512_mul_ps(acc, _mm512_set1_ps(f.re)), im: _mm512_mul_ps(acc, _mm512_set1_ps(f.im)) }
+        }
+    }
+
+    #[inline]
+    #[target_feature(enable = "avx512f,fma")]
+    pub unsafe fn store_resampled(x: *mut LaneComplex, r: &super::Resampled<'_>, j: usize) {
+        unsafe { store(x, resampled(r, j)) }
+    }
+
+    /// [`radix4`] with its inputs, samples j, j + m, j + 2m, j + 3m,
+    /// computed by the resampling.
+    #[inline]
+    #[target_feature(enable = "avx512f,fma")]
+    pub unsafe fn radix4_resampled(x: *mut LaneComplex, m: usize, j: usize, t: &[f32; 6], r: &super::Resampled<'_>) {
+        unsafe {
+            let (a, b, c, d) = (resampled(r, j), resampled(r, j + m), resampled(r, j + 2 * m), resampled(r, j + 3 * m));
+            let (apc, amc, bpd, bmd) = (add(a, c), sub(a, c), add(b, d), sub(b, d));
+            store(x, add(apc, bpd));
+            store(x.add(m), twiddle(sub_i(amc, bmd), t[0], t[1]));
+            store(x.add(2 * m), twiddle(sub(apc, bpd), t[2], t[3]));
+            store(x.add(3 * m), twiddle(add_i(amc, bmd), t[4], t[5]));
+        }
+    }
+
     /// 4-point DFT of (a, b, c, d), bins in natural order.
     #[inline]
     #[target_feature(enable = "avx512f")]
@@ -306,6 +401,62 @@ mod tests {
             assert!(worst <= 1e-5 * peak.max(1.0), "len {len}: worst {worst} against peak {peak}");
         }
         assert!(LaneFft::new(12).is_none() && LaneFft::new(4).is_none());
+    }
+
+    /// Resampling fused into the first level gives the same bits as
+    /// resampling into the buffer and transforming it.
+    #[test]
+    fn fused_first_level_matches_separate_passes() {
+        if !std::is_x86_feature_detected!("avx512f") || !std::is_x86_feature_detected!("fma") {
+            return;
+        }
+        let pixels = 300;
+        let y: Vec<[f32; LANES]> = (0..pixels).map(|p| std::array::from_fn(|l| ((p * 7 + l * 3) % 11) as f32 - 5.0)).collect();
+        let m: Vec<[f32; LANES]> = (0..pixels).map(|p| std::array::from_fn(|l| ((p * 5 + l) % 13) as f32 * 0.1)).collect();
+        for (len, k) in [(8usize, 8usize), (64, 50), (512, 512), (256, 200)] {
+            let interval: Vec<u32> = (0..k).map(|j| ((j * (pixels - 2)) / k) as u32).collect();
+            let left_weight: Vec<f32> = (0..k).map(|j| (j % 10) as f32 / 10.0).collect();
+            let lc: Vec<f32> = (0..k).map(|j| -((j % 7) as f32) * 0.01).collect();
+            let rc: Vec<f32> = (0..k).map(|j| -((j % 5) as f32) * 0.02).collect();
+            let factor: Vec<Complex32> = (0..k).map(|j| Complex32::from_polar(1.0, j as f32 * 0.1)).collect();
+            let r = Resampled { interval: &interval, left_weight: &left_weight, left_curvature: &lc, right_curvature: &rc, factor: &factor, cubic: true, y: &y, m: &m };
+            let plan = LaneFft::new(len).expect("plan");
+            let mut fused = vec![LaneComplex::default(); len];
+            let mut separate = vec![LaneComplex::default(); len];
+            // SAFETY: AVX-512F and FMA checked above.
+            unsafe {
+                plan.forward_resampled(&mut fused, &r);
+                for (j, v) in separate.iter_mut().enumerate() {
+                    kernels::store_resampled(v, &r, j);
+                }
+                plan.forward(&mut separate);
+            }
+            assert_eq!(fused, separate, "len {len}, k {k}");
+            // And the samples themselves against plain arithmetic (cubic
+            // spline evaluation as in the fused path's doc).
+            let mut direct = vec![LaneComplex::default(); len];
+            for (j, v) in direct.iter_mut().enumerate().take(k) {
+                let i = interval[j] as usize;
+                for l in 0..LANES {
+                    let w = left_weight[j];
+                    let s = w * y[i][l] + (1.0 - w) * y[i + 1][l] + lc[j] * m[i][l] + rc[j] * m[i + 1][l];
+                    v.re[l] = s * factor[j].re;
+                    v.im[l] = s * factor[j].im;
+                }
+            }
+            let mut stored = vec![LaneComplex::default(); len];
+            // SAFETY: as above.
+            unsafe {
+                for (j, v) in stored.iter_mut().enumerate() {
+                    kernels::store_resampled(v, &r, j);
+                }
+            }
+            for (a, b) in stored.iter().zip(direct.iter()) {
+                for l in 0..LANES {
+                    assert!((a.re[l] - b.re[l]).abs() <= 1e-5 && (a.im[l] - b.im[l]).abs() <= 1e-5);
+                }
+            }
+        }
     }
 
     #[test]
