@@ -192,10 +192,10 @@ pub fn transpose(a: &Array2<f32>) -> Array2<f32> {
 /// 8-bit grey levels of dB values. Sequential on purpose: it runs on the
 /// writer thread, which must never wait for the rayon pool (the pool's
 /// workers may be blocked handing frames to this very thread).
-pub fn grey8(db: &[f32], black: f64, white: f64) -> Vec<u8> {
-    let mut bytes = vec![0u8; db.len()];
-    grey_levels_u8(db, black, white, &mut bytes);
-    bytes
+/// `bytes` is reused from frame to frame (no fresh pages per frame).
+pub fn grey8(db: &[f32], black: f64, white: f64, bytes: &mut Vec<u8>) {
+    bytes.resize(db.len(), 0);
+    grey_levels_u8(db, black, white, bytes);
 }
 
 fn round6(v: f64) -> f64 {
@@ -332,6 +332,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             let mut outputs = Vec::new();
             let mut warnings = Vec::new();
             let mut write_s = 0.0;
+            let mut grey = Vec::new();
             for (position, image, saturated) in img_rx {
                 // `image` is the B-scan as shown: depth down, A-lines across.
                 let t = Instant::now();
@@ -346,7 +347,8 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
                     let png_name = frame_png_name(position);
                     let path = staging_ref.path(&png_name);
                     if lc.bit_depth == 8 {
-                        png::write_grey8(&path, alines, depth, &grey8(values, black, white))?;
+                        grey8(values, black, white, &mut grey);
+                        png::write_grey8(&path, alines, depth, &grey)?;
                     } else {
                         png::write_grey(&path, alines, depth, &grey_levels(values, black, white, max_grey), lc.bit_depth)?;
                     }

@@ -138,10 +138,11 @@ fn time_pipeline(fused: &FusedPlan, frames: &[RawFrame], alines_per_frame: usize
     // 8 bits, as `run` overlaps them.
     let mut images = [Array2::<f32>::zeros((depth, alines_per_frame)), Array2::<f32>::zeros((depth, alines_per_frame))];
     let count = alines.div_ceil(alines_per_frame);
-    let map = |image: &Array2<f32>| -> u64 {
+    let mut grey = Vec::new();
+    let mut map = |image: &Array2<f32>| -> u64 {
         let values = image.as_slice().unwrap();
         let floor = noise_floor_db(values);
-        let grey = crate::run::grey8(values, floor + 3.0, floor + 48.0);
+        crate::run::grey8(values, floor + 3.0, floor + 48.0, &mut grey);
         grey[grey.len() / 2] as u64
     };
     let start = Instant::now();
