@@ -181,14 +181,48 @@ impl FusedTimer {
     }
 }
 
+/// One lane vector on its own 64-byte cache line.
+#[repr(C, align(64))]
+#[derive(Clone, Copy)]
+struct AlignedLane(Lane);
+
+/// Lane vectors, each on one cache line. (A plain Vec of `[f32; 16]` is
+/// only 4-byte aligned, and glibc's large blocks start 16 bytes into a page,
+/// so every vector load and store would straddle two lines.)
+struct LaneBuffer(Vec<AlignedLane>);
+
+impl LaneBuffer {
+    fn new(len: usize) -> Self {
+        LaneBuffer(vec![AlignedLane([0.0; LANES]); len])
+    }
+}
+
+impl std::ops::Deref for LaneBuffer {
+    type Target = [Lane];
+    fn deref(&self) -> &[Lane] {
+        // SAFETY: AlignedLane is repr(C) around one Lane with the same size
+        // (64 bytes), so the slice reinterprets element for element.
+        unsafe { std::slice::from_raw_parts(self.0.as_ptr().cast::<Lane>(), self.0.len()) }
+    }
+}
+
+impl std::ops::DerefMut for LaneBuffer {
+    fn deref_mut(&mut self) -> &mut [Lane] {
+        // SAFETY: as in deref.
+        unsafe { std::slice::from_raw_parts_mut(self.0.as_mut_ptr().cast::<Lane>(), self.0.len()) }
+    }
+}
+
+const _: () = assert!(std::mem::size_of::<AlignedLane>() == std::mem::size_of::<Lane>());
+
 /// Per-worker buffers, made once per worker.
 struct Workspace {
     /// Sizes it was made for: pixels, FFT length, FFT scratch, depth, lane FFT.
     shape: [usize; 5],
     /// One block's spectra as f32, line by line.
     rows: Vec<f32>,
-    y: Vec<Lane>,
-    m: Vec<Lane>,
+    y: LaneBuffer,
+    m: LaneBuffer,
     buf: Vec<Complex32>,
     scratch: Vec<Complex32>,
     /// The block in lane order for the lane FFT (empty without it).
@@ -330,8 +364,8 @@ impl FusedPlan {
         Workspace {
             shape: [self.pixels, self.fft_length, self.fft_scratch, self.depth, self.lane_fft.is_some() as usize],
             rows: vec![0.0; LANES * (self.pixels + ROW_PAD)],
-            y: vec![[0.0; LANES]; self.pixels],
-            m: vec![[0.0; LANES]; self.pixels],
+            y: LaneBuffer::new(self.pixels),
+            m: LaneBuffer::new(self.pixels),
             buf: vec![Complex32::new(0.0, 0.0); LANES * (self.fft_length + FFT_ROW_PAD)],
             scratch: vec![Complex32::new(0.0, 0.0); self.fft_scratch],
             lanes: vec![LaneComplex::default(); if self.lane_fft.is_some() { self.fft_length } else { 0 }],
