@@ -105,5 +105,41 @@ impl VolumeWriter {
 /// nearest and clamped to the type's range.
 pub fn pack_db(image: &Array2<f32>) -> Array2<u16> {
     let (inv_step, offset) = ((1.0 / PACKED_DB_STEP) as f32, PACKED_DB_OFFSET as f32);
-    image.mapv(|d| ((d - offset) * inv_step + 0.5).clamp(0.0, u16::MAX as f32) as u16)
+    let pack = |d: f32| {
+        // Compare-and-select (a NaN fails the first test and becomes 0), so
+        // v is finite in [0, 65535]: the cast through i32 is exact, and the
+        // loop vectorises (neither a saturating `as u16` nor f32::max does;
+        // the old form was 7 % of a `run` profile).
+        let v = (d - offset) * inv_step + 0.5;
+        let v = if v > 0.0 { v } else { 0.0 };
+        let v = if v < u16::MAX as f32 { v } else { u16::MAX as f32 };
+        // SAFETY: v is finite and within i32's range.
+        unsafe { v.to_int_unchecked::<i32>() as u16 }
+    };
+    match image.as_slice() {
+        Some(values) => {
+            let mut out = Array2::<u16>::zeros(image.raw_dim());
+            for (o, &d) in out.as_slice_mut().expect("standard layout").iter_mut().zip(values) {
+                *o = pack(d);
+            }
+            out
+        }
+        None => image.mapv(pack),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn packing_rounds_clamps_and_zeroes_nan() {
+        // (d − (−240 dB)) / 0.01 dB, rounded to nearest; outside the uint16
+        // range clamped; NaN (never produced, but not undefined) to 0.
+        let d = ndarray::arr2(&[[-300.0f32, -240.0, 0.0, 12.344], [415.35, 500.0, f32::NAN, -239.996]]);
+        let p = pack_db(&d);
+        assert_eq!(p, ndarray::arr2(&[[0u16, 0, 24000, 25234], [65535, 65535, 0, 0]]));
+        // A transposed (not standard layout) image packs the same values.
+        assert_eq!(pack_db(&d.t().to_owned()), pack_db(&d).t());
+    }
 }
