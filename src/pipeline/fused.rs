@@ -858,7 +858,7 @@ mod lanes {
         // Stage 1: interleave pairs of rows (32-bit), stage 2: 64-bit,
         // stages 3 and 4: 128-bit blocks across the four lanes of 4.
         let t: [__m512; 16] = std::array::from_fn(|i| {
-            let (a, b) = (r[(i / 2) * 2 & !1], r[(i / 2) * 2 | 1]);
+            let (a, b) = (r[2 * (i / 2)], r[2 * (i / 2) + 1]);
             if i % 2 == 0 { _mm512_unpacklo_ps(a, b) } else { _mm512_unpackhi_ps(a, b) }
         });
         // In each 128-bit block c: t[2k] = (r2k, r2k+1) at columns 4c, 4c+1,
