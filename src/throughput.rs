@@ -74,6 +74,10 @@ pub struct BenchReport {
     pub capture_background_over_fft: f64,
     /// Where the fused pipeline's time goes (thread-seconds per part, one run).
     pub pipeline_parts_seconds: serde_json::Map<String, serde_json::Value>,
+    /// The fused path's FFT: "lane" (AVX-512, 16 A-lines per vector; the
+    /// interpolation × factor then runs inside the FFT's first level and its
+    /// time counts under "fft") or "rustfft" (one call per A-line).
+    pub fused_fft: String,
     pub reference_alines_per_second: f64,
     pub scaling: Vec<ScalingPoint>,
     pub end_to_end_alines_per_second: Option<f64>,
@@ -279,6 +283,7 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         capture_background_alines_per_second: capture_bg_rate,
         capture_background_over_fft: capture_bg_rate / fft_rate,
         pipeline_parts_seconds: parts,
+        fused_fft: if fused.uses_lane_fft() { "lane" } else { "rustfft" }.into(),
         reference_alines_per_second: reference_rate,
         scaling,
         end_to_end_alines_per_second: end_to_end,
@@ -321,7 +326,10 @@ impl BenchReport {
             s += &format!("{:<44} {:>14.0}\n", "same, uint16 volume (half the bytes)", e);
             s += &format!("{:<44} {:>14.3}\n", "ratio (uint16 volume) / in-memory pipeline", r);
         }
-        s += "\nfused pipeline, thread-seconds per part (first run):\n";
+        s += &format!("\nfused pipeline, thread-seconds per part (first run; FFT: {}):\n", self.fused_fft);
+        if self.fused_fft == "lane" {
+            s += "  (lane FFT: the interpolation x factor runs inside the FFT's first level, so its time is under fft)\n";
+        }
         for (k, v) in &self.pipeline_parts_seconds {
             s += &format!("  {k:<28} {:.3} s\n", v.as_f64().unwrap_or(0.0));
         }

@@ -10,12 +10,18 @@
 //!
 //! A-lines go through in blocks of [`LANES`]: the block is stored
 //! pixel-major with one A-line per lane, so the spline's serial tridiagonal
-//! sweeps and the interpolation run on all lanes at once (SIMD), and the
-//! FFTs of the block run as one batched rustfft call. The kernels are
-//! compiled twice, for AVX2+FMA (chosen at run time when the CPU has it) and
-//! for the baseline. No allocation per A-line: each worker thread owns one
-//! workspace. The plain stage modules stay the reference implementation;
-//! tests hold this path to them within 1e-4 of the peak amplitude.
+//! sweeps and the interpolation run on all lanes at once (SIMD). On CPUs
+//! with AVX-512 the block then stays in that order to the end: the FFT is
+//! [`super::lane_fft`] (16 transforms per vector, the interpolation × factor
+//! computed inside its first level), and the dB pass reads the depth bins
+//! from the FFT's output order and stores 16 adjacent image columns per
+//! vector: the only change of layout is the transpose of the camera samples
+//! into lane order. Elsewhere (AVX2+FMA, or the baseline), each lane is
+//! scattered into its own FFT row for one rustfft call per line, and |X|²,
+//! dB and the transpose into the image go together in one pass. No
+//! allocation per A-line: each worker thread owns one workspace. The plain
+//! stage modules stay the reference implementation; tests hold every
+//! variant of this path to them within 1e-4 of the peak amplitude.
 
 use ndarray::{Array2, ArrayView2};
 use rayon::prelude::*;

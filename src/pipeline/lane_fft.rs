@@ -397,6 +397,7 @@ mod tests {
                     peak = peak.max(w.norm());
                 }
             }
+            eprintln!("lane FFT, {len} points: worst |difference| {:.2e} of the peak", worst / peak.max(1.0));
             // f32 rounding over log2(len) levels: well under 1e-5 of the peak.
             assert!(worst <= 1e-5 * peak.max(1.0), "len {len}: worst {worst} against peak {peak}");
         }
