@@ -1010,40 +1010,66 @@ mod avx512 {
     use std::arch::x86_64::*;
 
     /// counts[i·w + q] = #{r : x[r][p0 + q] ≤ base[q] + i} for i < NEAR, q < w.
+    ///
+    /// x ≤ base + i exactly when d = x ⊖ base (saturating) ≤ i, and for
+    /// i < NEAR ≤ 255 it is the same with d capped at 255: so two vectors
+    /// of 32 columns become one vector of 64 bytes, and each threshold
+    /// costs one byte compare and one masked byte add per 64 samples
+    /// instead of per 32. Byte counters hold a tile's rows (≤ 255) and are
+    /// widened into the u16 counts after each tile.
     #[target_feature(enable = "avx512f,avx512bw")]
     pub unsafe fn count_near(data: &[u16], rows: usize, pixels: usize, p0: usize, base: &[u16], counts: &mut [u16]) {
+        const { assert!(NEAR <= 255 && NEAR_TILE_ROWS <= 255) };
         let w = base.len();
         assert!(p0 + w <= pixels && data.len() >= rows * pixels && counts.len() == NEAR * w);
         // Opaque to the compiler: with a known 1 it turns each masked add
         // into mask-to-vector + subtract, two more uops on the port the
         // compares already saturate (half the speed, measured).
-        let one = std::hint::black_box(_mm512_set1_epi16(1));
+        let one = std::hint::black_box(_mm512_set1_epi8(1));
+        let cap = _mm512_set1_epi16(255);
+        let zero = _mm512_setzero_si512();
+        let t: [__m512i; NEAR] = std::array::from_fn(|i| _mm512_set1_epi8(i as i8));
         counts.fill(0);
+        let mask_of = |v0: usize| -> __mmask32 {
+            let lanes = w.saturating_sub(v0).min(32);
+            if lanes == 32 { u32::MAX } else { (1u32 << lanes) - 1 }
+        };
         // Row tiles outermost: within a tile each row is read left to right
-        // (prefetch-friendly), while one vector's counters stay in registers
-        // for the tile's rows.
+        // (prefetch-friendly), while one 64-column pair's counters stay in
+        // registers for the tile's rows.
         for r0 in (0..rows).step_by(NEAR_TILE_ROWS) {
             let r1 = (r0 + NEAR_TILE_ROWS).min(rows);
-            for v0 in (0..w).step_by(32) {
-                let lanes = (w - v0).min(32);
-                let mask: __mmask32 = if lanes == 32 { u32::MAX } else { (1u32 << lanes) - 1 };
-                let b = _mm512_maskz_loadu_epi16(mask, base.as_ptr().add(v0).cast());
-                let mut t = [_mm512_setzero_si512(); NEAR];
-                let mut c = [_mm512_setzero_si512(); NEAR];
-                for i in 0..NEAR {
-                    t[i] = _mm512_add_epi16(b, _mm512_set1_epi16(i as i16));
-                    c[i] = _mm512_maskz_loadu_epi16(mask, counts.as_ptr().add(i * w + v0).cast());
-                }
-                let src = data.as_ptr().add(p0 + v0);
-                for r in r0..r1 {
-                    let x = _mm512_maskz_loadu_epi16(mask, src.add(r * pixels).cast());
-                    for i in 0..NEAR {
-                        let k = _mm512_cmple_epu16_mask(x, t[i]);
-                        c[i] = _mm512_mask_add_epi16(c[i], k, c[i], one);
+            for v0 in (0..w).step_by(64) {
+                let (ma, mb) = (mask_of(v0), mask_of(v0 + 32));
+                unsafe {
+                    let ba = _mm512_maskz_loadu_epi16(ma, base.as_ptr().add(v0).cast());
+                    let bb = _mm512_maskz_loadu_epi16(mb, base.as_ptr().wrapping_add(v0 + 32).cast());
+                    let mut c = [zero; NEAR];
+                    let src = data.as_ptr().add(p0 + v0);
+                    for r in r0..r1 {
+                        let xa = _mm512_maskz_loadu_epi16(ma, src.add(r * pixels).cast());
+                        // (Masked off past the last column; the pointer is never read there.)
+                        let xb = _mm512_maskz_loadu_epi16(mb, src.wrapping_add(r * pixels + 32).cast());
+                        let da = _mm512_min_epu16(_mm512_subs_epu16(xa, ba), cap);
+                        let db = _mm512_min_epu16(_mm512_subs_epu16(xb, bb), cap);
+                        // Per 128-bit lane: 8 columns of a, then 8 of b.
+                        let d = _mm512_packus_epi16(da, db);
+                        for i in 0..NEAR {
+                            let k = _mm512_cmple_epu8_mask(d, t[i]);
+                            c[i] = _mm512_mask_add_epi8(c[i], k, c[i], one);
+                        }
                     }
-                }
-                for (i, ci) in c.iter().enumerate() {
-                    _mm512_mask_storeu_epi16(counts.as_mut_ptr().add(i * w + v0).cast(), mask, *ci);
+                    // Unpacking against zero undoes the pack's interleave:
+                    // the low bytes of each lane are a's columns, the high b's.
+                    for (i, ci) in c.iter().enumerate() {
+                        let (lo, hi) = (_mm512_unpacklo_epi8(*ci, zero), _mm512_unpackhi_epi8(*ci, zero));
+                        let pa = counts.as_mut_ptr().add(i * w + v0);
+                        _mm512_mask_storeu_epi16(pa.cast(), ma, _mm512_add_epi16(_mm512_maskz_loadu_epi16(ma, pa.cast()), lo));
+                        if mb != 0 {
+                            let pb = pa.add(32);
+                            _mm512_mask_storeu_epi16(pb.cast(), mb, _mm512_add_epi16(_mm512_maskz_loadu_epi16(mb, pb.cast()), hi));
+                        }
+                    }
                 }
             }
         }
@@ -1636,8 +1662,10 @@ mod tests {
         // with the bisection alone.
         for disabled in [false, true] {
             NEAR_PASS_DISABLED.with(|d| d.set(disabled));
-            // 304 columns: a partial 32-column vector at the end.
-            for (rows, pixels) in [(1usize, 304usize), (2, 304), (7, 304), (64, 304), (101, 304), (1000, 64)] {
+            // 304 columns: a partial 32-column vector at the end (the
+            // second of a 64-column pair); 272: the pair's first vector
+            // partial and no second.
+            for (rows, pixels) in [(1usize, 304usize), (2, 304), (7, 304), (64, 304), (101, 304), (1000, 64), (300, 272)] {
                 for (lo, hi) in [(1000u16, 1400u16), (0, 6), (65528, 65535)] {
                     let data: Vec<u16> = (0..rows * pixels)
                         .map(|_| if rng.random_bool(0.05) { rng.random_range(0..=u16::MAX) } else { rng.random_range(lo..=hi) })
