@@ -31,7 +31,7 @@ use std::sync::atomic::{AtomicU64, Ordering};
 use std::sync::Arc;
 use std::time::Instant;
 
-use super::lane_fft::{LaneComplex, LaneFft, Resampled};
+use super::lane_fft::{Interpolation, LaneComplex, LaneFft, Resampled};
 use super::plan::Plan;
 use crate::io::capture::RawFrame;
 use crate::stages::background::{median_spectrum, BackgroundSource};
@@ -515,6 +515,18 @@ impl FusedPlan {
         false
     }
 
+    /// The interpolation tables onto the k grid.
+    fn interpolation(&self) -> Interpolation<'_> {
+        Interpolation {
+            interval: &self.interval,
+            left_weight: &self.left_weight,
+            left_curvature: &self.left_curvature,
+            right_curvature: &self.right_curvature,
+            factor: &self.factor,
+            cubic: self.cubic,
+        }
+    }
+
     /// Interpolation and scatter of the whole 8-sample tiles with AVX2+FMA;
     /// returns the first k sample left for the portable loop.
     #[inline(always)]
@@ -523,16 +535,8 @@ impl FusedPlan {
         {
             if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
                 let whole = self.k_samples / 8 * 8;
-                let t = avx2::SplineTables {
-                    interval: &self.interval[..whole],
-                    left_weight: &self.left_weight[..whole],
-                    left_curvature: &self.left_curvature[..whole],
-                    right_curvature: &self.right_curvature[..whole],
-                    factor: &self.factor[..whole],
-                    cubic: self.cubic,
-                };
                 // SAFETY: AVX2 and FMA are present; indices are checked inside.
-                unsafe { avx2::eval_scatter(&t, y, m, lines, stride, buf) };
+                unsafe { avx2::eval_scatter(&self.interpolation().head(whole), y, m, lines, stride, buf) };
                 return whole;
             }
         }
@@ -559,16 +563,7 @@ impl FusedPlan {
         // The interpolation × factor is computed inside the FFT's first
         // level (no pass of its own), so its time counts as FFT time here.
         let t1 = Instant::now();
-        let resampled = Resampled {
-            interval: &self.interval,
-            left_weight: &self.left_weight,
-            left_curvature: &self.left_curvature,
-            right_curvature: &self.right_curvature,
-            factor: &self.factor,
-            cubic: self.cubic,
-            y: &ws.y,
-            m: &ws.m,
-        };
+        let resampled = Resampled { table: self.interpolation(), y: &ws.y, m: &ws.m };
         // SAFETY: AVX-512F and FMA are present (this function's features);
         // bounds are checked inside.
         unsafe { lane_fft.forward_resampled(&mut ws.lanes, &resampled) };
@@ -1080,7 +1075,7 @@ mod avx512 {
 mod avx2 {
     //! AVX2 kernels: 8 × 8 transposes into lane order, interpolation with the
     //! scatter into FFT rows, and dB with the transpose into image columns.
-    use super::{Complex32, Lane, LANES};
+    use super::{Complex32, Interpolation, Lane, LANES};
     use std::arch::x86_64::*;
 
     #[inline(always)]
@@ -1217,20 +1212,11 @@ mod avx2 {
         _mm256_add_ps(_mm256_cvtepi32_ps(e), p)
     }
 
-    /// The interpolation tables of whole tiles.
-    pub struct SplineTables<'a> {
-        pub interval: &'a [u32],
-        pub left_weight: &'a [f32],
-        pub left_curvature: &'a [f32],
-        pub right_curvature: &'a [f32],
-        pub factor: &'a [Complex32],
-        pub cubic: bool,
-    }
 
     /// For each tile of 8 k samples: v = a·y[i] + b·y[i+1] + lc·m[i] +
     /// rc·m[i+1] on all 16 lanes, then the lanes' FFT rows get factor·v.
     #[target_feature(enable = "avx2,fma")]
-    pub unsafe fn eval_scatter(t: &SplineTables<'_>, y: &[Lane], m: &[Lane], lines: usize, stride: usize, buf: &mut [Complex32]) {
+    pub unsafe fn eval_scatter(t: &Interpolation<'_>, y: &[Lane], m: &[Lane], lines: usize, stride: usize, buf: &mut [Complex32]) {
         let k = t.interval.len();
         assert!(k.is_multiple_of(8) && t.left_weight.len() == k && t.left_curvature.len() == k && t.right_curvature.len() == k && t.factor.len() == k);
         assert!(t.interval.iter().all(|&i| (i as usize) + 1 < y.len() && (i as usize) + 1 < m.len()));

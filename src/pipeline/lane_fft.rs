@@ -19,18 +19,39 @@ use rustfft::num_complex::Complex32;
 /// Transforms per call, one per lane of a 512-bit vector of f32.
 pub const LANES: usize = 16;
 
-/// The fused path's resampling, as the source of the transform's input:
-/// sample j < k is factor[j]·(a·y[i] + (1 − a)·y[i+1] + lc·m[i] + rc·m[i+1])
-/// with i = interval[j], a = left_weight[j] (lc, rc = left and right
-/// curvature weights, used when `cubic`); samples from k on are zero (the
-/// FFT's padding). y and m hold one A-line per lane.
-pub struct Resampled<'a> {
+/// The fused path's interpolation onto the k grid, k samples long: sample
+/// j is factor[j]·(a·y[i] + (1 − a)·y[i+1] + lc·m[i] + rc·m[i+1]) with
+/// i = interval[j], a = left_weight[j], and lc, rc the left and right
+/// curvature weights (used when `cubic`; m holds the spline's second
+/// derivatives).
+#[derive(Clone, Copy)]
+pub struct Interpolation<'a> {
     pub interval: &'a [u32],
     pub left_weight: &'a [f32],
     pub left_curvature: &'a [f32],
     pub right_curvature: &'a [f32],
     pub factor: &'a [Complex32],
     pub cubic: bool,
+}
+
+impl Interpolation<'_> {
+    /// The first `n` samples only.
+    pub fn head(&self, n: usize) -> Self {
+        Interpolation {
+            interval: &self.interval[..n],
+            left_weight: &self.left_weight[..n],
+            left_curvature: &self.left_curvature[..n],
+            right_curvature: &self.right_curvature[..n],
+            factor: &self.factor[..n],
+            cubic: self.cubic,
+        }
+    }
+}
+
+/// The transform's input as the interpolation of y and m (one A-line per
+/// lane); samples from k on are zero (the FFT's padding).
+pub struct Resampled<'a> {
+    pub table: Interpolation<'a>,
     pub y: &'a [[f32; LANES]],
     pub m: &'a [[f32; LANES]],
 }
@@ -122,10 +143,10 @@ impl LaneFft {
     #[cfg(target_arch = "x86_64")]
     #[target_feature(enable = "avx512f,fma")]
     pub unsafe fn forward_resampled(&self, x: &mut [LaneComplex], r: &Resampled<'_>) {
-        let k = r.interval.len();
+        let k = r.table.interval.len();
         assert!(x.len() == self.len && k <= self.len, "lane FFT length");
-        assert!(r.left_weight.len() == k && r.factor.len() == k && (!r.cubic || (r.left_curvature.len() == k && r.right_curvature.len() == k)));
-        assert!(r.interval.iter().all(|&i| (i as usize) + 1 < r.y.len() && (!r.cubic || (i as usize) + 1 < r.m.len())));
+        assert!(r.table.left_weight.len() == k && r.table.factor.len() == k && (!r.table.cubic || (r.table.left_curvature.len() == k && r.table.right_curvature.len() == k)));
+        assert!(r.table.interval.iter().all(|&i| (i as usize) + 1 < r.y.len() && (!r.table.cubic || (i as usize) + 1 < r.m.len())));
         let p = x.as_mut_ptr();
         // SAFETY: indices are checked above; x has self.len elements.
         unsafe {
@@ -270,19 +291,19 @@ mod kernels {
     #[target_feature(enable = "avx512f,fma")]
     unsafe fn resampled(r: &super::Resampled<'_>, j: usize) -> V {
         unsafe {
-            if j >= r.interval.len() {
+            if j >= r.table.interval.len() {
                 return V { re: _mm512_setzero_ps(), im: _mm512_setzero_ps() };
             }
-            let i = *r.interval.get_unchecked(j) as usize;
-            let w = *r.left_weight.get_unchecked(j);
+            let i = *r.table.interval.get_unchecked(j) as usize;
+            let w = *r.table.left_weight.get_unchecked(j);
             let (y, m) = (r.y.as_ptr(), r.m.as_ptr());
             let mut acc = _mm512_mul_ps(_mm512_set1_ps(w), _mm512_loadu_ps(y.add(i).cast()));
             acc = _mm512_fmadd_ps(_mm512_set1_ps(1.0 - w), _mm512_loadu_ps(y.add(i + 1).cast()), acc);
-            if r.cubic {
-                acc = _mm512_fmadd_ps(_mm512_set1_ps(*r.left_curvature.get_unchecked(j)), _mm512_loadu_ps(m.add(i).cast()), acc);
-                acc = _mm512_fmadd_ps(_mm512_set1_ps(*r.right_curvature.get_unchecked(j)), _mm512_loadu_ps(m.add(i + 1).cast()), acc);
+            if r.table.cubic {
+                acc = _mm512_fmadd_ps(_mm512_set1_ps(*r.table.left_curvature.get_unchecked(j)), _mm512_loadu_ps(m.add(i).cast()), acc);
+                acc = _mm512_fmadd_ps(_mm512_set1_ps(*r.table.right_curvature.get_unchecked(j)), _mm512_loadu_ps(m.add(i + 1).cast()), acc);
             }
-            let f = *r.factor.get_unchecked(j);
+            let f = *r.table.factor.get_unchecked(j);
             V { re: _mm512_mul_ps(acc, _mm512_set1_ps(f.re)), im: _mm512_mul_ps(acc, _mm512_set1_ps(f.im)) }
         }
     }
@@ -420,7 +441,8 @@ mod tests {
             let lc: Vec<f32> = (0..k).map(|j| -((j % 7) as f32) * 0.01).collect();
             let rc: Vec<f32> = (0..k).map(|j| -((j % 5) as f32) * 0.02).collect();
             let factor: Vec<Complex32> = (0..k).map(|j| Complex32::from_polar(1.0, j as f32 * 0.1)).collect();
-            let r = Resampled { interval: &interval, left_weight: &left_weight, left_curvature: &lc, right_curvature: &rc, factor: &factor, cubic: true, y: &y, m: &m };
+            let table = Interpolation { interval: &interval, left_weight: &left_weight, left_curvature: &lc, right_curvature: &rc, factor: &factor, cubic: true };
+            let r = Resampled { table, y: &y, m: &m };
             let plan = LaneFft::new(len).expect("plan");
             let mut fused = vec![LaneComplex::default(); len];
             let mut separate = vec![LaneComplex::default(); len];
