@@ -372,8 +372,9 @@ impl FusedPlan {
             rows: vec![0.0; LANES * (self.pixels + ROW_PAD)],
             y: LaneBuffer::new(self.pixels),
             m: LaneBuffer::new(self.pixels),
-            buf: vec![Complex32::new(0.0, 0.0); LANES * (self.fft_length + FFT_ROW_PAD)],
-            scratch: vec![Complex32::new(0.0, 0.0); self.fft_scratch],
+            // The FFT rows and rustfft's scratch serve the per-line path only.
+            buf: vec![Complex32::new(0.0, 0.0); if self.lane_fft.is_some() { 0 } else { LANES * (self.fft_length + FFT_ROW_PAD) }],
+            scratch: vec![Complex32::new(0.0, 0.0); if self.lane_fft.is_some() { 0 } else { self.fft_scratch }],
             lanes: vec![LaneComplex::default(); if self.lane_fft.is_some() { self.fft_length } else { 0 }],
         }
     }
