@@ -53,6 +53,12 @@ type Lane = [f32; LANES];
 const DB_PER_LOG2: f32 = 10.0 * std::f32::consts::LOG10_2;
 /// Degree of the log2 polynomial (see [`FastLog2`]).
 const LOG2_DEGREE: usize = 6;
+/// The log2 range reduction, shared by the scalar, AVX2 and AVX-512 code:
+/// the bits of 0.75 (x = 2^e·m with m ∈ [0.75, 1.5)), and the map of m onto
+/// the polynomial's u ∈ [−1, 1): u = (m − 1.125) / 0.375.
+const LOG2_RANGE_BITS: i32 = 0x3f40_0000;
+const LOG2_CENTRE: f32 = 1.125;
+const LOG2_INV_HALF_WIDTH: f32 = 1.0 / 0.375;
 
 /// A camera sample type.
 pub trait Sample: Copy + Send + Sync + 'static {
@@ -104,9 +110,9 @@ impl FastLog2 {
     pub fn log2(&self, x: f32) -> f32 {
         // x = 2^e · m with m ∈ [0.75, 1.5): subtract the bits of 0.75.
         let bits = x.to_bits() as i32;
-        let e = (bits - 0x3f40_0000) >> 23;
+        let e = (bits - LOG2_RANGE_BITS) >> 23;
         let m = f32::from_bits((bits - (e << 23)) as u32);
-        let u = (m - 1.125) * (1.0 / 0.375);
+        let u = (m - LOG2_CENTRE) * LOG2_INV_HALF_WIDTH;
         let mut p = self.c[LOG2_DEGREE];
         for k in (0..LOG2_DEGREE).rev() {
             p = p * u + self.c[k];
@@ -917,14 +923,15 @@ mod lanes {
         }
     }
 
-    /// [`super::FastLog2::log2`] on 16 values (the same operations).
+    /// [`super::FastLog2::log2`] on 16 values (the same operations, in the
+    /// same order, as the scalar and the AVX2 versions).
     #[inline]
     #[target_feature(enable = "avx512f")]
     fn log2_ps(x: __m512, c: &[f32; super::LOG2_DEGREE + 1]) -> __m512 {
         let bits = _mm512_castps_si512(x);
-        let e = _mm512_srai_epi32::<23>(_mm512_sub_epi32(bits, _mm512_set1_epi32(0x3f40_0000)));
+        let e = _mm512_srai_epi32::<23>(_mm512_sub_epi32(bits, _mm512_set1_epi32(super::LOG2_RANGE_BITS)));
         let m = _mm512_castsi512_ps(_mm512_sub_epi32(bits, _mm512_slli_epi32::<23>(e)));
-        let u = _mm512_mul_ps(_mm512_sub_ps(m, _mm512_set1_ps(1.125)), _mm512_set1_ps(1.0 / 0.375));
+        let u = _mm512_mul_ps(_mm512_sub_ps(m, _mm512_set1_ps(super::LOG2_CENTRE)), _mm512_set1_ps(super::LOG2_INV_HALF_WIDTH));
         let mut p = _mm512_set1_ps(c[super::LOG2_DEGREE]);
         for k in (0..super::LOG2_DEGREE).rev() {
             p = _mm512_add_ps(_mm512_mul_ps(p, u), _mm512_set1_ps(c[k]));
@@ -1201,9 +1208,9 @@ mod avx2 {
     #[inline(always)]
     unsafe fn log2_ps(x: __m256, c: &[f32; super::LOG2_DEGREE + 1]) -> __m256 {
         let bits = _mm256_castps_si256(x);
-        let e = _mm256_srai_epi32::<23>(_mm256_sub_epi32(bits, _mm256_set1_epi32(0x3f40_0000)));
+        let e = _mm256_srai_epi32::<23>(_mm256_sub_epi32(bits, _mm256_set1_epi32(super::LOG2_RANGE_BITS)));
         let m = _mm256_castsi256_ps(_mm256_sub_epi32(bits, _mm256_slli_epi32::<23>(e)));
-        let u = _mm256_mul_ps(_mm256_sub_ps(m, _mm256_set1_ps(1.125)), _mm256_set1_ps(1.0 / 0.375));
+        let u = _mm256_mul_ps(_mm256_sub_ps(m, _mm256_set1_ps(super::LOG2_CENTRE)), _mm256_set1_ps(super::LOG2_INV_HALF_WIDTH));
         let mut p = _mm256_set1_ps(c[super::LOG2_DEGREE]);
         // Multiply then add, not FMA: bit for bit what the scalar code does,
         // so the image and row outputs are identical (tested).

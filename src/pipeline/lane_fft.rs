@@ -106,14 +106,6 @@ impl LaneFft {
         Some(LaneFft { len, twiddles, position })
     }
 
-    pub fn len(&self) -> usize {
-        self.len
-    }
-
-    pub fn is_empty(&self) -> bool {
-        self.len == 0
-    }
-
     /// Where frequency bin `bin` is after [`Self::forward`].
     #[inline(always)]
     pub fn position(&self, bin: usize) -> usize {
