@@ -134,7 +134,9 @@ mod tests {
 
     #[test]
     fn packing_rounds_clamps_and_zeroes_nan() {
-        // (d − (−240 dB)) / 0.01 dB, rounded to nearest; outside the uint16
+        // CF conventions 1.11, §8.1 (packed data): unpacked = packed ·
+        // scale_factor + add_offset, so packed = (d − (−240 dB)) / 0.01 dB,
+        // rounded to nearest; outside the uint16
         // range clamped; NaN (never produced, but not undefined) to 0.
         let d = ndarray::arr2(&[[-300.0f32, -240.0, 0.0, 12.344], [415.35, 500.0, f32::NAN, -239.996]]);
         let p = pack_db(&d);
