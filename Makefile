@@ -2,7 +2,7 @@
 # `make demo` and `make test` install what they need on a fresh Debian 12
 # machine (as root): libhdf5-dev (and fontconfig + a font for plots) with
 # apt-get, slurm-wlm for the single-node cluster test, numpy/scipy/h5py
-# with pip.
+# (cross-checks) and Pillow (independent PNG decoding) with pip.
 
 CARGO  ?= cargo
 PYTHON ?= python3
@@ -27,9 +27,9 @@ deps-test:
 	@$(MAKE) --no-print-directory deps-system APT_PACKAGES="$(APT_PACKAGES) slurm-wlm"
 
 deps-python:
-	@if ! $(PYTHON) -c "import numpy, scipy, h5py" >/dev/null 2>&1; then \
-	  echo "== installing numpy, scipy, h5py (pip)"; \
-	  $(PYTHON) -m pip install -q numpy scipy h5py; \
+	@if ! $(PYTHON) -c "import numpy, scipy, h5py, PIL" >/dev/null 2>&1; then \
+	  echo "== installing numpy, scipy, h5py, pillow (pip)"; \
+	  $(PYTHON) -m pip install -q numpy scipy h5py pillow; \
 	fi
 
 build: deps-system

@@ -78,6 +78,17 @@ pub struct AveragingRecord {
     pub noise_sd_reduction_db: f64,
 }
 
+/// How en-face.png was made from `/en_face_db`.
+#[derive(Debug, Serialize)]
+pub struct EnFaceRecord {
+    /// Depth slab projected (first and last pixel centre, µm in air).
+    pub depth_um: [f64; 2],
+    pub projection: Projection,
+    /// dB mapped to black and to white (the 1st and 99.5th percentiles).
+    pub grey_black_db: f64,
+    pub grey_white_db: f64,
+}
+
 #[derive(Debug, Serialize)]
 pub struct Timing {
     pub note: &'static str,
@@ -106,6 +117,8 @@ pub struct ProcessingLog {
     pub dispersion_estimate: Option<crate::calibration::dispersion::DispersionEstimate>,
     pub frames: Vec<FrameRecord>,
     pub averaging: Option<AveragingRecord>,
+    /// The en face projection's grey mapping, when one was written.
+    pub en_face: Option<EnFaceRecord>,
     pub outputs: Vec<String>,
     pub warnings: Vec<String>,
     pub timing: Timing,
@@ -464,6 +477,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     })?;
     warnings.extend(frame_warnings);
     let t = Instant::now();
+    let mut en_face_record = None;
     if config.volume.en_face {
         let name = "en-face.png";
         let mut sorted: Vec<f32> = en_face.clone();
@@ -472,9 +486,11 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         let (black, white) = (pick(0.01), pick(0.995).max(pick(0.01) + 1e-3));
         png::write_grey(&staging.path(name), alines, positions, &grey_levels(&en_face, black, white, max_grey), lc.bit_depth)?;
         outputs.push(name.into());
+        let slab = [depth_um[en_face_range.0], depth_um[en_face_range.1 - 1]];
         if let Some(v) = &volume {
-            v.write_en_face(&en_face, positions, alines, [depth_um[en_face_range.0], depth_um[en_face_range.1 - 1]])?;
+            v.write_en_face(&en_face, positions, alines, slab)?;
         }
+        en_face_record = Some(EnFaceRecord { depth_um: slab, projection: config.volume.en_face_projection, grey_black_db: black, grey_white_db: white });
     }
     let sha256 = match (sha_now, hasher) {
         (Some(s), _) => s,
@@ -523,6 +539,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         dispersion_estimate,
         frames: records,
         averaging: averaging_record,
+        en_face: en_face_record,
         outputs,
         warnings,
         timing: Timing {

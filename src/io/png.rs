@@ -36,8 +36,10 @@ pub fn write_grey(path: &Path, width: usize, height: usize, levels: &[u16], bit_
             encoder.write_image(&bytes, w, h, ExtendedColorType::L8)
         }
         _ => {
-            // PNG stores 16-bit samples big-endian.
-            let bytes: Vec<u8> = levels.iter().flat_map(|v| v.to_be_bytes()).collect();
+            // PNG stores 16-bit samples big-endian, but the encoder takes
+            // them in native order and reorders them itself: handing it
+            // big-endian bytes swapped them twice.
+            let bytes: Vec<u8> = levels.iter().flat_map(|v| v.to_ne_bytes()).collect();
             encoder.write_image(&bytes, w, h, ExtendedColorType::L16)
         }
     }

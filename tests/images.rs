@@ -1,0 +1,86 @@
+//! Every kind of image fringeflow writes, decoded by an independent reader
+//! (Pillow, via tests/decode_images.py) and compared with the numbers it
+//! was made from: 8- and 16-bit B-scans and en face projections against
+//! volume.h5 (read with h5py) under the grey levels log.json records; the
+//! dispersion sweep's contact sheet against sweep.json; the plots decoded.
+//! PNG itself stores 16-bit samples big-endian (PNG specification, W3C
+//! 2003, §7.1); a byte-swapped writer fails here with differences of
+//! thousands of grey levels.
+
+mod common;
+use common::*;
+use std::path::Path;
+use std::process::Command;
+
+fn decode(args: &[&std::ffi::OsStr]) {
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/decode_images.py");
+    let o = Command::new("python3")
+        .arg(&script)
+        .args(args)
+        .output()
+        .expect("python3 with Pillow, numpy and h5py (make test installs them)");
+    let text = String::from_utf8_lossy(&o.stdout);
+    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.success(), "decode check failed: {text}");
+    assert!(text.contains("ok "), "nothing was checked: {text}");
+}
+
+const SCENE: &str = r#"
+seed = 21
+frames = 3
+alines = 48
+background_lines = 8
+[spectrometer]
+pixels = 512
+start_nm = 790.0
+stop_nm = 890.0
+nonlinearity_nm = [2.0, 0.5]
+[detector]
+dtype = "u16"
+[sample]
+surface_um = 150.0
+sag_um = 40.0
+[[sample.layers]]
+thickness_um = 120.0
+group_index = 1.4
+top_reflectivity = 1e-4
+scatterers = 20
+scatterer_reflectivity = 1e-6
+"#;
+
+#[test]
+fn bscans_and_en_face_decode_to_the_volume_at_8_and_16_bits() {
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "layers", SCENE);
+    for (bits, volume_type) in [(8, "float32"), (16, "float32"), (16, "uint16")] {
+        let out = dir.path().join(format!("out{bits}-{volume_type}"));
+        let pipeline = format!(
+            "[log_compression]\nbit_depth = {bits}\n[volume]\nen_face = true\n[output]\nvolume_type = \"{volume_type}\"\n"
+        );
+        run_ok(dir.path(), &[&capture], &pipeline, &out);
+        decode(&["bscans".as_ref(), out.join("layers").as_os_str()]);
+    }
+}
+
+#[test]
+fn contact_sheet_and_plots_decode() {
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "layers", SCENE);
+    let sweep = dir.path().join("sweep");
+    let o = Command::new(bin())
+        .env("HDF5_USE_FILE_LOCKING", "FALSE")
+        .args(["dispersion", "sweep"])
+        .arg(&capture)
+        .args(["--a2", "-20:20:20", "--out"])
+        .arg(&sweep)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    decode(&["sheet".as_ref(), sweep.as_os_str()]);
+
+    let (mirror, _) = simulate_scene(dir.path(), "mirror", &mirror_scene(400.0, ""));
+    let psf_plot = dir.path().join("psf.png");
+    let o = Command::new(bin()).env("HDF5_USE_FILE_LOCKING", "FALSE").args(["measure", "psf"]).arg(&mirror).arg("--plot").arg(&psf_plot).output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    decode(&["plot".as_ref(), psf_plot.as_os_str(), sweep.join("metric.png").as_os_str()]);
+}
