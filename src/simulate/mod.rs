@@ -18,6 +18,8 @@
 //! folded into the reflector's depth. Sample–sample terms are included
 //! between interfaces and mirrors, not for scatterers.
 
+pub mod beam;
+mod kernels;
 pub mod scene;
 
 use anyhow::{Context, Result};
@@ -35,6 +37,8 @@ use crate::io::h5::{create_file, write_1d, write_attr, write_attr_str};
 use crate::io::staging::write_atomically;
 use crate::physics::{self, fused_silica_chirp_rad, wavenumber_per_um};
 use crate::io::capture::SampleType;
+use beam::ScannedSample;
+use kernels::{add_fringe, FringeTables};
 use scene::{Scene, SpectrometerSpec, SpectrumShape};
 
 /// The spectrometer's per-pixel wavelength map, nm.
@@ -86,6 +90,39 @@ pub struct Truth {
     pub dispersion: DispersionTruth,
     pub reflectors: Vec<scene::Reflector>,
     pub interfaces: Vec<InterfaceTruth>,
+    /// Scanned scenes: timing, the sample's motion per frame, vessels.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub scan: Option<ScanTruth>,
+}
+
+/// Ground truth of a scanned scene.
+#[derive(Debug, Clone, Serialize)]
+pub struct ScanTruth {
+    pub aline_period_us: f64,
+    /// Time from the first A-line of one B-scan to the next, µs.
+    pub frame_period_us: f64,
+    pub aline_spacing_um: f64,
+    pub position_spacing_um: f64,
+    /// Centre wavelength of the band (λ of the middle wavenumber), nm.
+    pub band_centre_nm: f64,
+    /// Per frame: the sample's displacement at the frame's first A-line
+    /// (lateral µm along the fast axis, axial µm of optical depth; bulk
+    /// drift included) and the same in pixels: A-lines, and depth pixels of
+    /// `depth_spacing_um` (no zero-padding).
+    pub frames: Vec<FrameMotion>,
+    pub vessels: Vec<beam::VesselTruth>,
+    /// `<stem>.truth.h5` with the axial velocity field, when there are vessels.
+    pub velocity_field: Option<String>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct FrameMotion {
+    pub frame: usize,
+    pub time_us: f64,
+    pub lateral_um: f64,
+    pub axial_um: f64,
+    pub lateral_px: f64,
+    pub axial_px: f64,
 }
 
 /// Precomputed per-pixel quantities.
@@ -96,6 +133,21 @@ struct Optics {
     pixel_dk: Vec<f64>,
     chirp: Vec<f64>,
     pattern: Vec<f64>,
+    /// 2·k per pixel and 2·σ_k², the fringe kernel's tables.
+    two_k: Vec<f64>,
+    two_sigma2: Vec<f64>,
+}
+
+impl Optics {
+    fn tables(&self) -> FringeTables<'_> {
+        FringeTables {
+            two_k: &self.two_k,
+            chirp: &self.chirp,
+            two_sigma2: &self.two_sigma2,
+            pixel_dk: &self.pixel_dk,
+            roll_off: self.sigma_k.iter().any(|&s| s > 0.0) || self.pixel_dk.iter().any(|&d| d > 0.0),
+        }
+    }
 }
 
 fn source_spectrum(scene: &Scene, k: f64) -> f64 {
@@ -131,11 +183,11 @@ fn optics(scene: &Scene, wl: &[f64]) -> Optics {
     let spectrum = k.iter().map(|&kk| source_spectrum(scene, kk)).collect();
     let res = scene.spectrometer.resolution_nm * 1e-3;
     let fwhm_to_sigma = 1.0 / (2.0 * (2.0 * std::f64::consts::LN_2).sqrt());
-    let sigma_k = wl
+    let sigma_k: Vec<f64> = wl
         .iter()
         .map(|&l| 2.0 * std::f64::consts::PI * res / (l * 1e-3).powi(2) * fwhm_to_sigma)
         .collect();
-    let pixel_dk = (0..n)
+    let pixel_dk: Vec<f64> = (0..n)
         .map(|p| {
             if !scene.spectrometer.pixel_integration {
                 return 0.0;
@@ -152,17 +204,34 @@ fn optics(scene: &Scene, wl: &[f64]) -> Optics {
     let pattern = (0..n)
         .map(|_| scene.detector.fixed_pattern_counts * rng.sample::<f64, _>(StandardNormal))
         .collect();
-    Optics { k, spectrum, sigma_k, pixel_dk, chirp, pattern }
+    let two_k = k.iter().map(|&kk| 2.0 * kk).collect();
+    let two_sigma2 = sigma_k.iter().map(|&s: &f64| 2.0 * s * s).collect();
+    Optics { k, spectrum, sigma_k, pixel_dk, chirp, pattern, two_k, two_sigma2 }
 }
 
 /// Lateral and slow-axis depth offset of the sample at A-line `a` of frame `f`.
 fn sample_offset(scene: &Scene, a: usize, f: usize) -> f64 {
-    let Some(s) = &scene.sample else { return 0.0 };
     let u = if scene.alines > 1 { a as f64 / (scene.alines - 1) as f64 } else { 0.5 };
     let positions = scene.frames / scene.repeats;
     let position = f / scene.repeats;
     let v = if positions > 1 { position as f64 / (positions - 1) as f64 } else { 0.5 };
+    sample_offset_at(scene, u, v)
+}
+
+/// The same at fractions u of the fast-axis and v of the slow-axis extent
+/// (0 at the first, 1 at the last A-line or position).
+fn sample_offset_at(scene: &Scene, u: f64, v: f64) -> f64 {
+    let Some(s) = &scene.sample else { return 0.0 };
     s.sag_um * (2.0 * u - 1.0).powi(2) + s.tilt_um * (u - 0.5) + s.frame_tilt_um * (v - 0.5)
+}
+
+/// Fractions (u, v) of the scan of a point (x, y) µm in a scanned scene.
+fn scan_fractions(scene: &Scene, x: f64, y: f64) -> (f64, f64) {
+    let scan = scene.scan.as_ref().expect("scanned scene");
+    let positions = scene.frames / scene.repeats;
+    let u = if scene.alines > 1 { x / ((scene.alines - 1) as f64 * scan.aline_spacing_um) } else { 0.5 };
+    let v = if positions > 1 { y / ((positions - 1) as f64 * scan.position_spacing_um) } else { 0.5 };
+    (u, v)
 }
 
 /// Interfaces of the layered sample: (centre depth, reflectivity), top first.
@@ -180,44 +249,63 @@ fn interfaces(scene: &Scene) -> Vec<(f64, f64)> {
 
 /// One A-line's spectrum in counts, before noise and clipping.
 /// `sample_arm` false gives the blocked-sample-arm background. `rng` draws
-/// the scatterers: seeded by position, so repeated B-scans see the same sample.
-fn clean_spectrum(scene: &Scene, o: &Optics, a: usize, f: usize, sample_arm: bool, rng: &mut ChaCha8Rng, out: &mut [f64]) {
-    // (depth, reflectivity, takes part in sample–sample terms)
-    let mut reflectors: Vec<(f64, f64, bool)> = Vec::new();
+/// the scatterers: seeded by position, so repeated B-scans see the same
+/// sample. In a scanned scene the scatterers come from `scanned` instead.
+fn clean_spectrum(scene: &Scene, o: &Optics, a: usize, f: usize, sample_arm: bool, rng: &mut ChaCha8Rng, scanned: Option<&ScannedSample>, out: &mut [f64]) {
+    // Reflectors that take part in sample–sample terms (depth,
+    // reflectivity), and the rest (depth, fringe amplitude 2·√R·weight).
+    let mut coupled: Vec<(f64, f64)> = Vec::new();
+    let mut scatterers: Vec<(f64, f64)> = Vec::new();
+    let mut dc = 1.0;
     if sample_arm {
-        reflectors.extend(scene.reflectors.iter().map(|r| (r.depth_um, r.reflectivity, true)));
-        let offset = sample_offset(scene, a, f);
+        let (offset, dz) = match scanned {
+            Some(sc) => {
+                let [bx, by] = sc.beam_in_sample(scene, f, a);
+                let (u, v) = scan_fractions(scene, bx, by);
+                (sample_offset_at(scene, u, v), sc.displacement(scene, f, a)[1])
+            }
+            None => (sample_offset(scene, a, f), 0.0),
+        };
+        coupled.extend(scene.reflectors.iter().map(|r| (r.depth_um + dz, r.reflectivity)));
         let ifs = interfaces(scene);
-        reflectors.extend(ifs.iter().map(|&(z, r)| (z + offset, r, true)));
-        if let Some(s) = &scene.sample {
-            for (i, layer) in s.layers.iter().enumerate() {
-                let (top, bottom) = (ifs[i].0 + offset, ifs[i + 1].0 + offset);
-                for _ in 0..layer.scatterers {
-                    let z = top + (bottom - top) * rng.random::<f64>();
-                    let r = layer.scatterer_reflectivity * rng.sample::<f64, _>(Exp1);
-                    reflectors.push((z, r, false));
+        coupled.extend(ifs.iter().map(|&(z, r)| (z + offset + dz, r)));
+        match scanned {
+            Some(sc) => sc.scatterers_seen(scene, f, a, &mut scatterers),
+            None => {
+                if let Some(s) = &scene.sample {
+                    for (i, layer) in s.layers.iter().enumerate() {
+                        let (top, bottom) = (ifs[i].0 + offset, ifs[i + 1].0 + offset);
+                        for _ in 0..layer.scatterers {
+                            let z = top + (bottom - top) * rng.random::<f64>();
+                            let r = layer.scatterer_reflectivity * rng.sample::<f64, _>(Exp1);
+                            scatterers.push((z, 2.0 * r.sqrt()));
+                        }
+                    }
                 }
             }
         }
+        dc += coupled.iter().map(|r| r.1).sum::<f64>() + scatterers.iter().map(|s| 0.25 * s.1 * s.1).sum::<f64>();
+        coupled.retain(|r| r.1 > 0.0);
     }
-    let dc: f64 = 1.0 + reflectors.iter().map(|r| r.1).sum::<f64>();
-    let coupled: Vec<(f64, f64)> = reflectors.iter().filter(|r| r.2 && r.1 > 0.0).map(|r| (r.0, r.1)).collect();
+    out.fill(dc);
+    let tables = o.tables();
+    for &(z, r) in &coupled {
+        add_fringe(&tables, 2.0 * r.sqrt(), z, true, out);
+    }
+    for &(z, amplitude) in &scatterers {
+        if amplitude > 0.0 {
+            add_fringe(&tables, amplitude, z, true, out);
+        }
+    }
+    for i in 0..coupled.len() {
+        for j in i + 1..coupled.len() {
+            let dz = coupled[j].0 - coupled[i].0;
+            add_fringe(&tables, 2.0 * (coupled[i].1 * coupled[j].1).sqrt(), dz, false, out);
+        }
+    }
     let d = &scene.detector;
-    for (p, v) in out.iter_mut().enumerate() {
-        let k = o.k[p];
-        let mut s = dc;
-        for &(z, r, _) in &reflectors {
-            if r > 0.0 {
-                s += 2.0 * r.sqrt() * visibility(o, p, z) * (2.0 * k * z + o.chirp[p]).cos();
-            }
-        }
-        for i in 0..coupled.len() {
-            for j in i + 1..coupled.len() {
-                let dz = coupled[j].0 - coupled[i].0;
-                s += 2.0 * (coupled[i].1 * coupled[j].1).sqrt() * visibility(o, p, dz) * (2.0 * k * dz).cos();
-            }
-        }
-        *v = d.reference_counts * o.spectrum[p] * s;
+    for (v, s) in out.iter_mut().zip(o.spectrum.iter()) {
+        *v *= d.reference_counts * s;
     }
 }
 
@@ -242,7 +330,7 @@ fn detect(scene: &Scene, o: &Optics, rng: &mut ChaCha8Rng, line: &mut [f64]) {
 }
 
 /// Simulates `rows` spectra of frame `f` (or background rows when `sample_arm` is false).
-fn simulate_rows(scene: &Scene, o: &Optics, f: usize, rows: usize, sample_arm: bool) -> Array2<f64> {
+fn simulate_rows(scene: &Scene, o: &Optics, f: usize, rows: usize, sample_arm: bool, scanned: Option<&ScannedSample>) -> Array2<f64> {
     let pixels = o.k.len();
     let mut out = Array2::<f64>::zeros((rows, pixels));
     out.as_slice_mut()
@@ -257,7 +345,7 @@ fn simulate_rows(scene: &Scene, o: &Optics, f: usize, rows: usize, sample_arm: b
             sample_rng.set_stream(kind | (1 << 61) | (((f / scene.repeats) as u64) << 32) | a as u64);
             let mut noise_rng = ChaCha8Rng::seed_from_u64(scene.seed);
             noise_rng.set_stream(kind | ((f as u64) << 32) | a as u64);
-            clean_spectrum(scene, o, a, f, sample_arm, &mut sample_rng, line);
+            clean_spectrum(scene, o, a, f, sample_arm, &mut sample_rng, scanned, line);
             detect(scene, o, &mut noise_rng, line);
         });
     out
@@ -352,7 +440,40 @@ pub fn truth(scene: &Scene) -> Truth {
                 depth_um_frame0: (0..scene.alines).map(|a| z + sample_offset(scene, a, 0)).collect(),
             })
             .collect(),
+        scan: None,
     }
+}
+
+/// The scanned part of the truth.
+fn scan_truth(scene: &Scene, sample: &ScannedSample, depth_spacing_um: f64, band_centre_nm: f64, velocity_field: Option<String>) -> ScanTruth {
+    let scan = scene.scan.as_ref().expect("scanned scene");
+    ScanTruth {
+        aline_period_us: scan.aline_period_us,
+        frame_period_us: beam::aline_time_us(scene, scan, 1, 0),
+        aline_spacing_um: scan.aline_spacing_um,
+        position_spacing_um: scan.position_spacing_um,
+        band_centre_nm,
+        frames: (0..scene.frames)
+            .map(|f| {
+                let [lateral, axial] = sample.displacement(scene, f, 0);
+                FrameMotion {
+                    frame: f,
+                    time_us: beam::aline_time_us(scene, scan, f, 0),
+                    lateral_um: lateral,
+                    axial_um: axial,
+                    lateral_px: lateral / scan.aline_spacing_um,
+                    axial_px: axial / depth_spacing_um,
+                }
+            })
+            .collect(),
+        vessels: sample.vessel_truth(),
+        velocity_field,
+    }
+}
+
+/// Path of the velocity-field truth beside a capture: `<stem>.truth.h5`.
+pub fn velocity_truth_path(capture: &Path) -> std::path::PathBuf {
+    capture.with_file_name(format!("{}.truth.h5", capture.file_stem().unwrap_or_default().to_string_lossy()))
 }
 
 /// Path of the truth file beside a capture: `<stem>.truth.json`.
@@ -361,20 +482,44 @@ pub fn truth_path(capture: &Path) -> std::path::PathBuf {
 }
 
 /// Simulates `scene` into the capture file `out` (written atomically) and its
-/// truth file beside it.
+/// truth file beside it (and, with vessels, the velocity field in
+/// `<stem>.truth.h5`). `progress` is called with the frames done so far.
 pub fn simulate(scene: &Scene, out: &Path) -> Result<Truth> {
+    simulate_with_progress(scene, out, &|_| {})
+}
+
+/// [`simulate`] reporting each finished frame.
+pub fn simulate_with_progress(scene: &Scene, out: &Path, progress: &(dyn Fn(usize) + Sync)) -> Result<Truth> {
     let wl = wavelength_map(&scene.spectrometer);
     let o = optics(scene, &wl);
     let pixels = wl.len();
+    let mut scanned = scene.scan.as_ref().map(|_| {
+        ScannedSample::new(scene, &|x, y| {
+            let (u, v) = scan_fractions(scene, x, y);
+            let offset = sample_offset_at(scene, u, v);
+            interfaces(scene).iter().map(|&(z, _)| z + offset).collect()
+        })
+    });
     write_atomically(out, |tmp| {
         let file = create_file(tmp)?;
         let fringes = with_dtype!(scene.detector.dtype, new_dataset, &file, "fringes", &[scene.frames, scene.alines, pixels], &[1, scene.alines, pixels])?;
         write_attr(&fringes, "full_scale", scene.detector.full_scale)?;
         write_attr_str(&fringes, "units", "detector counts")?;
         write_attr_str(&fringes, "axes", "frame,aline,pixel")?;
+        if let Some(scan) = &scene.scan {
+            write_attr(&fringes, "aline_period_us", scan.aline_period_us)?;
+            write_attr(&fringes, "frame_period_us", beam::aline_time_us(scene, scan, 1, 0))?;
+            write_attr(&fringes, "aline_spacing_um", scan.aline_spacing_um)?;
+            write_attr(&fringes, "frame_spacing_um", scan.position_spacing_um)?;
+            write_attr(&fringes, "repeats_per_position", scene.repeats as u32)?;
+        }
         for f in 0..scene.frames {
-            let rows = simulate_rows(scene, &o, f, scene.alines, true);
+            if let Some(sc) = scanned.as_mut() {
+                sc.advance_to_frame(scene, f);
+            }
+            let rows = simulate_rows(scene, &o, f, scene.alines, true, scanned.as_ref());
             with_dtype!(scene.detector.dtype, write_rows, &fringes, &rows, Some(f))?;
+            progress(f + 1);
         }
         let recorded = match scene.spectrometer.recorded_map {
             scene::RecordedMap::True => wl.clone(),
@@ -386,7 +531,7 @@ pub fn simulate(scene: &Scene, out: &Path) -> Result<Truth> {
         let map = write_1d(&file, "wavelength_nm", &recorded)?;
         write_attr_str(&map, "units", "nm")?;
         if scene.background_lines > 0 {
-            let rows = simulate_rows(scene, &o, 0, scene.background_lines, false);
+            let rows = simulate_rows(scene, &o, 0, scene.background_lines, false, None);
             let ds = with_dtype!(scene.detector.dtype, new_dataset, &file, "background", &[scene.background_lines, pixels], &[scene.background_lines, pixels])?;
             with_dtype!(scene.detector.dtype, write_rows, &ds, &rows, None)?;
             write_attr_str(&ds, "description", "spectra recorded with the sample arm blocked")?;
@@ -396,7 +541,35 @@ pub fn simulate(scene: &Scene, out: &Path) -> Result<Truth> {
         Ok(())
     })
     .with_context(|| format!("writing {}", out.display()))?;
-    let t = truth(scene);
+    let mut t = truth(scene);
+    if let Some(sc) = &scanned {
+        let band_centre_nm = {
+            let n = wl.len();
+            physics::wavelength_nm(0.5 * (wavenumber_per_um(wl[0]) + wavenumber_per_um(wl[n - 1])))
+        };
+        let field = if scene.vessels.is_empty() {
+            None
+        } else {
+            let vp = velocity_truth_path(out);
+            let depth_um: Vec<f64> = (0..pixels / 2).map(|i| i as f64 * t.depth_spacing_um).collect();
+            let values = sc.velocity_field(scene, &depth_um);
+            write_atomically(&vp, |tmp| {
+                let file = create_file(tmp)?;
+                let ds = file
+                    .new_dataset_builder()
+                    .with_data(&ndarray::Array3::from_shape_vec((sc.positions(), depth_um.len(), scene.alines), values.clone())?)
+                    .create("axial_velocity_mm_s")?;
+                write_attr_str(&ds, "description", "axial flow velocity on the beam axis, mm/s, positive away from the probe; NaN outside vessels")?;
+                write_attr_str(&ds, "axes", "position,depth,aline")?;
+                write_1d(&file, "depth_um", &depth_um)?;
+                file.close()?;
+                Ok(())
+            })
+            .with_context(|| format!("writing {}", vp.display()))?;
+            Some(vp.file_name().unwrap_or_default().to_string_lossy().into_owned())
+        };
+        t.scan = Some(scan_truth(scene, sc, t.depth_spacing_um, band_centre_nm, field));
+    }
     let json = serde_json::to_vec_pretty(&t)?;
     let tp = truth_path(out);
     write_atomically(&tp, |tmp| Ok(std::fs::write(tmp, &json)?)).with_context(|| format!("writing {}", tp.display()))?;

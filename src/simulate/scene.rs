@@ -4,7 +4,9 @@
 //! wavelength map and spectral resolution), the detector (bit depth, full
 //! scale, noise, fixed pattern), a dispersion mismatch in fused silica, and
 //! what sits in the sample arm: flat mirrors and/or a layered sample with
-//! gently curved interfaces and weak scatterers inside the layers.
+//! gently curved interfaces and weak scatterers inside the layers; and,
+//! with a `[scan]` section, the lateral geometry and timing of the scan,
+//! bulk motion of the sample and vessels of flowing scatterers.
 
 use serde::{Deserialize, Deserializer, Serialize};
 
@@ -217,6 +219,98 @@ pub struct SampleSpec {
     pub bottom_reflectivity: f64,
 }
 
+/// Lateral scan geometry and timing. With it, the sample is a 3-D field of
+/// scatterers seen through a Gaussian beam, so neighbouring A-lines and
+/// repeated B-scans see correlated speckle (what Doppler and angiography
+/// need); without it, each A-line draws its own scatterers.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct ScanSpec {
+    /// Step between neighbouring A-lines (fast axis), µm.
+    #[serde(deserialize_with = "de_positive")]
+    pub aline_spacing_um: f64,
+    /// Step between slow-axis positions, µm.
+    #[serde(deserialize_with = "de_positive")]
+    pub position_spacing_um: f64,
+    /// Time from one A-line to the next, µs.
+    #[serde(deserialize_with = "de_positive")]
+    pub aline_period_us: f64,
+    /// Dead time between B-scans (fly-back), µs.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub frame_gap_us: f64,
+    /// Beam radius at the sample where the intensity falls to 1/e², µm.
+    /// The round-trip field weight of a scatterer at lateral distance r from
+    /// the beam axis is exp(−2r²/w²).
+    #[serde(deserialize_with = "de_positive")]
+    pub beam_radius_um: f64,
+}
+
+impl Default for ScanSpec {
+    fn default() -> Self {
+        ScanSpec { aline_spacing_um: 2.0, position_spacing_um: 4.0, aline_period_us: 20.0, frame_gap_us: 0.0, beam_radius_um: 6.0 }
+    }
+}
+
+/// Motion of the whole sample (needs `[scan]`).
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct MotionSpec {
+    /// Steady axial drift of the sample, mm/s; positive: away from the
+    /// probe (towards larger depth).
+    #[serde(deserialize_with = "de_finite")]
+    pub axial_velocity_mm_s: f64,
+    /// Each repeated B-scan after the first of a position is displaced by a
+    /// random axial shift, uniform in ±this, µm (optical depth).
+    #[serde(deserialize_with = "de_non_negative")]
+    pub repeat_axial_jitter_um: f64,
+    /// The same along the fast axis, µm.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub repeat_lateral_jitter_um: f64,
+}
+
+/// A blood vessel: a straight cylinder of moving scatterers (needs `[scan]`).
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct VesselSpec {
+    /// Fast-axis position of the vessel's axis at the middle slow-axis
+    /// position, µm from the first A-line.
+    #[serde(deserialize_with = "de_finite")]
+    pub lateral_um: f64,
+    /// Optical depth (in air) of the axis there, µm.
+    #[serde(deserialize_with = "de_non_negative")]
+    pub depth_um: f64,
+    #[serde(deserialize_with = "de_positive")]
+    pub radius_um: f64,
+    /// Speed on the axis (Poiseuille profile v = v_max·(1 − r²/R²)), mm/s;
+    /// positive: along the axis direction below.
+    #[serde(deserialize_with = "de_finite")]
+    pub peak_velocity_mm_s: f64,
+    /// Angle between the vessel's axis and the beam, degrees (90: across
+    /// the beam, no axial velocity; below 90 the flow moves away from the probe).
+    #[serde(deserialize_with = "de_finite")]
+    pub angle_deg: f64,
+    /// Direction of the axis en face, degrees from the slow axis towards
+    /// the fast axis (0: the vessel runs along the slow axis).
+    #[serde(default, deserialize_with = "de_finite")]
+    pub azimuth_deg: f64,
+    /// Scatterers per µm³ inside the vessel.
+    #[serde(deserialize_with = "de_positive")]
+    pub scatterer_density_per_um3: f64,
+    /// Mean power reflectivity of a scatterer.
+    #[serde(deserialize_with = "de_reflectivity")]
+    pub scatterer_reflectivity: f64,
+    /// Brownian diffusion coefficient of the scatterers, µm²/s.
+    #[serde(default, deserialize_with = "de_non_negative")]
+    pub diffusion_um2_per_s: f64,
+    /// Group index of blood: optical depth = group index × geometric depth.
+    #[serde(default = "default_blood_index", deserialize_with = "de_positive")]
+    pub group_index: f64,
+}
+
+fn default_blood_index() -> f64 {
+    1.38
+}
+
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
 pub struct Scene {
@@ -239,6 +333,12 @@ pub struct Scene {
     #[serde(rename = "reflector")]
     pub reflectors: Vec<Reflector>,
     pub sample: Option<SampleSpec>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub scan: Option<ScanSpec>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub motion: Option<MotionSpec>,
+    #[serde(rename = "vessel", skip_serializing_if = "Vec::is_empty")]
+    pub vessels: Vec<VesselSpec>,
 }
 
 impl Default for Scene {
@@ -255,6 +355,9 @@ impl Default for Scene {
             dispersion: DispersionSpec::default(),
             reflectors: Vec::new(),
             sample: None,
+            scan: None,
+            motion: None,
+            vessels: Vec::new(),
         }
     }
 }
@@ -280,6 +383,16 @@ impl Scene {
         }
         if scene.source.shape == SpectrumShape::Gaussians && scene.source.components.is_empty() {
             return Err(fail("source", "components", "shape = \"gaussians\" needs at least one component".into()));
+        }
+        if scene.scan.is_none() && (scene.motion.is_some() || !scene.vessels.is_empty()) {
+            let key = if scene.motion.is_some() { "motion" } else { "vessel" };
+            return Err(fail("", key, "needs a [scan] section (lateral spacing, A-line period, beam radius)".into()));
+        }
+        for v in &scene.vessels {
+            let count = super::beam::vessel_scatterer_estimate(&scene, v);
+            if count > 5_000_000.0 {
+                return Err(fail("vessel", "scatterer_density_per_um3", format!("gives about {count:.0} scatterers; keep it under 5 million")));
+            }
         }
         if scene.detector.full_scale > scene.detector.dtype.integer_max().unwrap_or(f64::INFINITY) {
             return Err(fail("detector", "full_scale", format!("{} exceeds the {:?} range", scene.detector.full_scale, scene.detector.dtype)));
