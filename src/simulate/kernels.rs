@@ -10,7 +10,7 @@
 //! exp reduces by ln 2 and sums the Taylor series to degree 13 on
 //! [−ln2/2, ln2/2]. Plain multiplies and adds throughout (no fused
 //! multiply-add), so every instruction set gives the same bits. Checked against the standard library (≤ 1e-14 absolute
-//! for |x| ≤ 1e5 in cos and sin, ≤ 4e-16 relative in exp) in the tests below.
+//! for |x| ≤ 1e5 in cos and sin, ≤ 1e-15 relative in exp) in the tests below.
 //! Must agree with: the plain formulas in `simulate::visibility`.
 
 use std::f64::consts::PI;
