@@ -9,6 +9,7 @@ use fringeflow::pipeline::config::PipelineConfig;
 use fringeflow::pipeline::fused::FusedPlan;
 use fringeflow::pipeline::plan::{CaptureGeometry, Plan};
 use ndarray::Array2;
+use rustfft::num_complex::Complex32;
 
 /// A layered sample with a mirror: many depths, real noise, 12-bit.
 fn scene(dtype: &str, background_lines: usize) -> String {
@@ -55,7 +56,10 @@ fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize) ->
     .unwrap();
     let depth = plan.summary.depth_pixels;
     let mut reference = Array2::<f32>::zeros((capture.alines, depth));
-    plan.process_frame(raw.to_f64().view(), &mut reference, &plan.new_timer());
+    let mut reference_complex = Array2::<Complex32>::zeros((capture.alines, depth));
+    plan.process_frame_complex(raw.to_f64().view(), &mut reference, &mut reference_complex, &plan.new_timer());
+    // The complex profile's modulus is the amplitude the dB values came from.
+    let modulus_error = reference.iter().zip(reference_complex.iter()).map(|(&d, c)| (10f64.powf(d as f64 / 20.0) - c.norm() as f64).abs()).fold(0.0, f64::max);
     let amp = |d: f32| 10f64.powf(d as f64 / 20.0);
     let peak = reference.iter().map(|&d| amp(d)).fold(0.0, f64::max);
     // Both variants of the fast path: lane order with the lane FFT (on
@@ -71,11 +75,21 @@ fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize) ->
         let mut image = Array2::<f32>::zeros((depth, capture.alines));
         fused.process_raw_image(&raw, &mut image, &fused.new_timer());
         assert_eq!(image.t(), fast.view(), "image path differs from the row path (lane FFT: {})", fused.uses_lane_fft());
+        // With the complex depth profile alongside: the same dB bits, and
+        // the complex values within 1e-4 of the peak of the reference's.
+        let mut image2 = Array2::<f32>::zeros((depth, capture.alines));
+        let mut complex = Array2::<Complex32>::zeros((depth, capture.alines));
+        fused.process_raw_image_complex(&raw, &mut image2, &mut complex, &fused.new_timer());
+        assert_eq!(image2, image, "dB image changes when the complex profile is written too");
+        let wc = reference_complex.iter().zip(complex.t().iter()).map(|(r, f)| (r - f).norm() as f64).fold(0.0, f64::max) / peak;
+        eprintln!("  lane FFT {}: complex max |ΔA|/peak {wc:.2e}", fused.uses_lane_fft());
+        assert!(wc <= 1e-4, "complex profile differs from the reference by {wc:e} of the peak");
         let w = reference.iter().zip(fast.iter()).map(|(&r, &f)| (amp(r) - amp(f)).abs()).fold(0.0, f64::max) / peak;
         eprintln!("  lane FFT {}: {w:.2e}", fused.uses_lane_fft());
         worst = worst.max(w);
         outputs.push(fast);
     }
+    assert!(modulus_error / peak <= 1e-6, "reference |complex| vs amplitude: {:e}", modulus_error / peak);
     let between = outputs[0].iter().zip(outputs[1].iter()).map(|(&a, &b)| (amp(a) - amp(b)).abs()).fold(0.0, f64::max) / peak;
     eprintln!("  lane against per-line rustfft: {between:.2e}");
     if !uses_lane_fft {

@@ -271,6 +271,11 @@ pub struct FusedPlan {
     lane_fft: Option<LaneFft>,
     /// Where the lane FFT leaves each depth bin, in depth order.
     lane_bins: Vec<u32>,
+    /// Per kept depth bin: the amplitude scale times e^{+2πi·c·m/M}
+    /// (c = (N−1)/2, m the bin, M the FFT length), which turns the FFT's
+    /// bins into the complex depth profile with its phase referred to the
+    /// band's centre wavenumber (see `complex_depth_factors`).
+    complex_factor: Vec<Complex32>,
     /// 20·log10 of the amplitude scale; floor on |X|².
     db_offset: f32,
     power_floor: f32,
@@ -285,10 +290,17 @@ fn to_f32(v: &[f64]) -> Vec<f32> {
 
 impl FusedPlan {
     pub fn new(plan: &Plan) -> Self {
+        Self::with_spectral_gain(plan, &plan.spectral_gain(), plan.amplitude_scale())
+    }
+
+    /// The plan with another real gain per k sample in place of the
+    /// pipeline's shaping × window (e.g. one sub-band of split-spectrum
+    /// angiography), and `scale` from |FFT| to amplitude.
+    pub fn with_spectral_gain(plan: &Plan, gain: &[f64], scale: f64) -> Self {
         let s = &plan.summary;
         let t = plan.resampling.tables();
         let n = s.k_samples;
-        let gain = plan.spectral_gain();
+        assert_eq!(gain.len(), n);
         let [a2, a3] = plan.dispersion;
         let factor = (0..n)
             .map(|j| {
@@ -305,7 +317,6 @@ impl FusedPlan {
         };
         let tables = PixelOrderSpline::new(&plan.wavelength_nm, plan.resampling.k_min_per_um, plan.resampling.k_max_per_um, n);
         let fft = FftPlanner::<f32>::new().plan_fft_forward(s.fft_length);
-        let scale = plan.amplitude_scale();
         let lane_fft = if lane_fft_available() { LaneFft::new(s.fft_length) } else { None };
         FusedPlan {
             pixels: s.pixels,
@@ -331,6 +342,10 @@ impl FusedPlan {
                 None => Vec::new(),
             },
             lane_fft,
+            complex_factor: complex_depth_factors(scale, n, s.fft_length, s.first_depth_bin, s.depth_pixels)
+                .into_iter()
+                .map(|c| Complex32::new(c.re as f32, c.im as f32))
+                .collect(),
             db_offset: (20.0 * scale.log10()) as f32,
             power_floor: ((AMPLITUDE_FLOOR / scale) * (AMPLITUDE_FLOOR / scale)) as f32,
             log2: FastLog2::new(),
@@ -445,28 +460,57 @@ impl FusedPlan {
     /// Processes a raw frame straight into the B-scan image (depth pixels ×
     /// A-lines, depth down, as shown and stored), dB like the reference.
     pub fn process_raw_image(&self, frame: &RawFrame, image: &mut Array2<f32>, timer: &FusedTimer) {
+        self.raw_image(frame, image, None, timer)
+    }
+
+    /// As [`Self::process_raw_image`], and also the complex depth profile
+    /// (depth × A-lines, amplitude in the same units as the dB image, phase
+    /// referred to the band's centre wavenumber) into `complex`.
+    pub fn process_raw_image_complex(&self, frame: &RawFrame, image: &mut Array2<f32>, complex: &mut Array2<Complex32>, timer: &FusedTimer) {
+        self.raw_image(frame, image, Some(complex), timer)
+    }
+
+    fn raw_image(&self, frame: &RawFrame, image: &mut Array2<f32>, complex: Option<&mut Array2<Complex32>>, timer: &FusedTimer) {
         match frame {
-            RawFrame::U8(a) => self.process_frame_image(a.view(), image, timer),
-            RawFrame::U16(a) => self.process_frame_image(a.view(), image, timer),
-            RawFrame::I16(a) => self.process_frame_image(a.view(), image, timer),
-            RawFrame::U32(a) => self.process_frame_image(a.view(), image, timer),
-            RawFrame::F32(a) => self.process_frame_image(a.view(), image, timer),
-            RawFrame::F64(a) => self.process_frame_image(a.view(), image, timer),
+            RawFrame::U8(a) => self.frame_image(a.view(), image, complex, timer),
+            RawFrame::U16(a) => self.frame_image(a.view(), image, complex, timer),
+            RawFrame::I16(a) => self.frame_image(a.view(), image, complex, timer),
+            RawFrame::U32(a) => self.frame_image(a.view(), image, complex, timer),
+            RawFrame::F32(a) => self.frame_image(a.view(), image, complex, timer),
+            RawFrame::F64(a) => self.frame_image(a.view(), image, complex, timer),
         }
     }
 
     /// As [`Self::process_frame`], but writes the image (depth × A-lines):
     /// each block's dB values go straight into its 16 adjacent columns.
     pub fn process_frame_image<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, timer: &FusedTimer) {
+        self.frame_image(frame, image, None, timer)
+    }
+
+    /// As [`Self::process_frame_image`], and the complex depth profile.
+    pub fn process_frame_image_complex<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, complex: &mut Array2<Complex32>, timer: &FusedTimer) {
+        self.frame_image(frame, image, Some(complex), timer)
+    }
+
+    fn frame_image<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, complex: Option<&mut Array2<Complex32>>, timer: &FusedTimer) {
         let (alines, pixels) = frame.dim();
         assert_eq!(pixels, self.pixels);
         assert_eq!(image.dim(), (self.depth, alines));
+        let complex = complex.map(|c| {
+            assert_eq!(c.dim(), (self.depth, alines));
+            c.as_slice_mut().expect("standard layout").as_mut_ptr()
+        });
         let t = Instant::now();
         let frame = frame.as_standard_layout();
         let reference = self.reference_sorted(frame.view());
         timer.add(0, t);
         let input = frame.as_slice().expect("standard layout");
-        let target = ImagePtr { ptr: image.as_slice_mut().expect("standard layout").as_mut_ptr(), alines, depth: self.depth };
+        let target = ImagePtr {
+            ptr: image.as_slice_mut().expect("standard layout").as_mut_ptr(),
+            complex: complex.unwrap_or(std::ptr::null_mut()),
+            alines,
+            depth: self.depth,
+        };
         input.par_chunks(LANES * pixels).enumerate().for_each(|(b, spectra)| {
             self.with_workspace(|ws| {
                 // Block b writes only columns b·LANES .. b·LANES + lines of
@@ -580,6 +624,10 @@ impl FusedPlan {
         let to_db = avx2::ToDb { log2: &self.log2, power_floor: self.power_floor, db_offset: self.db_offset };
         let bins = &self.lane_bins;
         assert_eq!(bins.len(), depth);
+        let complex_target = match &sink {
+            Sink::Image(image, a0) if !image.complex.is_null() => Some((*image, *a0)),
+            _ => None,
+        };
         let (base, depth_step, line_step) = match sink {
             Sink::Rows(out, stride) => {
                 assert!(lines >= 1 && out.len() >= (lines - 1) * stride + depth);
@@ -595,6 +643,15 @@ impl FusedPlan {
         // lands at base + d·depth_step + l·line_step, inside the sink
         // (asserted above); this block's lines only.
         unsafe { lanes::db(&ws.lanes, bins, &to_db, base, depth_step, line_step, lines) };
+        if let Some((image, a0)) = complex_target {
+            for (d, (&b, f)) in bins.iter().zip(&self.complex_factor).enumerate() {
+                let x = &ws.lanes[b as usize];
+                for l in 0..lines {
+                    // SAFETY: d < depth, a0 + l < alines (asserted above); this block's columns.
+                    unsafe { *image.complex.add(d * image.alines + a0 + l) = Complex32::new(x.re[l], x.im[l]) * f };
+                }
+            }
+        }
         timer.add(3, t2);
     }
 
@@ -760,6 +817,14 @@ impl FusedPlan {
                     for l in 0..lines {
                         // SAFETY: d < depth, a0 + l < alines; this block's columns.
                         unsafe { *image.ptr.add(d * image.alines + a0 + l) = db(&buf[l * fs + self.first_bin + d]) };
+                    }
+                }
+                if !image.complex.is_null() {
+                    for (d, f) in self.complex_factor.iter().enumerate() {
+                        for l in 0..lines {
+                            // SAFETY: as above.
+                            unsafe { *image.complex.add(d * image.alines + a0 + l) = buf[l * fs + self.first_bin + d] * f };
+                        }
                     }
                 }
             }
@@ -940,6 +1005,21 @@ mod lanes {
     }
 }
 
+/// Per kept depth bin m = first_bin + d: scale·e^{+2πi·c·m/M} with
+/// c = (N−1)/2 for N wavenumber samples and an M-point FFT. The FFT sums
+/// over the sample index j from 0; this factor moves the origin to the
+/// band's centre sample, so that a reflector at optical depth z (fringe
+/// cos(2kz)) has phase 2·k_c·z at every bin of its PSF (k_c the centre of
+/// the uniform grid) for a symmetric window: the phase grows with depth,
+/// and motion towards the probe lowers it. The reference engine uses the
+/// same factors.
+pub fn complex_depth_factors(scale: f64, k_samples: usize, fft_length: usize, first_bin: usize, depth: usize) -> Vec<rustfft::num_complex::Complex64> {
+    let c = 0.5 * (k_samples as f64 - 1.0);
+    (first_bin..first_bin + depth)
+        .map(|m| rustfft::num_complex::Complex64::from_polar(scale, 2.0 * std::f64::consts::PI * c * m as f64 / fft_length as f64))
+        .collect()
+}
+
 /// Where a block's dB values go.
 enum Sink<'a> {
     /// Line l at out[l·stride ..][..depth].
@@ -952,6 +1032,8 @@ enum Sink<'a> {
 #[derive(Clone, Copy)]
 struct ImagePtr {
     ptr: *mut f32,
+    /// The complex depth profile (same layout), or null when not wanted.
+    complex: *mut Complex32,
     alines: usize,
     depth: usize,
 }

@@ -9,6 +9,7 @@
 
 use anyhow::{bail, Result};
 use ndarray::{Array2, ArrayView2};
+use rustfft::num_complex::Complex32;
 use rayon::prelude::*;
 use serde::Serialize;
 use std::sync::atomic::{AtomicU64, Ordering};
@@ -275,6 +276,18 @@ impl Plan {
     /// Processes one frame (A-lines × pixels) into `db_out` (A-lines × depth
     /// pixels), in parallel over blocks of A-lines.
     pub fn process_frame(&self, frame: ArrayView2<'_, f64>, db_out: &mut Array2<f32>, timer: &StageTimer) {
+        self.frame(frame, db_out, None, timer)
+    }
+
+    /// As [`Self::process_frame`], and the complex depth profile (A-lines ×
+    /// depth pixels) into `complex_out`: the FFT's kept bins times
+    /// [`crate::pipeline::fused::complex_depth_factors`] (amplitude scale,
+    /// phase referred to the band's centre wavenumber).
+    pub fn process_frame_complex(&self, frame: ArrayView2<'_, f64>, db_out: &mut Array2<f32>, complex_out: &mut Array2<Complex32>, timer: &StageTimer) {
+        self.frame(frame, db_out, Some(complex_out), timer)
+    }
+
+    fn frame(&self, frame: ArrayView2<'_, f64>, db_out: &mut Array2<f32>, complex_out: Option<&mut Array2<Complex32>>, timer: &StageTimer) {
         let (alines, pixels) = frame.dim();
         let depth = self.summary.depth_pixels;
         assert_eq!(pixels, self.summary.pixels);
@@ -290,18 +303,31 @@ impl Plan {
         let frame = frame.as_standard_layout();
         let input = frame.as_slice().expect("standard layout");
         let output = db_out.as_slice_mut().expect("output in standard layout");
+        let s = &self.summary;
+        let factors = complex_out.is_some().then(|| super::fused::complex_depth_factors(self.amplitude_scale, s.k_samples, s.fft_length, s.first_depth_bin, depth));
+        let mut no_complex = Vec::new();
+        let complex = match complex_out {
+            Some(c) => {
+                assert_eq!(c.dim(), (alines, depth));
+                c.as_slice_mut().expect("standard layout")
+            }
+            None => no_complex.as_mut_slice(),
+        };
+        let complex_chunk = if factors.is_some() { BLOCK * depth } else { 1 };
         let ctx = &ctx;
         // Few enough rayon jobs that each worker's buffers are made a handful
         // of times per frame, not once per block.
         let blocks = alines.div_ceil(BLOCK);
         let min_blocks_per_job = (blocks / (4 * rayon::current_num_threads())).max(1);
+        let complex_blocks: Vec<&mut [Complex32]> = if factors.is_some() { complex.chunks_mut(complex_chunk).collect() } else { (0..blocks).map(|_| &mut [][..]).collect() };
         input
             .par_chunks(BLOCK * pixels)
             .zip(output.par_chunks_mut(BLOCK * depth))
+            .zip(complex_blocks.into_par_iter())
             .with_min_len(min_blocks_per_job)
             .for_each_init(
                 || (0..BLOCK).map(|_| self.new_aline()).collect::<Vec<_>>(),
-                |lines, (spectra, out)| {
+                |lines, ((spectra, out), complex)| {
                     let n = spectra.len() / pixels;
                     for (line, spectrum) in lines.iter_mut().zip(spectra.chunks_exact(pixels)) {
                         line.spectrum.copy_from_slice(spectrum);
@@ -315,6 +341,15 @@ impl Plan {
                     }
                     for (line, row) in lines.iter().zip(out.chunks_exact_mut(depth)) {
                         row.copy_from_slice(&line.db);
+                    }
+                    if let Some(f) = &factors {
+                        let first = self.summary.first_depth_bin;
+                        for (line, row) in lines.iter().zip(complex.chunks_exact_mut(depth)) {
+                            for ((c, x), f) in row.iter_mut().zip(&line.field[first..first + depth]).zip(f) {
+                                let v = x * f;
+                                *c = Complex32::new(v.re as f32, v.im as f32);
+                            }
+                        }
                     }
                 },
             );
