@@ -17,12 +17,14 @@
 pub mod analysis;
 pub mod batch;
 pub mod calibration;
+pub mod contrast;
 pub mod design;
 pub mod inspect;
 pub mod io;
 pub mod measure;
 pub mod physics;
 pub mod pipeline;
+pub mod render;
 pub mod run;
 pub mod simulate;
 pub mod stages;

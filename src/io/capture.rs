@@ -113,6 +113,48 @@ pub struct Capture {
     /// Detector full scale (attribute `full_scale` of the fringes, else the
     /// integer type's maximum); samples at or above it count as saturated.
     pub full_scale: Option<f64>,
+    /// Scan timing and geometry from attributes of the fringe dataset, when
+    /// the capture records them.
+    pub scan: ScanAttributes,
+}
+
+/// Optional attributes of the fringe dataset that describe the scan.
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize)]
+pub struct ScanAttributes {
+    /// `aline_period_us`: time from one A-line to the next.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub aline_period_us: Option<f64>,
+    /// `frame_period_us`: time from one B-scan to the next.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub frame_period_us: Option<f64>,
+    /// `aline_spacing_um`: lateral step between A-lines.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub aline_spacing_um: Option<f64>,
+    /// `frame_spacing_um`: step between slow-axis positions.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub frame_spacing_um: Option<f64>,
+}
+
+impl ScanAttributes {
+    pub fn is_empty(&self) -> bool {
+        *self == ScanAttributes::default()
+    }
+}
+
+/// A positive finite numeric attribute; absent → None; present but not a
+/// positive number → an error naming it.
+fn positive_attr(ds: &Dataset, name: &str) -> Result<Option<f64>> {
+    match ds.attr(name) {
+        Err(_) => Ok(None),
+        Ok(a) => {
+            let v = a.read_scalar::<f64>().with_context(|| format!("reading attribute {name}"))?;
+            if v.is_finite() && v > 0.0 {
+                Ok(Some(v))
+            } else {
+                bail!("attribute {name} of the fringes is {v}; it must be a positive number")
+            }
+        }
+    }
 }
 
 impl std::fmt::Debug for Capture {
@@ -278,7 +320,15 @@ impl Capture {
             Err(_) => sample_type.integer_max(),
         };
 
+        let scan = ScanAttributes {
+            aline_period_us: positive_attr(&fringes, "aline_period_us")?,
+            frame_period_us: positive_attr(&fringes, "frame_period_us")?,
+            aline_spacing_um: positive_attr(&fringes, "aline_spacing_um")?,
+            frame_spacing_um: positive_attr(&fringes, "frame_spacing_um")?,
+        };
+
         Ok(Capture {
+            scan,
             path: path.to_path_buf(),
             file,
             fringes,

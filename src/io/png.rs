@@ -48,3 +48,16 @@ pub fn write_grey(path: &Path, width: usize, height: usize, levels: &[u16], bit_
     out.into_inner().map_err(|e| e.into_error())?.sync_all()?;
     Ok(())
 }
+
+/// Writes an RGB image of `width` × `height` (row-major, 3 bytes a pixel).
+pub fn write_rgb8(path: &Path, width: usize, height: usize, bytes: &[u8]) -> Result<()> {
+    assert_eq!(bytes.len(), width * height * 3);
+    let file = std::fs::File::create(path).with_context(|| format!("creating {}", path.display()))?;
+    let mut out = BufWriter::new(file);
+    let encoder = PngEncoder::new_with_quality(&mut out, CompressionType::Fast, FilterType::Adaptive);
+    encoder
+        .write_image(bytes, width as u32, height as u32, ExtendedColorType::Rgb8)
+        .with_context(|| format!("encoding {}", path.display()))?;
+    out.flush().with_context(|| format!("writing {}", path.display()))?;
+    Ok(())
+}

@@ -93,12 +93,50 @@ impl VolumeWriter {
         Ok(())
     }
 
+    /// Creates a further stack `name` of `count` images of depth × A-lines
+    /// (one chunk per image) with string attributes; write it with
+    /// [`write_stack_image`].
+    pub fn add_stack<T: hdf5::H5Type>(&self, name: &str, count: usize, depth: usize, alines: usize, attrs: &[(&str, String)]) -> Result<Dataset> {
+        let ds = self
+            .file
+            .new_dataset::<T>()
+            .shape((count, depth, alines))
+            .chunk((1, depth, alines))
+            .create(name)
+            .map_err(concise)
+            .with_context(|| format!("creating /{name}"))?;
+        for (k, v) in attrs {
+            write_attr_str(&ds, k, v)?;
+        }
+        Ok(ds)
+    }
+
+    /// Writes a 2-D dataset (rows × columns) with string attributes.
+    pub fn write_2d(&self, name: &str, values: &[f32], rows: usize, cols: usize, attrs: &[(&str, String)]) -> Result<()> {
+        let image = ndarray::ArrayView2::from_shape((rows, cols), values)?;
+        let ds = self.file.new_dataset_builder().with_data(&image).create(name).map_err(concise).with_context(|| format!("writing /{name}"))?;
+        for (k, v) in attrs {
+            write_attr_str(&ds, k, v)?;
+        }
+        Ok(())
+    }
+
+    /// A numeric attribute of the file's root.
+    pub fn write_root_attr(&self, name: &str, value: f64) -> Result<()> {
+        write_attr(&self.file, name, value)
+    }
+
     /// Records the input's SHA-256 and closes the file.
     pub fn finish(self, source_sha256: &str) -> Result<()> {
         write_attr_str(&self.file, "source_sha256", source_sha256)?;
         self.file.flush().map_err(concise).context("writing volume.h5")?;
         self.file.close().map_err(concise).context("closing volume.h5")
     }
+}
+
+/// Writes image `index` of a stack made by [`VolumeWriter::add_stack`].
+pub fn write_stack_image<T: hdf5::H5Type>(ds: &Dataset, index: usize, image: &Array2<T>) -> Result<()> {
+    ds.write_slice(image, ndarray::s![index, .., ..]).map_err(concise).with_context(|| format!("writing image {index} of {}", ds.name()))
 }
 
 /// dB to uint16 in PACKED_DB_STEP steps from PACKED_DB_OFFSET, rounded to

@@ -269,11 +269,211 @@ pub struct OutputConfig {
     /// SHA-256) when it is the default.
     #[serde(skip_serializing_if = "VolumeType::is_float32")]
     pub volume_type: VolumeType,
+    /// Also write the complex depth profile of every input frame (after
+    /// dispersion, window and FFT, before log compression) into volume.h5
+    /// as `/complex_depth_profile`, complex64. Left out of the serialised
+    /// pipeline when off.
+    #[serde(skip_serializing_if = "is_false")]
+    pub complex: bool,
+}
+
+fn is_false(b: &bool) -> bool {
+    !*b
 }
 
 impl Default for OutputConfig {
     fn default() -> Self {
-        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32 }
+        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false }
+    }
+}
+
+fn de_upsampling<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 1, 1000)
+}
+fn de_kernel<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 1, 64)
+}
+fn de_bands<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    de_usize_in(d, 2, 16)
+}
+fn de_optional_positive<'de, D: Deserializer<'de>>(d: D) -> Result<Option<f64>, D::Error> {
+    de_positive(d).map(Some)
+}
+
+/// Rigid sub-pixel registration of repeated B-scans (upsampled phase
+/// correlation), before averaging and angiography.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct RegistrationConfig {
+    /// Register each repeat of a position to the position's first B-scan.
+    pub repeats: bool,
+    /// Register each position to the one before it (shifts accumulate).
+    pub positions: bool,
+    /// Shifts are resolved to 1/upsampling of a pixel.
+    #[serde(deserialize_with = "de_upsampling")]
+    pub upsampling: usize,
+    /// Phase-correlation peak (0–1) below which a registration counts as
+    /// failed: its shift is not applied and a warning names the frame.
+    #[serde(deserialize_with = "de_unit_interval")]
+    pub min_peak: f64,
+}
+
+impl Default for RegistrationConfig {
+    fn default() -> Self {
+        RegistrationConfig { repeats: false, positions: false, upsampling: 20, min_peak: 0.05 }
+    }
+}
+
+impl RegistrationConfig {
+    pub fn enabled(&self) -> bool {
+        self.repeats || self.positions
+    }
+}
+
+/// Which samples the Doppler phase step is taken between.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum DopplerPairs {
+    /// Neighbouring A-lines of one B-scan (time step: the A-line period).
+    Alines,
+    /// The same A-line of consecutive repeated B-scans (time step: the
+    /// B-scan period): slower flow, needs repeats.
+    Repeats,
+}
+
+/// Phase-resolved Doppler flow by the Kasai autocorrelation estimator.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct DopplerConfig {
+    pub enabled: bool,
+    pub between: DopplerPairs,
+    /// Kasai sum over this many depth pixels …
+    #[serde(deserialize_with = "de_kernel")]
+    pub kernel_depth_px: usize,
+    /// … and this many A-line pairs (or A-lines, between repeats).
+    #[serde(deserialize_with = "de_kernel")]
+    pub kernel_alines: usize,
+    /// A-line period, µs; none: the capture's `aline_period_us` attribute.
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub aline_period_us: Option<f64>,
+    /// B-scan period for `between = "repeats"`, µs; none: the capture's
+    /// `frame_period_us` attribute.
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub frame_period_us: Option<f64>,
+    /// Group index n in v = λ0·Δφ/(4π·n·T).
+    #[serde(deserialize_with = "de_positive")]
+    pub group_index: f64,
+    /// Pixels whose kernel-mean power is below the frame's noise floor +
+    /// this (dB) have no velocity (NaN).
+    #[serde(deserialize_with = "de_finite")]
+    pub threshold_db: f64,
+    /// Remove the bulk-motion phase of each pair (intensity-weighted phase
+    /// step of the static tissue) before the flow is computed.
+    pub bulk_correction: bool,
+    /// Colour-bar range ±this, mm/s; none: the aliasing limit λ0/(4nT).
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub velocity_range_mm_s: Option<f64>,
+}
+
+impl Default for DopplerConfig {
+    fn default() -> Self {
+        DopplerConfig {
+            enabled: false,
+            between: DopplerPairs::Alines,
+            kernel_depth_px: 3,
+            kernel_alines: 4,
+            aline_period_us: None,
+            frame_period_us: None,
+            group_index: 1.38,
+            threshold_db: 10.0,
+            bulk_correction: true,
+            velocity_range_mm_s: None,
+        }
+    }
+}
+
+/// A motion-contrast method.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum AngiographyMethod {
+    /// Amplitude decorrelation between consecutive repeats.
+    Decorrelation,
+    /// The same averaged over spectral sub-bands (split-spectrum).
+    SplitSpectrum,
+    /// Variance over the repeats of the intensity in dB (or linear).
+    SpeckleVariance,
+    /// Normalised complex difference after the bulk phase is removed.
+    ComplexDifference,
+}
+
+impl AngiographyMethod {
+    pub fn name(self) -> &'static str {
+        match self {
+            AngiographyMethod::Decorrelation => "decorrelation",
+            AngiographyMethod::SplitSpectrum => "split_spectrum",
+            AngiographyMethod::SpeckleVariance => "speckle_variance",
+            AngiographyMethod::ComplexDifference => "complex_difference",
+        }
+    }
+}
+
+/// Intensity scale of the speckle variance.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum IntensityScale {
+    /// dB (10·log10 of |A|²).
+    Db,
+    /// |A|², normalised by the mean intensity over the repeats squared.
+    Linear,
+}
+
+/// Motion contrast from repeated B-scans at each position.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct AngiographyConfig {
+    /// Methods to compute (none: off).
+    pub methods: Vec<AngiographyMethod>,
+    /// Noise-bias threshold: pixels whose mean amplitude over the repeats
+    /// is below the structure image's noise floor + this (dB) are masked.
+    #[serde(deserialize_with = "de_finite")]
+    pub threshold_db: f64,
+    /// Split-spectrum: number of Gaussian sub-bands …
+    #[serde(deserialize_with = "de_bands")]
+    pub split_bands: usize,
+    /// … each of this FWHM as a fraction of the band's wavenumber span.
+    #[serde(deserialize_with = "de_positive")]
+    pub split_band_fwhm: f64,
+    pub speckle_variance_scale: IntensityScale,
+    /// Depth slab of the en face angiogram, µm in air; none: every depth.
+    pub en_face_depth_um: Option<[f64; 2]>,
+    /// Measure the slab from the first strong interface of each A-line
+    /// (the surface) instead of from zero delay.
+    pub en_face_from_surface: bool,
+    /// The surface is the first pixel this far above the noise floor (dB).
+    #[serde(deserialize_with = "de_positive")]
+    pub surface_threshold_db: f64,
+    pub en_face_projection: Projection,
+}
+
+impl Default for AngiographyConfig {
+    fn default() -> Self {
+        AngiographyConfig {
+            methods: Vec::new(),
+            threshold_db: 10.0,
+            split_bands: 4,
+            split_band_fwhm: 0.4,
+            speckle_variance_scale: IntensityScale::Db,
+            en_face_depth_um: None,
+            en_face_from_surface: false,
+            surface_threshold_db: 20.0,
+            en_face_projection: Projection::Mean,
+        }
+    }
+}
+
+impl AngiographyConfig {
+    pub fn enabled(&self) -> bool {
+        !self.methods.is_empty()
     }
 }
 
@@ -340,7 +540,26 @@ pub struct PipelineConfig {
     pub fft: FftConfig,
     pub log_compression: LogCompressionConfig,
     pub volume: VolumeConfig,
+    /// Contrast beyond intensity (left out of the serialised pipeline, and
+    /// of its hash, when at their defaults).
+    #[serde(skip_serializing_if = "is_default")]
+    pub registration: RegistrationConfig,
+    #[serde(skip_serializing_if = "is_default")]
+    pub doppler: DopplerConfig,
+    #[serde(skip_serializing_if = "is_default")]
+    pub angiography: AngiographyConfig,
     pub output: OutputConfig,
+}
+
+fn is_default<T: Default + PartialEq>(v: &T) -> bool {
+    *v == T::default()
+}
+
+impl PipelineConfig {
+    /// Whether any stage needs the complex depth profile.
+    pub fn needs_complex(&self) -> bool {
+        self.output.complex || self.registration.enabled() || self.doppler.enabled || self.angiography.enabled()
+    }
 }
 
 impl PipelineConfig {
@@ -425,6 +644,23 @@ impl PipelineConfig {
             if c.is_empty() || c.iter().any(|v| !v.is_finite()) {
                 return Err(fail("input", "wavelength_poly_nm", "needs at least one finite coefficient".into()));
             }
+        }
+        if let Some([a, b]) = self.angiography.en_face_depth_um {
+            if !(a.is_finite() && b.is_finite() && a >= 0.0 && b > a) {
+                return Err(fail("angiography", "en_face_depth_um", format!("needs 0 <= start < end, found [{a}, {b}]")));
+            }
+        }
+        let mut seen = std::collections::BTreeSet::new();
+        for m in &self.angiography.methods {
+            if !seen.insert(*m) {
+                return Err(fail("angiography", "methods", format!("\"{}\" is listed twice", m.name())));
+            }
+        }
+        if !(self.output.png || self.output.volume) {
+            return Err(fail("output", "png", "png and volume are both off: the run would write nothing".into()));
+        }
+        if self.output.complex && !self.output.volume {
+            return Err(fail("output", "complex", "the complex depth profile is written into volume.h5: set output.volume = true".into()));
         }
         if !(self.input.fringes.starts_with('/') && self.input.wavelength.starts_with('/') && self.input.background.starts_with('/')) {
             return Err(fail("input", "fringes", "dataset paths must start with '/'".into()));

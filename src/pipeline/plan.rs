@@ -253,6 +253,18 @@ impl Plan {
         line.field[..n].iter().map(|v| v.re).collect()
     }
 
+    /// Per-sample real gain of spectral shaping alone (1 where it is off).
+    pub fn shaping_gain(&self) -> Vec<f64> {
+        let mut line = self.new_aline();
+        let n = self.summary.k_samples;
+        line.field[..n].fill(rustfft::num_complex::Complex64::new(1.0, 0.0));
+        let ctx = FrameContext::default();
+        for stage in self.stages.iter().filter(|s| s.name() == "shaping") {
+            stage.apply(&ctx, &mut line);
+        }
+        line.field[..n].iter().map(|v| v.re).collect()
+    }
+
     /// Names of the stages in order.
     pub fn stage_names(&self) -> &[&'static str] {
         &self.summary.stages

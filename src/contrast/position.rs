@@ -1,0 +1,257 @@
+//! One slow-axis position's repeated B-scans through everything beyond the
+//! dB image: registration (repeats to the first, positions to the one
+//! before), the averaged structure image, Doppler flow and angiography.
+//! `run` hands over each position's frames as they are reconstructed and
+//! gets one [`PositionOutput`] back; nothing of other positions is held
+//! except the previous position's registration spectrum.
+//!
+//! Must agree with: the intensity-only averaging of earlier versions (the
+//! structure of unshifted repeats is computed from their dB images with the
+//! same sums, so the bits are the same).
+
+use anyhow::Result;
+use ndarray::Array2;
+use rustfft::num_complex::Complex32;
+use serde::Serialize;
+
+use super::angiography;
+use super::doppler::{DopplerScale, KasaiSums};
+use super::registration::{wrapped_margin, Registrar, RegistrationSpectrum, Shift};
+use crate::analysis::amplitude_from_db;
+use crate::pipeline::config::{AngiographyMethod, DopplerPairs, PipelineConfig};
+use crate::stages::log_compression::{noise_floor_db, to_db};
+
+/// One reconstructed B-scan of a position.
+pub struct RepeatFrame {
+    /// Index of the frame in the capture.
+    pub index: usize,
+    /// dB image, depth × A-lines.
+    pub db: Array2<f32>,
+    /// The complex depth profile (depth × A-lines) when a stage needs it.
+    pub complex: Option<Array2<Complex32>>,
+    /// Split-spectrum: each sub-band's amplitude (depth × A-lines).
+    pub sub_bands: Vec<Array2<f32>>,
+    pub saturated: u64,
+}
+
+/// The shift applied to one B-scan (repeat and position registration
+/// together) and how its registration went.
+#[derive(Debug, Clone, Serialize)]
+pub struct FrameShift {
+    pub frame: usize,
+    pub axial_px: f64,
+    pub lateral_px: f64,
+    /// Phase-correlation peak of the repeat registration (None for the
+    /// first repeat, which is the reference).
+    pub repeat_peak: Option<f64>,
+    /// The same for the registration to the previous position.
+    pub position_peak: Option<f64>,
+    /// False when a registration's peak was below `min_peak` and its shift
+    /// was not applied.
+    pub registered: bool,
+}
+
+/// What a position gives the writer.
+pub struct PositionOutput {
+    pub position: usize,
+    pub input_frames: [usize; 2],
+    /// The (averaged) structure image in dB, depth × A-lines.
+    pub structure_db: Array2<f32>,
+    /// The position's first B-scan as reconstructed (for the averaging record).
+    pub first_single_db: Option<Array2<f32>>,
+    pub saturated: u64,
+    /// Input frames' complex profiles (as reconstructed, before
+    /// registration), when the output asks for them.
+    pub complex: Vec<(usize, Array2<Complex32>)>,
+    pub shifts: Vec<FrameShift>,
+    /// Axial velocity, mm/s (NaN where masked), depth × A-lines.
+    pub doppler: Option<Array2<f32>>,
+    /// Mean bulk phase removed per pair set, rad.
+    pub doppler_bulk_phase: Vec<f64>,
+    /// Per method: flow image (NaN where masked) and its en face row.
+    pub angiography: Vec<(AngiographyMethod, Array2<f32>, Vec<f32>)>,
+    pub warnings: Vec<String>,
+}
+
+/// Settings and state carried from position to position.
+pub struct PositionProcessor<'a> {
+    config: &'a PipelineConfig,
+    depth_um: Vec<f64>,
+    registrar: Option<Registrar>,
+    doppler_scale: Option<DopplerScale>,
+    previous: Option<RegistrationSpectrum>,
+    cumulative: Shift,
+}
+
+impl<'a> PositionProcessor<'a> {
+    pub fn new(config: &'a PipelineConfig, depth_um: Vec<f64>, alines: usize, doppler_scale: Option<DopplerScale>) -> Self {
+        let registrar = config.registration.enabled().then(|| Registrar::new(depth_um.len(), alines, config.registration.upsampling));
+        PositionProcessor { config, depth_um, registrar, doppler_scale, previous: None, cumulative: Shift::NONE }
+    }
+
+    /// Processes the repeats of `position` (in acquisition order).
+    pub fn process(&mut self, position: usize, mut frames: Vec<RepeatFrame>) -> Result<PositionOutput> {
+        let cfg = self.config;
+        let n = frames.len();
+        let mut warnings = Vec::new();
+        let complex_out: Vec<(usize, Array2<Complex32>)> = if cfg.output.complex {
+            frames.iter().map(|f| (f.index, f.complex.clone().expect("complex profile requested"))).collect()
+        } else {
+            Vec::new()
+        };
+
+        // Registration: shifts per repeat, then applied.
+        let mut shifts: Vec<FrameShift> = frames
+            .iter()
+            .map(|f| FrameShift { frame: f.index, axial_px: 0.0, lateral_px: 0.0, repeat_peak: None, position_peak: None, registered: true })
+            .collect();
+        let mut applied = vec![Shift::NONE; n];
+        if let Some(reg) = &self.registrar {
+            let min_peak = cfg.registration.min_peak;
+            let reference = reg.spectrum(frames[0].complex.as_ref().expect("complex").view());
+            if cfg.registration.repeats {
+                for r in 1..n {
+                    let s = reg.estimate(&reference, &reg.spectrum(frames[r].complex.as_ref().expect("complex").view()));
+                    shifts[r].repeat_peak = Some(round6(s.peak));
+                    if s.peak < min_peak {
+                        warnings.push(format!(
+                            "frame {}: registration to frame {} failed (correlation peak {:.3} < registration.min_peak {min_peak}): not shifted",
+                            frames[r].index, frames[0].index, s.peak
+                        ));
+                        shifts[r].registered = false;
+                    } else {
+                        applied[r] = s;
+                    }
+                }
+            }
+            if cfg.registration.positions {
+                if let Some(prev) = &self.previous {
+                    let s = reg.estimate(prev, &reference);
+                    for f in shifts.iter_mut() {
+                        f.position_peak = Some(round6(s.peak));
+                    }
+                    if s.peak < min_peak {
+                        warnings.push(format!(
+                            "frame {}: registration to the previous position failed (correlation peak {:.3} < registration.min_peak {min_peak}): position not shifted",
+                            frames[0].index, s.peak
+                        ));
+                        shifts[0].registered = false;
+                    } else {
+                        self.cumulative = self.cumulative.plus(s);
+                    }
+                }
+                for a in applied.iter_mut() {
+                    *a = a.plus(self.cumulative);
+                }
+            }
+            for (r, f) in frames.iter_mut().enumerate() {
+                let s = applied[r];
+                shifts[r].axial_px = round6(s.axial_px);
+                shifts[r].lateral_px = round6(s.lateral_px);
+                if s.axial_px != 0.0 || s.lateral_px != 0.0 {
+                    reg.apply(f.complex.as_mut().expect("complex"), s);
+                    for band in f.sub_bands.iter_mut() {
+                        reg.apply_real(band, s);
+                    }
+                }
+            }
+            self.previous = Some(reference);
+        }
+        let shifted: Vec<bool> = applied.iter().map(|s| s.axial_px != 0.0 || s.lateral_px != 0.0).collect();
+        let margin = applied.iter().map(|&s| wrapped_margin(s)).fold((0, 0), |m, w| (m.0.max(w.0), m.1.max(w.1)));
+
+        // Structure: mean linear amplitude over the repeats, in dB. Unshifted
+        // repeats contribute through their dB images (the intensity-only sums).
+        let first_single_db = (n > 1).then(|| frames[0].db.clone());
+        let structure_db = if n == 1 && !shifted[0] {
+            std::mem::take(&mut frames[0].db)
+        } else {
+            let (depth, alines) = frames[0].db.dim();
+            let mut sum = Array2::<f64>::zeros((depth, alines));
+            for (f, &moved) in frames.iter().zip(&shifted) {
+                if moved {
+                    ndarray::Zip::from(&mut sum).and(f.complex.as_ref().expect("complex")).for_each(|s, c| *s += c.norm() as f64);
+                } else {
+                    ndarray::Zip::from(&mut sum).and(&f.db).for_each(|s, &d| *s += amplitude_from_db(d as f64));
+                }
+            }
+            sum.mapv(|s| to_db(s / n as f64) as f32)
+        };
+        let floor_db = noise_floor_db(structure_db.as_slice().expect("standard layout"));
+        let floor_power = 10f64.powf(floor_db / 10.0);
+
+        let doppler = match (cfg.doppler.enabled, &self.doppler_scale) {
+            (true, Some(scale)) => {
+                let (depth, alines) = structure_db.dim();
+                let mut sums = KasaiSums::new(&cfg.doppler, depth, alines, floor_power);
+                match cfg.doppler.between {
+                    DopplerPairs::Alines => frames.iter().for_each(|f| sums.add_frame(f.complex.as_ref().expect("complex").view())),
+                    DopplerPairs::Repeats => {
+                        for w in frames.windows(2) {
+                            sums.add_repeat_pair(w[0].complex.as_ref().expect("complex").view(), w[1].complex.as_ref().expect("complex").view());
+                        }
+                    }
+                }
+                let threshold = floor_power * 10f64.powf(cfg.doppler.threshold_db / 10.0);
+                Some((sums.velocity(&cfg.doppler, scale, threshold, alines), sums.bulk_phases.iter().map(|&p| round6(p)).collect()))
+            }
+            _ => None,
+        };
+
+        let mut angio = Vec::new();
+        if cfg.angiography.enabled() {
+            let a = &cfg.angiography;
+            let amplitudes: Vec<Array2<f32>> = frames.iter().map(|f| f.complex.as_ref().expect("complex").mapv(|c| c.norm())).collect();
+            let views: Vec<_> = amplitudes.iter().map(|m| m.view()).collect();
+            let threshold = floor_db + a.threshold_db;
+            let surface = angiography::surface(structure_db.view(), floor_db + a.surface_threshold_db);
+            let slabs = angiography::slabs(a, &self.depth_um, &surface);
+            for &method in &a.methods {
+                let mut map = match method {
+                    AngiographyMethod::Decorrelation => angiography::decorrelation(&views),
+                    AngiographyMethod::SpeckleVariance => angiography::speckle_variance(&views, a.speckle_variance_scale),
+                    AngiographyMethod::ComplexDifference => {
+                        let c: Vec<_> = frames.iter().map(|f| f.complex.as_ref().expect("complex").view()).collect();
+                        angiography::complex_difference(&c, (floor_power * 10f64.powf(a.threshold_db / 10.0)) as f32)
+                    }
+                    AngiographyMethod::SplitSpectrum => {
+                        let bands = frames[0].sub_bands.len();
+                        let mut mean = Array2::<f32>::zeros(structure_db.dim());
+                        for b in 0..bands {
+                            let v: Vec<_> = frames.iter().map(|f| f.sub_bands[b].view()).collect();
+                            mean += &angiography::decorrelation(&v);
+                        }
+                        mean / bands as f32
+                    }
+                };
+                angiography::mask(&mut map, structure_db.view(), threshold, margin);
+                let row = angiography::en_face(map.view(), &slabs, a.en_face_projection);
+                angio.push((method, map, row));
+            }
+        }
+
+        let saturated = frames.iter().map(|f| f.saturated).sum();
+        let input_frames = [frames[0].index, frames[n - 1].index];
+        let (doppler, doppler_bulk_phase) = match doppler {
+            Some((v, b)) => (Some(v), b),
+            None => (None, Vec::new()),
+        };
+        Ok(PositionOutput {
+            position,
+            input_frames,
+            structure_db,
+            first_single_db,
+            saturated,
+            complex: complex_out,
+            shifts: if self.registrar.is_some() { shifts } else { Vec::new() },
+            doppler,
+            doppler_bulk_phase,
+            angiography: angio,
+            warnings,
+        })
+    }
+}
+
+fn round6(v: f64) -> f64 {
+    (v * 1e6).round() / 1e6
+}

@@ -1,0 +1,170 @@
+//! The contents of log.json: what was read, how it was processed, what was
+//! written, and (in its own `timing` section) how long it took.
+
+use serde::Serialize;
+
+use crate::contrast::doppler::DopplerScale;
+use crate::contrast::position::FrameShift;
+use crate::io::capture::{SampleType, ScanAttributes, WavelengthSource};
+use crate::pipeline::config::{AngiographyMethod, AxisName, DopplerPairs, PipelineConfig, Projection};
+use crate::pipeline::plan::PlanSummary;
+
+#[derive(Debug, Serialize)]
+pub struct ToolInfo {
+    pub name: &'static str,
+    pub version: &'static str,
+}
+
+#[derive(Debug, Serialize)]
+pub struct InputInfo {
+    /// As given on the command line.
+    pub path: String,
+    /// The same made absolute (what `rerun` falls back to from elsewhere).
+    pub absolute_path: String,
+    pub sha256: String,
+    pub fringes_dataset: String,
+    pub shape: Vec<usize>,
+    pub axes: Vec<AxisName>,
+    pub dtype: SampleType,
+    pub frames: usize,
+    pub alines: usize,
+    pub pixels: usize,
+    pub full_scale: Option<f64>,
+    pub wavelength_map: WavelengthSource,
+    pub has_background: bool,
+    /// Scan attributes of the fringes (A-line period, spacings), when recorded.
+    #[serde(skip_serializing_if = "ScanAttributes::is_empty")]
+    pub scan: ScanAttributes,
+}
+
+#[derive(Debug, Serialize)]
+pub struct FrameRecord {
+    /// Output frame (slow-axis position when averaging).
+    pub index: usize,
+    /// Input frames that made it.
+    pub input_frames: [usize; 2],
+    pub noise_floor_db: f64,
+    pub peak_db: f64,
+    pub saturated_samples: u64,
+    pub grey_black_db: f64,
+    pub grey_white_db: f64,
+}
+
+/// Effect of averaging repeated B-scans, measured on the first position.
+#[derive(Debug, Serialize)]
+pub struct AveragingRecord {
+    pub frames_per_position: usize,
+    /// Median dB (noise floor) of one B-scan and of the average.
+    pub noise_floor_single_db: f64,
+    pub noise_floor_averaged_db: f64,
+    /// Standard deviation of the noise (linear amplitude over the deepest
+    /// tenth of the depth range), one B-scan and averaged, and the reduction
+    /// 20·log10(single/averaged); independent noise gives about 10·log10(N) dB.
+    pub noise_sd_single: f64,
+    pub noise_sd_averaged: f64,
+    pub noise_sd_reduction_db: f64,
+}
+
+/// How en-face.png was made from `/en_face_db`.
+#[derive(Debug, Serialize)]
+pub struct EnFaceRecord {
+    /// Depth slab projected (first and last pixel centre, µm in air).
+    pub depth_um: [f64; 2],
+    pub projection: Projection,
+    /// dB mapped to black and to white (the 1st and 99.5th percentiles).
+    pub grey_black_db: f64,
+    pub grey_white_db: f64,
+}
+
+/// What the contrast stages did (registration, Doppler, angiography,
+/// complex output).
+#[derive(Debug, Default, Serialize)]
+pub struct ContrastRecord {
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub complex_output: Option<ComplexRecord>,
+    /// Every B-scan's applied shift and its registration peaks.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub registration: Vec<FrameShift>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub doppler: Option<DopplerRecord>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub angiography: Option<AngiographyRecord>,
+}
+
+#[derive(Debug, Serialize)]
+pub struct ComplexRecord {
+    pub dataset: &'static str,
+    /// Centre of the uniform wavenumber grid, rad/µm: a reflector at
+    /// optical depth z has phase 2·k_centre·z.
+    pub k_centre_per_um: f64,
+    pub phase_convention: &'static str,
+}
+
+#[derive(Debug, Serialize)]
+pub struct DopplerRecord {
+    pub between: DopplerPairs,
+    pub scale: DopplerScale,
+    /// Where the period T came from.
+    pub period_source: String,
+    /// The colour bar's range, ±mm/s.
+    pub velocity_range_mm_s: f64,
+    pub sign: &'static str,
+    /// Per position: the mean bulk-motion phase removed per frame (A-line
+    /// pairs) or per repeat pair, rad.
+    pub bulk_phase_rad: Vec<Vec<f64>>,
+}
+
+#[derive(Debug, Serialize)]
+pub struct AngiographyRecord {
+    pub methods: Vec<AngiographyMethod>,
+    pub repeats_per_position: usize,
+    /// Pixels below the structure's noise floor + this are masked (NaN).
+    pub noise_bias_threshold_db: f64,
+    pub noise_bias_note: &'static str,
+    /// Per position: the structure image's noise floor, dB.
+    pub noise_floor_db: Vec<f64>,
+    /// Per method and position: the value shown white in its PNG (the
+    /// 99.5th percentile of the unmasked values; black is 0).
+    pub grey_white: Vec<(AngiographyMethod, Vec<f64>)>,
+    pub en_face_depth_um: Option<[f64; 2]>,
+    pub en_face_from_surface: bool,
+    pub en_face_projection: Projection,
+}
+
+#[derive(Debug, Serialize)]
+pub struct Timing {
+    pub note: &'static str,
+    pub read_seconds: f64,
+    /// Seconds per stage, summed over worker threads.
+    pub stage_thread_seconds: serde_json::Map<String, serde_json::Value>,
+    pub write_seconds: f64,
+    pub total_seconds: f64,
+    pub alines_per_second: f64,
+    pub threads: usize,
+    /// Peak resident memory of the process so far (VmHWM), MB.
+    pub peak_resident_mb: Option<f64>,
+}
+
+/// Contents of log.json.
+#[derive(Debug, Serialize)]
+pub struct ProcessingLog {
+    pub tool: ToolInfo,
+    pub input: InputInfo,
+    pub pipeline: PipelineConfig,
+    pub pipeline_sha256: String,
+    /// `fused` (f32 fast path) or `reference` (f64 stage chain).
+    pub engine: &'static str,
+    pub derived: PlanSummary,
+    /// The automatic dispersion estimate, when `dispersion.method = "auto"`.
+    pub dispersion_estimate: Option<crate::calibration::dispersion::DispersionEstimate>,
+    pub frames: Vec<FrameRecord>,
+    pub averaging: Option<AveragingRecord>,
+    /// The en face projection's grey mapping, when one was written.
+    pub en_face: Option<EnFaceRecord>,
+    /// Registration, Doppler and angiography, when any ran.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub contrast: Option<ContrastRecord>,
+    pub outputs: Vec<String>,
+    pub warnings: Vec<String>,
+    pub timing: Timing,
+}

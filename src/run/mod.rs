@@ -1,0 +1,471 @@
+//! Reconstructing one capture, in phases: open and check ([`open`]), plan
+//! ([`plan`]), compute (frames through the plan, repeats of each position
+//! through `contrast`, in [`compute`]), write (one position at a time, in
+//! [`writer`]) and log ([`log`]), all staged so that a failure or an
+//! interruption leaves nothing.
+//!
+//! The log holds everything needed to reproduce the outputs (`rerun` reads
+//! it); its `timing` section is the only part that changes between
+//! identical runs.
+
+mod compute;
+pub mod log;
+pub mod writer;
+
+use anyhow::{bail, Context, Result};
+use indicatif::ProgressBar;
+use ndarray::Array2;
+use rayon::prelude::*;
+use std::path::{Path, PathBuf};
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::time::Instant;
+
+use crate::contrast::doppler::DopplerScale;
+use crate::io::capture::Capture;
+use crate::io::hash;
+use crate::io::staging::Staging;
+use crate::io::volume::{VolumeAttributes, VolumeWriter};
+use crate::pipeline::config::{BackgroundMethod, DopplerPairs, PipelineConfig};
+use crate::pipeline::fused::FusedPlan;
+use crate::pipeline::plan::{CaptureGeometry, Plan};
+use crate::stages::log_compression::{grey_levels, grey_levels_u8};
+use log::*;
+pub use writer::frame_png_name;
+use writer::{ContrastDatasets, Writer};
+
+/// What happened to a capture.
+#[derive(Debug, Clone)]
+pub struct CaptureOutcome {
+    pub output_dir: PathBuf,
+    pub frames: usize,
+    pub alines: usize,
+    pub seconds: f64,
+    /// Skipped by `resume`: the existing outputs are up to date.
+    pub skipped: bool,
+}
+
+/// The run was stopped by a signal; nothing of this capture was kept.
+#[derive(Debug, thiserror::Error)]
+#[error("interrupted before completion; nothing written")]
+pub struct Interrupted;
+
+/// How a capture is processed beyond its pipeline.
+#[derive(Default, Clone, Copy)]
+pub struct RunContext<'a> {
+    /// Advanced by one per frame (e.g. the batch's overall bar).
+    pub progress: Option<&'a ProgressBar>,
+    /// This capture's own bar: its length is set to the frame count.
+    pub capture_progress: Option<&'a ProgressBar>,
+    /// Checked between frames; when set, the capture is abandoned.
+    pub cancel: Option<&'a AtomicBool>,
+    /// Skip when the existing log matches the input's hash and the pipeline's.
+    pub resume: bool,
+    /// Use the plain f64 stage chain instead of the fused f32 fast path.
+    pub reference_engine: bool,
+}
+
+/// Name of the output directory of a capture: its file stem.
+pub fn output_name(capture: &Path) -> String {
+    capture.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "capture".into())
+}
+
+/// Peak resident set size of this process, MB (Linux /proc).
+pub fn peak_resident_mb() -> Option<f64> {
+    let status = std::fs::read_to_string("/proc/self/status").ok()?;
+    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let kb: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
+    Some(kb / 1024.0)
+}
+
+/// True when `dir/log.json` records this input hash and pipeline hash and
+/// every output it lists exists.
+fn up_to_date(dir: &Path, sha256: &str, pipeline_sha256: &str) -> bool {
+    let Ok(bytes) = std::fs::read(dir.join("log.json")) else { return false };
+    let Ok(log) = serde_json::from_slice::<serde_json::Value>(&bytes) else { return false };
+    log["input"]["sha256"] == sha256
+        && log["pipeline_sha256"] == pipeline_sha256
+        && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file())))
+}
+
+/// (rows × cols) → (cols × rows), in parallel over bands of 32 output rows.
+pub fn transpose<T: Copy + Default + Send + Sync>(a: &Array2<T>) -> Array2<T> {
+    let (rows, cols) = a.dim();
+    let src = a.as_slice().expect("standard layout");
+    let mut out = vec![T::default(); rows * cols];
+    const BAND: usize = 32;
+    out.par_chunks_mut(BAND * rows).enumerate().for_each(|(b, dst)| {
+        let c0 = b * BAND;
+        let width = dst.len() / rows;
+        for r in 0..rows {
+            let row = &src[r * cols + c0..r * cols + c0 + width];
+            for (c, &v) in row.iter().enumerate() {
+                dst[c * rows + r] = v;
+            }
+        }
+    });
+    Array2::from_shape_vec((cols, rows), out).expect("shape")
+}
+
+/// 8-bit grey levels of dB values into a buffer reused from frame to frame.
+pub fn grey8(db: &[f32], black: f64, white: f64, bytes: &mut Vec<u8>) {
+    bytes.resize(db.len(), 0);
+    grey_levels_u8(db, black, white, bytes);
+}
+
+/// Phase 1: the opened, checked capture and what is known before planning.
+struct Opened {
+    capture: Capture,
+    name: String,
+    pipeline_sha256: String,
+    /// The input's SHA-256 when it was needed up front (resume).
+    sha_now: Option<String>,
+    positions: usize,
+}
+
+/// What opening found.
+enum Opening {
+    Ready(Box<Opened>),
+    /// `resume` found the outputs up to date: (frames, A-lines).
+    UpToDate(usize, usize),
+}
+
+/// Opens and checks the capture against the pipeline.
+fn open(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: &RunContext<'_>) -> Result<Opening> {
+    let capture = Capture::open(input, &config.input)?;
+    let sha_now = if ctx.resume { Some(hash::sha256_file(input).with_context(|| format!("hashing {}", input.display()))?) } else { None };
+    let pipeline_sha256 = config.sha256();
+    let name = output_name(input);
+    if let Some(p) = ctx.capture_progress {
+        p.set_length(capture.frames as u64);
+    }
+    if ctx.resume && up_to_date(&out_root.join(&name), sha_now.as_deref().unwrap_or(""), &pipeline_sha256) {
+        return Ok(Opening::UpToDate(capture.frames, capture.alines));
+    }
+    let (frames, average) = (capture.frames, config.volume.average);
+    if frames % average != 0 {
+        bail!("the capture has {frames} frames, not a multiple of volume.average = {average} (repeated B-scans per position)");
+    }
+    if config.angiography.enabled() && average < 2 {
+        bail!(
+            "angiography needs N ≥ 2 repeated B-scans per position: set volume.average to the repeats per position (the capture has {frames} frame{})",
+            if frames == 1 { "" } else { "s" }
+        );
+    }
+    if config.doppler.enabled && config.doppler.between == DopplerPairs::Repeats && average < 2 {
+        bail!("doppler.between = \"repeats\" needs repeated B-scans per position: set volume.average (now 1)");
+    }
+    Ok(Opening::Ready(Box::new(Opened { positions: frames / average, capture, name, pipeline_sha256, sha_now })))
+}
+
+/// Phase 2: the plan and everything derived from it.
+struct Planned {
+    plan: Plan,
+    dispersion_estimate: Option<crate::calibration::dispersion::DispersionEstimate>,
+    depth_um: Vec<f64>,
+    en_face_range: (usize, usize),
+    /// The sub-band plans of split-spectrum angiography.
+    sub_bands: Vec<FusedPlan>,
+    doppler: Option<(DopplerScale, String)>,
+    warnings: Vec<String>,
+}
+
+fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> {
+    let capture = &opened.capture;
+    // Shaping measures the source envelope: the background, else frame 0's mean spectrum.
+    let source_spectrum = match (&capture.background, config.shaping.enabled) {
+        (Some(b), _) => Some(b.clone()),
+        (None, true) => {
+            let mut first = Array2::<f64>::zeros(capture.frame_shape());
+            capture.read_frame(0, &mut first)?;
+            Some(crate::stages::background::mean_spectrum(first.view()))
+        }
+        (None, false) => None,
+    };
+    let (resolved, dispersion_estimate) = crate::calibration::resolve_dispersion(capture, config, source_spectrum.as_deref())?;
+    let plan = Plan::new(
+        &resolved,
+        CaptureGeometry { wavelength_nm: &capture.wavelength_nm, background: capture.background.as_deref(), source_spectrum: source_spectrum.as_deref() },
+    )?;
+    let depth = plan.summary.depth_pixels;
+    let depth_um: Vec<f64> = (0..depth).map(|i| plan.depth_um(i)).collect();
+    let en_face_range = match config.volume.en_face_depth_um {
+        Some([a, b]) => {
+            let r = (depth_um.iter().position(|&z| z >= a).unwrap_or(depth), depth_um.iter().position(|&z| z >= b).unwrap_or(depth));
+            if r.0 >= r.1 {
+                bail!("volume.en_face_depth_um [{a}, {b}] holds no depth pixel of this capture ({:.1}–{:.1} µm)", depth_um[0], depth_um[depth - 1]);
+            }
+            r
+        }
+        None => (0, depth),
+    };
+    if let Some([a, b]) = config.angiography.en_face_depth_um {
+        if !config.angiography.en_face_from_surface && !depth_um.iter().any(|&z| z >= a && z < b) {
+            bail!("angiography.en_face_depth_um [{a}, {b}] holds no depth pixel of this capture ({:.1}–{:.1} µm)", depth_um[0], depth_um[depth - 1]);
+        }
+    }
+    let mut warnings = Vec::new();
+    if config.background.method == BackgroundMethod::Auto && capture.background.is_none() {
+        warnings.push(format!("capture has no '{}' dataset: background estimated as the median over each frame's A-lines", config.input.background));
+    }
+    let sub_bands = if config.angiography.methods.contains(&crate::pipeline::config::AngiographyMethod::SplitSpectrum) {
+        let shaping = plan.shaping_gain();
+        crate::contrast::angiography::sub_band_windows(plan.summary.k_samples, config.angiography.split_bands, config.angiography.split_band_fwhm)
+            .into_iter()
+            .map(|w| {
+                let gain: Vec<f64> = w.iter().zip(&shaping).map(|(a, b)| a * b).collect();
+                let scale = 2.0 / w.iter().sum::<f64>();
+                FusedPlan::with_spectral_gain(&plan, &gain, scale)
+            })
+            .collect()
+    } else {
+        Vec::new()
+    };
+    let doppler = if config.doppler.enabled {
+        let d = &config.doppler;
+        let (period, source) = match d.between {
+            DopplerPairs::Alines => match (d.aline_period_us, capture.scan.aline_period_us) {
+                (Some(t), _) => (t, "pipeline key doppler.aline_period_us".to_string()),
+                (None, Some(t)) => (t, "capture attribute aline_period_us".to_string()),
+                (None, None) => bail!(
+                    "Doppler needs the A-line period: the fringes '{}' have no aline_period_us attribute; set doppler.aline_period_us (µs) in the pipeline",
+                    capture.fringes_path
+                ),
+            },
+            DopplerPairs::Repeats => match (d.frame_period_us, capture.scan.frame_period_us) {
+                (Some(t), _) => (t, "pipeline key doppler.frame_period_us".to_string()),
+                (None, Some(t)) => (t, "capture attribute frame_period_us".to_string()),
+                (None, None) => bail!(
+                    "Doppler between repeats needs the B-scan period: the fringes '{}' have no frame_period_us attribute; set doppler.frame_period_us (µs) in the pipeline",
+                    capture.fringes_path
+                ),
+            },
+        };
+        Some((DopplerScale::new(plan.summary.centre_wavelength_nm, d.group_index, period), source))
+    } else {
+        None
+    };
+    Ok(Planned { plan, dispersion_estimate, depth_um, en_face_range, sub_bands, doppler, warnings })
+}
+
+/// Phase 3a: volume.h5 with every dataset the pipeline asks for.
+fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, staging: &Staging) -> Result<(Option<VolumeWriter>, ContrastDatasets)> {
+    let none = ContrastDatasets { complex: None, doppler: None, angiography: Vec::new() };
+    if !config.output.volume {
+        return Ok((None, none));
+    }
+    let (depth, alines) = (planned.depth_um.len(), opened.capture.alines);
+    let summary = &planned.plan.summary;
+    let v = VolumeWriter::create(
+        &staging.path("volume.h5"),
+        opened.positions,
+        &planned.depth_um,
+        alines,
+        &VolumeAttributes {
+            depth_spacing_um: summary.depth_spacing_um,
+            first_depth_um: planned.depth_um[0],
+            pipeline_sha256: &opened.pipeline_sha256,
+            frames_averaged: config.volume.average,
+            volume_type: config.output.volume_type,
+        },
+    )?;
+    let complex = if config.output.complex {
+        let k_centre = 0.5 * (summary.k_min_per_um + summary.k_max_per_um);
+        Some(v.add_stack::<rustfft::num_complex::Complex32>(
+            "complex_depth_profile",
+            opened.capture.frames,
+            depth,
+            alines,
+            &[
+                ("axes", "frame,depth,aline".into()),
+                ("units", "detector counts (|A| is the amplitude of /volume_db)".into()),
+                ("phase_convention", format!("{PHASE_CONVENTION} (k_centre = {k_centre:.9} rad/µm)")),
+            ],
+        )?)
+    } else {
+        None
+    };
+    let doppler = match &planned.doppler {
+        Some((scale, _)) => Some(v.add_stack::<f32>(
+            "doppler_velocity_mm_s",
+            opened.positions,
+            depth,
+            alines,
+            &[
+                ("axes", "position,depth,aline".into()),
+                ("units", "mm/s".into()),
+                ("sign", DOPPLER_SIGN.into()),
+                ("aliasing_limit_mm_s", format!("{:.6}", scale.aliasing_limit_mm_s)),
+                ("masked", "NaN below the intensity threshold".into()),
+            ],
+        )?),
+        None => None,
+    };
+    let mut angiography = Vec::new();
+    for &m in &config.angiography.methods {
+        let ds = v.add_stack::<f32>(
+            &format!("angiography_{}", m.name()),
+            opened.positions,
+            depth,
+            alines,
+            &[("axes", "position,depth,aline".into()), ("masked", "NaN below the noise-bias threshold or in registration's wrapped margin".into())],
+        )?;
+        angiography.push((m, ds));
+    }
+    Ok((Some(v), ContrastDatasets { complex, doppler, angiography }))
+}
+
+const PHASE_CONVENTION: &str = "phase of a reflector at optical depth z is 2·k_centre·z: it grows with depth; motion away from the probe raises it, towards the probe lowers it";
+const DOPPLER_SIGN: &str = "positive: motion away from the probe (towards larger depth)";
+
+/// Reconstructs `input` with `config` into `<out_root>/<stem>/`.
+pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: RunContext<'_>) -> Result<CaptureOutcome> {
+    let started = Instant::now();
+    let opened = match open(input, config, out_root, &ctx)? {
+        Opening::Ready(o) => o,
+        Opening::UpToDate(frames, alines) => {
+            if let Some(p) = ctx.progress {
+                p.inc(frames as u64);
+            }
+            return Ok(CaptureOutcome { output_dir: out_root.join(output_name(input)), frames, alines, seconds: 0.0, skipped: true });
+        }
+    };
+    // The input's SHA-256 is computed on its own thread while the frames
+    // are processed (unless resume needed it up front).
+    let hasher = opened.sha_now.is_none().then(|| {
+        let p = input.to_path_buf();
+        std::thread::spawn(move || hash::sha256_file(&p).with_context(|| format!("hashing {}", p.display())))
+    });
+    let planned = plan(&opened, config)?;
+    let staging = Staging::new(out_root, &opened.name)?;
+    let (volume, datasets) = create_volume(&opened, &planned, config, &staging)?;
+    let capture = &opened.capture;
+    let (frames, alines, positions) = (capture.frames, capture.alines, opened.positions);
+    let velocity_range = planned.doppler.as_ref().map_or(0.0, |(s, _)| config.doppler.velocity_range_mm_s.unwrap_or(s.aliasing_limit_mm_s));
+    let writer = Writer::new(config, &staging, volume, datasets, planned.en_face_range, alines, capture.full_scale, velocity_range);
+    let computed = compute::run(capture, config, &planned, writer, &ctx)?;
+    let mut written = computed.written;
+    let mut warnings = planned.warnings.clone();
+    warnings.extend(std::mem::take(&mut written.warnings));
+
+    let t = Instant::now();
+    let lc = &config.log_compression;
+    let max_grey = if lc.bit_depth == 8 { 255.0 } else { 65535.0 };
+    let mut en_face_record = None;
+    let mut outputs = std::mem::take(&mut written.outputs);
+    let volume = written.volume.take();
+    if config.volume.en_face {
+        let name = "en-face.png";
+        let en_face = &written.en_face;
+        let mut sorted: Vec<f32> = en_face.clone();
+        sorted.sort_by(f32::total_cmp);
+        let pick = |q: f64| sorted[((sorted.len() - 1) as f64 * q).round() as usize] as f64;
+        let (black, white) = (pick(0.01), pick(0.995).max(pick(0.01) + 1e-3));
+        if config.output.png {
+            crate::io::png::write_grey(&staging.path(name), alines, positions, &grey_levels(en_face, black, white, max_grey), lc.bit_depth)?;
+            outputs.push(name.into());
+        }
+        let (a, b) = planned.en_face_range;
+        let slab = [planned.depth_um[a], planned.depth_um[b - 1]];
+        if let Some(v) = &volume {
+            v.write_en_face(en_face, positions, alines, slab)?;
+        }
+        en_face_record = Some(EnFaceRecord { depth_um: slab, projection: config.volume.en_face_projection, grey_black_db: black, grey_white_db: white });
+    }
+    let sha256 = match (&opened.sha_now, hasher) {
+        (Some(s), _) => s.clone(),
+        (None, Some(h)) => h.join().map_err(|_| anyhow::anyhow!("the hashing thread panicked"))??,
+        (None, None) => unreachable!("hashed up front or on a thread"),
+    };
+    if let Some(v) = volume {
+        v.finish(&sha256)?;
+        outputs.push("volume.h5".into());
+    }
+    outputs.push("log.json".into());
+    let write_s = written.write_seconds + t.elapsed().as_secs_f64();
+
+    let contrast = contrast_record(config, &planned, &mut written);
+    let total = started.elapsed().as_secs_f64();
+    let log = ProcessingLog {
+        tool: ToolInfo { name: "fringeflow", version: env!("CARGO_PKG_VERSION") },
+        input: InputInfo {
+            path: input.display().to_string(),
+            absolute_path: std::path::absolute(input).unwrap_or_else(|_| input.to_path_buf()).display().to_string(),
+            sha256,
+            fringes_dataset: capture.fringes_path.clone(),
+            shape: capture.shape.clone(),
+            axes: capture.axes.clone(),
+            dtype: capture.sample_type,
+            frames,
+            alines,
+            pixels: capture.pixels,
+            full_scale: capture.full_scale,
+            wavelength_map: capture.wavelength_source.clone(),
+            has_background: capture.background.is_some(),
+            scan: capture.scan.clone(),
+        },
+        pipeline: config.clone(),
+        pipeline_sha256: opened.pipeline_sha256.clone(),
+        engine: if ctx.reference_engine { "reference" } else { "fused" },
+        derived: planned.plan.summary.clone(),
+        dispersion_estimate: planned.dispersion_estimate.clone(),
+        frames: std::mem::take(&mut written.records),
+        averaging: written.averaging.take(),
+        en_face: en_face_record,
+        contrast,
+        outputs,
+        warnings,
+        timing: Timing {
+            note: "the only section that differs between identical runs",
+            read_seconds: computed.read_seconds,
+            stage_thread_seconds: computed.stage_seconds,
+            write_seconds: write_s,
+            total_seconds: total,
+            alines_per_second: (frames * alines) as f64 / total,
+            threads: rayon::current_num_threads(),
+            peak_resident_mb: peak_resident_mb(),
+        },
+    };
+    let json = serde_json::to_vec_pretty(&log).context("serialising log")?;
+    std::fs::write(staging.path("log.json"), json).context("writing log.json")?;
+    if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
+        return Err(Interrupted.into());
+    }
+    let output_dir = staging.commit()?;
+    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false })
+}
+
+/// The log's contrast section, when any contrast stage ran.
+fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut writer::Written) -> Option<ContrastRecord> {
+    if !config.needs_complex() {
+        return None;
+    }
+    let s = &planned.plan.summary;
+    let a = &config.angiography;
+    Some(ContrastRecord {
+        complex_output: config.output.complex.then(|| ComplexRecord {
+            dataset: "/complex_depth_profile",
+            k_centre_per_um: 0.5 * (s.k_min_per_um + s.k_max_per_um),
+            phase_convention: PHASE_CONVENTION,
+        }),
+        registration: std::mem::take(&mut written.shifts),
+        doppler: planned.doppler.as_ref().map(|(scale, source)| DopplerRecord {
+            between: config.doppler.between,
+            scale: *scale,
+            period_source: source.clone(),
+            velocity_range_mm_s: config.doppler.velocity_range_mm_s.unwrap_or(scale.aliasing_limit_mm_s),
+            sign: DOPPLER_SIGN,
+            bulk_phase_rad: std::mem::take(&mut written.doppler_bulk),
+        }),
+        angiography: a.enabled().then(|| AngiographyRecord {
+            methods: a.methods.clone(),
+            repeats_per_position: config.volume.average,
+            noise_bias_threshold_db: a.threshold_db,
+            noise_bias_note: "static pixels decorrelate through noise (D ≈ 1/(2·SNR)); pure noise reads like fully decorrelated speckle (D = 1 − π/4 ≈ 0.215), so pixels below the structure's noise floor + threshold are masked",
+            noise_floor_db: std::mem::take(&mut written.angiography_floor_db),
+            grey_white: std::mem::take(&mut written.angiography_white),
+            en_face_depth_um: a.en_face_depth_um,
+            en_face_from_surface: a.en_face_from_surface,
+            en_face_projection: a.en_face_projection,
+        }),
+    })
+}

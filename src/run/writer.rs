@@ -1,0 +1,293 @@
+//! The write phase of a capture, one position at a time: grey B-scan PNGs,
+//! volume.h5 frames, the en face projection, and the contrast outputs
+//! (complex depth profiles, Doppler velocity, angiography) as datasets and
+//! images. Runs on the capture's writer thread; never uses the rayon pool
+//! (the pool's workers may be blocked handing positions to this thread).
+
+use anyhow::Result;
+use hdf5::Dataset;
+use ndarray::Array2;
+use rustfft::num_complex::Complex32;
+
+use super::log::{AveragingRecord, FrameRecord};
+use crate::contrast::position::{FrameShift, PositionOutput};
+use crate::io::png;
+use crate::io::staging::Staging;
+use crate::io::volume::{write_stack_image, VolumeWriter};
+use crate::pipeline::config::{AngiographyMethod, PipelineConfig, Projection};
+use crate::stages::log_compression::{grey_levels, grey_levels_u8, noise_floor_db, peak_db, GreyMapping};
+
+/// Name of position `index`'s B-scan image.
+pub fn frame_png_name(index: usize) -> String {
+    format!("frame-{index:04}.png")
+}
+
+/// The contrast datasets of volume.h5.
+pub struct ContrastDatasets {
+    pub complex: Option<Dataset>,
+    pub doppler: Option<Dataset>,
+    pub angiography: Vec<(AngiographyMethod, Dataset)>,
+}
+
+/// Everything the writer collected, for the log.
+pub struct Written {
+    pub records: Vec<FrameRecord>,
+    pub en_face: Vec<f32>,
+    pub outputs: Vec<String>,
+    pub warnings: Vec<String>,
+    pub write_seconds: f64,
+    pub averaging: Option<AveragingRecord>,
+    pub shifts: Vec<FrameShift>,
+    pub doppler_bulk: Vec<Vec<f64>>,
+    pub angiography_floor_db: Vec<f64>,
+    pub angiography_white: Vec<(AngiographyMethod, Vec<f64>)>,
+    /// Per method: en face rows of every position (positions × A-lines).
+    pub angiography_en_face: Vec<(AngiographyMethod, Vec<f32>)>,
+    pub volume: Option<VolumeWriter>,
+}
+
+pub struct Writer<'a> {
+    pub config: &'a PipelineConfig,
+    pub staging: &'a Staging,
+    pub volume: Option<VolumeWriter>,
+    pub datasets: ContrastDatasets,
+    pub en_face_range: (usize, usize),
+    pub alines: usize,
+    pub average: usize,
+    pub full_scale: Option<f64>,
+    /// ± range of the Doppler colour bar, mm/s.
+    pub velocity_range_mm_s: f64,
+    written: Written,
+    grey: Vec<u8>,
+}
+
+impl<'a> Writer<'a> {
+    #[allow(clippy::too_many_arguments)]
+    pub fn new(
+        config: &'a PipelineConfig,
+        staging: &'a Staging,
+        volume: Option<VolumeWriter>,
+        datasets: ContrastDatasets,
+        en_face_range: (usize, usize),
+        alines: usize,
+        full_scale: Option<f64>,
+        velocity_range_mm_s: f64,
+    ) -> Self {
+        let methods = config.angiography.methods.clone();
+        Writer {
+            config,
+            staging,
+            volume,
+            datasets,
+            en_face_range,
+            alines,
+            average: config.volume.average,
+            full_scale,
+            velocity_range_mm_s,
+            written: Written {
+                records: Vec::new(),
+                en_face: Vec::new(),
+                outputs: Vec::new(),
+                warnings: Vec::new(),
+                write_seconds: 0.0,
+                averaging: None,
+                shifts: Vec::new(),
+                doppler_bulk: Vec::new(),
+                angiography_floor_db: Vec::new(),
+                angiography_white: methods.iter().map(|&m| (m, Vec::new())).collect(),
+                angiography_en_face: methods.iter().map(|&m| (m, Vec::new())).collect(),
+                volume: None,
+            },
+            grey: Vec::new(),
+        }
+    }
+
+    /// Writes one position; returns its structure image for reuse.
+    pub fn write(&mut self, p: PositionOutput) -> Result<Array2<f32>> {
+        let t = std::time::Instant::now();
+        let cfg = self.config;
+        let lc = &cfg.log_compression;
+        let image = &p.structure_db;
+        let (depth, alines) = image.dim();
+        let values = image.as_slice().expect("standard layout");
+        let floor = noise_floor_db(values);
+        let peak = peak_db(values) as f64;
+        let (black, white) = match lc.mapping {
+            GreyMapping::Auto => (floor + lc.floor_offset_db, floor + lc.floor_offset_db + lc.dynamic_range_db),
+            GreyMapping::Fixed => (lc.db_min, lc.db_max),
+        };
+        let position = p.position;
+        if cfg.output.png {
+            let name = frame_png_name(position);
+            let path = self.staging.path(&name);
+            if lc.bit_depth == 8 {
+                self.grey.resize(values.len(), 0);
+                grey_levels_u8(values, black, white, &mut self.grey);
+                png::write_grey8(&path, alines, depth, &self.grey)?;
+            } else {
+                png::write_grey(&path, alines, depth, &grey_levels(values, black, white, 65535.0), lc.bit_depth)?;
+            }
+            self.written.outputs.push(name);
+        }
+        if let Some(v) = &self.volume {
+            v.write_frame(position, image)?;
+        }
+        if cfg.volume.en_face {
+            self.written.en_face.extend(project(image, self.en_face_range, cfg.volume.en_face_projection));
+        }
+        if p.saturated > 0 {
+            self.written.warnings.push(format!(
+                "frame {}: {} samples at or above full scale ({}): fringes clipped",
+                p.input_frames[1],
+                p.saturated,
+                self.full_scale.unwrap_or(f64::NAN)
+            ));
+        }
+        self.written.records.push(FrameRecord {
+            index: position,
+            input_frames: p.input_frames,
+            noise_floor_db: round6(floor),
+            peak_db: round6(peak),
+            saturated_samples: p.saturated,
+            grey_black_db: round6(black),
+            grey_white_db: round6(white),
+        });
+        if let (Some(single), None) = (&p.first_single_db, &self.written.averaging) {
+            self.written.averaging = Some(measure_averaging(single, image, self.average));
+        }
+
+        // Contrast outputs.
+        if let Some(ds) = &self.datasets.complex {
+            for (index, c) in &p.complex {
+                write_stack_image::<Complex32>(ds, *index, c)?;
+            }
+        }
+        self.written.shifts.extend(p.shifts);
+        self.written.warnings.extend(p.warnings);
+        if let Some(v) = &p.doppler {
+            if let Some(ds) = &self.datasets.doppler {
+                write_stack_image(ds, position, v)?;
+            }
+            self.written.doppler_bulk.push(p.doppler_bulk_phase);
+            if cfg.output.png {
+                let name = format!("doppler-{position:04}.png");
+                let rgb = crate::render::signed_with_colour_bar(v.view(), self.velocity_range_mm_s, "mm/s")?;
+                png::write_rgb8(&self.staging.path(&name), rgb.width, rgb.height, &rgb.bytes)?;
+                self.written.outputs.push(name);
+            }
+        }
+        if !p.angiography.is_empty() {
+            self.written.angiography_floor_db.push(round6(floor));
+        }
+        for (k, (method, map, row)) in p.angiography.into_iter().enumerate() {
+            if let Some((_, ds)) = self.datasets.angiography.iter().find(|(m, _)| *m == method) {
+                write_stack_image(ds, position, &map)?;
+            }
+            let white = percentile_unmasked(map.as_slice().expect("standard layout"), 0.995);
+            self.written.angiography_white[k].1.push(round6(white));
+            self.written.angiography_en_face[k].1.extend(row);
+            if cfg.output.png {
+                let name = format!("angiography-{}-{position:04}.png", method.name());
+                let bytes = flow_grey(map.as_slice().expect("standard layout"), white);
+                png::write_grey8(&self.staging.path(&name), alines, depth, &bytes)?;
+                self.written.outputs.push(name);
+            }
+        }
+        self.written.write_seconds += t.elapsed().as_secs_f64();
+        Ok(p.structure_db)
+    }
+
+    /// The angiography en face images and datasets, after the last position.
+    pub fn finish(mut self, positions: usize) -> Result<Written> {
+        let t = std::time::Instant::now();
+        for (method, rows) in &self.written.angiography_en_face {
+            let name = format!("angiography_{}_en_face", method.name());
+            if let Some(v) = &self.volume {
+                let attrs = [("axes", "position,aline".to_string()), ("description", format!("en face projection of /angiography_{} over the slab in log.json", method.name()))];
+                v.write_2d(&name, rows, positions, self.alines, &attrs)?;
+            }
+            if self.config.output.png {
+                let png_name = format!("angiography-{}-en-face.png", method.name());
+                let white = percentile_unmasked(rows, 0.995);
+                png::write_grey8(&self.staging.path(&png_name), self.alines, positions, &flow_grey(rows, white))?;
+                self.written.outputs.push(png_name);
+            }
+        }
+        self.written.write_seconds += t.elapsed().as_secs_f64();
+        self.written.volume = self.volume.take();
+        Ok(self.written)
+    }
+}
+
+/// Mean or maximum over rows [lo, hi) of each column of a depth × A-lines image.
+fn project(image: &Array2<f32>, (lo, hi): (usize, usize), projection: Projection) -> Vec<f32> {
+    let rows = image.slice(ndarray::s![lo..hi, ..]);
+    let n = rows.nrows() as f64;
+    let mut acc = vec![
+        match projection {
+            Projection::Mean => 0.0f64,
+            Projection::Max => f64::NEG_INFINITY,
+        };
+        image.ncols()
+    ];
+    for row in rows.outer_iter() {
+        for (a, &v) in acc.iter_mut().zip(row.iter()) {
+            match projection {
+                Projection::Mean => *a += v as f64,
+                Projection::Max => *a = a.max(v as f64),
+            }
+        }
+    }
+    acc.iter()
+        .map(|&a| match projection {
+            Projection::Mean => (a / n) as f32,
+            Projection::Max => a as f32,
+        })
+        .collect()
+}
+
+/// The q-quantile of the values that are not NaN (0 when none).
+pub fn percentile_unmasked(values: &[f32], q: f64) -> f64 {
+    let mut v: Vec<f32> = values.iter().copied().filter(|x| !x.is_nan()).collect();
+    if v.is_empty() {
+        return 0.0;
+    }
+    let i = ((v.len() - 1) as f64 * q).round() as usize;
+    let (_, x, _) = v.select_nth_unstable_by(i, f32::total_cmp);
+    *x as f64
+}
+
+/// Flow values to 8-bit grey: 0 black, `white` white, NaN black.
+pub fn flow_grey(values: &[f32], white: f64) -> Vec<u8> {
+    let scale = if white > 0.0 { 255.0 / white } else { 0.0 };
+    values.iter().map(|&v| if v.is_nan() { 0 } else { (v as f64 * scale).round().clamp(0.0, 255.0) as u8 }).collect()
+}
+
+fn round6(v: f64) -> f64 {
+    (v * 1e6).round() / 1e6
+}
+
+/// Noise statistics of one B-scan against the average of its position, on
+/// the deepest tenth of the depth range (chosen by position, not by value,
+/// so the selection does not bias either side).
+fn measure_averaging(single: &Array2<f32>, averaged: &Array2<f32>, n: usize) -> AveragingRecord {
+    // Images are depth × A-lines: the deepest tenth of the rows.
+    let depth = single.nrows();
+    let region = (depth - depth / 10).min(depth - 1)..depth;
+    let values = |a: &Array2<f32>| -> Vec<f64> {
+        a.slice(ndarray::s![region.clone(), ..]).iter().map(|&d| crate::analysis::amplitude_from_db(d as f64)).collect()
+    };
+    let sd = |v: &[f64]| {
+        let mean = v.iter().sum::<f64>() / v.len() as f64;
+        (v.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (v.len() - 1) as f64).sqrt()
+    };
+    let (sd_one, sd_avg) = (sd(&values(single)), sd(&values(averaged)));
+    AveragingRecord {
+        frames_per_position: n,
+        noise_floor_single_db: round6(noise_floor_db(single.as_slice().unwrap())),
+        noise_floor_averaged_db: round6(noise_floor_db(averaged.as_slice().unwrap())),
+        noise_sd_single: round6(sd_one),
+        noise_sd_averaged: round6(sd_avg),
+        noise_sd_reduction_db: round6(20.0 * (sd_one / sd_avg).log10()),
+    }
+}
