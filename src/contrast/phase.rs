@@ -3,16 +3,18 @@
 //!
 //! Estimated from the pair's products P = A₂·conj(A₁) over the pixels
 //! above an intensity threshold, weighted by |P| = |A₁|·|A₂| (intensity
-//! weighting): a weighted histogram of arg P in 32 bins gives the mode
+//! weighting): a weighted histogram of arg P in 64 bins gives the mode
 //! (static tissue is most of the bright pixels), and the bulk phase is
-//! arg ΣP over the pixels within ±π/4 of that mode, so flowing pixels of
+//! arg ΣP over the pixels within ±π/8 of that mode, so flowing pixels of
 //! another phase do not pull it (the histogram-mode idea of common
 //! practice; the weighted mean alone is the Kasai estimate over depth).
 
 use rustfft::num_complex::Complex32;
 use std::f64::consts::PI;
 
-const BINS: usize = 32;
+const BINS: usize = 64;
+/// Half-width of the window around the mode that the final mean uses, rad.
+const WINDOW: f64 = PI / 8.0;
 
 /// Bulk phase (rad) of the products `p` whose weight |p| is at least
 /// `min_weight`; None when no product qualifies.
@@ -39,7 +41,7 @@ pub fn bulk_phase(p: impl Iterator<Item = Complex32> + Clone, min_weight: f32) -
         if w >= min_weight && w > 0.0 {
             let a = (v.im as f64).atan2(v.re as f64);
             let d = (a - centre + PI).rem_euclid(2.0 * PI) - PI;
-            if d.abs() <= PI / 4.0 {
+            if d.abs() <= WINDOW {
                 re += v.re as f64;
                 im += v.im as f64;
             }

@@ -320,7 +320,7 @@ pub struct RegistrationConfig {
 
 impl Default for RegistrationConfig {
     fn default() -> Self {
-        RegistrationConfig { repeats: false, positions: false, upsampling: 20, min_peak: 0.05 }
+        RegistrationConfig { repeats: false, positions: false, upsampling: 100, min_peak: 0.05 }
     }
 }
 

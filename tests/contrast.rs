@@ -1,0 +1,221 @@
+//! Complex output, Doppler flow, registration and angiography, driven
+//! through the binary on simulated scenes with known ground truth and
+//! checked by tests/contrast_checks.py (h5py + NumPy/SciPy, independent of
+//! the crate that wrote the files). Outside references, beside each check:
+//! - phase noise: for a phasor A plus circular Gaussian noise of variance
+//!   σ² per quadrature, the phase error is ≈ σ/|A| to first order, so the
+//!   difference of two independent samples has √2/√SNR with SNR = |A|²/σ²
+//!   (derived here; Choma et al. 2005, Opt. Lett. 30:1162, treat the
+//!   shot-noise-limited phase sensitivity of spectral-domain OCT, from memory);
+//! - Doppler: Kasai et al. 1985 (IEEE Trans. Sonics Ultrason. 32:458), the
+//!   Poiseuille profile v = v_max(1 − r²/R²) of the simulator;
+//! - registration: Guizar-Sicairos, Thurman & Fienup 2008 (Opt. Lett.
+//!   33:156); averaging N independent noise samples lowers the noise
+//!   standard deviation by 10·log10 N dB (common practice);
+//! - angiography: Jia et al. 2012 (Opt. Express 20:4710), Mariampillai et
+//!   al. 2008 (Opt. Lett. 33:1530), recomputed with NumPy.
+
+mod common;
+use common::*;
+use std::path::Path;
+use std::process::Command;
+
+fn check(args: &[&str]) -> String {
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/contrast_checks.py");
+    let o = Command::new("python3").arg(&script).args(args).output().expect("python3 with numpy, scipy and h5py (make test installs them)");
+    let text = String::from_utf8_lossy(&o.stdout).into_owned();
+    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.success(), "{} failed: {text}", args[0]);
+    assert!(text.contains("measured:"), "{text}");
+    text
+}
+
+fn s(p: &Path) -> &str {
+    p.to_str().unwrap()
+}
+
+/// Tissue with a vessel (flow away from the probe at `angle_deg` < 90),
+/// 4 repeats per position, the peak axial velocity at half the aliasing
+/// limit (λ0/(4nT) = 7.58 mm/s here, so 3.79 mm/s = 11.08·cos 70°).
+fn vessel_scene(positions: usize, motion: &str) -> String {
+    format!(
+        r#"
+seed = 8
+frames = {frames}
+repeats = 4
+alines = 128
+background_lines = 16
+[spectrometer]
+pixels = 1024
+start_nm = 790.0
+stop_nm = 890.0
+nonlinearity_nm = [2.0, -0.5]
+[detector]
+dtype = "u16"
+[scan]
+aline_spacing_um = 2.0
+position_spacing_um = 6.0
+aline_period_us = 20.0
+frame_gap_us = 200.0
+beam_radius_um = 6.0
+{motion}
+[sample]
+surface_um = 150.0
+[[sample.layers]]
+thickness_um = 350.0
+group_index = 1.38
+top_reflectivity = 1e-4
+scatterers = 40
+scatterer_reflectivity = 2e-6
+[[vessel]]
+lateral_um = 120.0
+depth_um = 350.0
+radius_um = 40.0
+peak_velocity_mm_s = 11.08
+angle_deg = 70.0
+azimuth_deg = 20.0
+scatterer_density_per_um3 = 0.01
+scatterer_reflectivity = 4e-6
+diffusion_um2_per_s = 20.0
+"#,
+        frames = 4 * positions
+    )
+}
+
+#[test]
+fn complex_output_is_complex64_with_the_documented_phase_convention() {
+    let dir = tempfile::tempdir().unwrap();
+    let scene = |z: f64| mirror_scene(z, "").replace("alines = 4", "alines = 8");
+    let (far, _) = simulate_scene(dir.path(), "far", &scene(600.0));
+    let (near, _) = simulate_scene(dir.path(), "near", &scene(599.95));
+    let p = "[output]\ncomplex = true\n[window]\nkind = \"hann\"\n";
+    run_ok(dir.path(), &[&far, &near], p, &dir.path().join("out"));
+    check(&["phase-convention", s(&dir.path().join("out/near")), s(&dir.path().join("out/far")), "600.0", "0.05"]);
+}
+
+#[test]
+fn phase_noise_of_a_static_mirror_follows_snr() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut outs = Vec::new();
+    for r in ["1e-5", "3e-5", "1e-4", "1e-3", "1e-2"] {
+        let scene = format!(
+            "seed = 5\nframes = 1\nalines = 400\nbackground_lines = 16\n[spectrometer]\npixels = 1024\nstart_nm = 790.0\nstop_nm = 890.0\n\
+             [detector]\ndtype = \"u16\"\n[scan]\naline_spacing_um = 1.0\naline_period_us = 20.0\nbeam_radius_um = 5.0\n\
+             [[reflector]]\ndepth_um = 500.0\nreflectivity = {r}\n"
+        );
+        let (c, _) = simulate_scene(dir.path(), &format!("mirror{r}"), &scene);
+        run_ok(dir.path(), &[&c], "[output]\ncomplex = true\n", &dir.path().join("out"));
+        outs.push(dir.path().join(format!("out/mirror{r}")).display().to_string());
+    }
+    let mut args = vec!["phase-noise", "500.0"];
+    args.extend(outs.iter().map(|s| s.as_str()));
+    check(&args);
+}
+
+#[test]
+fn doppler_recovers_a_parabolic_vessel_and_removes_bulk_motion() {
+    let dir = tempfile::tempdir().unwrap();
+    let (still, _) = simulate_scene(dir.path(), "still", &vessel_scene(4, ""));
+    let (moving, _) = simulate_scene(dir.path(), "moving", &vessel_scene(4, "[motion]\naxial_velocity_mm_s = 1.5\n"));
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&still, &moving], "[volume]\naverage = 4\n[doppler]\nenabled = true\n", &out);
+    let truth = |n: &str| dir.path().join(format!("{n}.truth.h5")).display().to_string();
+    check(&["doppler-vessel", s(&out.join("still")), &truth("still"), s(&dir.path().join("still.truth.json"))]);
+    check(&["doppler-bulk", s(&out.join("moving")), &truth("moving")]);
+    // The velocity image is an RGB picture with its colour bar, beside the B-scan.
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("still/log.json")).unwrap()).unwrap();
+    assert!(log["outputs"].as_array().unwrap().iter().any(|o| o == "doppler-0000.png"));
+    let limit = log["contrast"]["doppler"]["scale"]["aliasing_limit_mm_s"].as_f64().unwrap();
+    // λ0/(4·n·T) with λ0 the band centre (837.02 nm), n = 1.38, T = 20 µs.
+    assert!((limit - 837.0238 / (4.0 * 1.38 * 20.0)).abs() < 1e-3, "{limit}");
+}
+
+#[test]
+fn registration_recovers_subpixel_shifts_and_sharpens_the_average() {
+    let dir = tempfile::tempdir().unwrap();
+    let scene = r#"
+seed = 11
+frames = 12
+repeats = 4
+alines = 160
+background_lines = 16
+[spectrometer]
+pixels = 1024
+start_nm = 790.0
+stop_nm = 890.0
+nonlinearity_nm = [2.0, -0.5]
+[detector]
+dtype = "u16"
+[scan]
+aline_spacing_um = 2.0
+position_spacing_um = 5.0
+aline_period_us = 20.0
+beam_radius_um = 6.0
+[motion]
+repeat_axial_jitter_um = 30.0
+repeat_lateral_jitter_um = 18.0
+[sample]
+surface_um = 200.0
+sag_um = 40.0
+[[sample.layers]]
+thickness_um = 200.0
+group_index = 1.38
+top_reflectivity = 1e-4
+scatterers = 40
+scatterer_reflectivity = 3e-6
+[[sample.layers]]
+thickness_um = 250.0
+group_index = 1.4
+top_reflectivity = 2e-5
+scatterers = 40
+scatterer_reflectivity = 1e-6
+"#;
+    let (c, _) = simulate_scene(dir.path(), "jitter", scene);
+    run_ok(dir.path(), &[&c], "[volume]\naverage = 4\n[registration]\nrepeats = true\n", &dir.path().join("reg"));
+    run_ok(dir.path(), &[&c], "[volume]\naverage = 4\n", &dir.path().join("raw"));
+    check(&["registration", s(&dir.path().join("reg/jitter")), s(&dir.path().join("jitter.truth.json")), "0.1"]);
+    check(&["averaging", s(&dir.path().join("reg/jitter")), s(&dir.path().join("raw/jitter"))]);
+}
+
+#[test]
+fn angiography_separates_the_vessel_and_agrees_with_numpy() {
+    let dir = tempfile::tempdir().unwrap();
+    let (c, _) = simulate_scene(dir.path(), "vessel", &vessel_scene(6, ""));
+    let p = "[volume]\naverage = 4\n[angiography]\nmethods = [\"decorrelation\", \"speckle_variance\", \"split_spectrum\", \"complex_difference\"]\nen_face_depth_um = [290.0, 410.0]\n[output]\ncomplex = true\n";
+    run_ok(dir.path(), &[&c], p, &dir.path().join("out"));
+    check(&["angiography", s(&dir.path().join("out/vessel")), s(&dir.path().join("vessel.truth.h5")), s(&dir.path().join("vessel.truth.json"))]);
+    // Every method's images and datasets are there.
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(dir.path().join("out/vessel/log.json")).unwrap()).unwrap();
+    let outputs: Vec<&str> = log["outputs"].as_array().unwrap().iter().map(|o| o.as_str().unwrap()).collect();
+    for m in ["decorrelation", "speckle_variance", "split_spectrum", "complex_difference"] {
+        assert!(outputs.contains(&format!("angiography-{m}-0005.png").as_str()), "{outputs:?}");
+        assert!(outputs.contains(&format!("angiography-{m}-en-face.png").as_str()));
+    }
+}
+
+/// Each a one-line error, a non-zero exit, and nothing written.
+#[test]
+fn contrast_refuses_bad_input() {
+    let dir = tempfile::tempdir().unwrap();
+    // A capture without scan attributes (no A-line period) and 3 frames.
+    let (plain, _) = simulate_scene(dir.path(), "plain", &small_scene(300.0, 3, 32, 512));
+    let (scanned, _) = simulate_scene(dir.path(), "scanned", &vessel_scene(1, ""));
+    let cases: [(&Path, &str, &str, i32); 5] = [
+        (&plain, "[angiography]\nmethods = [\"decorrelation\"]\n", "needs N ≥ 2 repeated B-scans", 1),
+        (&plain, "[doppler]\nenabled = true\n", "Doppler needs the A-line period", 1),
+        (&scanned, "[volume]\naverage = 3\n[angiography]\nmethods = [\"decorrelation\"]\n", "not a multiple of volume.average = 3", 1),
+        (&scanned, "[output]\ncomplex = true\nvolume = false\n", "output.complex", 2),
+        (&scanned, "[output]\npng = false\nvolume = false\n", "would write nothing", 2),
+    ];
+    for (i, (capture, pipeline, expect, code)) in cases.iter().enumerate() {
+        let out = dir.path().join(format!("out{i}"));
+        let o = run(dir.path(), &[capture], pipeline, &out);
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(*code), "case {i}: {err}");
+        assert!(err.contains(expect), "case {i}: {err}");
+        assert_eq!(err.trim().lines().filter(|l| l.contains("error")).count(), 1, "case {i}: {err}");
+        let name = capture.file_stem().unwrap().to_str().unwrap();
+        assert!(!out.join(name).exists(), "case {i}: output written");
+        assert!(tree(&out).iter().all(|f| f.starts_with("batch")), "case {i}: {:?}", tree(&out));
+    }
+}

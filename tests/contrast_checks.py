@@ -1,0 +1,292 @@
+#!/usr/bin/env python3
+"""Checks of fringeflow's complex output, Doppler flow, registration and
+angiography, computed independently with NumPy/SciPy from what the run
+wrote (read with h5py) and the simulator's ground truth.
+
+Usage: contrast_checks.py CHECK ARGS...   (see each function)
+Prints `measured: ...` lines with the figures; exits 1 when a check fails.
+"""
+import json
+import sys
+
+import h5py
+import numpy as np
+from scipy.ndimage import binary_dilation
+
+
+def fail(msg):
+    print(f"FAIL {msg}")
+    sys.exit(1)
+
+
+def load_log(outdir):
+    return json.load(open(f"{outdir}/log.json"))
+
+
+def complex_profile(outdir):
+    with h5py.File(f"{outdir}/volume.h5", "r") as f:
+        ds = f["complex_depth_profile"]
+        # h5py maps the compound {r, i} of float32 to NumPy complex64.
+        if ds.dtype != np.complex64:
+            fail(f"complex_depth_profile has dtype {ds.dtype}, expected complex64")
+        return ds[...]
+
+
+def phase_convention(near_dir, far_dir, depth_um, step_um):
+    """Mirror at depth_um (far) and depth_um - step_um (near, closer to the
+    probe): the phase at the peak is 2·k_c·z (mod 2π), and moving towards the
+    probe lowers it by 2·k_c·step."""
+    near_dir, far_dir = near_dir, far_dir
+    depth_um, step_um = float(depth_um), float(step_um)
+    log = load_log(far_dir)
+    d = log["derived"]
+    kc = 0.5 * (d["k_min_per_um"] + d["k_max_per_um"])
+    phases = []
+    for outdir, z in [(far_dir, depth_um), (near_dir, depth_um - step_um)]:
+        c = complex_profile(outdir)[0].astype(np.complex128)  # depth × A-lines
+        amp = np.abs(c).mean(axis=1)
+        pk = int(np.argmax(amp[5:])) + 5
+        phi = np.angle(c[pk].mean())
+        want = np.angle(np.exp(1j * 2 * kc * z))
+        err = np.angle(np.exp(1j * (phi - want)))
+        print(f"measured: mirror at {z:.3f} um, peak bin {pk}: phase {phi:+.4f} rad, 2*k_c*z mod 2pi {want:+.4f}, difference {err:+.4f} rad")
+        if abs(err) > 0.1:
+            fail(f"phase at the peak differs from 2*k_c*z by {err:.3f} rad")
+        phases.append(phi)
+    step = np.angle(np.exp(1j * (phases[1] - phases[0])))
+    want = -2 * kc * step_um
+    print(f"measured: moving {step_um} um towards the probe changes the phase by {step:+.4f} rad (expected {want:+.4f})")
+    if abs(step - want) > 0.02 or np.sign(step) != np.sign(want):
+        fail("phase step for motion towards the probe has the wrong size or sign")
+
+
+def phase_noise(depth_um, *outdirs):
+    """Static mirrors at several SNRs: standard deviation of the A-line to
+    A-line phase difference against sqrt(2)/sqrt(SNR), SNR = |A|^2/sigma^2
+    with sigma^2 the noise variance per quadrature."""
+    depth_um = float(depth_um)
+    rows = []
+    for outdir in outdirs:
+        c = complex_profile(outdir)[0].astype(np.complex128)
+        sp = load_log(outdir)["derived"]["depth_spacing_um"]
+        pk = int(round(depth_um / sp))
+        amp = np.abs(c).mean(axis=1)
+        pk = pk - 2 + int(np.argmax(amp[pk - 2:pk + 3]))
+        a = c[pk]
+        dphi = np.angle(a[1:] * np.conj(a[:-1]))
+        noise = np.concatenate([c[pk + 40:pk + 120].ravel(), c[pk - 120:pk - 40].ravel()])
+        sigma2 = np.mean(np.abs(noise) ** 2) / 2
+        snr = np.mean(np.abs(a) ** 2) / sigma2
+        theory = np.sqrt(2 / snr)
+        rows.append((10 * np.log10(snr), dphi.std(), theory))
+        print(f"measured: SNR {10 * np.log10(snr):5.1f} dB: phase-difference sd {dphi.std():.5f} rad, sqrt(2/SNR) {theory:.5f}, ratio {dphi.std() / theory:.3f}")
+    span = max(r[0] for r in rows) - min(r[0] for r in rows)
+    if span < 20:
+        fail(f"SNR range {span:.1f} dB < 20 dB")
+    for snr_db, sd, theory in rows:
+        if abs(sd / theory - 1) > 0.2:
+            fail(f"at {snr_db:.1f} dB the phase noise is {sd / theory:.3f} of sqrt(2/SNR)")
+
+
+def vessel_profile(outdir, truth_h5, truth_json):
+    """Doppler of a simulated vessel against the Poiseuille truth: bins of
+    r^2/R^2 (from the truth field), a line fit v = v0 + b*r^2/R^2."""
+    with h5py.File(f"{outdir}/volume.h5", "r") as f:
+        v = f["doppler_velocity_mm_s"][...]
+    t = h5py.File(truth_h5, "r")["axial_velocity_mm_s"][...]
+    vp = json.load(open(truth_json))["scan"]["vessels"][0]["peak_axial_velocity_mm_s"]
+    d = min(v.shape[1], t.shape[1])
+    v, t = v[:, :d], t[:, :d]
+    m = ~np.isnan(t) & ~np.isnan(v)
+    u = 1 - t[m] / vp
+    meas = v[m]
+    idx = np.clip((u * 10).astype(int), 0, 9)
+    xb = np.array([u[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    yb = np.array([meas[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    design = np.vstack([np.ones_like(xb), xb]).T
+    coef = np.linalg.lstsq(design, yb, rcond=None)[0]
+    pred = design @ coef
+    r2 = 1 - ((yb - pred) ** 2).sum() / ((yb - yb.mean()) ** 2).sum()
+    inner = xb < 0.5
+    peak = np.linalg.lstsq(design[inner], yb[inner], rcond=None)[0][0]
+    return vp, peak, r2, xb, yb
+
+
+def doppler_vessel(outdir, truth_h5, truth_json):
+    """Peak within 5 % with the right sign; parabolic profile, R^2 >= 0.95.
+    The peak is the intercept of the fit over the inner half of r^2/R^2,
+    where the blur of the resolution volume across the wall does not reach."""
+    vp, peak, r2, xb, yb = vessel_profile(outdir, truth_h5, truth_json)
+    log = load_log(outdir)
+    lim = log["contrast"]["doppler"]["scale"]["aliasing_limit_mm_s"]
+    print(f"measured: truth peak axial velocity {vp:+.4f} mm/s ({abs(vp) / lim:.3f} of the aliasing limit {lim:.3f} mm/s)")
+    print(f"measured: recovered peak {peak:+.4f} mm/s, error {100 * (peak / vp - 1):+.2f} %; parabolic fit R^2 {r2:.4f}")
+    print("measured: profile (r^2/R^2 : mm/s) " + " ".join(f"{x:.2f}:{y:+.2f}" for x, y in zip(xb, yb)))
+    if np.sign(peak) != np.sign(vp):
+        fail("wrong sign")
+    if abs(peak / vp - 1) > 0.05:
+        fail(f"peak off by {100 * (peak / vp - 1):.1f} %")
+    if r2 < 0.95:
+        fail(f"R^2 {r2:.3f} < 0.95")
+
+
+def doppler_bulk(outdir, truth_h5):
+    """With bulk axial motion: the mean residual phase of static tissue
+    (pixels well away from the vessel, allowing for the drift) < 0.05 rad."""
+    with h5py.File(f"{outdir}/volume.h5", "r") as f:
+        v = f["doppler_velocity_mm_s"][...]
+    t = h5py.File(truth_h5, "r")["axial_velocity_mm_s"][...]
+    s = load_log(outdir)["contrast"]["doppler"]
+    d = min(v.shape[1], t.shape[1])
+    v, t = v[:, :d], t[:, :d]
+    far = ~binary_dilation(~np.isnan(t), structure=np.ones((1, 61, 17), bool))
+    static = far & ~np.isnan(v)
+    sc = s["scale"]
+    phase = v[static] * 4 * np.pi * sc["group_index"] * sc["period_us"] / sc["centre_wavelength_nm"]
+    removed = np.mean([np.mean(b) for b in s["bulk_phase_rad"]])
+    print(f"measured: bulk phase removed {removed:+.4f} rad per A-line pair; static tissue residual mean {phase.mean():+.4f} rad (sd {phase.std():.3f}, {static.sum()} pixels)")
+    if abs(phase.mean()) >= 0.05:
+        fail(f"residual {phase.mean():.3f} rad")
+
+
+def registration(outdir, truth_json, tolerance):
+    """Every repeat's measured shift against the simulator's displacement."""
+    tolerance = float(tolerance)
+    log = load_log(outdir)
+    sp = log["derived"]["depth_spacing_um"]
+    frames = json.load(open(truth_json))["scan"]["frames"]
+    worst = 0.0
+    biggest = 0.0
+    for s, tr in zip(log["contrast"]["registration"], frames):
+        if s["repeat_peak"] is None:
+            continue
+        want = (tr["axial_um"] / sp, tr["lateral_px"])
+        err = max(abs(s["axial_px"] - want[0]), abs(s["lateral_px"] - want[1]))
+        worst = max(worst, err)
+        biggest = max(biggest, abs(want[0]), abs(want[1]))
+    print(f"measured: registration, largest true shift {biggest:.2f} px, worst error {worst:.3f} px")
+    if biggest < 5:
+        fail("the test's shifts are too small to mean anything")
+    if worst > tolerance:
+        fail(f"worst registration error {worst:.3f} px > {tolerance}")
+
+
+def interface_width(outdir):
+    """Median over the A-lines of every position of the brightest
+    interface's equivalent width (pixels): the area of its amplitude over
+    ±20 pixels around the peak, the noise mean removed, divided by the peak.
+    A blurred or doubled interface is wider."""
+    with h5py.File(f"{outdir}/volume.h5", "r") as f:
+        db = f["volume_db"][...].astype(np.float64)
+    amp = 10 ** (db / 20)
+    widths = []
+    for frame in amp:
+        floor = np.median(frame)
+        for a in range(5, frame.shape[1] - 5):
+            p = frame[:, a] - floor
+            i = int(np.argmax(p[25:-25])) + 25
+            widths.append(p[i - 20:i + 21].clip(0).sum() / p[i])
+    return float(np.median(widths))
+
+
+def averaging(registered_dir, unregistered_dir):
+    """Averaging 4 registered repeats lowers the noise sd by 10*log10(4) +- 1
+    dB; without registration the interface is measurably wider."""
+    rec = load_log(registered_dir)["averaging"]
+    red = rec["noise_sd_reduction_db"]
+    w_reg, w_raw = interface_width(registered_dir), interface_width(unregistered_dir)
+    print(f"measured: noise sd reduction {red:.2f} dB with {rec['frames_per_position']} registered repeats (10*log10 N = {10 * np.log10(rec['frames_per_position']):.2f} dB)")
+    print(f"measured: interface equivalent width {w_reg:.2f} px registered, {w_raw:.2f} px without registration")
+    if abs(red - 10 * np.log10(rec["frames_per_position"])) > 1:
+        fail("noise reduction off")
+    if w_raw < 1.5 * w_reg:
+        fail("the unregistered average is not measurably blurred")
+
+
+def angiography(outdir, truth_h5, truth_json):
+    """Decorrelation contrast (vessel / static tissue), en face vessel centre
+    against the truth, and decorrelation and speckle variance recomputed
+    with NumPy from the complex output and the structure image."""
+    log = load_log(outdir)
+    a = log["contrast"]["angiography"]
+    thr = a["noise_bias_threshold_db"]
+    t = h5py.File(truth_h5, "r")["axial_velocity_mm_s"][...]
+    truth = json.load(open(truth_json))["scan"]["vessels"][0]
+    with h5py.File(f"{outdir}/volume.h5", "r") as f:
+        dec = f["angiography_decorrelation"][...]
+        sv = f["angiography_speckle_variance"][...]
+        en = f["angiography_decorrelation_en_face"][...]
+        structure = f["volume_db"][...]
+        c = f["complex_depth_profile"][...].astype(np.complex128)
+    d = min(dec.shape[1], t.shape[1])
+    vessel = ~np.isnan(t[:, :d])
+    far = ~binary_dilation(vessel, structure=np.ones((1, 21, 9), bool))
+    dv, ds = dec[:, :d], dec[:, :d]
+    inside = np.nanmean(np.where(vessel, dv, np.nan))
+    static = np.nanmean(np.where(far, ds, np.nan))
+    print(f"measured: decorrelation mean {inside:.4f} in the vessel, {static:.4f} in static tissue: contrast {inside / static:.2f}x")
+    if inside < 5 * static:
+        fail("contrast below 5x")
+
+    # En face: per position, centroid of the half-maximum region of the
+    # row (baseline removed, 9-point moving average), then a straight line
+    # through the positions (the simulated vessel is straight).
+    centres, truths = [], []
+    for p, row in enumerate(en):
+        r = np.nan_to_num(row - np.nanmedian(row))
+        r = np.convolve(r, np.ones(9) / 9, "same")
+        pk = int(np.argmax(r))
+        lo, hi = pk, pk
+        while lo > 0 and r[lo - 1] > 0.5 * r[pk]:
+            lo -= 1
+        while hi < len(r) - 1 and r[hi + 1] > 0.5 * r[pk]:
+            hi += 1
+        x = np.arange(lo, hi + 1)
+        centres.append((x * r[lo:hi + 1]).sum() / r[lo:hi + 1].sum())
+        truths.append(truth["centre_per_position"][p]["aline"])
+    pos = np.arange(len(centres))
+    line = np.polyval(np.polyfit(pos, centres, 1), pos)
+    err = np.abs(line - np.array(truths))
+    print("measured: en face centre per position (fit / truth, A-lines) " + " ".join(f"{l:.2f}/{tt:.2f}" for l, tt in zip(line, truths)) + f"; worst {err.max():.2f} px")
+    if err.max() > 1:
+        fail("en face centre more than 1 px from the truth")
+
+    # Independent recomputation (NumPy, float64) from the complex profiles.
+    n = a["repeats_per_position"]
+    worst_d = worst_s = 0.0
+    for p in range(dec.shape[0]):
+        amps = np.abs(c[p * n:(p + 1) * n])
+        x, y = amps[:-1], amps[1:]
+        ref_d = 1 - np.mean(x * y / (0.5 * (x ** 2 + y ** 2)), axis=0)
+        ref_s = np.var(10 * np.log10(np.maximum(amps ** 2, 1e-24)), axis=0)
+        level = a["noise_floor_db"][p] + thr
+        mask = structure[p] < level
+        # The log rounds the floor to 1e-6 dB: pixels that close to the
+        # threshold may fall either way. Registration is off here, so there
+        # is no wrapped margin.
+        sure = np.abs(structure[p] - level) > 1e-5
+        for ours, ref, name in [(dec[p], ref_d, "decorrelation"), (sv[p], ref_s, "speckle variance")]:
+            if not np.array_equal(np.isnan(ours)[sure], mask[sure]):
+                fail(f"{name}: masked pixels differ from the threshold's")
+            ok = ~np.isnan(ours)
+            rel = np.abs(ours[ok] - ref[ok]) / np.maximum(np.abs(ref[ok]), 1e-3)
+            if name == "decorrelation":
+                worst_d = max(worst_d, rel.max())
+            else:
+                worst_s = max(worst_s, rel.max())
+    print(f"measured: NumPy recomputation, worst relative difference: decorrelation {worst_d:.2e}, speckle variance {worst_s:.2e}")
+    if max(worst_d, worst_s) > 1e-4:
+        fail("disagrees with the NumPy computation")
+
+
+if __name__ == "__main__":
+    checks = {
+        "phase-convention": phase_convention,
+        "phase-noise": phase_noise,
+        "doppler-vessel": doppler_vessel,
+        "doppler-bulk": doppler_bulk,
+        "registration": registration,
+        "averaging": averaging,
+        "angiography": angiography,
+    }
+    checks[sys.argv[1]](*sys.argv[2:])
