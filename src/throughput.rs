@@ -85,6 +85,30 @@ pub struct BenchReport {
     /// The same with `[output] volume_type = "uint16"` (half the volume bytes).
     pub end_to_end_uint16_alines_per_second: Option<f64>,
     pub end_to_end_uint16_over_pipeline: Option<f64>,
+    /// Contrast beyond intensity, in memory on the same frames taken 4 at
+    /// a time as repeats of a position (same run as the pipeline figures).
+    pub contrast: Vec<ContrastPoint>,
+    /// The simulator on the sample scene (sample-data/layered-phantom.toml):
+    /// seconds with the vectorised kernels and with the standard library's
+    /// cos/sin/exp (the plain formulas), and their ratio.
+    pub simulator: Option<SimulatorPoint>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct ContrastPoint {
+    pub workload: String,
+    pub alines_per_second: f64,
+    /// Against the intensity pipeline of this run.
+    pub over_pipeline: f64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct SimulatorPoint {
+    pub scene: String,
+    pub alines: usize,
+    pub vectorised_seconds: f64,
+    pub standard_library_seconds: f64,
+    pub speed_up: f64,
 }
 
 fn median(mut v: Vec<f64>) -> f64 {
@@ -274,7 +298,12 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         (None, None)
     };
 
+    let contrast = time_contrast(&config, &capture, &plan, &frames, opts, pipe_rate)?;
+    let simulator = if opts.end_to_end { Some(time_simulator(opts)?) } else { None };
+
     Ok(BenchReport {
+        contrast,
+        simulator,
         machine: machine(),
         capture: path,
         pixels,
@@ -295,6 +324,99 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         end_to_end_uint16_alines_per_second: end_to_end_uint16,
         end_to_end_uint16_over_pipeline: end_to_end_uint16.map(|e| e / pipe_rate),
     })
+}
+
+/// Contrast workloads in memory: each frame reconstructed with its complex
+/// profile, every 4 frames one position through `contrast::position`, with
+/// the buffers reused from position to position as `run` does.
+fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Plan, frames: &[RawFrame], opts: &BenchOptions, pipe_rate: f64) -> Result<Vec<ContrastPoint>> {
+    use crate::contrast::doppler::DopplerScale;
+    use crate::contrast::position::{PositionProcessor, RepeatFrame};
+    const N: usize = 4;
+    let (alines, _) = capture.frame_shape();
+    let depth = plan.summary.depth_pixels;
+    let depth_um: Vec<f64> = (0..depth).map(|i| plan.depth_um(i)).collect();
+    let fused = FusedPlan::new(plan);
+    let workloads: [(&str, &str); 5] = [
+        ("complex depth profile only (no contrast stage)", "[output]\ncomplex = true\n"),
+        ("Doppler between A-lines (Kasai 3 x 4)", "[doppler]\nenabled = true\n"),
+        ("angiography N = 4, decorrelation", "[angiography]\nmethods = [\"decorrelation\"]\n"),
+        ("angiography N = 4, decorrelation + registration", "[angiography]\nmethods = [\"decorrelation\"]\n[registration]\nrepeats = true\n"),
+        ("angiography N = 4, all four methods", "[angiography]\nmethods = [\"decorrelation\", \"split_spectrum\", \"speckle_variance\", \"complex_difference\"]\n"),
+    ];
+    let positions = (opts.alines.div_ceil(alines).div_ceil(N)).clamp(2, 16);
+    let mut out = Vec::new();
+    for (name, extra) in workloads {
+        let mut config: PipelineConfig = PipelineConfig::from_str("bench", &format!("{PIPELINE}\n[volume]\naverage = {N}\n{extra}")).map_err(|e| anyhow::anyhow!("{e}"))?;
+        config.input = base.input.clone();
+        let sub_bands: Vec<FusedPlan> = if config.angiography.methods.contains(&crate::pipeline::config::AngiographyMethod::SplitSpectrum) {
+            let shaping = plan.shaping_gain();
+            crate::contrast::angiography::sub_band_windows(plan.summary.k_samples, config.angiography.split_bands, config.angiography.split_band_fwhm)
+                .into_iter()
+                .map(|w| {
+                    let gain: Vec<f64> = w.iter().zip(&shaping).map(|(a, b)| a * b).collect();
+                    FusedPlan::with_spectral_gain(plan, &gain, 2.0 / w.iter().sum::<f64>())
+                })
+                .collect()
+        } else {
+            Vec::new()
+        };
+        let scale = config.doppler.enabled.then(|| DopplerScale::new(plan.summary.centre_wavelength_nm, config.doppler.group_index, 20.0));
+        let timer = fused.new_timer();
+        let mut runs = Vec::new();
+        for _ in 0..opts.repeats.min(3) {
+            let mut processor = PositionProcessor::new(&config, depth_um.clone(), alines, scale);
+            let mut repeats: Vec<RepeatFrame> = (0..N)
+                .map(|_| RepeatFrame {
+                    complex: Some(Array2::<Complex32>::zeros((depth, alines))),
+                    sub_bands: sub_bands.iter().map(|_| Array2::<f32>::zeros((depth, alines))).collect(),
+                    ..Default::default()
+                })
+                .collect();
+            let start = Instant::now();
+            for p in 0..positions {
+                for (r, slot) in repeats.iter_mut().enumerate() {
+                    let raw = &frames[(p * N + r) % frames.len()];
+                    if slot.db.dim() != (depth, alines) {
+                        slot.db = Array2::<f32>::zeros((depth, alines));
+                    }
+                    fused.process_raw_image_complex(raw, &mut slot.db, slot.complex.as_mut().expect("complex"), &timer);
+                    for (sp, band) in sub_bands.iter().zip(slot.sub_bands.iter_mut()) {
+                        sp.process_raw_image(raw, band, &timer);
+                        band.par_mapv_inplace(|d| 10f32.powf(d / 20.0));
+                    }
+                    slot.index = p * N + r;
+                }
+                std::hint::black_box(processor.process(p, &mut repeats)?);
+            }
+            runs.push((positions * N * alines) as f64 / start.elapsed().as_secs_f64());
+        }
+        let rate = median(runs);
+        out.push(ContrastPoint { workload: name.into(), alines_per_second: rate, over_pipeline: rate / pipe_rate });
+    }
+    Ok(out)
+}
+
+/// The simulator on the sample scene, vectorised kernels against the
+/// standard library's functions.
+fn time_simulator(opts: &BenchOptions) -> Result<SimulatorPoint> {
+    const SAMPLE: &str = include_str!("../sample-data/layered-phantom.toml");
+    let scene = crate::simulate::scene::Scene::from_str("sample-data/layered-phantom.toml", SAMPLE).map_err(|e| anyhow::anyhow!("{e}"))?;
+    std::fs::create_dir_all(&opts.work_dir)?;
+    let path = opts.work_dir.join("simulator-bench.h5");
+    let time = |standard: bool| -> Result<f64> {
+        crate::simulate::use_standard_library_math(standard);
+        let t = Instant::now();
+        crate::simulate::simulate(&scene, &path)?;
+        Ok(t.elapsed().as_secs_f64())
+    };
+    let fast = time(false)?;
+    let plain = time(true);
+    crate::simulate::use_standard_library_math(false);
+    let plain = plain?;
+    std::fs::remove_file(&path).ok();
+    std::fs::remove_file(crate::simulate::truth_path(&path)).ok();
+    Ok(SimulatorPoint { scene: "sample-data/layered-phantom.toml".into(), alines: scene.frames * scene.alines, vectorised_seconds: fast, standard_library_seconds: plain, speed_up: plain / fast })
 }
 
 impl BenchReport {
@@ -329,6 +451,16 @@ impl BenchReport {
         if let (Some(e), Some(r)) = (self.end_to_end_uint16_alines_per_second, self.end_to_end_uint16_over_pipeline) {
             s += &format!("{:<44} {:>14.0}\n", "same, uint16 volume (half the bytes)", e);
             s += &format!("{:<44} {:>14.3}\n", "ratio (uint16 volume) / in-memory pipeline", r);
+        }
+        for c in &self.contrast {
+            s += &format!("{:<44} {:>14.0}\n", c.workload, c.alines_per_second);
+            s += &format!("{:<44} {:>14.3}\n", "  ratio to the intensity pipeline", c.over_pipeline);
+        }
+        if let Some(sim) = &self.simulator {
+            s += &format!(
+                "simulator, {} ({} A-lines): {:.2} s vectorised, {:.2} s with the standard library's cos/sin/exp: {:.1}x\n",
+                sim.scene, sim.alines, sim.vectorised_seconds, sim.standard_library_seconds, sim.speed_up
+            );
         }
         s += &format!("\nfused pipeline, thread-seconds per part (first run; FFT: {}):\n", self.fused_fft);
         if self.fused_fft == "lane" {

@@ -30,15 +30,21 @@ use crate::pipeline::config::{AngiographyConfig, IntensityScale, Projection};
 pub fn decorrelation(amplitudes: &[ArrayView2<'_, f32>]) -> Array2<f32> {
     let n = amplitudes.len();
     assert!(n >= 2);
-    let mut out = Array2::<f32>::zeros(amplitudes[0].dim());
-    Zip::indexed(&mut out).par_for_each(|(d, a), v| {
-        let mut s = 0.0f64;
-        for w in amplitudes.windows(2) {
-            let (x, y) = (w[0][[d, a]] as f64, w[1][[d, a]] as f64);
-            let den = 0.5 * (x * x + y * y);
-            s += if den > 0.0 { x * y / den } else { 1.0 };
+    let (depth, alines) = amplitudes[0].dim();
+    let rows: Vec<_> = amplitudes.iter().map(|m| m.as_standard_layout()).collect();
+    let slices: Vec<&[f32]> = rows.iter().map(|m| m.as_slice().expect("standard layout")).collect();
+    let mut out = Array2::<f32>::zeros((depth, alines));
+    out.as_slice_mut().expect("standard layout").par_chunks_mut(alines).enumerate().for_each(|(d, o)| {
+        let base = d * alines;
+        for (j, v) in o.iter_mut().enumerate() {
+            let mut s = 0.0f64;
+            for w in slices.windows(2) {
+                let (x, y) = (w[0][base + j] as f64, w[1][base + j] as f64);
+                let den = 0.5 * (x * x + y * y);
+                s += if den > 0.0 { x * y / den } else { 1.0 };
+            }
+            *v = (1.0 - s / (n - 1) as f64) as f32;
         }
-        *v = (1.0 - s / (n - 1) as f64) as f32;
     });
     out
 }
@@ -46,30 +52,34 @@ pub fn decorrelation(amplitudes: &[ArrayView2<'_, f32>]) -> Array2<f32> {
 /// Speckle variance of the repeats' amplitudes.
 pub fn speckle_variance(amplitudes: &[ArrayView2<'_, f32>], scale: IntensityScale) -> Array2<f32> {
     let n = amplitudes.len() as f64;
-    let mut out = Array2::<f32>::zeros(amplitudes[0].dim());
-    Zip::indexed(&mut out).par_for_each(|(d, a), v| {
-        let x: Vec<f64> = amplitudes
-            .iter()
-            .map(|m| {
-                let i = (m[[d, a]] as f64).powi(2);
-                match scale {
+    let (depth, alines) = amplitudes[0].dim();
+    let rows: Vec<_> = amplitudes.iter().map(|m| m.as_standard_layout()).collect();
+    let slices: Vec<&[f32]> = rows.iter().map(|m| m.as_slice().expect("standard layout")).collect();
+    let mut out = Array2::<f32>::zeros((depth, alines));
+    out.as_slice_mut().expect("standard layout").par_chunks_mut(alines).enumerate().for_each(|(d, o)| {
+        let base = d * alines;
+        let mut x = vec![0.0f64; slices.len()];
+        for (j, v) in o.iter_mut().enumerate() {
+            for (xi, m) in x.iter_mut().zip(&slices) {
+                let i = (m[base + j] as f64).powi(2);
+                *xi = match scale {
                     IntensityScale::Db => 10.0 * i.max(1e-24).log10(),
                     IntensityScale::Linear => i,
-                }
-            })
-            .collect();
-        let mean = x.iter().sum::<f64>() / n;
-        let var = x.iter().map(|xi| (xi - mean).powi(2)).sum::<f64>() / n;
-        *v = match scale {
-            IntensityScale::Db => var,
-            IntensityScale::Linear => {
-                if mean > 0.0 {
-                    var / (mean * mean)
-                } else {
-                    0.0
-                }
+                };
             }
-        } as f32;
+            let mean = x.iter().sum::<f64>() / n;
+            let var = x.iter().map(|xi| (xi - mean).powi(2)).sum::<f64>() / n;
+            *v = match scale {
+                IntensityScale::Db => var,
+                IntensityScale::Linear => {
+                    if mean > 0.0 {
+                        var / (mean * mean)
+                    } else {
+                        0.0
+                    }
+                }
+            } as f32;
+        }
     });
     out
 }
@@ -106,7 +116,7 @@ pub fn complex_difference(frames: &[ArrayView2<'_, Complex32>], bulk_min_power: 
 /// at each edge (content wrapped around by registration).
 pub fn mask(values: &mut Array2<f32>, structure_db: ArrayView2<'_, f32>, threshold_db: f64, margin: (usize, usize)) {
     let (depth, alines) = values.dim();
-    Zip::indexed(values).and(structure_db).for_each(|(d, a), v, &s| {
+    Zip::indexed(values).and(structure_db).par_for_each(|(d, a), v, &s| {
         let edge = d < margin.0 || d + margin.0 >= depth || a < margin.1 || a + margin.1 >= alines;
         if (s as f64) < threshold_db || edge {
             *v = f32::NAN;

@@ -14,11 +14,12 @@
 //! a positive Δφ and a positive velocity mean motion away from the probe
 //! (towards larger depth).
 
-use ndarray::{Array2, ArrayView2};
+use ndarray::{Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 use rustfft::num_complex::{Complex32, Complex64};
 
-use super::phase::bulk_phase;
+use super::fft2::transposed;
+use super::phase::{bulk_phase, fast_atan2};
 use crate::pipeline::config::{DopplerConfig, DopplerPairs};
 
 /// Velocity scale and limits of a Doppler measurement.
@@ -46,15 +47,17 @@ impl DopplerScale {
     }
 }
 
-/// Kasai sums of one position, accumulated pair by pair.
+/// Kasai sums of one position, accumulated pair by pair. Stored pair slot
+/// by depth (one contiguous row per slot), so each pair is filled by one
+/// worker without strided writes.
 pub struct KasaiSums {
     pairs: DopplerPairs,
-    /// Σ P (bulk removed) and Σ (|A₁|² + |A₂|²)/2 per pixel and pair slot.
+    /// Σ P (bulk removed) and Σ (|A₁|² + |A₂|²)/2, slots × depth.
     products: Array2<Complex64>,
     power: Array2<f64>,
     count: usize,
-    /// Bulk phase removed from each pair, rad (mean over the pairs of a frame
-    /// in `alines` mode), in the order added.
+    /// Bulk phase removed, rad: per frame (A-line pairs, the circular mean
+    /// over its pairs) or per repeat pair (mean over A-lines), in order.
     pub bulk_phases: Vec<f64>,
     bulk_correction: bool,
     /// Weight |A₁||A₂| a pixel needs to take part in the bulk estimate.
@@ -72,8 +75,8 @@ impl KasaiSums {
         let threshold = floor_power * 10f64.powf(config.threshold_db / 10.0);
         KasaiSums {
             pairs: config.between,
-            products: Array2::zeros((depth, slots)),
-            power: Array2::zeros((depth, slots)),
+            products: Array2::zeros((slots, depth)),
+            power: Array2::zeros((slots, depth)),
             count: 0,
             bulk_phases: Vec::new(),
             bulk_correction: config.bulk_correction,
@@ -81,91 +84,82 @@ impl KasaiSums {
         }
     }
 
+    /// Adds pairs: slot s pairs line `first(s)` (earlier) with `second(s)`
+    /// (later), lines being rows (A-lines × depth) of the given images.
+    fn add_pairs(&mut self, earlier: &Array2<Complex32>, later: &Array2<Complex32>, offset: usize) {
+        let min_weight = self.bulk_min_weight;
+        let correct = self.bulk_correction;
+        let bulks: Vec<f64> = self
+            .products
+            .axis_iter_mut(Axis(0))
+            .into_par_iter()
+            .zip(self.power.axis_iter_mut(Axis(0)))
+            .enumerate()
+            .map(|(slot, (mut sum, mut power))| {
+                let (x, y) = (earlier.row(slot), later.row(slot + offset));
+                let p = x.iter().zip(y.iter()).map(|(a, b)| b * a.conj());
+                let bulk = if correct { bulk_phase(p.clone(), min_weight).unwrap_or(0.0) } else { 0.0 };
+                let undo = Complex64::from_polar(1.0, -bulk);
+                for ((s, w), (a, b)) in sum.iter_mut().zip(power.iter_mut()).zip(x.iter().zip(y.iter())) {
+                    let v = b * a.conj();
+                    *s += Complex64::new(v.re as f64, v.im as f64) * undo;
+                    *w += 0.5 * (a.norm_sqr() as f64 + b.norm_sqr() as f64);
+                }
+                bulk
+            })
+            .collect();
+        let mean: Complex64 = bulks.iter().map(|&b| Complex64::from_polar(1.0, b)).sum();
+        self.bulk_phases.push(mean.arg());
+        self.count += 1;
+    }
+
     /// Adds the pairs of neighbouring A-lines of one frame (depth × A-lines).
     pub fn add_frame(&mut self, frame: ArrayView2<'_, Complex32>) {
         debug_assert_eq!(self.pairs, DopplerPairs::Alines);
-        let (depth, alines) = frame.dim();
-        if alines < 2 {
+        if frame.ncols() < 2 {
             return;
         }
-        let pairs: Vec<(Vec<Complex32>, f64)> = (0..alines - 1)
-            .into_par_iter()
-            .map(|a| {
-                let p: Vec<Complex32> = (0..depth).map(|d| frame[[d, a + 1]] * frame[[d, a]].conj()).collect();
-                let bulk = if self.bulk_correction { bulk_phase(p.iter().copied(), self.bulk_min_weight).unwrap_or(0.0) } else { 0.0 };
-                (p, bulk)
-            })
-            .collect();
-        let mut mean_bulk = Complex64::new(0.0, 0.0);
-        for (a, (p, bulk)) in pairs.iter().enumerate() {
-            let undo = Complex64::from_polar(1.0, -bulk);
-            mean_bulk += Complex64::from_polar(1.0, *bulk);
-            for d in 0..depth {
-                let v = Complex64::new(p[d].re as f64, p[d].im as f64) * undo;
-                self.products[[d, a]] += v;
-                let (x, y) = (frame[[d, a]].norm_sqr() as f64, frame[[d, a + 1]].norm_sqr() as f64);
-                self.power[[d, a]] += 0.5 * (x + y);
-            }
-        }
-        self.bulk_phases.push(mean_bulk.arg());
-        self.count += 1;
+        let lines = transposed(&frame.to_owned());
+        self.add_pairs(&lines, &lines, 1);
     }
 
     /// Adds the pair (earlier, later) of consecutive repeated B-scans.
     pub fn add_repeat_pair(&mut self, earlier: ArrayView2<'_, Complex32>, later: ArrayView2<'_, Complex32>) {
         debug_assert_eq!(self.pairs, DopplerPairs::Repeats);
-        let (depth, alines) = earlier.dim();
-        let columns: Vec<(Vec<Complex32>, f64)> = (0..alines)
-            .into_par_iter()
-            .map(|a| {
-                let p: Vec<Complex32> = (0..depth).map(|d| later[[d, a]] * earlier[[d, a]].conj()).collect();
-                let bulk = if self.bulk_correction { bulk_phase(p.iter().copied(), self.bulk_min_weight).unwrap_or(0.0) } else { 0.0 };
-                (p, bulk)
-            })
-            .collect();
-        let mut mean_bulk = Complex64::new(0.0, 0.0);
-        for (a, (p, bulk)) in columns.iter().enumerate() {
-            let undo = Complex64::from_polar(1.0, -bulk);
-            mean_bulk += Complex64::from_polar(1.0, *bulk);
-            for d in 0..depth {
-                self.products[[d, a]] += Complex64::new(p[d].re as f64, p[d].im as f64) * undo;
-                self.power[[d, a]] += 0.5 * (earlier[[d, a]].norm_sqr() as f64 + later[[d, a]].norm_sqr() as f64);
-            }
-        }
-        self.bulk_phases.push(mean_bulk.arg());
-        self.count += 1;
+        let (a, b) = (transposed(&earlier.to_owned()), transposed(&later.to_owned()));
+        self.add_pairs(&a, &b, 0);
     }
 
     /// The velocity image (depth × A-lines, mm/s, NaN where masked): box
     /// sums over the kernel, arg, scale. `threshold_power` is the power a
     /// pixel's kernel mean needs (noise floor + threshold).
     pub fn velocity(&self, config: &DopplerConfig, scale: &DopplerScale, threshold_power: f64, alines: usize) -> Array2<f32> {
-        let (depth, slots) = self.products.dim();
-        let mut out = Array2::<f32>::from_elem((depth, alines), f32::NAN);
+        let (slots, depth) = self.products.dim();
         if self.count == 0 {
-            return out;
+            return Array2::from_elem((depth, alines), f32::NAN);
         }
-        let sums = box_sum(&self.products, config.kernel_depth_px, config.kernel_alines);
-        let power = box_sum(&self.power, config.kernel_depth_px, config.kernel_alines);
-        let per_pixel = |d: usize, slot: usize| {
-            let (d0, d1) = window(d, config.kernel_depth_px, depth);
-            let (s0, s1) = window(slot, config.kernel_alines, slots);
-            let n = ((d1 - d0) * (s1 - s0) * self.count) as f64;
-            let mean_power = power[[d, slot]] / n;
-            if mean_power < threshold_power {
-                f32::NAN
-            } else {
-                scale.velocity_mm_s(sums[[d, slot]].arg()) as f32
-            }
-        };
-        out.axis_iter_mut(ndarray::Axis(0)).into_par_iter().enumerate().for_each(|(d, mut row)| {
-            for (a, v) in row.iter_mut().enumerate() {
-                // Pair slot a is between A-lines a and a+1; the last A-line
-                // takes the last pair.
-                *v = per_pixel(d, a.min(slots - 1));
+        // Kernel: along depth within a slot row, across slots between rows.
+        let (kd, ka) = (config.kernel_depth_px, config.kernel_alines);
+        let sums = box_sum(&self.products, ka, kd);
+        let power = box_sum(&self.power, ka, kd);
+        let k = scale.velocity_mm_s(1.0) as f32;
+        let mut by_slot = Array2::<f32>::zeros((slots, depth));
+        by_slot.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(s, mut row)| {
+            let (s0, s1) = window(s, ka, slots);
+            for (d, v) in row.iter_mut().enumerate() {
+                let (d0, d1) = window(d, kd, depth);
+                let n = ((d1 - d0) * (s1 - s0) * self.count) as f64;
+                *v = if power[[s, d]] / n < threshold_power {
+                    f32::NAN
+                } else {
+                    let c = sums[[s, d]];
+                    k * fast_atan2(c.im as f32, c.re as f32)
+                };
             }
         });
-        out
+        // Slot a is between A-lines a and a+1; the last A-line takes the last pair.
+        let image = transposed(&by_slot);
+        Array2::from_shape_fn((depth, alines), |(d, a)| image[[d, a.min(slots - 1)]])
     }
 }
 
@@ -176,29 +170,35 @@ fn window(i: usize, k: usize, n: usize) -> (usize, usize) {
     (hi.saturating_sub(k).min(lo), hi)
 }
 
-/// Σ over the centred kernel (kd × ka, clipped at the edges) of each pixel,
-/// by a summed-area table.
-fn box_sum<T>(a: &Array2<T>, kd: usize, ka: usize) -> Array2<T>
+/// Σ over the centred kernel (kr rows × kc columns, clipped at the edges)
+/// of each element: running sums along each row, then sums of kr rows.
+fn box_sum<T>(a: &Array2<T>, kr: usize, kc: usize) -> Array2<T>
 where
     T: Copy + Default + std::ops::Add<Output = T> + std::ops::Sub<Output = T> + Send + Sync,
 {
     let (rows, cols) = a.dim();
-    let mut sat = Array2::<T>::from_elem((rows + 1, cols + 1), T::default());
-    for r in 0..rows {
-        let mut run = T::default();
-        for c in 0..cols {
-            run = run + a[[r, c]];
-            sat[[r + 1, c + 1]] = sat[[r, c + 1]] + run;
+    let mut along = Array2::<T>::from_elem((rows, cols), T::default());
+    along.axis_iter_mut(Axis(0)).into_par_iter().zip(a.axis_iter(Axis(0))).for_each(|(mut out, row)| {
+        let mut prefix = Vec::with_capacity(cols + 1);
+        prefix.push(T::default());
+        for &v in row.iter() {
+            let last = *prefix.last().expect("non-empty");
+            prefix.push(last + v);
         }
-    }
+        for (c, o) in out.iter_mut().enumerate() {
+            let (c0, c1) = window(c, kc, cols);
+            *o = prefix[c1] - prefix[c0];
+        }
+    });
     let mut out = Array2::<T>::from_elem((rows, cols), T::default());
-    for r in 0..rows {
-        let (r0, r1) = window(r, kd, rows);
-        for c in 0..cols {
-            let (c0, c1) = window(c, ka, cols);
-            out[[r, c]] = sat[[r1, c1]] - sat[[r0, c1]] - sat[[r1, c0]] + sat[[r0, c0]];
+    out.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(r, mut o)| {
+        let (r0, r1) = window(r, kr, rows);
+        for rr in r0..r1 {
+            for (x, &v) in o.iter_mut().zip(along.row(rr).iter()) {
+                *x = *x + v;
+            }
         }
-    }
+    });
     out
 }
 

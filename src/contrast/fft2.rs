@@ -53,9 +53,16 @@ impl Fft2 {
     }
 }
 
+/// An image (rows × cols) transposed, in parallel.
+pub fn transposed<T: Copy + Default + Send + Sync>(a: &Array2<T>) -> Array2<T> {
+    let (r, c) = a.dim();
+    let data = a.as_standard_layout();
+    Array2::from_shape_vec((c, r), transpose(data.as_slice().expect("standard layout"), r, c)).expect("shape")
+}
+
 /// (rows × cols) row-major → (cols × rows), in parallel over bands of columns.
-fn transpose(src: &[Complex32], rows: usize, cols: usize) -> Vec<Complex32> {
-    let mut out = vec![Complex32::new(0.0, 0.0); rows * cols];
+fn transpose<T: Copy + Default + Send + Sync>(src: &[T], rows: usize, cols: usize) -> Vec<T> {
+    let mut out = vec![T::default(); rows * cols];
     const BAND: usize = 16;
     out.par_chunks_mut(BAND * rows).enumerate().for_each(|(b, dst)| {
         let c0 = b * BAND;

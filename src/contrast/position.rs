@@ -11,6 +11,7 @@
 
 use anyhow::Result;
 use ndarray::Array2;
+use rayon::prelude::*;
 use rustfft::num_complex::Complex32;
 use serde::Serialize;
 
@@ -22,6 +23,7 @@ use crate::pipeline::config::{AngiographyMethod, DopplerPairs, PipelineConfig};
 use crate::stages::log_compression::{noise_floor_db, to_db};
 
 /// One reconstructed B-scan of a position.
+#[derive(Default)]
 pub struct RepeatFrame {
     /// Index of the frame in the capture.
     pub index: usize,
@@ -32,6 +34,16 @@ pub struct RepeatFrame {
     /// Split-spectrum: each sub-band's amplitude (depth × A-lines).
     pub sub_bands: Vec<Array2<f32>>,
     pub saturated: u64,
+    /// |complex|, filled by the processor (a buffer kept with the frame).
+    pub amplitude: Array2<f32>,
+}
+
+/// |A| of a complex image, in parallel, into `out` (resized when needed).
+pub fn modulus_into(c: &Array2<Complex32>, out: &mut Array2<f32>) {
+    if out.dim() != c.dim() {
+        *out = Array2::zeros(c.dim());
+    }
+    ndarray::Zip::from(out).and(c).par_for_each(|o, v| *o = v.norm_sqr().sqrt());
 }
 
 /// The shift applied to one B-scan (repeat and position registration
@@ -81,16 +93,19 @@ pub struct PositionProcessor<'a> {
     doppler_scale: Option<DopplerScale>,
     previous: Option<RegistrationSpectrum>,
     cumulative: Shift,
+    log2: crate::pipeline::fused::FastLog2,
 }
 
 impl<'a> PositionProcessor<'a> {
     pub fn new(config: &'a PipelineConfig, depth_um: Vec<f64>, alines: usize, doppler_scale: Option<DopplerScale>) -> Self {
         let registrar = config.registration.enabled().then(|| Registrar::new(depth_um.len(), alines, config.registration.upsampling));
-        PositionProcessor { config, depth_um, registrar, doppler_scale, previous: None, cumulative: Shift::NONE }
+        PositionProcessor { config, depth_um, registrar, doppler_scale, previous: None, cumulative: Shift::NONE, log2: crate::pipeline::fused::FastLog2::new() }
     }
 
-    /// Processes the repeats of `position` (in acquisition order).
-    pub fn process(&mut self, position: usize, mut frames: Vec<RepeatFrame>) -> Result<PositionOutput> {
+    /// Processes the repeats of `position` (in acquisition order). The
+    /// frames are left in place (their buffers are reused by the caller);
+    /// registration shifts their complex profiles.
+    pub fn process(&mut self, position: usize, frames: &mut [RepeatFrame]) -> Result<PositionOutput> {
         let cfg = self.config;
         let n = frames.len();
         let mut warnings = Vec::new();
@@ -160,20 +175,42 @@ impl<'a> PositionProcessor<'a> {
         let shifted: Vec<bool> = applied.iter().map(|s| s.axial_px != 0.0 || s.lateral_px != 0.0).collect();
         let margin = applied.iter().map(|&s| wrapped_margin(s)).fold((0, 0), |m, w| (m.0.max(w.0), m.1.max(w.1)));
 
-        // Structure: mean linear amplitude over the repeats, in dB. Unshifted
-        // repeats contribute through their dB images (the intensity-only sums).
+        // Structure: mean linear amplitude over the repeats, in dB: from
+        // the complex profiles when there are any (after registration),
+        // else from the dB images with the sums of the intensity-only path.
         let first_single_db = (n > 1).then(|| frames[0].db.clone());
+        let has_complex = frames[0].complex.is_some();
+        if has_complex {
+            for f in frames.iter_mut() {
+                let c = f.complex.as_ref().expect("complex");
+                modulus_into(c, &mut f.amplitude);
+            }
+        }
         let structure_db = if n == 1 && !shifted[0] {
+            // Handed over whole; the caller refills the slot from the writer's returns.
             std::mem::take(&mut frames[0].db)
+        } else if has_complex {
+            // 20·log10 of the mean amplitude with the fast path's log2.
+            let (depth, alines) = frames[0].amplitude.dim();
+            let mut out = Array2::<f32>::zeros((depth, alines));
+            let inv = 1.0 / n as f32;
+            let log2 = self.log2;
+            let db_per_log2 = 20.0 * std::f32::consts::LOG10_2;
+            let floor = crate::stages::log_compression::AMPLITUDE_FLOOR as f32;
+            let rows: Vec<&[f32]> = frames.iter().map(|f| f.amplitude.as_slice().expect("standard layout")).collect();
+            out.as_slice_mut().expect("standard layout").par_chunks_mut(alines).enumerate().for_each(|(d, o)| {
+                let r = d * alines..(d + 1) * alines;
+                for (j, v) in o.iter_mut().enumerate() {
+                    let s: f32 = rows.iter().map(|m| m[r.start + j]).sum();
+                    *v = db_per_log2 * log2.log2((s * inv).max(floor));
+                }
+            });
+            out
         } else {
             let (depth, alines) = frames[0].db.dim();
             let mut sum = Array2::<f64>::zeros((depth, alines));
-            for (f, &moved) in frames.iter().zip(&shifted) {
-                if moved {
-                    ndarray::Zip::from(&mut sum).and(f.complex.as_ref().expect("complex")).for_each(|s, c| *s += c.norm() as f64);
-                } else {
-                    ndarray::Zip::from(&mut sum).and(&f.db).for_each(|s, &d| *s += amplitude_from_db(d as f64));
-                }
+            for f in frames.iter() {
+                ndarray::Zip::from(&mut sum).and(&f.db).par_for_each(|s, &d| *s += amplitude_from_db(d as f64));
             }
             sum.mapv(|s| to_db(s / n as f64) as f32)
         };
@@ -201,8 +238,7 @@ impl<'a> PositionProcessor<'a> {
         let mut angio = Vec::new();
         if cfg.angiography.enabled() {
             let a = &cfg.angiography;
-            let amplitudes: Vec<Array2<f32>> = frames.iter().map(|f| f.complex.as_ref().expect("complex").mapv(|c| c.norm())).collect();
-            let views: Vec<_> = amplitudes.iter().map(|m| m.view()).collect();
+            let views: Vec<_> = frames.iter().map(|f| f.amplitude.view()).collect();
             let threshold = floor_db + a.threshold_db;
             let surface = angiography::surface(structure_db.view(), floor_db + a.surface_threshold_db);
             let slabs = angiography::slabs(a, &self.depth_um, &surface);

@@ -64,8 +64,8 @@ impl Registrar {
     /// Spectrum of the amplitude |A| of a complex frame, mean removed.
     pub fn spectrum(&self, frame: ArrayView2<'_, Complex32>) -> RegistrationSpectrum {
         let n = frame.len() as f64;
-        let mean = frame.iter().map(|c| c.norm() as f64).sum::<f64>() / n;
-        let mut a = frame.mapv(|c| Complex32::new(c.norm() - mean as f32, 0.0));
+        let mean = frame.iter().map(|c| c.norm_sqr().sqrt() as f64).sum::<f64>() / n;
+        let mut a = frame.mapv(|c| Complex32::new(c.norm_sqr().sqrt() - mean as f32, 0.0));
         self.fft.process(&mut a, FftDirection::Forward);
         RegistrationSpectrum(a)
     }
@@ -77,7 +77,7 @@ impl Registrar {
         let mut cps = Array2::<Complex32>::zeros((rows, cols));
         ndarray::Zip::from(&mut cps).and(&moving.0).and(&reference.0).par_for_each(|c, &m, &r| {
             let p = m * r.conj();
-            let norm = p.norm();
+            let norm = p.norm_sqr().sqrt();
             *c = if norm > 0.0 { p / norm } else { Complex32::new(0.0, 0.0) };
         });
         // The peak of identical images (every bin adds 1), so heights read 0–1.

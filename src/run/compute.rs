@@ -66,6 +66,7 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
 
         let mut read_s = 0.0;
         let mut repeats: Vec<RepeatFrame> = Vec::with_capacity(average);
+        let mut spares: Vec<RepeatFrame> = Vec::new();
         let mut result: Result<()> = Ok(());
         for f in 0..frames {
             if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
@@ -84,8 +85,22 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
                 }
             };
             read_s += secs;
-            let mut db = free_rx.try_recv().unwrap_or_else(|_| Array2::<f32>::zeros((depth, alines)));
-            let mut complex = needs_complex.then(|| Array2::<Complex32>::zeros((depth, alines)));
+            // Buffers come back from the position before (a repeat slot's
+            // own), or from the writer (structure images), else are new.
+            let slot = repeats.len();
+            let spare = spares.get_mut(slot).map(std::mem::take);
+            let (mut db, mut complex, mut sub_band_buffers, amplitude) = match spare {
+                Some(RepeatFrame { db, complex, sub_bands, amplitude, .. }) => {
+                    let db = if db.dim() == (depth, alines) { db } else { free_rx.try_recv().unwrap_or_else(|_| Array2::<f32>::zeros((depth, alines))) };
+                    (db, complex, sub_bands, amplitude)
+                }
+                None => (
+                    free_rx.try_recv().unwrap_or_else(|_| Array2::<f32>::zeros((depth, alines))),
+                    needs_complex.then(|| Array2::<Complex32>::zeros((depth, alines))),
+                    Vec::new(),
+                    Array2::zeros((0, 0)),
+                ),
+            };
             match (&fused, complex.as_mut()) {
                 (Some(fp), Some(c)) => fp.process_raw_image_complex(&raw, &mut db, c, &fused_timer),
                 (Some(fp), None) => fp.process_raw_image(&raw, &mut db, &fused_timer),
@@ -103,32 +118,28 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
                 }
             }
             // Split-spectrum: each sub-band's amplitude from the same raw frame.
-            let sub_bands = planned
-                .sub_bands
-                .iter()
-                .map(|sp| {
-                    let mut band = Array2::<f32>::zeros((depth, alines));
-                    sp.process_raw_image(&raw, &mut band, &fused_timer);
-                    band.mapv_inplace(|d| 10f32.powf(d / 20.0));
-                    band
-                })
-                .collect();
+            sub_band_buffers.resize_with(planned.sub_bands.len(), || Array2::<f32>::zeros((depth, alines)));
+            for (sp, band) in planned.sub_bands.iter().zip(sub_band_buffers.iter_mut()) {
+                sp.process_raw_image(&raw, band, &fused_timer);
+                band.par_mapv_inplace(|d| 10f32.powf(d / 20.0));
+            }
+            let sub_bands = sub_band_buffers;
             drop(raw);
             for p in [ctx.progress, ctx.capture_progress].into_iter().flatten() {
                 p.inc(1);
             }
-            repeats.push(RepeatFrame { index: f, db, complex, sub_bands, saturated });
+            repeats.push(RepeatFrame { index: f, db, complex, sub_bands, saturated, amplitude });
             if repeats.len() < average {
                 continue;
             }
-            let frames_of_position = std::mem::replace(&mut repeats, Vec::with_capacity(average));
-            let output = match processor.process(f / average, frames_of_position) {
+            let output = match processor.process(f / average, &mut repeats) {
                 Ok(o) => o,
                 Err(e) => {
                     result = Err(e);
                     break;
                 }
             };
+            spares = std::mem::replace(&mut repeats, Vec::with_capacity(average));
             if out_tx.send(output).is_err() {
                 break; // the writer failed; its error is returned below
             }

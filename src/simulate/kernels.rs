@@ -138,9 +138,21 @@ pub struct FringeTables<'a> {
     pub roll_off: bool,
 }
 
+/// When set, [`add_fringe`] uses the standard library's cos, sin and exp
+/// (the plain formulas), for the bench's comparison.
+static STANDARD_LIBRARY: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+pub fn use_standard_library(on: bool) {
+    STANDARD_LIBRARY.store(on, std::sync::atomic::Ordering::Relaxed);
+}
+
 /// out[p] += amplitude · V_p(z) · cos(2·k_p·z + φ_p·with_chirp), where
 /// V_p(z) = exp(−2σ_k²z²)·sin(z·δk)/(z·δk) (FIELD-NOTES, roll-off).
 pub fn add_fringe(t: &FringeTables<'_>, amplitude: f64, z: f64, with_chirp: bool, out: &mut [f64]) {
+    if STANDARD_LIBRARY.load(std::sync::atomic::Ordering::Relaxed) {
+        add_fringe_standard(t, amplitude, z, with_chirp, out);
+        return;
+    }
     #[cfg(target_arch = "x86_64")]
     {
         if std::is_x86_feature_detected!("avx512f") && std::is_x86_feature_detected!("fma") {
@@ -187,6 +199,21 @@ fn add_fringe_portable(t: &FringeTables<'_>, amplitude: f64, z: f64, with_chirp:
         let x = (z * dk[p]).abs().max(1e-300);
         let v = exp_neg(-s2[p] * z2) * (sin(x) / x);
         out[p] += amplitude * v * cos(two_k[p] * z + chirp_on * chirp[p]);
+    }
+}
+
+/// The same with the standard library's functions.
+fn add_fringe_standard(t: &FringeTables<'_>, amplitude: f64, z: f64, with_chirp: bool, out: &mut [f64]) {
+    let chirp_on = if with_chirp { 1.0 } else { 0.0 };
+    for (p, o) in out.iter_mut().enumerate() {
+        let v = if t.roll_off {
+            let x = z * t.pixel_dk[p];
+            let sinc = if x == 0.0 { 1.0 } else { x.sin() / x };
+            (-t.two_sigma2[p] * z * z).exp() * sinc
+        } else {
+            1.0
+        };
+        *o += amplitude * v * (t.two_k[p] * z + chirp_on * t.chirp[p]).cos();
     }
 }
 

@@ -471,6 +471,12 @@ fn scan_truth(scene: &Scene, sample: &ScannedSample, depth_spacing_um: f64, band
     }
 }
 
+/// Switches the simulator's fringe kernel to the standard library's
+/// cos/sin/exp (for the bench's same-run comparison) or back.
+pub fn use_standard_library_math(on: bool) {
+    kernels::use_standard_library(on);
+}
+
 /// Path of the velocity-field truth beside a capture: `<stem>.truth.h5`.
 pub fn velocity_truth_path(capture: &Path) -> std::path::PathBuf {
     capture.with_file_name(format!("{}.truth.h5", capture.file_stem().unwrap_or_default().to_string_lossy()))
