@@ -20,7 +20,7 @@ use std::time::Instant;
 
 use crate::io::capture::{Capture, RawFrame};
 use crate::pipeline::config::PipelineConfig;
-use crate::pipeline::fused::{FusedPlan, LANES};
+use crate::pipeline::fused::{Extra, FusedPlan, LANES};
 use crate::pipeline::plan::{CaptureGeometry, Plan};
 use crate::stages::log_compression::{grey_levels_u8, noise_floor_db};
 
@@ -337,11 +337,12 @@ fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Plan, frames: 
     let depth = plan.summary.depth_pixels;
     let depth_um: Vec<f64> = (0..depth).map(|i| plan.depth_um(i)).collect();
     let fused = FusedPlan::new(plan);
-    let workloads: [(&str, &str); 5] = [
+    let workloads: [(&str, &str); 6] = [
         ("complex depth profile only (no contrast stage)", "[output]\ncomplex = true\n"),
         ("Doppler between A-lines (Kasai 3 x 4)", "[doppler]\nenabled = true\n"),
         ("angiography N = 4, decorrelation", "[angiography]\nmethods = [\"decorrelation\"]\n"),
         ("angiography N = 4, decorrelation + registration", "[angiography]\nmethods = [\"decorrelation\"]\n[registration]\nrepeats = true\n"),
+        ("angiography N = 4, split-spectrum (4 bands)", "[angiography]\nmethods = [\"split_spectrum\"]\n"),
         ("angiography N = 4, all four methods", "[angiography]\nmethods = [\"decorrelation\", \"split_spectrum\", \"speckle_variance\", \"complex_difference\"]\n"),
     ];
     let positions = (opts.alines.div_ceil(alines).div_ceil(N)).clamp(2, 16);
@@ -366,13 +367,17 @@ fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Plan, frames: 
         let mut runs = Vec::new();
         for _ in 0..opts.repeats.min(3) {
             let mut processor = PositionProcessor::new(&config, depth_um.clone(), alines, scale);
+            let needs_complex = config.needs_complex();
             let mut repeats: Vec<RepeatFrame> = (0..N)
                 .map(|_| RepeatFrame {
-                    complex: Some(Array2::<Complex32>::zeros((depth, alines))),
+                    db: Array2::<f32>::zeros((depth, alines)),
+                    complex: needs_complex.then(|| Array2::<Complex32>::zeros((depth, alines))),
                     sub_bands: sub_bands.iter().map(|_| Array2::<f32>::zeros((depth, alines))).collect(),
+                    amplitude: if needs_complex { Array2::zeros((0, 0)) } else { Array2::zeros((depth, alines)) },
                     ..Default::default()
                 })
                 .collect();
+            let mut scratch = Array2::<f32>::zeros((depth, alines));
             let start = Instant::now();
             for p in 0..positions {
                 for (r, slot) in repeats.iter_mut().enumerate() {
@@ -380,10 +385,13 @@ fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Plan, frames: 
                     if slot.db.dim() != (depth, alines) {
                         slot.db = Array2::<f32>::zeros((depth, alines));
                     }
-                    fused.process_raw_image_complex(raw, &mut slot.db, slot.complex.as_mut().expect("complex"), &timer);
+                    let extra = match slot.complex.as_mut() {
+                        Some(c) => Extra { complex: Some(c), amplitude: None },
+                        None => Extra { complex: None, amplitude: Some(&mut slot.amplitude) },
+                    };
+                    fused.process_raw_image_with(raw, &mut slot.db, extra, &timer);
                     for (sp, band) in sub_bands.iter().zip(slot.sub_bands.iter_mut()) {
-                        sp.process_raw_image(raw, band, &timer);
-                        band.par_mapv_inplace(|d| 10f32.powf(d / 20.0));
+                        sp.process_raw_image_with(raw, &mut scratch, Extra { complex: None, amplitude: Some(band) }, &timer);
                     }
                     slot.index = p * N + r;
                 }

@@ -35,15 +35,17 @@ pub fn decorrelation(amplitudes: &[ArrayView2<'_, f32>]) -> Array2<f32> {
     let slices: Vec<&[f32]> = rows.iter().map(|m| m.as_slice().expect("standard layout")).collect();
     let mut out = Array2::<f32>::zeros((depth, alines));
     out.as_slice_mut().expect("standard layout").par_chunks_mut(alines).enumerate().for_each(|(d, o)| {
-        let base = d * alines;
-        for (j, v) in o.iter_mut().enumerate() {
-            let mut s = 0.0f64;
-            for w in slices.windows(2) {
-                let (x, y) = (w[0][base + j] as f64, w[1][base + j] as f64);
+        let r = d * alines..(d + 1) * alines;
+        let mut s = vec![0.0f64; alines];
+        for w in slices.windows(2) {
+            for ((acc, &x), &y) in s.iter_mut().zip(&w[0][r.clone()]).zip(&w[1][r.clone()]) {
+                let (x, y) = (x as f64, y as f64);
                 let den = 0.5 * (x * x + y * y);
-                s += if den > 0.0 { x * y / den } else { 1.0 };
+                *acc += if den > 0.0 { x * y / den } else { 1.0 };
             }
-            *v = (1.0 - s / (n - 1) as f64) as f32;
+        }
+        for (v, acc) in o.iter_mut().zip(&s) {
+            *v = (1.0 - acc / (n - 1) as f64) as f32;
         }
     });
     out
@@ -142,7 +144,22 @@ pub fn sub_band_windows(k_samples: usize, bands: usize, fwhm: f64) -> Vec<Vec<f6
 /// where no pixel does.
 pub fn surface(structure_db: ArrayView2<'_, f32>, threshold_db: f64) -> Vec<Option<usize>> {
     let (_, alines) = structure_db.dim();
-    let raw: Vec<Option<usize>> = (0..alines).map(|a| structure_db.column(a).iter().position(|&v| v as f64 >= threshold_db)).collect();
+    // Row by row from the top (contiguous reads), stopping once every
+    // A-line has its surface.
+    let mut raw: Vec<Option<usize>> = vec![None; alines];
+    let mut left = alines;
+    let t = threshold_db as f32;
+    for (d, row) in structure_db.outer_iter().enumerate() {
+        for (r, &v) in raw.iter_mut().zip(row.iter()) {
+            if r.is_none() && v >= t {
+                *r = Some(d);
+                left -= 1;
+            }
+        }
+        if left == 0 {
+            break;
+        }
+    }
     (0..alines)
         .map(|a| {
             let mut near: Vec<usize> = raw[a.saturating_sub(4)..(a + 5).min(alines)].iter().flatten().copied().collect();
@@ -158,25 +175,28 @@ pub fn surface(structure_db: ArrayView2<'_, f32>, threshold_db: f64) -> Vec<Opti
 /// En face projection of a flow image over each A-line's slab of rows
 /// [start, end): mean or maximum of the unmasked values (NaN when none).
 pub fn en_face(values: ArrayView2<'_, f32>, slabs: &[(usize, usize)], projection: Projection) -> Vec<f32> {
-    slabs
-        .iter()
-        .enumerate()
-        .map(|(a, &(lo, hi))| {
-            let column = values.column(a);
-            let vals = (lo..hi.min(column.len())).map(|d| column[d]).filter(|v| !v.is_nan());
-            match projection {
-                Projection::Mean => {
-                    let (s, n) = vals.fold((0.0f64, 0usize), |(s, n), v| (s + v as f64, n + 1));
-                    if n == 0 {
-                        f32::NAN
-                    } else {
-                        (s / n as f64) as f32
-                    }
+    // Row by row over the rows any slab covers (contiguous reads).
+    let top = slabs.iter().map(|s| s.0).min().unwrap_or(0);
+    let bottom = slabs.iter().map(|s| s.1).max().unwrap_or(0).min(values.nrows());
+    let mut sum = vec![0.0f64; slabs.len()];
+    let mut count = vec![0usize; slabs.len()];
+    let mut max = vec![f32::NAN; slabs.len()];
+    for d in top..bottom.max(top) {
+        for (a, &v) in values.row(d).iter().enumerate() {
+            let (lo, hi) = slabs[a];
+            if d >= lo && d < hi && !v.is_nan() {
+                sum[a] += v as f64;
+                count[a] += 1;
+                if max[a].is_nan() || v > max[a] {
+                    max[a] = v;
                 }
-                Projection::Max => vals.fold(f32::NAN, |m, v| if m.is_nan() || v > m { v } else { m }),
             }
-        })
-        .collect()
+        }
+    }
+    match projection {
+        Projection::Mean => sum.iter().zip(&count).map(|(s, &n)| if n == 0 { f32::NAN } else { (s / n as f64) as f32 }).collect(),
+        Projection::Max => max,
+    }
 }
 
 /// Rows of each A-line's en face slab for a B-scan of `depth_um` (µm per

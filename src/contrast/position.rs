@@ -178,18 +178,24 @@ impl<'a> PositionProcessor<'a> {
         // Structure: mean linear amplitude over the repeats, in dB: from
         // the complex profiles when there are any (after registration),
         // else from the dB images with the sums of the intensity-only path.
-        let first_single_db = (n > 1).then(|| frames[0].db.clone());
-        let has_complex = frames[0].complex.is_some();
-        if has_complex {
+        // The averaging record is measured on the first position only.
+        let first_single_db = (n > 1 && position == 0).then(|| frames[0].db.clone());
+        // Amplitudes: from the complex profiles (after registration), or as
+        // the pipeline wrote them (amplitude-only stages).
+        if frames[0].complex.is_some() {
             for f in frames.iter_mut() {
                 let c = f.complex.as_ref().expect("complex");
                 modulus_into(c, &mut f.amplitude);
             }
         }
+        let has_amplitude = frames.iter().all(|f| f.amplitude.dim() == f.db.dim());
+        if cfg.needs_amplitude() && !has_amplitude {
+            anyhow::bail!("internal: angiography needs each B-scan's amplitude");
+        }
         let structure_db = if n == 1 && !shifted[0] {
             // Handed over whole; the caller refills the slot from the writer's returns.
             std::mem::take(&mut frames[0].db)
-        } else if has_complex {
+        } else if has_amplitude {
             // 20·log10 of the mean amplitude with the fast path's log2.
             let (depth, alines) = frames[0].amplitude.dim();
             let mut out = Array2::<f32>::zeros((depth, alines));
@@ -200,9 +206,14 @@ impl<'a> PositionProcessor<'a> {
             let rows: Vec<&[f32]> = frames.iter().map(|f| f.amplitude.as_slice().expect("standard layout")).collect();
             out.as_slice_mut().expect("standard layout").par_chunks_mut(alines).enumerate().for_each(|(d, o)| {
                 let r = d * alines..(d + 1) * alines;
-                for (j, v) in o.iter_mut().enumerate() {
-                    let s: f32 = rows.iter().map(|m| m[r.start + j]).sum();
-                    *v = db_per_log2 * log2.log2((s * inv).max(floor));
+                o.copy_from_slice(&rows[0][r.clone()]);
+                for m in &rows[1..] {
+                    for (v, &x) in o.iter_mut().zip(&m[r.clone()]) {
+                        *v += x;
+                    }
+                }
+                for v in o.iter_mut() {
+                    *v = db_per_log2 * log2.log2((*v * inv).max(floor));
                 }
             });
             out

@@ -556,9 +556,24 @@ fn is_default<T: Default + PartialEq>(v: &T) -> bool {
 }
 
 impl PipelineConfig {
-    /// Whether any stage needs the complex depth profile.
+    /// Whether any stage needs the complex depth profile (registration
+    /// shifts it; Doppler and the complex difference use its phase).
     pub fn needs_complex(&self) -> bool {
-        self.output.complex || self.registration.enabled() || self.doppler.enabled || self.angiography.enabled()
+        self.output.complex
+            || self.registration.enabled()
+            || self.doppler.enabled
+            || self.angiography.methods.contains(&AngiographyMethod::ComplexDifference)
+    }
+
+    /// Whether a stage needs the linear amplitude of each B-scan (the
+    /// amplitude-based angiography methods).
+    pub fn needs_amplitude(&self) -> bool {
+        self.angiography.enabled()
+    }
+
+    /// Whether any contrast stage (or the complex output) runs.
+    pub fn has_contrast(&self) -> bool {
+        self.needs_complex() || self.needs_amplitude()
     }
 }
 

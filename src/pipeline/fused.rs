@@ -276,6 +276,8 @@ pub struct FusedPlan {
     /// bins into the complex depth profile with its phase referred to the
     /// band's centre wavenumber (see `complex_depth_factors`).
     complex_factor: Vec<Complex32>,
+    /// |FFT| to amplitude.
+    amplitude_scale: f32,
     /// 20·log10 of the amplitude scale; floor on |X|².
     db_offset: f32,
     power_floor: f32,
@@ -346,6 +348,7 @@ impl FusedPlan {
                 .into_iter()
                 .map(|c| Complex32::new(c.re as f32, c.im as f32))
                 .collect(),
+            amplitude_scale: scale as f32,
             db_offset: (20.0 * scale.log10()) as f32,
             power_floor: ((AMPLITUDE_FLOOR / scale) * (AMPLITUDE_FLOOR / scale)) as f32,
             log2: FastLog2::new(),
@@ -460,43 +463,48 @@ impl FusedPlan {
     /// Processes a raw frame straight into the B-scan image (depth pixels ×
     /// A-lines, depth down, as shown and stored), dB like the reference.
     pub fn process_raw_image(&self, frame: &RawFrame, image: &mut Array2<f32>, timer: &FusedTimer) {
-        self.raw_image(frame, image, None, timer)
+        self.process_raw_image_with(frame, image, Extra::default(), timer)
     }
 
     /// As [`Self::process_raw_image`], and also the complex depth profile
     /// (depth × A-lines, amplitude in the same units as the dB image, phase
     /// referred to the band's centre wavenumber) into `complex`.
     pub fn process_raw_image_complex(&self, frame: &RawFrame, image: &mut Array2<f32>, complex: &mut Array2<Complex32>, timer: &FusedTimer) {
-        self.raw_image(frame, image, Some(complex), timer)
+        self.process_raw_image_with(frame, image, Extra { complex: Some(complex), amplitude: None }, timer)
     }
 
-    fn raw_image(&self, frame: &RawFrame, image: &mut Array2<f32>, complex: Option<&mut Array2<Complex32>>, timer: &FusedTimer) {
+    /// As [`Self::process_raw_image`], with the extra images of `extra`.
+    pub fn process_raw_image_with(&self, frame: &RawFrame, image: &mut Array2<f32>, extra: Extra<'_>, timer: &FusedTimer) {
         match frame {
-            RawFrame::U8(a) => self.frame_image(a.view(), image, complex, timer),
-            RawFrame::U16(a) => self.frame_image(a.view(), image, complex, timer),
-            RawFrame::I16(a) => self.frame_image(a.view(), image, complex, timer),
-            RawFrame::U32(a) => self.frame_image(a.view(), image, complex, timer),
-            RawFrame::F32(a) => self.frame_image(a.view(), image, complex, timer),
-            RawFrame::F64(a) => self.frame_image(a.view(), image, complex, timer),
+            RawFrame::U8(a) => self.frame_image(a.view(), image, extra, timer),
+            RawFrame::U16(a) => self.frame_image(a.view(), image, extra, timer),
+            RawFrame::I16(a) => self.frame_image(a.view(), image, extra, timer),
+            RawFrame::U32(a) => self.frame_image(a.view(), image, extra, timer),
+            RawFrame::F32(a) => self.frame_image(a.view(), image, extra, timer),
+            RawFrame::F64(a) => self.frame_image(a.view(), image, extra, timer),
         }
     }
 
     /// As [`Self::process_frame`], but writes the image (depth × A-lines):
     /// each block's dB values go straight into its 16 adjacent columns.
     pub fn process_frame_image<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, timer: &FusedTimer) {
-        self.frame_image(frame, image, None, timer)
+        self.frame_image(frame, image, Extra::default(), timer)
     }
 
     /// As [`Self::process_frame_image`], and the complex depth profile.
     pub fn process_frame_image_complex<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, complex: &mut Array2<Complex32>, timer: &FusedTimer) {
-        self.frame_image(frame, image, Some(complex), timer)
+        self.frame_image(frame, image, Extra { complex: Some(complex), amplitude: None }, timer)
     }
 
-    fn frame_image<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, complex: Option<&mut Array2<Complex32>>, timer: &FusedTimer) {
+    fn frame_image<T: Sample + MedianKey>(&self, frame: ArrayView2<'_, T>, image: &mut Array2<f32>, extra: Extra<'_>, timer: &FusedTimer) {
         let (alines, pixels) = frame.dim();
         assert_eq!(pixels, self.pixels);
         assert_eq!(image.dim(), (self.depth, alines));
-        let complex = complex.map(|c| {
+        let complex = extra.complex.map(|c| {
+            assert_eq!(c.dim(), (self.depth, alines));
+            c.as_slice_mut().expect("standard layout").as_mut_ptr()
+        });
+        let amplitude = extra.amplitude.map(|c| {
             assert_eq!(c.dim(), (self.depth, alines));
             c.as_slice_mut().expect("standard layout").as_mut_ptr()
         });
@@ -508,6 +516,7 @@ impl FusedPlan {
         let target = ImagePtr {
             ptr: image.as_slice_mut().expect("standard layout").as_mut_ptr(),
             complex: complex.unwrap_or(std::ptr::null_mut()),
+            amplitude: amplitude.unwrap_or(std::ptr::null_mut()),
             alines,
             depth: self.depth,
         };
@@ -624,8 +633,8 @@ impl FusedPlan {
         let to_db = avx2::ToDb { log2: &self.log2, power_floor: self.power_floor, db_offset: self.db_offset };
         let bins = &self.lane_bins;
         assert_eq!(bins.len(), depth);
-        let complex_target = match &sink {
-            Sink::Image(image, a0) if !image.complex.is_null() => Some((*image, *a0)),
+        let extra_target = match &sink {
+            Sink::Image(image, a0) => Some((*image, *a0)),
             _ => None,
         };
         let (base, depth_step, line_step) = match sink {
@@ -643,13 +652,14 @@ impl FusedPlan {
         // lands at base + d·depth_step + l·line_step, inside the sink
         // (asserted above); this block's lines only.
         unsafe { lanes::db(&ws.lanes, bins, &to_db, base, depth_step, line_step, lines) };
-        if let Some((image, a0)) = complex_target {
-            for (d, (&b, f)) in bins.iter().zip(&self.complex_factor).enumerate() {
-                let x = &ws.lanes[b as usize];
-                for l in 0..lines {
-                    // SAFETY: d < depth, a0 + l < alines (asserted above); this block's columns.
-                    unsafe { *image.complex.add(d * image.alines + a0 + l) = Complex32::new(x.re[l], x.im[l]) * f };
-                }
+        if let Some((image, a0)) = extra_target {
+            // SAFETY: AVX-512F is present; d < depth and a0 + l < alines for
+            // every store (asserted above): this block's columns only.
+            if !image.complex.is_null() {
+                unsafe { lanes::complex(&ws.lanes, bins, &self.complex_factor, image.complex.add(a0), image.alines, lines) };
+            }
+            if !image.amplitude.is_null() {
+                unsafe { lanes::amplitude(&ws.lanes, bins, self.amplitude_scale, image.amplitude.add(a0), image.alines, lines) };
             }
         }
         timer.add(3, t2);
@@ -827,6 +837,15 @@ impl FusedPlan {
                         }
                     }
                 }
+                if !image.amplitude.is_null() {
+                    for d in 0..depth {
+                        for l in 0..lines {
+                            let x = buf[l * fs + self.first_bin + d];
+                            // SAFETY: as above.
+                            unsafe { *image.amplitude.add(d * image.alines + a0 + l) = (x.re * x.re + x.im * x.im).sqrt() * self.amplitude_scale };
+                        }
+                    }
+                }
             }
         }
         timer.add(3, t2);
@@ -849,6 +868,7 @@ mod lanes {
     //! of the block's 16 A-lines, so nothing is transposed.
     use super::avx2::ToDb;
     use super::{Lane, LaneComplex, LANES};
+    use rustfft::num_complex::Complex32;
     use std::arch::x86_64::*;
 
     /// The spline's sweep factors (see `FusedPlan::spline_curvatures`).
@@ -988,6 +1008,52 @@ mod lanes {
         }
     }
 
+    /// For each depth d: x[bins[d]]·factor[d] of the first `lines` lanes to
+    /// base + d·depth_step + l (16 adjacent complex values of an image row).
+    /// Multiply, then add or subtract (no FMA): the bits of the scalar
+    /// complex product.
+    #[target_feature(enable = "avx512f")]
+    pub unsafe fn complex(x: &[LaneComplex], bins: &[u32], factor: &[Complex32], base: *mut Complex32, depth_step: usize, lines: usize) {
+        assert!(lines <= LANES && bins.len() == factor.len() && bins.iter().all(|&b| (b as usize) < x.len()));
+        // Interleave re and im: out0 = re0 im0 … re7 im7, out1 = re8 im8 … re15 im15.
+        let first = _mm512_setr_epi32(0, 16, 1, 17, 2, 18, 3, 19, 4, 20, 5, 21, 6, 22, 7, 23);
+        let second = _mm512_setr_epi32(8, 24, 9, 25, 10, 26, 11, 27, 12, 28, 13, 29, 14, 30, 15, 31);
+        let floats = 2 * lines;
+        let mask0: __mmask16 = if floats >= 16 { u16::MAX } else { (1u16 << floats) - 1 };
+        let mask1: __mmask16 = if floats >= 32 { u16::MAX } else if floats > 16 { (1u16 << (floats - 16)) - 1 } else { 0 };
+        for (d, (&b, f)) in bins.iter().zip(factor).enumerate() {
+            unsafe {
+                let src = x.as_ptr().add(b as usize).cast::<f32>();
+                let (re, im) = (_mm512_load_ps(src), _mm512_load_ps(src.add(LANES)));
+                let (fr, fi) = (_mm512_set1_ps(f.re), _mm512_set1_ps(f.im));
+                let out_re = _mm512_sub_ps(_mm512_mul_ps(re, fr), _mm512_mul_ps(im, fi));
+                let out_im = _mm512_add_ps(_mm512_mul_ps(re, fi), _mm512_mul_ps(im, fr));
+                let dst = base.add(d * depth_step).cast::<f32>();
+                _mm512_mask_storeu_ps(dst, mask0, _mm512_permutex2var_ps(out_re, first, out_im));
+                if mask1 != 0 {
+                    _mm512_mask_storeu_ps(dst.add(16), mask1, _mm512_permutex2var_ps(out_re, second, out_im));
+                }
+            }
+        }
+    }
+
+    /// For each depth d: scale·|x[bins[d]]| of the first `lines` lanes to
+    /// base + d·depth_step + l (the scalar path's operations).
+    #[target_feature(enable = "avx512f")]
+    pub unsafe fn amplitude(x: &[LaneComplex], bins: &[u32], scale: f32, base: *mut f32, depth_step: usize, lines: usize) {
+        assert!(lines <= LANES && bins.iter().all(|&b| (b as usize) < x.len()));
+        let mask: __mmask16 = if lines == LANES { u16::MAX } else { (1u16 << lines) - 1 };
+        let k = _mm512_set1_ps(scale);
+        for (d, &b) in bins.iter().enumerate() {
+            unsafe {
+                let src = x.as_ptr().add(b as usize).cast::<f32>();
+                let (re, im) = (_mm512_load_ps(src), _mm512_load_ps(src.add(LANES)));
+                let power = _mm512_add_ps(_mm512_mul_ps(re, re), _mm512_mul_ps(im, im));
+                _mm512_mask_storeu_ps(base.add(d * depth_step), mask, _mm512_mul_ps(_mm512_sqrt_ps(power), k));
+            }
+        }
+    }
+
     /// [`super::FastLog2::log2`] on 16 values (the same operations, in the
     /// same order, as the scalar and the AVX2 versions).
     #[inline]
@@ -1020,6 +1086,15 @@ pub fn complex_depth_factors(scale: f64, k_samples: usize, fft_length: usize, fi
         .collect()
 }
 
+/// Images a frame can write beside its dB image (each depth × A-lines).
+#[derive(Default)]
+pub struct Extra<'a> {
+    /// The complex depth profile (see [`complex_depth_factors`]).
+    pub complex: Option<&'a mut Array2<Complex32>>,
+    /// The amplitude |A| (the dB image's linear value, without the log).
+    pub amplitude: Option<&'a mut Array2<f32>>,
+}
+
 /// Where a block's dB values go.
 enum Sink<'a> {
     /// Line l at out[l·stride ..][..depth].
@@ -1034,6 +1109,8 @@ struct ImagePtr {
     ptr: *mut f32,
     /// The complex depth profile (same layout), or null when not wanted.
     complex: *mut Complex32,
+    /// The amplitude |A| (same layout), or null when not wanted.
+    amplitude: *mut f32,
     alines: usize,
     depth: usize,
 }

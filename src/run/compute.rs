@@ -17,7 +17,7 @@ use super::{transpose, Interrupted, Planned, RunContext};
 use crate::contrast::position::{PositionOutput, PositionProcessor, RepeatFrame};
 use crate::io::capture::{Capture, RawFrame};
 use crate::pipeline::config::PipelineConfig;
-use crate::pipeline::fused::{FusedPlan, FusedTimer};
+use crate::pipeline::fused::{Extra, FusedPlan, FusedTimer};
 
 pub struct Computed {
     pub written: Written,
@@ -32,6 +32,7 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
     let average = config.volume.average;
     let positions = frames / average;
     let needs_complex = config.needs_complex();
+    let needs_amplitude = config.needs_amplitude() && !needs_complex;
     let fused = (!ctx.reference_engine).then(|| FusedPlan::new(plan));
     let timer = plan.new_timer();
     let fused_timer = FusedTimer::default();
@@ -67,6 +68,7 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
         let mut read_s = 0.0;
         let mut repeats: Vec<RepeatFrame> = Vec::with_capacity(average);
         let mut spares: Vec<RepeatFrame> = Vec::new();
+        let mut sub_band_db = Array2::<f32>::zeros((0, 0));
         let mut result: Result<()> = Ok(());
         for f in 0..frames {
             if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
@@ -89,7 +91,7 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
             // own), or from the writer (structure images), else are new.
             let slot = repeats.len();
             let spare = spares.get_mut(slot).map(std::mem::take);
-            let (mut db, mut complex, mut sub_band_buffers, amplitude) = match spare {
+            let (mut db, mut complex, mut sub_band_buffers, mut amplitude) = match spare {
                 Some(RepeatFrame { db, complex, sub_bands, amplitude, .. }) => {
                     let db = if db.dim() == (depth, alines) { db } else { free_rx.try_recv().unwrap_or_else(|_| Array2::<f32>::zeros((depth, alines))) };
                     (db, complex, sub_bands, amplitude)
@@ -101,8 +103,12 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
                     Array2::zeros((0, 0)),
                 ),
             };
+            if needs_amplitude && amplitude.dim() != (depth, alines) {
+                amplitude = Array2::zeros((depth, alines));
+            }
             match (&fused, complex.as_mut()) {
                 (Some(fp), Some(c)) => fp.process_raw_image_complex(&raw, &mut db, c, &fused_timer),
+                (Some(fp), None) if needs_amplitude => fp.process_raw_image_with(&raw, &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, &fused_timer),
                 (Some(fp), None) => fp.process_raw_image(&raw, &mut db, &fused_timer),
                 (None, c) => {
                     let mut rows = Array2::<f32>::zeros((alines, depth));
@@ -115,13 +121,18 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
                         None => plan.process_frame(raw.to_f64().view(), &mut rows, &timer),
                     }
                     db = transpose(&rows);
+                    if needs_amplitude {
+                        amplitude = db.mapv(|d| 10f32.powf(d / 20.0));
+                    }
                 }
             }
             // Split-spectrum: each sub-band's amplitude from the same raw frame.
             sub_band_buffers.resize_with(planned.sub_bands.len(), || Array2::<f32>::zeros((depth, alines)));
+            if !planned.sub_bands.is_empty() && sub_band_db.dim() != (depth, alines) {
+                sub_band_db = Array2::zeros((depth, alines));
+            }
             for (sp, band) in planned.sub_bands.iter().zip(sub_band_buffers.iter_mut()) {
-                sp.process_raw_image(&raw, band, &fused_timer);
-                band.par_mapv_inplace(|d| 10f32.powf(d / 20.0));
+                sp.process_raw_image_with(&raw, &mut sub_band_db, Extra { complex: None, amplitude: Some(band) }, &fused_timer);
             }
             let sub_bands = sub_band_buffers;
             drop(raw);

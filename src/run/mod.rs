@@ -436,7 +436,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
 
 /// The log's contrast section, when any contrast stage ran.
 fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut writer::Written) -> Option<ContrastRecord> {
-    if !config.needs_complex() {
+    if !config.has_contrast() {
         return None;
     }
     let s = &planned.plan.summary;
