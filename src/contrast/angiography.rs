@@ -8,7 +8,8 @@
 //!   al. 2008, Opt. Lett. 33:1530).
 //! - Complex difference (phase-sensitive): C = Σₙ |Aₙ₊₁e^{−iφₙ} − Aₙ|² /
 //!   Σₙ (|Aₙ|² + |Aₙ₊₁|²), φₙ the bulk phase between the repeats of each
-//!   A-line ([`super::phase::bulk_phase`]): 0 for a static reflector, 1 for
+//!   A-line ([`super::phase`], pooled over neighbouring A-lines): 0 for a
+//!   static reflector, 1 for
 //!   independent speckle.
 //!
 //! Noise bias: static tissue decorrelates only through noise, and the
@@ -23,7 +24,8 @@ use ndarray::{Array2, ArrayView2, Zip};
 use rayon::prelude::*;
 use rustfft::num_complex::{Complex32, Complex64};
 
-use super::phase::bulk_phase;
+use super::fft2::transposed;
+use super::phase::{pooled_bulk_phases, PhaseHistogram};
 use crate::pipeline::config::{AngiographyConfig, IntensityScale, Projection};
 
 /// Amplitude decorrelation of the repeats' amplitudes (each depth × A-lines).
@@ -89,28 +91,37 @@ pub fn speckle_variance(amplitudes: &[ArrayView2<'_, f32>], scale: IntensityScal
 /// Normalised complex difference of the repeats (each depth × A-lines),
 /// the bulk phase of each pair removed per A-line. Pixels above
 /// `bulk_min_power` (|A₁||A₂|) estimate the bulk phase.
-pub fn complex_difference(frames: &[ArrayView2<'_, Complex32>], bulk_min_power: f32) -> Array2<f32> {
+pub fn complex_difference(frames: &[ArrayView2<'_, Complex32>], bulk_min_power: f32, pool: usize) -> Array2<f32> {
     let (depth, alines) = frames[0].dim();
-    let columns: Vec<Vec<f32>> = (0..alines)
-        .into_par_iter()
-        .map(|a| {
-            let mut num = vec![0.0f64; depth];
-            let mut den = vec![0.0f64; depth];
-            for w in frames.windows(2) {
-                let p = (0..depth).map(|d| w[1][[d, a]] * w[0][[d, a]].conj());
-                let phi = bulk_phase(p, bulk_min_power).unwrap_or(0.0);
-                let undo = Complex64::from_polar(1.0, -phi);
-                for d in 0..depth {
-                    let (x, y) = (w[0][[d, a]], w[1][[d, a]]);
-                    let (x, y) = (Complex64::new(x.re as f64, x.im as f64), Complex64::new(y.re as f64, y.im as f64));
-                    num[d] += (y * undo - x).norm_sqr();
-                    den[d] += x.norm_sqr() + y.norm_sqr();
-                }
-            }
-            num.iter().zip(&den).map(|(n, d)| if *d > 0.0 { (n / d) as f32 } else { 0.0 }).collect()
+    let lines: Vec<Array2<Complex32>> = frames.iter().map(|f| transposed(&f.to_owned())).collect();
+    // Bulk phase of each repeat pair and A-line, pooled over neighbouring A-lines.
+    let bulks: Vec<Vec<f64>> = lines
+        .windows(2)
+        .map(|w| {
+            let h: Vec<PhaseHistogram> = (0..alines)
+                .into_par_iter()
+                .map(|a| PhaseHistogram::of(w[0].row(a).iter().zip(w[1].row(a).iter()).map(|(x, y)| y * x.conj()), bulk_min_power))
+                .collect();
+            pooled_bulk_phases(&h, pool)
         })
         .collect();
-    Array2::from_shape_fn((depth, alines), |(d, a)| columns[a][d])
+    let mut out = Array2::<f32>::zeros((alines, depth));
+    out.axis_iter_mut(ndarray::Axis(0)).into_par_iter().enumerate().for_each(|(a, mut row)| {
+        let mut num = vec![0.0f64; depth];
+        let mut den = vec![0.0f64; depth];
+        for (k, w) in lines.windows(2).enumerate() {
+            let undo = Complex64::from_polar(1.0, -bulks[k][a]);
+            for (d, (x, y)) in w[0].row(a).iter().zip(w[1].row(a).iter()).enumerate() {
+                let (x, y) = (Complex64::new(x.re as f64, x.im as f64), Complex64::new(y.re as f64, y.im as f64));
+                num[d] += (y * undo - x).norm_sqr();
+                den[d] += x.norm_sqr() + y.norm_sqr();
+            }
+        }
+        for (v, (n, d)) in row.iter_mut().zip(num.iter().zip(&den)) {
+            *v = if *d > 0.0 { (n / d) as f32 } else { 0.0 };
+        }
+    });
+    transposed(&out)
 }
 
 /// Sets to NaN the pixels whose structure (dB of the mean amplitude over
@@ -250,11 +261,11 @@ mod tests {
         let (d, a) = (50, 8);
         let base = Array2::from_shape_fn((d, a), |(i, j)| Complex32::from_polar(5.0 + (i % 3) as f32, (i * 7 + j * 3) as f32));
         let shifted = base.mapv(|c| c * Complex32::from_polar(1.0, 1.3));
-        let c = complex_difference(&[base.view(), shifted.view()], 1.0);
+        let c = complex_difference(&[base.view(), shifted.view()], 1.0, 1);
         assert!(c.iter().all(|&v| v < 1e-6), "{c:?}");
         let mut changed = shifted.clone();
         changed[[10, 2]] = Complex32::from_polar(6.0, 0.2);
-        let c = complex_difference(&[base.view(), changed.view()], 1.0);
+        let c = complex_difference(&[base.view(), changed.view()], 1.0, 1);
         assert!(c[[10, 2]] > 0.1 && c[[11, 2]] < 1e-6);
     }
 }

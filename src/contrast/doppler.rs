@@ -6,7 +6,8 @@
 //! Pairs are neighbouring A-lines of a B-scan (T the A-line period) or the
 //! same A-line of consecutive repeated B-scans (T the B-scan period); the
 //! sums of every repeat of a position accumulate into one estimate. Before
-//! summing, each pair's bulk-motion phase ([`super::phase::bulk_phase`])
+//! summing, each pair's bulk-motion phase ([`super::phase`], pooled over
+//! `bulk_pool_pairs` neighbouring pairs)
 //! is removed. Pixels whose kernel-mean power is below the threshold have
 //! no velocity (NaN).
 //!
@@ -19,7 +20,7 @@ use rayon::prelude::*;
 use rustfft::num_complex::{Complex32, Complex64};
 
 use super::fft2::transposed;
-use super::phase::{bulk_phase, fast_atan2};
+use super::phase::{fast_atan2, pooled_bulk_phases, PhaseHistogram};
 use crate::pipeline::config::{DopplerConfig, DopplerPairs};
 
 /// Velocity scale and limits of a Doppler measurement.
@@ -62,6 +63,8 @@ pub struct KasaiSums {
     bulk_correction: bool,
     /// Weight |A₁||A₂| a pixel needs to take part in the bulk estimate.
     bulk_min_weight: f32,
+    /// Pairs pooled for each pair's bulk estimate.
+    bulk_pool: usize,
 }
 
 impl KasaiSums {
@@ -81,6 +84,7 @@ impl KasaiSums {
             bulk_phases: Vec::new(),
             bulk_correction: config.bulk_correction,
             bulk_min_weight: threshold as f32,
+            bulk_pool: config.bulk_pool_pairs,
         }
     }
 
@@ -88,26 +92,31 @@ impl KasaiSums {
     /// (later), lines being rows (A-lines × depth) of the given images.
     fn add_pairs(&mut self, earlier: &Array2<Complex32>, later: &Array2<Complex32>, offset: usize) {
         let min_weight = self.bulk_min_weight;
-        let correct = self.bulk_correction;
-        let bulks: Vec<f64> = self
-            .products
+        let slots = self.products.nrows();
+        let pair = |slot: usize| {
+            let (x, y) = (earlier.row(slot), later.row(slot + offset));
+            x.into_iter().zip(y).map(|(a, b)| b * a.conj())
+        };
+        let bulks = if self.bulk_correction {
+            let histograms: Vec<PhaseHistogram> = (0..slots).into_par_iter().map(|s| PhaseHistogram::of(pair(s), min_weight)).collect();
+            pooled_bulk_phases(&histograms, self.bulk_pool)
+        } else {
+            vec![0.0; slots]
+        };
+        self.products
             .axis_iter_mut(Axis(0))
             .into_par_iter()
             .zip(self.power.axis_iter_mut(Axis(0)))
             .enumerate()
-            .map(|(slot, (mut sum, mut power))| {
+            .for_each(|(slot, (mut sum, mut power))| {
+                let undo = Complex64::from_polar(1.0, -bulks[slot]);
                 let (x, y) = (earlier.row(slot), later.row(slot + offset));
-                let p = x.iter().zip(y.iter()).map(|(a, b)| b * a.conj());
-                let bulk = if correct { bulk_phase(p.clone(), min_weight).unwrap_or(0.0) } else { 0.0 };
-                let undo = Complex64::from_polar(1.0, -bulk);
                 for ((s, w), (a, b)) in sum.iter_mut().zip(power.iter_mut()).zip(x.iter().zip(y.iter())) {
                     let v = b * a.conj();
                     *s += Complex64::new(v.re as f64, v.im as f64) * undo;
                     *w += 0.5 * (a.norm_sqr() as f64 + b.norm_sqr() as f64);
                 }
-                bulk
-            })
-            .collect();
+            });
         let mean: Complex64 = bulks.iter().map(|&b| Complex64::from_polar(1.0, b)).sum();
         self.bulk_phases.push(mean.arg());
         self.count += 1;

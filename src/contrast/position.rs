@@ -259,7 +259,7 @@ impl<'a> PositionProcessor<'a> {
                     AngiographyMethod::SpeckleVariance => angiography::speckle_variance(&views, a.speckle_variance_scale),
                     AngiographyMethod::ComplexDifference => {
                         let c: Vec<_> = frames.iter().map(|f| f.complex.as_ref().expect("complex").view()).collect();
-                        angiography::complex_difference(&c, (floor_power * 10f64.powf(a.threshold_db / 10.0)) as f32)
+                        angiography::complex_difference(&c, (floor_power * 10f64.powf(a.threshold_db / 10.0)) as f32, a.bulk_pool_alines)
                     }
                     AngiographyMethod::SplitSpectrum => {
                         let bands = frames[0].sub_bands.len();

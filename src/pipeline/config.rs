@@ -296,6 +296,14 @@ fn de_kernel<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
 fn de_bands<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
     de_usize_in(d, 2, 16)
 }
+fn de_pool<'de, D: Deserializer<'de>>(d: D) -> Result<usize, D::Error> {
+    use serde::de::Error;
+    let v = de_usize_in(d, 1, 255)?;
+    if v % 2 == 0 {
+        return Err(D::Error::custom(format!("value {v} out of range: must be an odd number from 1 to 255")));
+    }
+    Ok(v)
+}
 fn de_optional_positive<'de, D: Deserializer<'de>>(d: D) -> Result<Option<f64>, D::Error> {
     de_positive(d).map(Some)
 }
@@ -370,6 +378,9 @@ pub struct DopplerConfig {
     /// Remove the bulk-motion phase of each pair (intensity-weighted phase
     /// step of the static tissue) before the flow is computed.
     pub bulk_correction: bool,
+    /// Neighbouring pairs pooled for each pair's bulk estimate (odd).
+    #[serde(deserialize_with = "de_pool")]
+    pub bulk_pool_pairs: usize,
     /// Colour-bar range ±this, mm/s; none: the aliasing limit λ0/(4nT).
     #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
     pub velocity_range_mm_s: Option<f64>,
@@ -387,6 +398,7 @@ impl Default for DopplerConfig {
             group_index: 1.38,
             threshold_db: 10.0,
             bulk_correction: true,
+            bulk_pool_pairs: 17,
             velocity_range_mm_s: None,
         }
     }
@@ -444,6 +456,10 @@ pub struct AngiographyConfig {
     #[serde(deserialize_with = "de_positive")]
     pub split_band_fwhm: f64,
     pub speckle_variance_scale: IntensityScale,
+    /// Complex difference: neighbouring A-lines pooled for each A-line's
+    /// bulk phase between repeats (odd).
+    #[serde(deserialize_with = "de_pool")]
+    pub bulk_pool_alines: usize,
     /// Depth slab of the en face angiogram, µm in air; none: every depth.
     pub en_face_depth_um: Option<[f64; 2]>,
     /// Measure the slab from the first strong interface of each A-line
@@ -463,6 +479,7 @@ impl Default for AngiographyConfig {
             split_bands: 4,
             split_band_fwhm: 0.4,
             speckle_variance_scale: IntensityScale::Db,
+            bulk_pool_alines: 17,
             en_face_depth_um: None,
             en_face_from_surface: false,
             surface_threshold_db: 20.0,
