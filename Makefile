@@ -27,9 +27,9 @@ deps-test:
 	@$(MAKE) --no-print-directory deps-system APT_PACKAGES="$(APT_PACKAGES) slurm-wlm"
 
 deps-python:
-	@if ! $(PYTHON) -c "import numpy, scipy, h5py, PIL" >/dev/null 2>&1; then \
-	  echo "== installing numpy, scipy, h5py, pillow (pip)"; \
-	  $(PYTHON) -m pip install -q numpy scipy h5py pillow; \
+	@if ! $(PYTHON) -c "import numpy, scipy, h5py, PIL, matplotlib" >/dev/null 2>&1; then \
+	  echo "== installing numpy, scipy, h5py, pillow, matplotlib (pip)"; \
+	  $(PYTHON) -m pip install -q numpy scipy h5py pillow matplotlib; \
 	fi
 
 build: deps-system
@@ -39,6 +39,10 @@ demo: build
 	$(BIN) inspect sample-data/layered-phantom.h5
 	$(BIN) run sample-data/layered-phantom.h5 --pipeline pipelines/default.toml --out out/demo
 	@echo "images: out/demo/layered-phantom/frame-*.png; volume: out/demo/layered-phantom/volume.h5; log: out/demo/layered-phantom/log.json"
+	@mkdir -p out/demo-captures
+	$(BIN) simulate sample-data/flow-phantom.toml --out out/demo-captures/flow-phantom.h5
+	$(BIN) run out/demo-captures/flow-phantom.h5 --pipeline pipelines/flow.toml --out out/demo
+	@echo "flow: out/demo/flow-phantom/frame-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
 
 test: deps-test deps-python
 	$(CARGO) test --locked -- --test-threads=2

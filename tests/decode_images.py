@@ -7,6 +7,8 @@ Usage:
                                           volume.h5 (h5py) under the grey
                                           levels log.json records
   decode_images.py sheet SWEEP_DIR        contact-sheet.png against sweep.json
+  decode_images.py doppler OUTPUT_DIR     Doppler images against the velocity
+                                          dataset and matplotlib's coolwarm
   decode_images.py plot PNG [PNG...]      plots: decode, RGB, not blank
 
 Prints one line per image; exits 1 on the first mismatch.
@@ -116,6 +118,68 @@ def check_sheet(sweepdir):
     print(f"ok contact-sheet.png: {im.size}, {len(report['rows'])} tiles, best framed")
 
 
+def check_doppler(outdir):
+    """Doppler PNGs against /doppler_velocity_mm_s under the logged range
+    and matplotlib's "coolwarm" (Moreland 2009) as the independent map;
+    masked (NaN) pixels black; the colour bar beside the B-scan."""
+    import matplotlib
+    cmap = matplotlib.colormaps["coolwarm"]
+    log = json.load(open(f"{outdir}/log.json"))
+    lim = log["contrast"]["doppler"]["velocity_range_mm_s"]
+    with h5py.File(f"{outdir}/volume.h5", "r") as v:
+        vel = v["doppler_velocity_mm_s"][...]
+    worst = worst_bar = 0
+    for p in range(vel.shape[0]):
+        im = decode(f"{outdir}/doppler-{p:04d}.png")
+        if im.mode != "RGB":
+            fail(f"doppler-{p:04d}.png: mode {im.mode}")
+        a = np.asarray(im).astype(int)
+        depth, alines = vel[p].shape
+        if a.shape[0] != depth or a.shape[1] <= alines:
+            fail(f"doppler-{p:04d}.png: size {a.shape} for a {depth} x {alines} image")
+        part = a[:, :alines]
+        nan = np.isnan(vel[p])
+        if np.any(part[nan] != 0):
+            fail("masked pixels are not black")
+        # Our map indexes a 256-entry table; matplotlib's is the same map.
+        idx = np.clip(np.round((vel[p][~nan] + lim) / (2 * lim) * 255), 0, 255) / 255
+        want = (np.asarray(cmap(idx))[:, :3] * 255).round()
+        worst = max(worst, np.abs(part[~nan] - want).max() if want.size else 0)
+        # The bar: a column 12 pixels right of the B-scan, +lim at the top.
+        bar = a[:, alines + 12]
+        t = 1 - np.arange(depth) / (depth - 1)
+        want_bar = (np.asarray(cmap(np.round(t * 255) / 255))[:, :3] * 255).round()
+        worst_bar = max(worst_bar, np.abs(bar - want_bar).max())
+    print(f"ok doppler PNGs: {vel.shape[0]} images, worst colour difference {worst:g} (B-scan), {worst_bar:g} (colour bar) of 255 against matplotlib coolwarm")
+    # matplotlib's coolwarm linearly interpolates Moreland's 33-entry
+    # table; ours evaluates his construction at every level, so a few
+    # levels of difference are expected, more would be another map.
+    if worst > 5 or worst_bar > 5:
+        fail("colours differ from the cool-warm map")
+
+
+def check_angiography(outdir):
+    """Angiography PNGs against their datasets: 0 black, the logged white
+    level (99.5th percentile) white, NaN black."""
+    log = json.load(open(f"{outdir}/log.json"))
+    a = log["contrast"]["angiography"]
+    with h5py.File(f"{outdir}/volume.h5", "r") as v:
+        for method, whites in a["grey_white"]:
+            data = v[f"angiography_{method}"][...]
+            for p, white in enumerate(whites):
+                im = decode(f"{outdir}/angiography-{method}-{p:04d}.png")
+                got = grey_array(im, 8)
+                d = data[p]
+                want = np.where(np.isnan(d), 0, np.clip(np.round(np.nan_to_num(d) * 255 / white), 0, 255))
+                worst = np.abs(got - want).max()
+                if worst > 1:
+                    fail(f"angiography-{method}-{p:04d}.png: worst grey difference {worst}")
+            en = decode(f"{outdir}/angiography-{method}-en-face.png")
+            if en.size != (data.shape[2], data.shape[0]):
+                fail(f"en face size {en.size}")
+            print(f"ok angiography-{method}: {len(whites)} images and the en face decode to the dataset")
+
+
 def check_plots(paths):
     for p in paths:
         im = decode(p)
@@ -133,6 +197,10 @@ if __name__ == "__main__":
         check_bscans(sys.argv[2])
     elif kind == "sheet":
         check_sheet(sys.argv[2])
+    elif kind == "angiography":
+        check_angiography(sys.argv[2])
+    elif kind == "doppler":
+        check_doppler(sys.argv[2])
     elif kind == "plot":
         check_plots(sys.argv[2:])
     else:

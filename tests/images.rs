@@ -84,3 +84,19 @@ fn contact_sheet_and_plots_decode() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     decode(&["plot".as_ref(), psf_plot.as_os_str(), sweep.join("metric.png").as_os_str()]);
 }
+
+#[test]
+fn doppler_and_angiography_images_decode() {
+    let dir = tempfile::tempdir().unwrap();
+    let scene = format!(
+        "{SCENE}\n[scan]\naline_spacing_um = 2.0\naline_period_us = 20.0\nbeam_radius_um = 6.0\n[[vessel]]\nlateral_um = 48.0\ndepth_um = 220.0\nradius_um = 20.0\n\
+         peak_velocity_mm_s = 8.0\nangle_deg = 60.0\nscatterer_density_per_um3 = 0.01\nscatterer_reflectivity = 4e-6\n"
+    )
+    .replace("frames = 3", "frames = 4\nrepeats = 2")
+    .replace("alines = 48", "alines = 96");
+    let (capture, _) = simulate_scene(dir.path(), "flow", &scene);
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&capture], "[volume]\naverage = 2\n[doppler]\nenabled = true\n[angiography]\nmethods = [\"decorrelation\"]\n", &out);
+    decode(&["doppler".as_ref(), out.join("flow").as_os_str()]);
+    decode(&["angiography".as_ref(), out.join("flow").as_os_str()]);
+}
