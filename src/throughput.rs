@@ -389,7 +389,7 @@ fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Plan, frames: 
                         Some(c) => Extra { complex: Some(c), amplitude: None },
                         None => Extra { complex: None, amplitude: Some(&mut slot.amplitude) },
                     };
-                    fused.process_raw_image_with(raw, &mut slot.db, extra, &timer);
+                    fused.process_raw_image_staged(raw, &mut slot.db, extra, &timer);
                     for (sp, band) in sub_bands.iter().zip(slot.sub_bands.iter_mut()) {
                         sp.process_raw_image_with(raw, &mut scratch, Extra { complex: None, amplitude: Some(band) }, &timer);
                     }

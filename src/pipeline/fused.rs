@@ -284,6 +284,8 @@ pub struct FusedPlan {
     log2: FastLog2,
     /// Last frame's per-pixel lower middle values (median background).
     median_hint: std::sync::Mutex<Vec<u16>>,
+    /// Buffers of [`Self::process_raw_image_staged`]: dB, amplitude, complex.
+    staging: std::sync::Mutex<(Array2<f32>, Array2<f32>, Array2<Complex32>)>,
 }
 
 fn to_f32(v: &[f64]) -> Vec<f32> {
@@ -353,6 +355,7 @@ impl FusedPlan {
             power_floor: ((AMPLITUDE_FLOOR / scale) * (AMPLITUDE_FLOOR / scale)) as f32,
             log2: FastLog2::new(),
             median_hint: std::sync::Mutex::new(Vec::new()),
+            staging: std::sync::Mutex::new((Array2::zeros((0, 0)), Array2::zeros((0, 0)), Array2::zeros((0, 0)))),
         }
     }
 
@@ -471,6 +474,40 @@ impl FusedPlan {
     /// referred to the band's centre wavenumber) into `complex`.
     pub fn process_raw_image_complex(&self, frame: &RawFrame, image: &mut Array2<f32>, complex: &mut Array2<Complex32>, timer: &FusedTimer) {
         self.process_raw_image_with(frame, image, Extra { complex: Some(complex), amplitude: None }, timer)
+    }
+
+    /// As [`Self::process_raw_image_with`], but the blocks write into this
+    /// plan's own buffers (reused from frame to frame, so they stay in
+    /// cache) and the results are then copied row by row into the
+    /// destinations. For destinations that rotate through more memory than
+    /// the cache holds (the repeats of a position): their column-wise
+    /// writes from the blocks are slow on memory that has left the cache
+    /// (measured on 1000 × 1024 frames with the amplitude alongside:
+    /// 4.2 ms per frame into four rotating buffer pairs, 2.7 ms staged).
+    pub fn process_raw_image_staged(&self, frame: &RawFrame, image: &mut Array2<f32>, extra: Extra<'_>, timer: &FusedTimer) {
+        let dim = image.dim();
+        let mut staged = self.staging.lock().unwrap_or_else(|e| e.into_inner());
+        let (db, amp, cx) = &mut *staged;
+        if db.dim() != dim {
+            *db = Array2::zeros(dim);
+        }
+        let want_amp = extra.amplitude.is_some();
+        let want_cx = extra.complex.is_some();
+        if want_amp && amp.dim() != dim {
+            *amp = Array2::zeros(dim);
+        }
+        if want_cx && cx.dim() != dim {
+            *cx = Array2::zeros(dim);
+        }
+        let hot = Extra { amplitude: want_amp.then_some(&mut *amp), complex: want_cx.then_some(&mut *cx) };
+        self.process_raw_image_with(frame, db, hot, timer);
+        par_copy(image, db);
+        if let Some(a) = extra.amplitude {
+            par_copy(a, amp);
+        }
+        if let Some(c) = extra.complex {
+            par_copy(c, cx);
+        }
     }
 
     /// As [`Self::process_raw_image`], with the extra images of `extra`.
@@ -1084,6 +1121,13 @@ pub fn complex_depth_factors(scale: f64, k_samples: usize, fft_length: usize, fi
     (first_bin..first_bin + depth)
         .map(|m| rustfft::num_complex::Complex64::from_polar(scale, 2.0 * std::f64::consts::PI * c * m as f64 / fft_length as f64))
         .collect()
+}
+
+/// dst ← src (same shape, standard layout), in parallel row chunks.
+fn par_copy<T: Copy + Send + Sync>(dst: &mut Array2<T>, src: &Array2<T>) {
+    assert_eq!(dst.dim(), src.dim());
+    let (d, s) = (dst.as_slice_mut().expect("standard layout"), src.as_slice().expect("standard layout"));
+    d.par_chunks_mut(1 << 16).zip(s.par_chunks(1 << 16)).for_each(|(a, b)| a.copy_from_slice(b));
 }
 
 /// Images a frame can write beside its dB image (each depth × A-lines).

@@ -107,8 +107,8 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
                 amplitude = Array2::zeros((depth, alines));
             }
             match (&fused, complex.as_mut()) {
-                (Some(fp), Some(c)) => fp.process_raw_image_complex(&raw, &mut db, c, &fused_timer),
-                (Some(fp), None) if needs_amplitude => fp.process_raw_image_with(&raw, &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, &fused_timer),
+                (Some(fp), Some(c)) => fp.process_raw_image_staged(&raw, &mut db, Extra { complex: Some(c), amplitude: None }, &fused_timer),
+                (Some(fp), None) if needs_amplitude => fp.process_raw_image_staged(&raw, &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, &fused_timer),
                 (Some(fp), None) => fp.process_raw_image(&raw, &mut db, &fused_timer),
                 (None, c) => {
                     let mut rows = Array2::<f32>::zeros((alines, depth));
