@@ -219,3 +219,41 @@ fn contrast_refuses_bad_input() {
         assert!(tree(&out).iter().all(|f| f.starts_with("batch")), "case {i}: {:?}", tree(&out));
     }
 }
+
+/// A registration below `min_peak` is a warning naming the frame and is
+/// not applied; registration between positions records a shift per frame.
+#[test]
+fn failed_registration_warns_and_positions_register() {
+    let dir = tempfile::tempdir().unwrap();
+    let (c, _) = simulate_scene(dir.path(), "v", &vessel_scene(2, "[motion]\nrepeat_axial_jitter_um = 6.0\n"));
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&c], "[volume]\naverage = 4\n[registration]\nrepeats = true\npositions = true\nmin_peak = 0.99\n", &out);
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("v/log.json")).unwrap()).unwrap();
+    let warnings: Vec<&str> = log["warnings"].as_array().unwrap().iter().map(|w| w.as_str().unwrap()).collect();
+    // Every repeat after the first of each position (frames 1-3, 5-7) and
+    // position 1 against position 0 (frame 4) fail against 0.99.
+    for f in [1, 2, 3, 5, 6, 7] {
+        assert!(warnings.iter().any(|w| w.starts_with(&format!("frame {f}: registration to frame")) && w.contains("not shifted")), "frame {f}: {warnings:?}");
+    }
+    assert!(warnings.iter().any(|w| w.starts_with("frame 4: registration to the previous position failed")), "{warnings:?}");
+    let shifts = log["contrast"]["registration"].as_array().unwrap();
+    assert_eq!(shifts.len(), 8);
+    assert!(shifts.iter().all(|s| s["axial_px"] == 0.0 && s["lateral_px"] == 0.0), "failed registrations must not shift");
+    assert!(shifts[4]["position_peak"].as_f64().unwrap() < 0.99 && shifts[1]["registered"] == false);
+}
+
+/// Doppler between repeated B-scans (T = the B-scan period) sees slow
+/// flow with the right sign: a vessel at 0.4 of that aliasing limit.
+#[test]
+fn doppler_between_repeats_sees_slow_flow() {
+    let dir = tempfile::tempdir().unwrap();
+    // B-scan period 128·20 + 200 µs = 2760 µs: limit 837/(4·1.38·2760) = 0.0549 mm/s.
+    let scene = vessel_scene(2, "").replace("peak_velocity_mm_s = 11.08", "peak_velocity_mm_s = 0.0642").replace("diffusion_um2_per_s = 20.0", "diffusion_um2_per_s = 0.0");
+    let (c, _) = simulate_scene(dir.path(), "slow", &scene);
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&c], "[volume]\naverage = 4\n[doppler]\nenabled = true\nbetween = \"repeats\"\nkernel_alines = 3\n", &out);
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("slow/log.json")).unwrap()).unwrap();
+    let d = &log["contrast"]["doppler"];
+    assert_eq!(d["scale"]["period_us"], 2760.0, "{d}");
+    check(&["doppler-vessel", s(&out.join("slow")), s(&dir.path().join("slow.truth.h5")), s(&dir.path().join("slow.truth.json"))]);
+}
