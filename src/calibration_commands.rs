@@ -28,18 +28,18 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
         return fail(1, format!("{}: {e:#}", out.display()));
     }
     if json {
-        println!("{}", serde_json::to_string_pretty(&cal).unwrap());
+        outln!("{}", serde_json::to_string_pretty(&cal).unwrap());
         return ExitCode::SUCCESS;
     }
     let n = cal.pixels;
-    println!(
+    outln!(
         "wavelength map: {:.3} nm (pixel 0) … {:.3} nm (pixel {}), centre {:.3} nm",
         cal.wavelength_nm[0],
         cal.wavelength_nm[n - 1],
         n - 1,
         cal.wavelength_nm[n / 2]
     );
-    println!(
+    outln!(
         "degree-{} fit over pixels {}–{}: RMS residual {:.4} nm",
         cal.polynomial_nm.len() - 1,
         cal.fit_pixels[0],
@@ -47,16 +47,16 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
         cal.fit_residual_rms_nm
     );
     for m in &cal.inputs {
-        println!("  {}: {:.1} fringe cycles, {:.1} dB", m.path.display(), m.fringe_cycles, m.fringe_snr_db);
+        outln!("  {}: {:.1} fringe cycles, {:.1} dB", m.path.display(), m.fringe_cycles, m.fringe_snr_db);
     }
     match &cal.residual_dispersion {
-        Some(d) => println!(
+        Some(d) => outln!(
             "residual dispersion: a2 {:.2} rad, a3 {:.2} rad = GDD {:.0} fs² ≈ {:.2} mm of fused silica",
             d.a2_rad, d.a3_rad, d.gdd_fs2, d.fused_silica_mm
         ),
-        None => println!("residual dispersion: needs two mirror depths (with one, it is folded into the map)"),
+        None => outln!("residual dispersion: needs two mirror depths (with one, it is folded into the map)"),
     }
-    println!("wrote {}", out.display());
+    outln!("wrote {}", out.display());
     ExitCode::SUCCESS
 }
 
@@ -87,13 +87,13 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 Err(e) => return fail(1, format!("{}: {e:#}", path.display())),
             };
             if json {
-                println!("{}", serde_json::to_string_pretty(&e).unwrap());
+                outln!("{}", serde_json::to_string_pretty(&e).unwrap());
             } else {
-                println!("a2 {:.3} rad, a3 {:.3} rad (frame {}, {} A-lines, {} evaluations, {:.2} s)", e.a2_rad, e.a3_rad, e.frame, e.alines_used, e.evaluations, e.seconds);
-                println!("entropy {:.4} (uncorrected {:.4}); peak {:.1} dB over the noise floor", e.entropy, e.entropy_uncorrected, e.peak_over_floor_db);
-                println!("equivalent: GDD mismatch {:.0} fs², {:.2} mm of fused silica (positive: in the sample arm)", e.equivalent.gdd_fs2, e.equivalent.fused_silica_mm);
+                outln!("a2 {:.3} rad, a3 {:.3} rad (frame {}, {} A-lines, {} evaluations, {:.2} s)", e.a2_rad, e.a3_rad, e.frame, e.alines_used, e.evaluations, e.seconds);
+                outln!("entropy {:.4} (uncorrected {:.4}); peak {:.1} dB over the noise floor", e.entropy, e.entropy_uncorrected, e.peak_over_floor_db);
+                outln!("equivalent: GDD mismatch {:.0} fs², {:.2} mm of fused silica (positive: in the sample arm)", e.equivalent.gdd_fs2, e.equivalent.fused_silica_mm);
                 if e.at_range_limit {
-                    eprintln!("fringeflow: warning: the estimate is on the edge of the search range; widen dispersion.a2_range / a3_range");
+                    errln!("fringeflow: warning: the estimate is on the edge of the search range; widen dispersion.a2_range / a3_range");
                 }
             }
             ExitCode::SUCCESS
@@ -111,12 +111,12 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 Ok(r) => r,
                 Err(e) => return fail(1, format!("{}: {e:#}", capture.display())),
             };
-            println!("{:>10} {:>10} {:>10} {:>9} {:>9}", "a2 rad", "a3 rad", "entropy", "FWHM µm", "peak dB");
+            outln!("{:>10} {:>10} {:>10} {:>9} {:>9}", "a2 rad", "a3 rad", "entropy", "FWHM µm", "peak dB");
             for (i, r) in report.rows.iter().enumerate() {
                 let fwhm = r.fwhm_um.map(|v| format!("{v:.2}")).unwrap_or_else(|| "-".into());
-                println!("{:>10.2} {:>10.2} {:>10.4} {:>9} {:>9.1}{}", r.a2_rad, r.a3_rad, r.entropy, fwhm, r.peak_db, if i == report.best { "  ← best" } else { "" });
+                outln!("{:>10.2} {:>10.2} {:>10.4} {:>9} {:>9.1}{}", r.a2_rad, r.a3_rad, r.entropy, fwhm, r.peak_db, if i == report.best { "  ← best" } else { "" });
             }
-            println!("wrote contact-sheet.png, sweep.csv, sweep.json, metric.png in {}", out.display());
+            outln!("wrote contact-sheet.png, sweep.csv, sweep.json, metric.png in {}", out.display());
             ExitCode::SUCCESS
         }
     }

@@ -2,6 +2,17 @@
 //! Errors print as one line on stderr; exit 2 for usage and settings
 //! errors, 1 when a capture could not be processed.
 
+/// Output that never panics on a closed pipe or a full device.
+macro_rules! outln {
+    ($($t:tt)*) => { fringeflow::output::println(&format!($($t)*)) };
+}
+macro_rules! out {
+    ($($t:tt)*) => { fringeflow::output::print(&format!($($t)*)) };
+}
+macro_rules! errln {
+    ($($t:tt)*) => { fringeflow::output::note(&format!($($t)*)) };
+}
+
 mod calibration_commands;
 mod cli;
 
@@ -16,7 +27,7 @@ use cli::{Cli, Command, MeasureCommand};
 use fringeflow::pipeline::config::PipelineConfig;
 
 pub(crate) fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
-    eprintln!("fringeflow: error: {message}");
+    fringeflow::output::error(&message.to_string());
     ExitCode::from(code)
 }
 
@@ -56,7 +67,7 @@ fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: 
         Err(e) => return fail(2, format!("{e:#}")),
     };
     let mine = shard.select(&all);
-    let stop = match batch::StopSignals::install() {
+    let stop = match batch::StopSignals::install(true) {
         Ok(s) => s,
         Err(e) => return fail(1, format!("{e:#}")),
     };
@@ -66,7 +77,7 @@ fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: 
         Err(e) => return fail(1, format!("{e:#}")),
     };
     if !quiet {
-        print!("{}", report.render());
+        out!("{}", report.render());
     }
     if let Some((_, code)) = stop.stopped() {
         return ExitCode::from(code);
@@ -90,6 +101,15 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
         Ok(c) => c,
         Err(e) => return fail(2, format!("{}: its pipeline section does not parse: {e}", log_path.display())),
     };
+    // Trust nothing: the pipeline must be the one the log's hash names, and
+    // pass every check a pipeline file passes.
+    let recorded = log["pipeline_sha256"].as_str().unwrap_or("");
+    if config.sha256() != recorded {
+        return fail(2, format!("{}: its pipeline section does not match its pipeline_sha256 (the log was edited or damaged): refusing to rerun", log_path.display()));
+    }
+    if let Err(e) = config.validate(&log_path.display().to_string()) {
+        return fail(2, e);
+    }
     // The path as given, else (run from another directory) the absolute one.
     let mut input = PathBuf::from(input);
     if !input.exists() {
@@ -97,15 +117,33 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
             input = PathBuf::from(abs);
         }
     }
+    let stop = match fringeflow::batch::StopSignals::install(true) {
+        Ok(s) => s,
+        Err(e) => return fail(1, format!("{e:#}")),
+    };
     match fringeflow::io::hash::sha256_file(&input) {
         Ok(h) if h == sha => {}
         Ok(h) => return fail(1, format!("{}: SHA-256 is {h}, the log recorded {sha}: not the same input", input.display())),
         Err(e) => return fail(1, format!("{}: {e}", input.display())),
     }
-    let ctx = fringeflow::run::RunContext { reference_engine: log["engine"] == "reference", ..Default::default() };
-    match fringeflow::run::process_capture(&input, &config, out, ctx) {
+    let name = fringeflow::run::output_name(&input);
+    let lock = match fringeflow::batch::lock::OutputLock::acquire(out, &name) {
+        Ok(l) => l,
+        Err(e) => return fail(1, format!("{}: {e:#}", input.display())),
+    };
+    lock.clean_stale_staging(out, &name);
+    let ctx = fringeflow::run::RunContext { reference_engine: log["engine"] == "reference", cancel: Some(&stop.any), ..Default::default() };
+    let result = fringeflow::run::process_capture(&input, &config, out, ctx);
+    drop(lock);
+    if let Some((_, code)) = stop.stopped() {
+        return ExitCode::from(code);
+    }
+    match result {
         Ok(o) => {
-            eprintln!("reproduced {} → {}", input.display(), o.output_dir.display());
+            for w in &o.warnings {
+                fringeflow::output::warn(&format!("{}: {w}", input.display()));
+            }
+            fringeflow::output::note(&format!("reproduced {} → {}", input.display(), o.output_dir.display()));
             ExitCode::SUCCESS
         }
         Err(e) => fail(1, format!("{}: {e:#}", input.display())),
@@ -122,9 +160,9 @@ fn summarize(dir: &Path) -> ExitCode {
     if let Err(e) = fringeflow::io::staging::write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &json)?)) {
         return fail(1, format!("{e:#}"));
     }
-    print!("{}", report.render());
+    out!("{}", report.render());
     for p in &problems {
-        eprintln!("fringeflow: problem: {p}");
+        errln!("fringeflow: problem: {p}");
     }
     if problems.is_empty() && report.counts.failed == 0 && report.counts.not_run == 0 {
         ExitCode::SUCCESS
@@ -147,7 +185,7 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
         Err(e) => return fail(2, format!("{e:#}")),
     };
     if tasks > n {
-        eprintln!("fringeflow: warning: {tasks} tasks for {n} captures: {} tasks will have nothing to do", tasks - n);
+        errln!("fringeflow: warning: {tasks} tasks for {n} captures: {} tasks will have nothing to do", tasks - n);
     }
     // Slurm opens each task's log in the output directory before the script
     // runs, so the directory must exist at submission.
@@ -179,7 +217,7 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
     s += &format!("mkdir -p {}\n", q(&out));
     s += "export RAYON_NUM_THREADS=\"${SLURM_CPUS_PER_TASK:-1}\"\n";
     s += &format!("exec {} run --list {} --pipeline {} --out {} --resume --quiet\n", q(&exe), q(&list), q(&pipeline), q(&out));
-    print!("{s}");
+    out!("{s}");
     ExitCode::SUCCESS
 }
 
@@ -199,20 +237,20 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 return fail(1, format!("{}: {e:#}", plot_path.display()));
             }
             for w in &m.warnings {
-                eprintln!("fringeflow: warning: {w}");
+                errln!("fringeflow: warning: {w}");
             }
             if json {
-                println!("{}", serde_json::to_string_pretty(&m).unwrap());
+                outln!("{}", serde_json::to_string_pretty(&m).unwrap());
             } else {
-                println!("mirror {} frame {}: peak at {:.2} µm, {:.1} dB", m.capture, m.frame, m.peak_depth_um, m.peak_db);
-                println!("source spectrum: centre {:.2} nm, FWHM {:.2} nm → limit l_c {:.3} µm", m.source.centre_nm, m.source.fwhm_nm, m.source.coherence_length_um);
-                println!("PSF FWHM {:.3} µm in air, {:.3} µm at group index {:.3}; measured/limit {:.3}", m.fwhm_um_air, m.fwhm_um_medium, m.group_index, m.fwhm_over_limit);
+                outln!("mirror {} frame {}: peak at {:.2} µm, {:.1} dB", m.capture, m.frame, m.peak_depth_um, m.peak_db);
+                outln!("source spectrum: centre {:.2} nm, FWHM {:.2} nm → limit l_c {:.3} µm", m.source.centre_nm, m.source.fwhm_nm, m.source.coherence_length_um);
+                outln!("PSF FWHM {:.3} µm in air, {:.3} µm at group index {:.3}; measured/limit {:.3}", m.fwhm_um_air, m.fwhm_um_medium, m.group_index, m.fwhm_over_limit);
                 match (m.side_lobe_db, m.side_lobe_above_noise) {
-                    (Some(s), true) => println!("highest side lobe {s:.1} dB"),
-                    (Some(s), false) => println!("no side lobe above the noise (highest local maximum {s:.1} dB is noise)"),
-                    (None, _) => println!("highest side lobe: none found"),
+                    (Some(s), true) => outln!("highest side lobe {s:.1} dB"),
+                    (Some(s), false) => outln!("no side lobe above the noise (highest local maximum {s:.1} dB is noise)"),
+                    (None, _) => outln!("highest side lobe: none found"),
                 }
-                println!("peak SNR {:.1} dB (noise floor {:.1} dB); plot {}", m.snr_db, m.noise_floor_db, plot_path.display());
+                outln!("peak SNR {:.1} dB (noise floor {:.1} dB); plot {}", m.snr_db, m.noise_floor_db, plot_path.display());
             }
             ExitCode::SUCCESS
         }
@@ -232,23 +270,23 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 return fail(1, format!("{}: {e:#}", plot_path.display()));
             }
             for w in &report.warnings {
-                eprintln!("fringeflow: warning: {w}");
+                errln!("fringeflow: warning: {w}");
             }
             if json {
-                println!("{}", serde_json::to_string_pretty(&report).unwrap());
+                outln!("{}", serde_json::to_string_pretty(&report).unwrap());
             } else {
-                println!("{:>12} {:>10} {:>10} {:>10}  capture", "depth µm", "peak dB", "SNR dB", "FWHM µm");
+                outln!("{:>12} {:>10} {:>10} {:>10}  capture", "depth µm", "peak dB", "SNR dB", "FWHM µm");
                 for p in &report.points {
-                    println!("{:>12.1} {:>10.2} {:>10.2} {:>10.2}  {}", p.depth_um, p.peak_db, p.snr_db, p.fwhm_um, p.capture);
+                    outln!("{:>12.1} {:>10.2} {:>10.2} {:>10.2}  {}", p.depth_um, p.peak_db, p.snr_db, p.fwhm_um, p.capture);
                 }
                 let f = &report.fit;
-                println!(
+                outln!(
                     "fit: A0 {:.2} dB, spectral response FWHM {:.4} nm, pixel width {:.3e} rad/µm, RMS residual {:.2} dB",
                     f.a0_db, f.resolution_fwhm_nm, f.pixel_dk_per_um, f.rms_residual_db
                 );
-                println!("-6 dB roll-off depth {:.0} µm (in air); plot {}", f.rolloff_6db_depth_um, plot_path.display());
+                outln!("-6 dB roll-off depth {:.0} µm (in air); plot {}", f.rolloff_6db_depth_um, plot_path.display());
                 if let (Some(s), Some(a)) = (report.sensitivity_db, attenuation_db) {
-                    println!("sensitivity {s:.1} dB = SNR {:.1} dB + round-trip attenuation 2 × {a:.1} dB", report.points[0].snr_db);
+                    outln!("sensitivity {s:.1} dB = SNR {:.1} dB + round-trip attenuation 2 × {a:.1} dB", report.points[0].snr_db);
                 }
             }
             ExitCode::SUCCESS
@@ -258,6 +296,13 @@ fn measure(command: MeasureCommand) -> ExitCode {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    // Single commands stop at the first signal (removing what they were
+    // writing); `run` and `rerun` install their own graceful handling.
+    if !matches!(cli.command, Command::Run { .. } | Command::Rerun { .. }) {
+        if let Err(e) = fringeflow::batch::StopSignals::install(false) {
+            return fail(1, format!("{e:#}"));
+        }
+    }
     match cli.command {
         Command::Run { captures, list, pipeline, out, resume, shard, quiet, engine } => {
             run(&captures, list.as_deref(), pipeline.as_deref(), &out, resume, shard.as_deref(), quiet, engine == cli::Engine::Reference)
@@ -274,7 +319,7 @@ fn main() -> ExitCode {
             };
             match fringeflow::simulate::simulate(&scene, &out) {
                 Ok(_) => {
-                    eprintln!("wrote {} and {}", out.display(), fringeflow::simulate::truth_path(&out).display());
+                    errln!("wrote {} and {}", out.display(), fringeflow::simulate::truth_path(&out).display());
                     ExitCode::SUCCESS
                 }
                 Err(e) => fail(1, format!("{e:#}")),
@@ -285,7 +330,7 @@ fn main() -> ExitCode {
             let opts = fringeflow::throughput::BenchOptions { capture, work_dir, alines, repeats, scaling: !no_scaling, end_to_end: !no_end_to_end };
             match fringeflow::throughput::run_bench(&opts) {
                 Ok(report) => {
-                    print!("{}", report.render());
+                    out!("{}", report.render());
                     if let Some(path) = json {
                         let written = fringeflow::io::staging::write_atomically(&path, |tmp| {
                             std::fs::write(tmp, serde_json::to_vec_pretty(&report)?)?;
@@ -317,9 +362,9 @@ fn main() -> ExitCode {
                 resolution_nm: resolution_nm.unwrap_or(span / pixels as f64),
             });
             if json {
-                println!("{}", serde_json::to_string_pretty(&report).unwrap());
+                outln!("{}", serde_json::to_string_pretty(&report).unwrap());
             } else {
-                print!("{}", report.render());
+                out!("{}", report.render());
             }
             ExitCode::SUCCESS
         }
@@ -330,7 +375,7 @@ fn main() -> ExitCode {
             };
             match fringeflow::inspect::inspect(&capture, &config.input) {
                 Ok(report) => {
-                    print!("{}", report.render(&capture));
+                    out!("{}", report.render(&capture));
                     if report.problems.is_empty() {
                         ExitCode::SUCCESS
                     } else {

@@ -31,6 +31,8 @@ pub enum Status {
     Failed,
     /// Not processed because the batch was interrupted.
     NotRun,
+    /// Another live run holds the capture's lock (it does the work).
+    Held,
 }
 
 #[derive(Debug, Clone, Serialize, Deserialize)]
@@ -40,6 +42,12 @@ pub struct CaptureRecord {
     pub reason: Option<String>,
     pub output: Option<String>,
     pub seconds: f64,
+    /// Warnings the capture's log.json records (each also printed on stderr).
+    #[serde(default)]
+    pub warnings: usize,
+    /// The kind of failure, stable for scripts (absent unless failed).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub error_kind: Option<String>,
 }
 
 #[derive(Debug, Clone, Default, Serialize, Deserialize)]
@@ -48,6 +56,11 @@ pub struct Counts {
     pub skipped: usize,
     pub failed: usize,
     pub not_run: usize,
+    #[serde(default)]
+    pub held: usize,
+    /// Warnings over all captures.
+    #[serde(default)]
+    pub warnings: usize,
 }
 
 impl Counts {
@@ -59,7 +72,9 @@ impl Counts {
                 Status::Skipped => c.skipped += 1,
                 Status::Failed => c.failed += 1,
                 Status::NotRun => c.not_run += 1,
+                Status::Held => c.held += 1,
             }
+            c.warnings += r.warnings;
         }
         c
     }
@@ -79,39 +94,58 @@ pub struct BatchReport {
     pub interrupted: Option<String>,
 }
 
-/// Flags set by SIGINT and SIGTERM.
+/// How the process reacts to SIGINT, SIGTERM, SIGHUP and SIGQUIT.
+///
+/// Graceful (batches): the first signal sets the flags the workers poll, so
+/// the capture in flight is discarded and the summary written; a second
+/// signal removes every in-flight temporary file, staging directory and
+/// lock, and exits at once. Not graceful (single commands): the first
+/// signal does that. Either way the exit status is 128 + the signal.
 #[derive(Clone, Default)]
 pub struct StopSignals {
-    pub interrupt: Arc<AtomicBool>,
-    pub terminate: Arc<AtomicBool>,
-    /// Set by either: what the workers poll.
+    /// The first signal received (its number), 0 while none.
+    pub signal: Arc<std::sync::atomic::AtomicI32>,
+    /// Set by any of them: what the workers poll.
     pub any: Arc<AtomicBool>,
 }
 
+/// The signals that stop a run, with their names.
+pub const STOP_SIGNALS: [(i32, &str); 4] = [
+    (signal_hook::consts::SIGINT, "SIGINT"),
+    (signal_hook::consts::SIGTERM, "SIGTERM"),
+    (signal_hook::consts::SIGHUP, "SIGHUP"),
+    (signal_hook::consts::SIGQUIT, "SIGQUIT"),
+];
+
 impl StopSignals {
-    /// Installs handlers: the first signal asks for a clean stop; a second
-    /// SIGINT or SIGTERM while stopping ends the process at once.
-    pub fn install() -> Result<StopSignals> {
-        use signal_hook::consts::{SIGINT, SIGTERM};
-        use signal_hook::flag;
+    pub fn install(graceful: bool) -> Result<StopSignals> {
         let s = StopSignals::default();
-        for sig in [SIGINT, SIGTERM] {
-            flag::register_conditional_shutdown(sig, 1, Arc::clone(&s.any)).context("installing signal handler")?;
-            flag::register(sig, Arc::clone(&s.any)).context("installing signal handler")?;
-        }
-        flag::register(SIGINT, Arc::clone(&s.interrupt))?;
-        flag::register(SIGTERM, Arc::clone(&s.terminate))?;
+        let mut signals = signal_hook::iterator::Signals::new(STOP_SIGNALS.map(|(n, _)| n)).context("installing signal handlers")?;
+        let (flag, any) = (Arc::clone(&s.signal), Arc::clone(&s.any));
+        std::thread::Builder::new()
+            .name("signals".into())
+            .spawn(move || {
+                for sig in signals.forever() {
+                    let first = flag.compare_exchange(0, sig, Ordering::SeqCst, Ordering::SeqCst).is_ok();
+                    any.store(true, Ordering::SeqCst);
+                    if !graceful || !first {
+                        crate::io::staging::remove_in_flight();
+                        std::process::exit(128 + sig);
+                    }
+                }
+            })
+            .context("starting the signal thread")?;
         Ok(s)
     }
 
+    /// The stopping signal's name and the exit status it calls for.
     pub fn stopped(&self) -> Option<(&'static str, u8)> {
-        if self.terminate.load(Ordering::Relaxed) {
-            Some(("SIGTERM", 143))
-        } else if self.interrupt.load(Ordering::Relaxed) || self.any.load(Ordering::Relaxed) {
-            Some(("SIGINT", 130))
-        } else {
-            None
+        let sig = self.signal.load(Ordering::SeqCst);
+        if sig == 0 {
+            return None;
         }
+        let name = STOP_SIGNALS.iter().find(|(n, _)| *n == sig).map_or("signal", |(_, name)| *name);
+        Some((name, (128 + sig) as u8))
     }
 }
 
@@ -137,22 +171,35 @@ pub fn report_name(shard: Shard) -> String {
 fn process_one(input: &Path, config: &PipelineConfig, out: &Path, ctx: RunContext<'_>) -> CaptureRecord {
     let name = output_name(input);
     let started = std::time::Instant::now();
-    let result = lock::OutputLock::acquire(out, &name).and_then(|lock| {
-        lock.clean_stale_staging(out, &name);
-        process_capture(input, config, out, ctx)
-    });
+    let result = match crate::io::staging::output_name_problem(&name) {
+        Some(problem) => Err(anyhow::anyhow!("{problem}")),
+        None => lock::OutputLock::acquire(out, &name).and_then(|lock| {
+            lock.clean_stale_staging(out, &name);
+            process_capture(input, config, out, ctx)
+        }),
+    };
     let seconds = started.elapsed().as_secs_f64();
     let input = input.display().to_string();
+    let record = |status, reason: Option<String>, output: Option<String>, warnings: usize| CaptureRecord { input: input.clone(), status, reason, output, seconds, warnings, error_kind: None };
     match result {
-        Ok(o) => CaptureRecord {
-            input,
-            status: if o.skipped { Status::Skipped } else { Status::Done },
-            reason: o.skipped.then(|| "up to date (same input SHA-256 and pipeline)".to_string()),
-            output: Some(o.output_dir.display().to_string()),
-            seconds,
-        },
-        Err(e) if e.is::<Interrupted>() => CaptureRecord { input, status: Status::NotRun, reason: Some(e.to_string()), output: None, seconds },
-        Err(e) => CaptureRecord { input, status: Status::Failed, reason: Some(format!("{e:#}").replace('\n', " ")), output: None, seconds },
+        Ok(o) => {
+            for w in &o.warnings {
+                crate::output::warn(&format!("{input}: {w}"));
+            }
+            record(
+                if o.skipped { Status::Skipped } else { Status::Done },
+                o.skipped.then(|| "up to date (same input SHA-256 and pipeline)".to_string()),
+                Some(o.output_dir.display().to_string()),
+                o.warnings.len(),
+            )
+        }
+        Err(e) if e.is::<Interrupted>() => record(Status::NotRun, Some(e.to_string()), None, 0),
+        Err(e) if e.is::<lock::HeldByAnother>() => record(Status::Held, Some(format!("held by another run: {e}")), None, 0),
+        Err(e) => {
+            let mut r = record(Status::Failed, Some(format!("{e:#}").replace('\n', " ")), None, 0);
+            r.error_kind = Some(crate::errors::kind_of(&e).to_string());
+            r
+        }
     }
 }
 
@@ -175,7 +222,7 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
         .with_max_len(1)
         .map(|input| {
             if stop.any.load(Ordering::Relaxed) {
-                return CaptureRecord { input: input.display().to_string(), status: Status::NotRun, reason: Some("batch interrupted".into()), output: None, seconds: 0.0 };
+                return CaptureRecord { input: input.display().to_string(), status: Status::NotRun, reason: Some("batch interrupted".into()), output: None, seconds: 0.0, warnings: 0, error_kind: None };
             }
             let own = show_bars.then(|| {
                 let b = multi.add(ProgressBar::new(0));
@@ -196,11 +243,12 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
                     Status::Skipped => format!("skipped {}: {}", record.input, record.reason.as_deref().unwrap_or("")),
                     Status::Failed => format!("fringeflow: error: {}: {}", record.input, record.reason.as_deref().unwrap_or("")),
                     Status::NotRun => format!("not run {}: interrupted", record.input),
+                    Status::Held => format!("held    {}: {}", record.input, record.reason.as_deref().unwrap_or("")),
                 };
                 if show_bars {
                     multi.println(line).ok();
                 } else {
-                    eprintln!("{line}");
+                    crate::output::note(&line);
                 }
             }
             record
@@ -220,8 +268,42 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
         interrupted: stop.stopped().map(|(name, _)| name.to_string()),
     };
     let path = out.join(report_name(opts.shard));
+    let report = write_merged_report(&path, report)?;
+    Ok(report)
+}
+
+/// Writes the batch summary, merged with the one already there (another
+/// run into the same directory) under the summary's own lock: a capture
+/// this run processed replaces its old record, one it found held by
+/// another run keeps that run's record. Returns what was written.
+fn write_merged_report(path: &Path, mut report: BatchReport) -> Result<BatchReport> {
+    let dir = path.parent().unwrap_or(Path::new("."));
+    let lock_name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    // Another run may hold the summary's lock briefly: wait for it.
+    let started = std::time::Instant::now();
+    let _lock = loop {
+        match lock::OutputLock::acquire(dir, &lock_name) {
+            Ok(l) => break l,
+            Err(e) if e.is::<lock::HeldByAnother>() && started.elapsed() < std::time::Duration::from_secs(60) => std::thread::sleep(std::time::Duration::from_millis(20)),
+            Err(e) => return Err(e),
+        }
+    };
+    if let Some(old) = std::fs::read(path).ok().and_then(|b| serde_json::from_slice::<BatchReport>(&b).ok()) {
+        if old.pipeline_sha256 == report.pipeline_sha256 {
+            let mut by_input: std::collections::BTreeMap<String, CaptureRecord> = old.captures.into_iter().map(|r| (r.input.clone(), r)).collect();
+            for r in std::mem::take(&mut report.captures) {
+                let keep_old = matches!(r.status, Status::Held | Status::NotRun) && by_input.contains_key(&r.input);
+                if !keep_old {
+                    by_input.insert(r.input.clone(), r);
+                }
+            }
+            report.captures = by_input.into_values().collect();
+            report.counts = Counts::tally(&report.captures);
+            report.inputs_total = report.inputs_total.max(old.inputs_total);
+        }
+    }
     let json = serde_json::to_vec_pretty(&report)?;
-    write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &json)?)).with_context(|| format!("writing {}", path.display()))?;
+    write_atomically(path, |tmp| Ok(std::fs::write(tmp, &json)?)).with_context(|| format!("writing {}", path.display()))?;
     Ok(report)
 }
 
@@ -235,11 +317,18 @@ impl BatchReport {
                 Status::Skipped => "skipped",
                 Status::Failed => "FAILED",
                 Status::NotRun => "not run",
+                Status::Held => "held",
             };
             s += &format!("{status:<8} {}{}\n", r.input, r.reason.as_ref().filter(|_| r.status != Status::Done).map(|m| format!(": {m}")).unwrap_or_default());
         }
         let c = &self.counts;
         s += &format!("{} done, {} skipped, {} failed, {} not run", c.done, c.skipped, c.failed, c.not_run);
+        if c.held > 0 {
+            s += &format!(", {} held by another run", c.held);
+        }
+        if c.warnings > 0 {
+            s += &format!(", {} warnings", c.warnings);
+        }
         if !self.shard.is_whole() {
             s += &format!(" (shard {}/{} of {} captures)", self.shard.index, self.shard.count, self.inputs_total);
         }

@@ -1,20 +1,74 @@
-//! Writing outputs so that nothing half-written is ever left behind.
+//! Writing outputs so that nothing half-written is ever left behind, and
+//! nothing fringeflow did not make is ever replaced.
 //!
 //! A single file is written under a temporary name in its final directory
 //! and renamed when complete ([`write_atomically`]). A capture's set of
 //! outputs is written into a hidden staging directory beside its final one
 //! and moved into place only when every file is complete ([`Staging`]);
 //! if processing fails, the staging directory is removed.
+//!
+//! Ownership: every output directory holds [`OWNER_RECORD`], a small JSON
+//! file saying fringeflow made it. An existing directory (or file) at an
+//! output's path without that record is the user's own and is never
+//! replaced, moved or removed ([`check_replaceable`]). Names fringeflow
+//! derives from a capture's name are checked against its own files
+//! ([`output_name_problem`]).
+//!
+//! In-flight temporary paths are registered ([`in_flight`]) so that a
+//! process stopped by a second signal can remove them before it exits.
 
-use anyhow::{Context, Result};
+use anyhow::{bail, Context, Result};
+use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
+use std::sync::Mutex;
 
-/// Temporary sibling name for `path`: `.<stem>.tmp-<pid>.<extension>` (the
+/// The ownership record inside each output directory.
+pub const OWNER_RECORD: &str = ".fringeflow-output";
+
+static IN_FLIGHT: Mutex<BTreeSet<PathBuf>> = Mutex::new(BTreeSet::new());
+
+/// Records a path to remove if the process is stopped before it is done.
+pub fn register(p: &Path) {
+    IN_FLIGHT.lock().unwrap_or_else(|e| e.into_inner()).insert(p.to_path_buf());
+}
+
+/// The path is complete (or gone): no longer removed on a stop.
+pub fn unregister(p: &Path) {
+    IN_FLIGHT.lock().unwrap_or_else(|e| e.into_inner()).remove(p);
+}
+
+/// Temporary files and staging directories being written right now.
+pub fn in_flight() -> Vec<PathBuf> {
+    IN_FLIGHT.lock().unwrap_or_else(|e| e.into_inner()).iter().cloned().collect()
+}
+
+/// Removes every in-flight path (for a process about to exit on a signal).
+pub fn remove_in_flight() {
+    for p in in_flight() {
+        if p.is_dir() {
+            std::fs::remove_dir_all(&p).ok();
+        } else {
+            std::fs::remove_file(&p).ok();
+        }
+    }
+}
+
+/// A per-process tag for temporary names: pid and a random part, so two
+/// processes with the same pid (other PID namespaces, other hosts) differ.
+fn process_tag() -> &'static str {
+    static TAG: std::sync::OnceLock<String> = std::sync::OnceLock::new();
+    TAG.get_or_init(|| {
+        let nonce: u32 = rand::random();
+        format!("{}-{nonce:08x}", std::process::id())
+    })
+}
+
+/// Temporary sibling name for `path`: `.<stem>.tmp-<tag>.<extension>` (the
 /// extension kept, since some encoders choose the format by it).
 pub fn temp_sibling(path: &Path) -> PathBuf {
     let stem = path.file_stem().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
     let ext = path.extension().map(|e| format!(".{}", e.to_string_lossy())).unwrap_or_default();
-    path.with_file_name(format!(".{stem}.tmp-{}{ext}", std::process::id()))
+    path.with_file_name(format!(".{stem}.tmp-{}{ext}", process_tag()))
 }
 
 /// Writes `path` by calling `write` on a temporary sibling, then renaming it.
@@ -24,13 +78,49 @@ where
     F: FnOnce(&Path) -> Result<()>,
 {
     let tmp = temp_sibling(path);
-    let result = write(&tmp).and_then(|()| {
-        std::fs::rename(&tmp, path).with_context(|| format!("renaming into {}", path.display()))
-    });
+    register(&tmp);
+    let result = write(&tmp).and_then(|()| std::fs::rename(&tmp, path).with_context(|| format!("renaming into {}", path.display())));
     if result.is_err() {
         let _ = std::fs::remove_file(&tmp);
     }
+    unregister(&tmp);
     result
+}
+
+/// Whether `file` (a name in an output directory) is a staging or
+/// moved-aside directory of output `name`.
+pub fn is_staging_of(file: &str, name: &str) -> bool {
+    [format!(".{name}.partial-"), format!(".{name}.old-")].iter().any(|m| file.starts_with(m.as_str()))
+}
+
+/// Why a capture name cannot be an output name in a batch directory, if it
+/// cannot: hidden names (they could meet fringeflow's own hidden files)
+/// and the names of fringeflow's own files.
+pub fn output_name_problem(name: &str) -> Option<String> {
+    let reserved = name == "summary.json"
+        || name == "index.html"
+        || (name.starts_with("batch") && name.ends_with(".json"))
+        || (name.starts_with("slurm-") && name.ends_with(".log"));
+    if name.is_empty() || name.starts_with('.') {
+        Some(format!("its output name '{name}' would be hidden among fringeflow's own staging and lock files; rename the capture"))
+    } else if reserved {
+        Some(format!("its output name '{name}' is the name of one of fringeflow's own files in the output directory; rename the capture"))
+    } else {
+        None
+    }
+}
+
+/// Fails unless `path` is free or an output directory fringeflow made.
+pub fn check_replaceable(path: &Path) -> Result<()> {
+    match std::fs::symlink_metadata(path) {
+        Err(_) => Ok(()),
+        Ok(m) if m.is_dir() && path.join(OWNER_RECORD).is_file() => Ok(()),
+        Ok(m) if m.is_dir() => bail!(
+            "{} exists and was not made by fringeflow (no {OWNER_RECORD} record): refusing to replace it; move it away or choose another --out",
+            path.display()
+        ),
+        Ok(_) => bail!("{} exists and is not a fringeflow output directory: refusing to replace it; move it away or choose another --out", path.display()),
+    }
 }
 
 /// A hidden directory collecting one capture's outputs until they are complete.
@@ -41,16 +131,26 @@ pub struct Staging {
 }
 
 impl Staging {
-    /// Creates `<out_root>/.<name>.partial-<pid>` for outputs that will end up
-    /// in `<out_root>/<name>`.
+    /// Creates `<out_root>/.<name>.partial-<tag>` for outputs that will end
+    /// up in `<out_root>/<name>`, with its ownership record. Fails when the
+    /// final directory exists and is not fringeflow's.
     pub fn new(out_root: &Path, name: &str) -> Result<Self> {
         std::fs::create_dir_all(out_root).with_context(|| format!("creating {}", out_root.display()))?;
-        let dir = out_root.join(format!(".{name}.partial-{}", std::process::id()));
+        let final_dir = out_root.join(name);
+        check_replaceable(&final_dir)?;
+        let dir = out_root.join(format!(".{name}.partial-{}", process_tag()));
         if dir.exists() {
             std::fs::remove_dir_all(&dir).ok();
         }
         std::fs::create_dir(&dir).with_context(|| format!("creating {}", dir.display()))?;
-        Ok(Staging { dir, final_dir: out_root.join(name), committed: false })
+        register(&dir);
+        let staging = Staging { dir, final_dir, committed: false };
+        let record = serde_json::json!({
+            "made_by": concat!("fringeflow ", env!("CARGO_PKG_VERSION")),
+            "note": "this directory is a fringeflow output; fringeflow replaces it only when this record is here",
+        });
+        std::fs::write(staging.path(OWNER_RECORD), serde_json::to_vec_pretty(&record)?).with_context(|| format!("writing {}", staging.path(OWNER_RECORD).display()))?;
+        Ok(staging)
     }
 
     /// Path of an output file while it is being written.
@@ -59,23 +159,29 @@ impl Staging {
     }
 
     /// Moves the complete set of outputs into the final directory, replacing
-    /// an earlier one. Returns the final directory.
+    /// an earlier fringeflow output (never anything else). Returns the
+    /// final directory.
     pub fn commit(mut self) -> Result<PathBuf> {
-        let old = self.final_dir.with_file_name(format!(
-            ".{}.old-{}",
-            self.final_dir.file_name().unwrap().to_string_lossy(),
-            std::process::id()
-        ));
+        check_replaceable(&self.final_dir)?;
+        let old = self.final_dir.with_file_name(format!(".{}.old-{}", self.final_dir.file_name().unwrap().to_string_lossy(), process_tag()));
         let replaced = self.final_dir.exists();
         if replaced {
-            std::fs::rename(&self.final_dir, &old)
-                .with_context(|| format!("moving aside {}", self.final_dir.display()))?;
+            std::fs::rename(&self.final_dir, &old).with_context(|| format!("moving aside {}", self.final_dir.display()))?;
+            register(&old);
         }
-        std::fs::rename(&self.dir, &self.final_dir)
-            .with_context(|| format!("moving outputs into {}", self.final_dir.display()))?;
+        if let Err(e) = std::fs::rename(&self.dir, &self.final_dir) {
+            if replaced {
+                // Put the earlier output back.
+                std::fs::rename(&old, &self.final_dir).ok();
+                unregister(&old);
+            }
+            return Err(e).with_context(|| format!("moving outputs into {}", self.final_dir.display()));
+        }
+        unregister(&self.dir);
         self.committed = true;
         if replaced {
             std::fs::remove_dir_all(&old).ok();
+            unregister(&old);
         }
         Ok(self.final_dir.clone())
     }
@@ -85,6 +191,41 @@ impl Drop for Staging {
     fn drop(&mut self) {
         if !self.committed {
             let _ = std::fs::remove_dir_all(&self.dir);
+            unregister(&self.dir);
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn never_replaces_what_fringeflow_did_not_make() {
+        let dir = tempfile::tempdir().unwrap();
+        std::fs::create_dir(dir.path().join("good")).unwrap();
+        std::fs::write(dir.path().join("good/notes.txt"), "n").unwrap();
+        let e = Staging::new(dir.path(), "good").err().expect("refused");
+        assert!(e.to_string().contains("not made by fringeflow"), "{e}");
+        assert_eq!(std::fs::read_to_string(dir.path().join("good/notes.txt")).unwrap(), "n");
+        std::fs::write(dir.path().join("file"), "x").unwrap();
+        assert!(Staging::new(dir.path(), "file").is_err());
+        // Its own output is replaced.
+        let s = Staging::new(dir.path(), "mine").unwrap();
+        std::fs::write(s.path("a"), "1").unwrap();
+        s.commit().unwrap();
+        let s = Staging::new(dir.path(), "mine").unwrap();
+        std::fs::write(s.path("a"), "2").unwrap();
+        s.commit().unwrap();
+        assert_eq!(std::fs::read_to_string(dir.path().join("mine/a")).unwrap(), "2");
+        assert!(in_flight().is_empty());
+    }
+
+    #[test]
+    fn derived_names_that_meet_fringeflows_own_files_are_refused() {
+        for bad in [".hidden", "batch", "batch.json", "batch-0-of-2.json", "summary.json", "index.html", "slurm-1_2.log"] {
+            assert_eq!(output_name_problem(bad).is_some(), bad != "batch", "{bad}");
+        }
+        assert!(output_name_problem("capture-01").is_none());
     }
 }

@@ -620,6 +620,12 @@ impl PipelineConfig {
         Ok(config)
     }
 
+    /// The checks that involve several keys, for a pipeline that did not
+    /// come from a file (e.g. read back from a log).
+    pub fn validate(&self, name: &str) -> Result<(), ConfigError> {
+        self.check(name, "")
+    }
+
     fn check(&self, file: &str, text: &str) -> Result<(), ConfigError> {
         let fail = |section: &str, key: &str, message: String| ConfigError {
             file: file.to_string(),

@@ -42,6 +42,8 @@ pub struct CaptureOutcome {
     pub seconds: f64,
     /// Skipped by `resume`: the existing outputs are up to date.
     pub skipped: bool,
+    /// The warnings log.json records.
+    pub warnings: Vec<String>,
 }
 
 /// The run was stopped by a signal; nothing of this capture was kept.
@@ -132,9 +134,13 @@ enum Opening {
 /// Opens and checks the capture against the pipeline.
 fn open(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: &RunContext<'_>) -> Result<Opening> {
     let capture = Capture::open(input, &config.input)?;
+    let name = output_name(input);
+    if let Some(problem) = crate::io::staging::output_name_problem(&name) {
+        bail!("{problem}");
+    }
+    crate::io::staging::check_replaceable(&out_root.join(&name))?;
     let sha_now = if ctx.resume { Some(hash::sha256_file(input).with_context(|| format!("hashing {}", input.display()))?) } else { None };
     let pipeline_sha256 = config.sha256();
-    let name = output_name(input);
     if let Some(p) = ctx.capture_progress {
         p.set_length(capture.frames as u64);
     }
@@ -326,7 +332,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             if let Some(p) = ctx.progress {
                 p.inc(frames as u64);
             }
-            return Ok(CaptureOutcome { output_dir: out_root.join(output_name(input)), frames, alines, seconds: 0.0, skipped: true });
+            return Ok(CaptureOutcome { output_dir: out_root.join(output_name(input)), frames, alines, seconds: 0.0, skipped: true, warnings: Vec::new() });
         }
     };
     // The input's SHA-256 is computed on its own thread while the frames
@@ -413,7 +419,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         en_face: en_face_record,
         contrast,
         outputs,
-        warnings,
+        warnings: warnings.clone(),
         timing: Timing {
             note: "the only section that differs between identical runs",
             read_seconds: computed.read_seconds,
@@ -431,7 +437,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         return Err(Interrupted.into());
     }
     let output_dir = staging.commit()?;
-    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false })
+    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false, warnings })
 }
 
 /// The log's contrast section, when any contrast stage ran.
