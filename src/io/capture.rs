@@ -165,6 +165,11 @@ impl std::fmt::Debug for Capture {
 
 /// Opens an HDF5 file read-only with a clear message for the usual failures.
 pub fn open_hdf5(path: &Path) -> Result<hdf5::File> {
+    open_hdf5_with(path, None)
+}
+
+/// The same with a raw-data chunk cache of (bytes, slots) for its datasets.
+fn open_hdf5_with(path: &Path, chunk_cache: Option<(usize, usize)>) -> Result<hdf5::File> {
     let meta = std::fs::metadata(path).map_err(|e| match e.kind() {
         std::io::ErrorKind::NotFound => anyhow!("no such file"),
         _ => anyhow!("cannot read: {e}"),
@@ -172,18 +177,54 @@ pub fn open_hdf5(path: &Path) -> Result<hdf5::File> {
     if meta.is_dir() {
         bail!("is a directory, not a capture file");
     }
-    hdf5::File::open(path).map_err(|e| {
+    let opened = match chunk_cache {
+        None => hdf5::File::open(path),
+        Some((bytes, slots)) => hdf5::File::with_options().with_fapl(|p| p.chunk_cache(slots, bytes, 1.0)).open(path),
+    };
+    opened.map_err(|e| {
         let detail = e.to_string();
         if detail.contains("signature not found") {
             anyhow!("not an HDF5 file (no HDF5 signature)")
         } else if detail.contains("truncated file") {
             anyhow!("truncated HDF5 file ({} bytes on disk, fewer than its header records)", meta.len())
-        } else if detail.contains("lock") {
-            anyhow!("HDF5 file is locked by another program")
+        } else if detail.contains("superblock") || detail.contains("bad object header") || detail.contains("unable to load") || detail.contains("checksum") {
+            anyhow!("not a valid HDF5 file (damaged superblock or header): {}", concise_detail(&detail))
+        } else if detail.contains("Resource temporarily unavailable") || detail.contains("unable to lock file") {
+            anyhow!("HDF5 file is locked by another program (set HDF5_USE_FILE_LOCKING=FALSE to read it anyway)")
         } else {
-            anyhow!("cannot open as HDF5: {detail}")
+            anyhow!("cannot open as HDF5: {}", concise_detail(&detail))
         }
     })
+}
+
+/// The first line of an HDF5 error message.
+fn concise_detail(detail: &str) -> String {
+    detail.lines().next().unwrap_or(detail).trim().to_string()
+}
+
+/// The raw-data chunk cache that reading one frame at a time needs: every
+/// chunk that holds part of a frame stays cached until the frames it spans
+/// are read (HDF5's default of 1 MiB holds less than one chunk of most
+/// captures stored in chunks of several frames, so each frame re-reads, and
+/// re-decompresses, whole chunks). None when the default suffices.
+fn frame_chunk_cache(ds: &Dataset, axes: &[AxisName]) -> Option<(usize, usize)> {
+    let chunk = ds.chunk()?;
+    let shape = ds.shape();
+    let element = ds.dtype().ok()?.size();
+    let frame_axis = axes.iter().position(|&a| a == AxisName::Frame)?;
+    if chunk.get(frame_axis).copied().unwrap_or(1) <= 1 {
+        return None;
+    }
+    let chunk_bytes: usize = chunk.iter().product::<usize>() * element;
+    let per_frame: usize = shape.iter().zip(&chunk).enumerate().filter(|(i, _)| *i != frame_axis).map(|(_, (n, c))| n.div_ceil(*c)).product();
+    let bytes = chunk_bytes.saturating_mul(per_frame).saturating_add(chunk_bytes);
+    if bytes <= 1 << 20 {
+        return None;
+    }
+    // At most 4 GiB; slots a prime well above the chunk count (HDF5's advice).
+    let bytes = bytes.min(4 << 30);
+    let slots = [10_007usize, 100_003, 1_000_003].into_iter().find(|&p| p >= 100 * per_frame.max(1)).unwrap_or(1_000_003);
+    Some((bytes, slots))
 }
 fn open_dataset(file: &hdf5::File, name: &str) -> Option<Dataset> {
     if file.link_exists(name.trim_start_matches('/')) || file.link_exists(name) {
@@ -198,13 +239,38 @@ fn read_f64(ds: &Dataset) -> Result<ArrayD<f64>> {
     Ok(ds.read_dyn::<f64>()?)
 }
 
-/// Checks a wavelength map: length, finite, strictly monotonic.
+/// Wavelengths a spectrometer for OCT can plausibly record, nm: from the
+/// near ultraviolet to the mid infrared (a bound of our own, wide enough
+/// for every OCT band in use, 400–1700 nm being common practice).
+pub const PLAUSIBLE_WAVELENGTH_NM: [f64; 2] = [200.0, 20_000.0];
+
+/// What a map outside the plausible range probably is.
+fn unit_hint(lo: f64, hi: f64) -> String {
+    let fits = |scale: f64| lo * scale >= PLAUSIBLE_WAVELENGTH_NM[0] && hi * scale <= PLAUSIBLE_WAVELENGTH_NM[1];
+    for (scale, unit) in [(1e9, "metres"), (1e3, "micrometres"), (1e7, "centimetres"), (0.1, "ångström")] {
+        if fits(scale) {
+            return format!("it looks like {unit} (× {scale:e} gives {:.1}–{:.1} nm); the map must be in nm", lo * scale, hi * scale);
+        }
+    }
+    "no unit makes it a plausible optical wavelength".into()
+}
+
+/// Checks a wavelength map: length, at least two values, finite,
+/// strictly monotonic, and within [`PLAUSIBLE_WAVELENGTH_NM`].
 pub fn check_wavelength_map(map: &[f64], pixels: usize, source: &str) -> Result<()> {
     if map.len() != pixels {
         bail!("wavelength map {source} has {} values but the fringes have {pixels} pixels", map.len());
     }
+    if map.len() < 2 {
+        bail!("wavelength map {source} has {} value(s); it needs one per pixel, at least 2", map.len());
+    }
     if let Some(p) = map.iter().position(|v| !v.is_finite() || *v <= 0.0) {
         bail!("wavelength map {source} has a non-positive or non-finite value at pixel {p}");
+    }
+    let (lo, hi) = map.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let [min_nm, max_nm] = PLAUSIBLE_WAVELENGTH_NM;
+    if lo < min_nm || hi > max_nm {
+        bail!("wavelength map {source} spans {lo:.6e}–{hi:.6e}, outside {min_nm}–{max_nm} nm: {}", unit_hint(lo, hi));
     }
     let increasing = map[1] > map[0];
     if let Some(p) = map.windows(2).position(|w| if increasing { w[1] <= w[0] } else { w[1] >= w[0] }) {
@@ -246,6 +312,18 @@ impl Capture {
         if pixels < 16 {
             bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16", input.fringes);
         }
+        // Captures stored in chunks of several frames: reopen with a chunk
+        // cache that holds a frame's chunks.
+        let (file, fringes) = match frame_chunk_cache(&fringes, &axes) {
+            Some(cache) => {
+                // Closed first: HDF5 would reuse the open file, with its cache.
+                drop((fringes, file));
+                let file = open_hdf5_with(path, Some(cache))?;
+                let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found", input.fringes))?;
+                (file, fringes)
+            }
+            None => (file, fringes),
+        };
         let descriptor = fringes.dtype().and_then(|t| t.to_descriptor()).context("reading the fringe datatype")?;
         let sample_type = SampleType::from_descriptor(&descriptor).ok_or_else(|| {
             anyhow!(
@@ -316,7 +394,13 @@ impl Capture {
         };
 
         let full_scale = match fringes.attr("full_scale") {
-            Ok(a) => Some(a.read_scalar::<f64>().context("reading attribute full_scale")?),
+            Ok(a) => {
+                let v = a.read_scalar::<f64>().context("reading attribute full_scale")?;
+                if !(v.is_finite() && v > 0.0) {
+                    bail!("attribute full_scale of '{}' is {v}; a detector's full scale must be a positive number of counts", input.fringes);
+                }
+                Some(v)
+            }
             Err(_) => sample_type.integer_max(),
         };
 

@@ -43,13 +43,70 @@ pub fn line_of_key(text: &str, section: &str, key: &str) -> Option<usize> {
     None
 }
 
+/// The `section.key` written on 1-based `line` of `text` (the nearest
+/// `[section]` above it), when the line holds a `key = value`.
+pub fn key_at(text: &str, line: usize) -> Option<String> {
+    let lines: Vec<&str> = text.lines().collect();
+    let here = lines.get(line.checked_sub(1)?)?.trim();
+    let (key, _) = here.split_once('=')?;
+    let key = key.trim().trim_matches('"');
+    if key.is_empty() || key.starts_with('[') || key.starts_with('#') {
+        return None;
+    }
+    let section = lines[..line - 1]
+        .iter()
+        .rev()
+        .map(|l| l.trim())
+        .find(|l| l.starts_with('['))
+        .map(|l| l.trim_matches(|c| c == '[' || c == ']').trim().to_string());
+    Some(match section {
+        Some(s) if !s.is_empty() => format!("{s}.{key}"),
+        _ => key.to_string(),
+    })
+}
+
+/// The deserialiser's wording in the trade's plain words: no Rust type
+/// names, no "field" or "variant".
+pub fn plain_words(message: &str) -> String {
+    let mut m = message.trim().replace('\n', " ");
+    for (from, to) in [
+        ("expected i64", "expected a whole number"),
+        ("expected u64", "expected a whole number"),
+        ("expected usize", "expected a whole number"),
+        ("expected f64", "expected a number"),
+        ("expected f32", "expected a number"),
+        ("expected a boolean", "expected true or false"),
+        ("expected a string", "expected text in quotes"),
+        ("invalid type: integer", "found the whole number"),
+        ("invalid type: floating point", "found the number"),
+        ("invalid type: string", "found the text"),
+        ("invalid type: boolean", "found"),
+        ("invalid type: sequence", "found a list"),
+        ("invalid type: map", "found a table"),
+        ("wanted string or table", "expected text in quotes"),
+        ("unknown variant", "unknown value"),
+        ("unknown field", "unknown key"),
+        ("missing field", "missing key"),
+        ("expected one of", "expected one of"),
+        ("expected an array of length", "expected a list of"),
+    ] {
+        m = m.replace(from, to);
+    }
+    m.replace('`', "\"")
+}
+
 /// Parses `text` (read from `file`) into `T`, turning TOML and range errors
-/// into a one-line [`ConfigError`].
+/// into a one-line [`ConfigError`] that names the key and its line.
 pub fn parse<T: DeserializeOwned>(file: &str, text: &str) -> Result<T, ConfigError> {
-    toml::from_str(text).map_err(|e| ConfigError {
-        file: file.to_string(),
-        line: e.span().map(|s| line_of(text, s.start)),
-        message: e.message().trim().replace('\n', " "),
+    toml::from_str(text).map_err(|e| {
+        let line = e.span().map(|s| line_of(text, s.start));
+        let message = plain_words(e.message());
+        let message = match line.and_then(|l| key_at(text, l)) {
+            // Unknown-key messages already name the key.
+            Some(key) if !message.starts_with("unknown key") => format!("{key}: {message}"),
+            _ => message,
+        };
+        ConfigError { file: file.to_string(), line, message }
     })
 }
 

@@ -610,7 +610,23 @@ impl PipelineConfig {
                 config.input.calibration = Some(absolute.display().to_string());
             }
         }
+        config.check_files(&path.display().to_string(), &text)?;
         Ok(config)
+    }
+
+    /// Files the pipeline names must exist (an error for every capture
+    /// otherwise, so it is reported once, up front).
+    fn check_files(&self, file: &str, text: &str) -> Result<(), ConfigError> {
+        if let Some(c) = &self.input.calibration {
+            if !Path::new(c).is_file() {
+                return Err(ConfigError {
+                    file: file.to_string(),
+                    line: toml_file::line_of_key(text, "input", "calibration"),
+                    message: format!("input.calibration: no calibration file {c}"),
+                });
+            }
+        }
+        Ok(())
     }
 
     /// Parses pipeline text (`name` is used in messages).
@@ -623,7 +639,8 @@ impl PipelineConfig {
     /// The checks that involve several keys, for a pipeline that did not
     /// come from a file (e.g. read back from a log).
     pub fn validate(&self, name: &str) -> Result<(), ConfigError> {
-        self.check(name, "")
+        self.check(name, "")?;
+        self.check_files(name, "")
     }
 
     fn check(&self, file: &str, text: &str) -> Result<(), ConfigError> {
@@ -636,6 +653,9 @@ impl PipelineConfig {
             if !(a.is_finite() && b.is_finite() && a >= 0.0 && b > a) {
                 return Err(fail("fft", "crop_um", format!("needs 0 <= start < end, found [{a}, {b}]")));
             }
+        }
+        if (1..16).contains(&self.k_linearization.samples) {
+            return Err(fail("k_linearization", "samples", format!("{} is too few: 0 (as many as pixels) or at least 16", self.k_linearization.samples)));
         }
         if let Some([a, b]) = self.fft.crop_px {
             if b <= a {

@@ -96,7 +96,7 @@ impl Plan {
             n => n,
         };
         if k_samples < 16 {
-            bail!("k_linearization.samples = {k_samples}: need at least 16");
+            bail!("k_linearization.samples = {k_samples}: need 0 (as many as pixels) or at least 16");
         }
         let mut stages: Vec<Box<dyn Stage>> = Vec::new();
 
@@ -150,12 +150,16 @@ impl Plan {
             (_, Some([a, b])) => (a, b),
             _ => (0, positive),
         };
-        let end = end.min(positive);
-        if first >= end {
+        let deepest = positive as f64 * depth_spacing_um;
+        let key = if config.fft.crop_um.is_some() { "fft.crop_um" } else { "fft.crop_px" };
+        if end > positive {
             bail!(
-                "fft crop keeps no depth: start pixel {first} is beyond the last depth pixel {positive} ({:.1} µm)",
-                positive as f64 * depth_spacing_um
+                "{key} ends beyond this capture's depth range: it reaches pixel {end} ({:.1} µm), the range is pixels 0–{positive} (0–{deepest:.1} µm in air)",
+                end as f64 * depth_spacing_um
             );
+        }
+        if first >= end {
+            bail!("{key} keeps no depth pixel: the range is pixels 0–{positive} (0–{deepest:.1} µm in air)");
         }
         let fft = Fft::new(fft_length, first, end - first, window_sum);
         let fft_scratch_len = fft.scratch_length();

@@ -250,7 +250,41 @@ fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> {
     } else {
         None
     };
+    let need = memory_estimate(capture, config, depth);
+    if let Some(available) = available_memory_bytes() {
+        if need > available {
+            bail!(
+                "this capture and pipeline need about {:.1} GB of memory ({} A-lines × {depth} depth pixels per B-scan, {} held per position), the machine has {:.1} GB available: lower volume.average, fft.zero_padding or crop the depth (fft.crop_um)",
+                need as f64 / 1e9,
+                capture.alines,
+                config.volume.average,
+                available as f64 / 1e9
+            );
+        }
+    }
     Ok(Planned { plan, dispersion_estimate, depth_um, en_face_range, sub_bands, doppler, warnings })
+}
+
+/// Bytes one capture's reconstruction holds at its peak: the frames in
+/// flight between reader, pipeline and writer, one position's repeats
+/// with their complex profiles, amplitudes and sub-bands, the contrast
+/// stages' working arrays, and the images waiting for the writer.
+pub fn memory_estimate(capture: &Capture, config: &PipelineConfig, depth: usize) -> u64 {
+    let px = (capture.alines * depth) as u64;
+    let raw = (capture.alines * capture.pixels) as u64 * 8; // f64 at worst
+    let bands = if config.angiography.methods.contains(&crate::pipeline::config::AngiographyMethod::SplitSpectrum) { config.angiography.split_bands as u64 } else { 0 };
+    let per_repeat = px * (4 + if config.needs_complex() { 8 } else { 0 } + if config.has_contrast() { 4 } else { 0 } + 4 * bands);
+    let n = config.volume.average as u64;
+    let working = if config.has_contrast() { px * (16 + 4 * 8) } else { 0 };
+    let outputs = px * (4 + 4 * (config.angiography.methods.len() as u64 + config.doppler.enabled as u64)) + if config.output.complex { px * 8 * n } else { 0 };
+    3 * raw + n * per_repeat + working + 3 * outputs + px * 8
+}
+
+/// MemAvailable of /proc/meminfo, bytes.
+fn available_memory_bytes() -> Option<u64> {
+    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
+    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
+    Some(line.split_whitespace().nth(1)?.parse::<u64>().ok()? * 1024)
 }
 
 /// Phase 3a: volume.h5 with every dataset the pipeline asks for.
@@ -347,7 +381,8 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     let capture = &opened.capture;
     let (frames, alines, positions) = (capture.frames, capture.alines, opened.positions);
     let velocity_range = planned.doppler.as_ref().map_or(0.0, |(s, _)| config.doppler.velocity_range_mm_s.unwrap_or(s.aliasing_limit_mm_s));
-    let writer = Writer::new(config, &staging, volume, datasets, planned.en_face_range, alines, capture.full_scale, velocity_range);
+    let mut writer = Writer::new(config, &staging, volume, datasets, planned.en_face_range, alines, capture.full_scale, velocity_range);
+    writer.positions = positions;
     let computed = compute::run(capture, config, &planned, writer, &ctx)?;
     let mut written = computed.written;
     let mut warnings = planned.warnings.clone();

@@ -17,9 +17,15 @@ use crate::io::volume::{write_stack_image, VolumeWriter};
 use crate::pipeline::config::{AngiographyMethod, PipelineConfig, Projection};
 use crate::stages::log_compression::{grey_levels, grey_levels_u8, noise_floor_db, peak_db, GreyMapping};
 
-/// Name of position `index`'s B-scan image.
-pub fn frame_png_name(index: usize) -> String {
-    format!("frame-{index:04}.png")
+/// Digits of the image numbers of a capture with `count` images: 4, or
+/// more when needed, so that names sort in frame order.
+pub fn index_digits(count: usize) -> usize {
+    count.saturating_sub(1).max(1).to_string().len().max(4)
+}
+
+/// Name of position `index`'s B-scan image among `count`.
+pub fn frame_png_name(index: usize, count: usize) -> String {
+    format!("frame-{index:0w$}.png", w = index_digits(count))
 }
 
 /// The contrast datasets of volume.h5.
@@ -57,6 +63,8 @@ pub struct Writer<'a> {
     pub full_scale: Option<f64>,
     /// ± range of the Doppler colour bar, mm/s.
     pub velocity_range_mm_s: f64,
+    /// Images (positions) the capture gives.
+    pub positions: usize,
     written: Written,
     grey: Vec<u8>,
 }
@@ -84,6 +92,7 @@ impl<'a> Writer<'a> {
             average: config.volume.average,
             full_scale,
             velocity_range_mm_s,
+            positions: 0,
             written: Written {
                 records: Vec::new(),
                 en_face: Vec::new(),
@@ -118,7 +127,7 @@ impl<'a> Writer<'a> {
         };
         let position = p.position;
         if cfg.output.png {
-            let name = frame_png_name(position);
+            let name = frame_png_name(position, self.positions);
             let path = self.staging.path(&name);
             if lc.bit_depth == 8 {
                 self.grey.resize(values.len(), 0);
@@ -134,6 +143,12 @@ impl<'a> Writer<'a> {
         }
         if cfg.volume.en_face {
             self.written.en_face.extend(project(image, self.en_face_range, cfg.volume.en_face_projection));
+        }
+        if peak - floor < 1e-3 {
+            self.written.warnings.push(format!(
+                "frame {}: the B-scan is flat ({floor:.1} dB everywhere): the capture holds no fringes there (constant or all-zero samples: detector off or light blocked?)",
+                p.input_frames[1]
+            ));
         }
         if p.saturated > 0 {
             self.written.warnings.push(format!(
@@ -170,7 +185,7 @@ impl<'a> Writer<'a> {
             }
             self.written.doppler_bulk.push(p.doppler_bulk_phase);
             if cfg.output.png {
-                let name = format!("doppler-{position:04}.png");
+                let name = format!("doppler-{position:0w$}.png", w = index_digits(self.positions));
                 let rgb = crate::render::signed_with_colour_bar(v.view(), self.velocity_range_mm_s, "mm/s")?;
                 png::write_rgb8(&self.staging.path(&name), rgb.width, rgb.height, &rgb.bytes)?;
                 self.written.outputs.push(name);
@@ -187,7 +202,7 @@ impl<'a> Writer<'a> {
             self.written.angiography_white[k].1.push(round6(white));
             self.written.angiography_en_face[k].1.extend(row);
             if cfg.output.png {
-                let name = format!("angiography-{}-{position:04}.png", method.name());
+                let name = format!("angiography-{}-{position:0w$}.png", method.name(), w = index_digits(self.positions));
                 let bytes = flow_grey(map.as_slice().expect("standard layout"), white);
                 png::write_grey8(&self.staging.path(&name), alines, depth, &bytes)?;
                 self.written.outputs.push(name);
