@@ -42,29 +42,64 @@ fn dtype_name(d: &TypeDescriptor) -> String {
         TypeDescriptor::Integer(s) => format!("i{}", size(s)),
         TypeDescriptor::Float(FloatSize::U4) => "f32".into(),
         TypeDescriptor::Float(FloatSize::U8) => "f64".into(),
-        other => format!("{other:?}"),
+        TypeDescriptor::Boolean => "boolean".into(),
+        TypeDescriptor::Enum(_) => "enumeration".into(),
+        TypeDescriptor::Compound(c) => {
+            let names: Vec<&str> = c.fields.iter().map(|f| f.name.as_str()).collect();
+            if names == ["r", "i"] {
+                "complex".into()
+            } else {
+                format!("compound of {} fields", names.len())
+            }
+        }
+        TypeDescriptor::FixedArray(_, n) => format!("array of {n}"),
+        TypeDescriptor::FixedAscii(_) | TypeDescriptor::FixedUnicode(_) | TypeDescriptor::VarLenAscii | TypeDescriptor::VarLenUnicode => "text".into(),
+        TypeDescriptor::VarLenArray(_) => "variable-length array".into(),
+        TypeDescriptor::Reference(_) => "reference".into(),
     }
+}
+
+fn is_numeric_name(dtype: &str) -> bool {
+    matches!(dtype.as_bytes().first(), Some(b'u' | b'i' | b'f')) && dtype.len() <= 3
 }
 
 fn is_numeric(d: &TypeDescriptor) -> bool {
     matches!(d, TypeDescriptor::Unsigned(_) | TypeDescriptor::Integer(_) | TypeDescriptor::Float(_))
 }
 
-fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hdf5::Dataset)>) -> Result<()> {
-    for name in group.member_names()? {
+/// Every dataset below `group`; members that cannot be opened become problems.
+fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hdf5::Dataset)>, problems: &mut Vec<String>) {
+    let names = match group.member_names() {
+        Ok(n) => n,
+        Err(e) => {
+            problems.push(format!("{}: its members cannot be listed ({})", if prefix.is_empty() { "/" } else { prefix }, first_line(&e.to_string())));
+            return;
+        }
+    };
+    for name in names {
         let path = format!("{prefix}/{name}");
         if let Ok(ds) = group.dataset(&name) {
             out.push((path, ds));
         } else if let Ok(g) = group.group(&name) {
-            collect_datasets(&g, &path, out)?;
+            collect_datasets(&g, &path, out, problems);
+        } else {
+            problems.push(format!("{path}: cannot be opened (damaged, or a link to something missing)"));
         }
     }
-    Ok(())
+}
+
+fn first_line(s: &str) -> String {
+    s.lines().next().unwrap_or(s).trim().to_string()
 }
 
 fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
     let shape = ds.shape();
-    let descriptor = ds.dtype()?.to_descriptor()?;
+    let descriptor = match ds.dtype().and_then(|t| t.to_descriptor()) {
+        Ok(d) => d,
+        Err(_) => {
+            return Ok(DatasetStats { name: name.to_string(), shape, dtype: "a type fringeflow cannot describe".into(), min: f64::INFINITY, max: f64::NEG_INFINITY, non_finite: 0, at_full_scale: None })
+        }
+    };
     let mut st = DatasetStats {
         name: name.to_string(),
         shape: shape.clone(),
@@ -115,11 +150,20 @@ fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
 pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
     let file = open_hdf5(path)?;
     let mut sets = Vec::new();
-    collect_datasets(&file, "", &mut sets)?;
-    let mut datasets = Vec::new();
     let mut problems = Vec::new();
+    collect_datasets(&file, "", &mut sets, &mut problems);
+    let mut datasets = Vec::new();
     for (name, ds) in &sets {
-        let st = stats(name, ds)?;
+        let st = match stats(name, ds) {
+            Ok(st) => st,
+            Err(e) => {
+                problems.push(format!("{name}: cannot be read ({})", first_line(&e.to_string())));
+                continue;
+            }
+        };
+        if !is_numeric_name(&st.dtype) && (name == &input.fringes || name == &input.wavelength || name == &input.background) {
+            problems.push(format!("{name}: holds {}, not numbers", st.dtype));
+        }
         if st.non_finite > 0 {
             problems.push(format!("{name}: {} NaN or infinite values", st.non_finite));
         }
@@ -128,10 +172,14 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
                 problems.push(format!("{name}: {n} samples at or above full scale {fs} (saturated)"));
             }
         }
-        if name == &input.wavelength && st.shape.len() == 1 {
-            let map: Vec<f64> = ds.read_raw::<f64>()?;
-            if let Err(e) = check_wavelength_map(&map, map.len(), &format!("'{name}'")) {
-                problems.push(e.to_string());
+        if name == &input.wavelength && st.shape.len() == 1 && is_numeric_name(&st.dtype) {
+            match ds.read_raw::<f64>() {
+                Ok(map) => {
+                    if let Err(e) = check_wavelength_map(&map, map.len(), &format!("'{name}'")) {
+                        problems.push(e.to_string());
+                    }
+                }
+                Err(e) => problems.push(format!("{name}: cannot be read ({})", first_line(&e.to_string()))),
             }
         }
         datasets.push(st);
@@ -176,6 +224,8 @@ impl Inspection {
 fn fmt_num(v: f64) -> String {
     if v.fract() == 0.0 && v.abs() < 1e12 {
         format!("{v:.0}")
+    } else if v.abs() < 1e-3 || v.abs() >= 1e9 {
+        format!("{v:.4e}")
     } else {
         format!("{v:.4}")
     }

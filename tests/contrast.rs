@@ -201,7 +201,7 @@ fn contrast_refuses_bad_input() {
     let (plain, _) = simulate_scene(dir.path(), "plain", &small_scene(300.0, 3, 32, 512));
     let (scanned, _) = simulate_scene(dir.path(), "scanned", &vessel_scene(1, ""));
     let cases: [(&Path, &str, &str, i32); 5] = [
-        (&plain, "[angiography]\nmethods = [\"decorrelation\"]\n", "needs N ≥ 2 repeated B-scans", 1),
+        (&plain, "[angiography]\nmethods = [\"decorrelation\"]\n", "needs N ≥ 2 repeated B-scans", 2),
         (&plain, "[doppler]\nenabled = true\n", "Doppler needs the A-line period", 1),
         (&scanned, "[volume]\naverage = 3\n[angiography]\nmethods = [\"decorrelation\"]\n", "not a multiple of volume.average = 3", 1),
         (&scanned, "[output]\ncomplex = true\nvolume = false\n", "output.complex", 2),

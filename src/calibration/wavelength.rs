@@ -185,10 +185,11 @@ pub fn unwrap(wrapped: &[f64]) -> Vec<f64> {
 
 /// Mean background-free spectrum of one frame of a mirror capture.
 pub fn mirror_spectrum(path: &Path, config: &PipelineConfig, frame: usize) -> Result<Vec<f64>> {
-    // The capture's own map, if any, is not used: open with a placeholder.
+    // The capture's own map, if any, is not used: open with a placeholder
+    // (any plausible monotonic map: 800 nm + 0.001 nm per pixel).
     let mut input = config.input.clone();
     input.calibration = None;
-    input.wavelength_poly_nm = Some(vec![1.0, 1.0]);
+    input.wavelength_poly_nm = Some(vec![800.0, 1e-3]);
     let capture = Capture::open(path, &input)?;
     if frame >= capture.frames {
         bail!("frame {frame} does not exist (the capture has {} frames)", capture.frames);

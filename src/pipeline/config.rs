@@ -714,6 +714,19 @@ impl PipelineConfig {
                 return Err(fail("angiography", "methods", format!("\"{}\" is listed twice", m.name())));
             }
         }
+        if self.angiography.enabled() && self.volume.average < 2 {
+            return Err(fail(
+                "angiography",
+                "methods",
+                "angiography needs N ≥ 2 repeated B-scans per position: set volume.average to the repeats per position".into(),
+            ));
+        }
+        if self.doppler.enabled && self.doppler.between == DopplerPairs::Repeats && self.volume.average < 2 {
+            return Err(fail("doppler", "between", "\"repeats\" needs repeated B-scans per position: set volume.average (now 1)".into()));
+        }
+        if self.registration.repeats && self.volume.average < 2 {
+            return Err(fail("registration", "repeats", "registering repeats needs volume.average ≥ 2 (the repeats per position)".into()));
+        }
         if !(self.output.png || self.output.volume) {
             return Err(fail("output", "png", "png and volume are both off: the run would write nothing".into()));
         }

@@ -483,7 +483,7 @@ fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut wri
     let s = &planned.plan.summary;
     let a = &config.angiography;
     Some(ContrastRecord {
-        complex_output: config.output.complex.then(|| ComplexRecord {
+        complex_output: config.output.complex.then_some(ComplexRecord {
             dataset: "/complex_depth_profile",
             k_centre_per_um: 0.5 * (s.k_min_per_um + s.k_max_per_um),
             phase_convention: PHASE_CONVENTION,

@@ -251,6 +251,7 @@ fn interfaces(scene: &Scene) -> Vec<(f64, f64)> {
 /// `sample_arm` false gives the blocked-sample-arm background. `rng` draws
 /// the scatterers: seeded by position, so repeated B-scans see the same
 /// sample. In a scanned scene the scatterers come from `scanned` instead.
+#[allow(clippy::too_many_arguments)]
 fn clean_spectrum(scene: &Scene, o: &Optics, a: usize, f: usize, sample_arm: bool, rng: &mut ChaCha8Rng, scanned: Option<&ScannedSample>, out: &mut [f64]) {
     // Reflectors that take part in sample–sample terms (depth,
     // reflectivity), and the rest (depth, fringe amplitude 2·√R·weight).
