@@ -30,8 +30,6 @@ use std::fs::{File, OpenOptions, TryLockError};
 use std::io::{Read, Seek, Write};
 use std::os::unix::fs::MetadataExt;
 use std::path::{Path, PathBuf};
-use std::sync::atomic::{AtomicBool, Ordering};
-use std::sync::Arc;
 use std::time::{Duration, SystemTime};
 
 /// How often a holder touches its lock file.
@@ -81,7 +79,7 @@ pub struct HeldByAnother {
 pub struct OutputLock {
     path: PathBuf,
     file: Option<File>,
-    stop: Arc<AtomicBool>,
+    stop: Option<std::sync::mpsc::Sender<()>>,
     heartbeat: Option<std::thread::JoinHandle<()>>,
 }
 
@@ -162,28 +160,23 @@ impl OutputLock {
     }
 
     fn start(path: PathBuf, file: File) -> OutputLock {
-        let stop = Arc::new(AtomicBool::new(false));
+        // The heartbeat wakes every HEARTBEAT, or at once when told to stop
+        // (the sender dropped on release).
+        let (stop, wake) = std::sync::mpsc::channel::<()>();
         let heartbeat = {
-            let (stop, file) = (Arc::clone(&stop), file.try_clone().ok());
+            let file = file.try_clone().ok();
             std::thread::Builder::new()
                 .name("lock-heartbeat".into())
                 .spawn(move || {
-                    let step = Duration::from_millis(200);
-                    let mut waited = Duration::ZERO;
-                    while !stop.load(Ordering::Relaxed) {
-                        std::thread::sleep(step);
-                        waited += step;
-                        if waited >= HEARTBEAT {
-                            waited = Duration::ZERO;
-                            if let Some(f) = &file {
-                                f.set_modified(SystemTime::now()).ok();
-                            }
+                    while let Err(std::sync::mpsc::RecvTimeoutError::Timeout) = wake.recv_timeout(HEARTBEAT) {
+                        if let Some(f) = &file {
+                            f.set_modified(SystemTime::now()).ok();
                         }
                     }
                 })
                 .ok()
         };
-        OutputLock { path, file: Some(file), stop, heartbeat }
+        OutputLock { path, file: Some(file), stop: Some(stop), heartbeat }
     }
 
     /// Removes staging leftovers of this output: while the lock is held no
@@ -201,7 +194,7 @@ impl OutputLock {
 
 impl Drop for OutputLock {
     fn drop(&mut self) {
-        self.stop.store(true, Ordering::Relaxed);
+        self.stop.take();
         if let Some(h) = self.heartbeat.take() {
             h.join().ok();
         }
