@@ -441,3 +441,17 @@ fn a_plan_that_cannot_fit_in_memory_is_refused_up_front() {
     assert!(!out.join("huge").exists());
     assert_clean(&out);
 }
+
+/// A closed pipe or a full device on stdout is not a panic.
+#[test]
+fn a_closed_or_full_stdout_is_not_a_panic() {
+    let args = ["design", "--centre-nm", "840", "--fwhm-nm", "50", "--span-nm", "150", "--pixels", "2048"];
+    let full = std::fs::OpenOptions::new().write(true).open("/dev/full").unwrap();
+    let o = Command::new(bin()).args(args).stdout(full).output().unwrap();
+    assert!(!String::from_utf8_lossy(&o.stderr).contains("panicked"), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.code().is_some(), "killed by a signal");
+    let mut child = Command::new(bin()).args(args).stdout(Stdio::piped()).stderr(Stdio::piped()).spawn().unwrap();
+    drop(child.stdout.take());
+    let o = child.wait_with_output().unwrap();
+    assert!(!String::from_utf8_lossy(&o.stderr).contains("panicked"), "{}", String::from_utf8_lossy(&o.stderr));
+}
