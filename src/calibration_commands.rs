@@ -6,7 +6,6 @@ use std::process::ExitCode;
 use crate::cli::{CalibrateCommand, DispersionCommand};
 use crate::{fail, load_pipeline};
 use fringeflow::calibration::{dispersion, sweep, wavelength};
-use fringeflow::io::capture::Capture;
 use fringeflow::io::staging::write_atomically;
 
 pub fn calibrate(command: CalibrateCommand) -> ExitCode {
@@ -67,21 +66,7 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 Ok(c) => c,
                 Err(code) => return code,
             };
-            let result = (|| {
-                let capture = Capture::open(&path, &config.input)?;
-                let frame = match frame {
-                    Some(f) if f >= capture.frames => anyhow::bail!("frame {f} does not exist (the capture has {} frames)", capture.frames),
-                    Some(f) => f,
-                    None => dispersion::search_frame(&config, capture.frames)?,
-                };
-                let mut source = capture.background.clone();
-                if source.is_none() && config.shaping.enabled {
-                    let mut first = ndarray::Array2::<f64>::zeros(capture.frame_shape());
-                    capture.read_frame(frame, &mut first)?;
-                    source = Some(fringeflow::stages::background::mean_spectrum(first.view()));
-                }
-                dispersion::estimate(&capture, &config, frame, source.as_deref())
-            })();
+            let result = dispersion::estimate_file(&path, &config, frame);
             let e = match result {
                 Ok(e) => e,
                 Err(e) => return fail(1, format!("{}: {e:#}", path.display())),

@@ -245,6 +245,26 @@ pub fn search_frame(config: &PipelineConfig, frames: usize) -> Result<usize> {
     Ok(f)
 }
 
+/// The estimate for a capture file, as `fringeflow dispersion estimate`
+/// makes it: the given frame, or the pipeline's, else the middle one; the
+/// source spectrum from the background, else that frame's mean spectrum
+/// when shaping needs it.
+pub fn estimate_file(path: &std::path::Path, config: &PipelineConfig, frame: Option<usize>) -> Result<DispersionEstimate> {
+    let capture = Capture::open(path, &config.input)?;
+    let frame = match frame {
+        Some(f) if f >= capture.frames => bail!("frame {f} does not exist (the capture has {} frames)", capture.frames),
+        Some(f) => f,
+        None => search_frame(config, capture.frames)?,
+    };
+    let mut source = capture.background.clone();
+    if source.is_none() && config.shaping.enabled {
+        let mut first = Array2::<f64>::zeros(capture.frame_shape());
+        capture.read_frame(frame, &mut first)?;
+        source = Some(crate::stages::background::mean_spectrum(first.view()));
+    }
+    estimate(&capture, config, frame, source.as_deref())
+}
+
 /// Estimates a2/a3 for an opened capture with a pipeline's other settings.
 pub fn estimate(capture: &Capture, config: &PipelineConfig, frame: usize, source_spectrum: Option<&[f64]>) -> Result<DispersionEstimate> {
     let start = Instant::now();
