@@ -8,7 +8,7 @@ CARGO  ?= cargo
 PYTHON ?= python3
 BIN    := target/release/fringeflow
 
-.PHONY: demo test deps-system deps-test deps-python build sample-data bench bench-report bench-memory fuzz clean
+.PHONY: demo test deps-system deps-test deps-python build sample-data bench bench-report bench-memory fuzz clean python python-test
 
 APT_PACKAGES := libhdf5-dev pkg-config libfontconfig1-dev fonts-dejavu-core
 
@@ -44,8 +44,26 @@ demo: build
 	$(BIN) run out/demo-captures/flow-phantom.h5 --pipeline pipelines/flow.toml --out out/demo
 	@echo "flow: out/demo/flow-phantom/frame-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
 
-test: deps-test deps-python
+test: deps-test deps-python build
 	$(CARGO) test --locked -- --test-threads=2
+	@$(MAKE) --no-print-directory python-test
+
+# The Python package (python/, PyO3 + maturin): built and installed with
+# pip when missing or older than its sources, then its pytest suite, run
+# against the release binary.
+PY_STAMP := target/python-installed.stamp
+PY_SOURCES := $(shell find src python/src python/fringeflow -type f 2>/dev/null) Cargo.toml python/Cargo.toml python/pyproject.toml
+$(PY_STAMP): $(PY_SOURCES)
+	@echo "== building and installing the Python package (pip install ./python)"
+	$(PYTHON) -m pip install -q ./python
+	@mkdir -p target && touch $@
+
+python: deps-system deps-python $(PY_STAMP)
+
+python-test: python
+	@$(PYTHON) -c "import pytest" >/dev/null 2>&1 || $(PYTHON) -m pip install -q pytest
+	FRINGEFLOW_BIN=$(CURDIR)/$(BIN) HDF5_USE_FILE_LOCKING=FALSE $(PYTHON) -m pytest -q -p no:cacheprovider --import-mode=importlib python/tests
+	$(PYTHON) examples/bscan_figure.py sample-data/layered-phantom.h5 out/examples/bscan.png
 
 # Rewrite the sample capture from its scene (deterministic: same bytes).
 sample-data: build
@@ -60,6 +78,8 @@ bench-report: build deps-python
 	mkdir -p out/bench
 	$(BIN) bench --json out/bench/report.json
 	$(PYTHON) benches/numpy_peer.py out/bench/throughput-v2.h5 --report out/bench/report.json
+	@$(MAKE) --no-print-directory python
+	$(PYTHON) benches/python_speed.py out/bench/throughput-v2.h5
 
 # Peak memory of `run` on a simulated 2 GB capture (default pipeline).
 # Needs about 4.5 GB of disk under out/bench-memory.
