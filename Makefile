@@ -38,11 +38,11 @@ build: deps-system
 demo: build
 	$(BIN) inspect sample-data/layered-phantom.h5
 	$(BIN) run sample-data/layered-phantom.h5 --pipeline pipelines/default.toml --out out/demo
-	@echo "images: out/demo/layered-phantom/frame-*.png; volume: out/demo/layered-phantom/volume.h5; log: out/demo/layered-phantom/log.json"
+	@echo "images: out/demo/layered-phantom/bscan-*.png; volume: out/demo/layered-phantom/volume.h5; log: out/demo/layered-phantom/log.json"
 	@mkdir -p out/demo-captures
 	$(BIN) simulate sample-data/flow-phantom.toml --out out/demo-captures/flow-phantom.h5
 	$(BIN) run out/demo-captures/flow-phantom.h5 --pipeline pipelines/flow.toml --out out/demo
-	@echo "flow: out/demo/flow-phantom/frame-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
+	@echo "flow: out/demo/flow-phantom/bscan-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
 
 test: deps-test deps-python build
 	$(CARGO) test --locked -- --test-threads=2

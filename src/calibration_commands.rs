@@ -46,7 +46,7 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
         cal.fit_residual_rms_nm
     );
     for m in &cal.inputs {
-        outln!("  {}: {:.1} fringe cycles, {:.1} dB", m.path.display(), m.fringe_cycles, m.fringe_snr_db);
+        outln!("  {}: {:.1} fringe cycles, {:.1} dB", m.path.display(), m.fringe_cycles, m.fringe_peak_over_median_db);
     }
     match &cal.residual_dispersion {
         Some(d) => outln!(

@@ -30,14 +30,14 @@ pub struct DesignInput {
 pub struct DesignReport {
     pub input: DesignInput,
     pub pixel_width_nm: f64,
-    pub axial_resolution_air_um: f64,
-    pub axial_resolution_sample_um: f64,
-    pub depth_spacing_air_um: f64,
-    pub depth_spacing_sample_um: f64,
-    pub max_depth_air_um: f64,
-    pub max_depth_sample_um: f64,
-    pub rolloff_6db_depth_air_um: f64,
-    pub rolloff_6db_depth_sample_um: f64,
+    pub axial_resolution_um_air: f64,
+    pub axial_resolution_um_medium: f64,
+    pub depth_spacing_um_air: f64,
+    pub depth_spacing_um_medium: f64,
+    pub max_depth_um_air: f64,
+    pub max_depth_um_medium: f64,
+    pub rolloff_6db_depth_um_air: f64,
+    pub rolloff_6db_depth_um_medium: f64,
     pub band_over_source_fwhm: f64,
     pub warnings: Vec<String>,
 }
@@ -64,14 +64,14 @@ pub fn design(input: DesignInput) -> DesignReport {
     }
     DesignReport {
         pixel_width_nm,
-        axial_resolution_air_um: axial,
-        axial_resolution_sample_um: axial / n,
-        depth_spacing_air_um: spacing,
-        depth_spacing_sample_um: spacing / n,
-        max_depth_air_um: max_depth,
-        max_depth_sample_um: max_depth / n,
-        rolloff_6db_depth_air_um: rolloff,
-        rolloff_6db_depth_sample_um: rolloff / n,
+        axial_resolution_um_air: axial,
+        axial_resolution_um_medium: axial / n,
+        depth_spacing_um_air: spacing,
+        depth_spacing_um_medium: spacing / n,
+        max_depth_um_air: max_depth,
+        max_depth_um_medium: max_depth / n,
+        rolloff_6db_depth_um_air: rolloff,
+        rolloff_6db_depth_um_medium: rolloff / n,
         band_over_source_fwhm: ratio,
         warnings,
         input,
@@ -87,10 +87,10 @@ impl DesignReport {
         );
         s += &format!("{:<34}{:>14}{:>14}\n", "", "in air", "in sample");
         let rows = [
-            ("axial resolution (FWHM, µm)", self.axial_resolution_air_um, self.axial_resolution_sample_um),
-            ("depth pixel spacing (µm)", self.depth_spacing_air_um, self.depth_spacing_sample_um),
-            ("maximum depth (mm)", self.max_depth_air_um / 1e3, self.max_depth_sample_um / 1e3),
-            ("-6 dB roll-off depth (mm)", self.rolloff_6db_depth_air_um / 1e3, self.rolloff_6db_depth_sample_um / 1e3),
+            ("axial resolution (FWHM, µm)", self.axial_resolution_um_air, self.axial_resolution_um_medium),
+            ("depth pixel spacing (µm)", self.depth_spacing_um_air, self.depth_spacing_um_medium),
+            ("maximum depth (mm)", self.max_depth_um_air / 1e3, self.max_depth_um_medium / 1e3),
+            ("-6 dB roll-off depth (mm)", self.rolloff_6db_depth_um_air / 1e3, self.rolloff_6db_depth_um_medium / 1e3),
         ];
         for (name, air, sample) in rows {
             s += &format!("{name:<34}{air:>14.3}{sample:>14.3}\n");
@@ -116,10 +116,10 @@ mod tests {
         // max depth λ0²/(4δλ), 2048 px over 100 nm at 840 nm → 3.61 mm.
         // The two bands are common practice for SD-OCT (eye, other tissue).
         let r = design(input(840.0, 50.0, 100.0, 2048));
-        assert!((r.axial_resolution_air_um - 6.23).abs() < 0.01);
-        assert!((r.max_depth_air_um / 1e3 - 3.61).abs() < 0.01);
+        assert!((r.axial_resolution_um_air - 6.23).abs() < 0.01);
+        assert!((r.max_depth_um_air / 1e3 - 3.61).abs() < 0.01);
         let r = design(input(1300.0, 100.0, 200.0, 1024));
-        assert!((r.axial_resolution_air_um - 7.46).abs() < 0.01);
+        assert!((r.axial_resolution_um_air - 7.46).abs() < 0.01);
     }
 
     #[test]
@@ -134,6 +134,6 @@ mod tests {
     fn pixel_integration_shortens_the_rolloff() {
         let r = design(DesignInput { resolution_nm: 0.1, ..input(840.0, 50.0, 150.0, 2048) });
         let gaussian_only = physics::coherence_length_um(840.0, 0.1) / 2.0;
-        assert!(r.rolloff_6db_depth_air_um < gaussian_only && r.rolloff_6db_depth_air_um > 0.8 * gaussian_only);
+        assert!(r.rolloff_6db_depth_um_air < gaussian_only && r.rolloff_6db_depth_um_air > 0.8 * gaussian_only);
     }
 }

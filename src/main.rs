@@ -32,10 +32,14 @@ pub(crate) fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
 }
 
 pub(crate) fn load_pipeline(path: Option<&Path>) -> Result<PipelineConfig, ExitCode> {
-    match path {
-        Some(p) => PipelineConfig::from_file(p).map_err(|e| fail(2, e)),
-        None => Ok(PipelineConfig::default()),
+    let config = match path {
+        Some(p) => PipelineConfig::from_file(p).map_err(|e| fail(2, e))?,
+        None => PipelineConfig::default(),
+    };
+    for notice in &config.deprecations {
+        fringeflow::output::warn(notice);
     }
+    Ok(config)
 }
 
 #[allow(clippy::too_many_arguments)]
@@ -94,8 +98,9 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
         Ok(v) => v,
         Err(e) => return fail(2, format!("{}: not a readable processing log: {e}", log_path.display())),
     };
-    let (Some(input), Some(sha)) = (log["input"]["path"].as_str(), log["input"]["sha256"].as_str()) else {
-        return fail(2, format!("{}: the log has no input path and SHA-256", log_path.display()));
+    let recorded_hash = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str());
+    let (Some(input), Some(sha)) = (log["input"]["path"].as_str(), recorded_hash) else {
+        return fail(2, format!("{}: the log has no input path and input hash", log_path.display()));
     };
     let config: PipelineConfig = match serde_json::from_value(log["pipeline"].clone()) {
         Ok(c) => c,
@@ -104,7 +109,8 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
     // Trust nothing: the pipeline must be the one the log's hash names, and
     // pass every check a pipeline file passes.
     let recorded = log["pipeline_sha256"].as_str().unwrap_or("");
-    if config.sha256() != recorded {
+    let as_logged = fringeflow::io::hash::sha256_hex(&serde_json::to_vec(&log["pipeline"]).unwrap_or_default());
+    if as_logged != recorded {
         return fail(2, format!("{}: its pipeline section does not match its pipeline_sha256 (the log was edited or damaged): refusing to rerun", log_path.display()));
     }
     if let Err(e) = config.validate(&log_path.display().to_string()) {
@@ -121,9 +127,9 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
         Ok(s) => s,
         Err(e) => return fail(1, format!("{e:#}")),
     };
-    match fringeflow::io::hash::sha256_file(&input) {
-        Ok(h) if h == sha => {}
-        Ok(h) => return fail(1, format!("{}: SHA-256 is {h}, the log recorded {sha}: not the same input", input.display())),
+    match fringeflow::io::hash::input_hash(&input) {
+        Ok(h) if fringeflow::io::hash::same_input(sha, &h) => {}
+        Ok(h) => return fail(1, format!("{}: its hash is {h}, the log recorded {sha}: not the same input", input.display())),
         Err(e) => return fail(1, format!("{}: {e}", input.display())),
     }
     let name = fringeflow::run::output_name(&input);
@@ -250,7 +256,7 @@ fn measure(command: MeasureCommand) -> ExitCode {
                     (Some(s), false) => outln!("no side lobe above the noise (highest local maximum {s:.1} dB is noise)"),
                     (None, _) => outln!("highest side lobe: none found"),
                 }
-                outln!("peak SNR {:.1} dB (noise floor {:.1} dB); plot {}", m.snr_db, m.noise_floor_db, plot_path.display());
+                outln!("peak SNR {:.1} dB (noise floor {:.1} dB); plot {}", m.peak_over_noise_sd_db, m.noise_floor_db, plot_path.display());
             }
             ExitCode::SUCCESS
         }
@@ -277,7 +283,7 @@ fn measure(command: MeasureCommand) -> ExitCode {
             } else {
                 outln!("{:>12} {:>10} {:>10} {:>10}  capture", "depth µm", "peak dB", "SNR dB", "FWHM µm");
                 for p in &report.points {
-                    outln!("{:>12.1} {:>10.2} {:>10.2} {:>10.2}  {}", p.depth_um, p.peak_db, p.snr_db, p.fwhm_um, p.capture);
+                    outln!("{:>12.1} {:>10.2} {:>10.2} {:>10.2}  {}", p.depth_um, p.peak_db, p.peak_over_noise_sd_db, p.fwhm_um, p.capture);
                 }
                 let f = &report.fit;
                 outln!(
@@ -286,7 +292,7 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 );
                 outln!("-6 dB roll-off depth {:.0} µm (in air); plot {}", f.rolloff_6db_depth_um, plot_path.display());
                 if let (Some(s), Some(a)) = (report.sensitivity_db, attenuation_db) {
-                    outln!("sensitivity {s:.1} dB = SNR {:.1} dB + round-trip attenuation 2 × {a:.1} dB", report.points[0].snr_db);
+                    outln!("sensitivity {s:.1} dB = SNR {:.1} dB + round-trip attenuation 2 × {a:.1} dB", report.points[0].peak_over_noise_sd_db);
                 }
             }
             ExitCode::SUCCESS
@@ -313,6 +319,11 @@ fn main() -> ExitCode {
             slurm_script(&list, &pipeline, &out, tasks, cpus_per_task, &mem, &time, partition.as_deref(), &job_name)
         }
         Command::Simulate { scene, out } => {
+            if let Ok(text) = std::fs::read_to_string(&scene) {
+                for notice in fringeflow::simulate::scene::Scene::deprecations(&scene.display().to_string(), &text) {
+                    fringeflow::output::warn(&notice);
+                }
+            }
             let scene = match fringeflow::simulate::scene::Scene::from_file(&scene) {
                 Ok(s) => s,
                 Err(e) => return fail(2, e),

@@ -248,7 +248,7 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
     let (fft_rate, pipe_rate) = (median(fft_runs), median(pipe_runs));
     let capture_bg_rate = {
         let mut cfg = config.clone();
-        cfg.background.method = crate::pipeline::config::BackgroundMethod::Capture;
+        cfg.background.method = crate::pipeline::config::BackgroundMethod::Recorded;
         let plan_b = Plan::new(&cfg, CaptureGeometry { wavelength_nm: &capture.wavelength_nm, background: capture.background.as_deref(), source_spectrum: None })?;
         let fused_b = FusedPlan::new(&plan_b);
         let runs: Vec<f64> = (0..opts.repeats).map(|_| time_pipeline(&fused_b, &frames, alines_per_frame, depth, opts.alines).0).collect();
@@ -362,7 +362,7 @@ fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Plan, frames: 
         } else {
             Vec::new()
         };
-        let scale = config.doppler.enabled.then(|| DopplerScale::new(plan.summary.centre_wavelength_nm, config.doppler.group_index, 20.0));
+        let scale = config.doppler.enabled.then(|| DopplerScale::new(plan.summary.band_centre_wavelength_nm, config.doppler.group_index, 20.0));
         let timer = fused.new_timer();
         let mut runs = Vec::new();
         for _ in 0..opts.repeats.min(3) {

@@ -235,7 +235,7 @@ fn averaging_and_en_face() {
     eprintln!("noise sd reduction {reduction:.2} dB for 4 B-scans (expected ≈ 6.02 dB)");
     assert!((reduction - 6.02).abs() < 1.0, "{reduction}");
     assert_eq!(log["frames"].as_array().unwrap().len(), 2);
-    assert!(out.join("repeats/frame-0001.png").exists() && !out.join("repeats/frame-0002.png").exists());
+    assert!(out.join("repeats/bscan-0001.png").exists() && !out.join("repeats/bscan-0002.png").exists());
 
     let img = image::open(out.join("repeats/en-face.png")).unwrap();
     assert_eq!((img.width(), img.height()), (64, 2));

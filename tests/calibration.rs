@@ -127,8 +127,8 @@ fn wavelength_map_from_two_mirrors() {
     let v = poly.iter().rev().fold(0.0, |acc, c| acc * p + c);
     assert!((v - recovered[1500]).abs() < 1e-6, "{v} vs {}", recovered[1500]);
     // The inputs are recorded with their hashes.
-    assert_eq!(cal["inputs"][0]["sha256"], fringeflow::io::hash::sha256_file(&near).unwrap());
-    assert_eq!(cal["inputs"][1]["sha256"], fringeflow::io::hash::sha256_file(&far).unwrap());
+    assert_eq!(cal["inputs"][0]["input_hash"], fringeflow::io::hash::input_hash(&near).unwrap());
+    assert_eq!(cal["inputs"][1]["input_hash"], fringeflow::io::hash::input_hash(&far).unwrap());
 
     let lc = truth.coherence_length_um.expect("Gaussian source");
     let a3 = residual["a3_rad"].as_f64().unwrap();
@@ -143,7 +143,7 @@ fn wavelength_map_from_two_mirrors() {
     let log: serde_json::Value = serde_json::from_slice(&std::fs::read(d.join("out/far/log.json")).unwrap()).unwrap();
     let source = &log["input"]["wavelength_map"];
     assert_eq!(source["kind"], "calibration");
-    assert_eq!(source["sha256"], fringeflow::io::hash::sha256_file(&d.join("cal.json")).unwrap());
+    assert_eq!(source["file_hash"], format!("sha256:{}", fringeflow::io::hash::sha256_file(&d.join("cal.json")).unwrap()));
 }
 
 /// One mirror at a known depth plus the centre wavelength also fixes the map
@@ -176,7 +176,7 @@ fn auto_dispersion_corrects_glass_in_either_arm() {
     let d = dir.path();
     for glass in [10.0, -10.0] {
         let name = if glass > 0.0 { "sample-arm" } else { "reference-arm" };
-        let (capture, truth) = simulate_scene(d, name, &bench_scene(400.0, glass, "true"));
+        let (capture, truth) = simulate_scene(d, name, &bench_scene(400.0, glass, "exact"));
         let lc = truth.coherence_length_um.expect("Gaussian source");
         let before = psf_fwhm(d, &capture, "[window]\nkind = \"none\"\n");
         let auto = "[window]\nkind = \"none\"\n[dispersion]\nmethod = \"auto\"\n";

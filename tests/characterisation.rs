@@ -42,7 +42,7 @@ fn psf_of_a_gaussian_mirror_meets_the_coherence_length_limit() {
     let fwhm = m["fwhm_um_air"].as_f64().unwrap();
     let ratio = m["fwhm_over_limit"].as_f64().unwrap();
     let limit = m["source"]["coherence_length_um"].as_f64().unwrap();
-    eprintln!("FWHM {fwhm:.3} µm, limit from measured spectrum {limit:.3} µm, ratio {ratio:.3}, SNR {:.1} dB", m["snr_db"].as_f64().unwrap());
+    eprintln!("FWHM {fwhm:.3} µm, limit from measured spectrum {limit:.3} µm, ratio {ratio:.3}, SNR {:.1} dB", m["peak_over_noise_sd_db"].as_f64().unwrap());
     assert!((fwhm - 6.23).abs() / 6.23 < 0.05, "{fwhm}");
     assert!((0.95..=1.05).contains(&ratio), "{ratio}");
     assert!((m["source"]["fwhm_nm"].as_f64().unwrap() - 50.0).abs() < 1.0);
@@ -60,7 +60,7 @@ fn shaping_suppresses_side_lobes_of_a_two_gaussian_source() {
     let dir = tempfile::tempdir().unwrap();
     let scene = mirror_scene(500.0, "").replace(
         "[source]\ncentre_nm = 840.0\nfwhm_nm = 50.0",
-        "[source]\nshape = \"gaussians\"\ncomponents = [\n  { centre_nm = 815.0, fwhm_nm = 30.0, weight = 1.0 },\n  { centre_nm = 870.0, fwhm_nm = 30.0, weight = 0.8 },\n]",
+        "[source]\nshape = \"gaussian_sum\"\ncomponents = [\n  { centre_nm = 815.0, fwhm_nm = 30.0, weight = 1.0 },\n  { centre_nm = 870.0, fwhm_nm = 30.0, weight = 0.8 },\n]",
     );
     let (capture, _) = simulate_scene(dir.path(), "twin", &scene);
     std::fs::write(dir.path().join("plain.toml"), NO_WINDOW).unwrap();
@@ -105,7 +105,7 @@ fn rolloff_fit_recovers_the_simulated_six_db_depth() {
     assert!((fitted - truth_depth).abs() / truth_depth < 0.10, "{fitted} vs {truth_depth}");
     assert_eq!(r["points"].as_array().unwrap().len(), 5);
     // Sensitivity = SNR of the shallowest mirror + 2 × 25 dB.
-    let snr0 = r["points"][0]["snr_db"].as_f64().unwrap();
+    let snr0 = r["points"][0]["peak_over_noise_sd_db"].as_f64().unwrap();
     assert!((r["sensitivity_db"].as_f64().unwrap() - (snr0 + 50.0)).abs() < 1e-9);
     assert_plot(&dir.path().join("ro.png"));
 }
@@ -117,11 +117,11 @@ fn rolloff_fit_recovers_the_simulated_six_db_depth() {
 fn design_matches_the_published_formulas() {
     let dir = tempfile::tempdir().unwrap();
     let r = json(&fringeflow(&["design", "--centre-nm", "840", "--fwhm-nm", "50", "--span-nm", "100", "--pixels", "2048", "--json"], dir.path()));
-    assert!((r["axial_resolution_air_um"].as_f64().unwrap() - 6.2).abs() < 0.05);
-    assert!((r["max_depth_air_um"].as_f64().unwrap() / 1e3 - 3.6).abs() < 0.05);
-    assert!((r["axial_resolution_sample_um"].as_f64().unwrap() - 6.227 / 1.38).abs() < 0.01);
+    assert!((r["axial_resolution_um_air"].as_f64().unwrap() - 6.2).abs() < 0.05);
+    assert!((r["max_depth_um_air"].as_f64().unwrap() / 1e3 - 3.6).abs() < 0.05);
+    assert!((r["axial_resolution_um_medium"].as_f64().unwrap() - 6.227 / 1.38).abs() < 0.01);
     let r = json(&fringeflow(&["design", "--centre-nm", "1300", "--fwhm-nm", "100", "--pixel-width-nm", "0.1", "--pixels", "2048", "--group-index", "1.4", "--json"], dir.path()));
-    assert!((r["axial_resolution_air_um"].as_f64().unwrap() - 7.5).abs() < 0.05);
+    assert!((r["axial_resolution_um_air"].as_f64().unwrap() - 7.5).abs() < 0.05);
     assert!((r["input"]["span_nm"].as_f64().unwrap() - 204.8).abs() < 1e-9);
     // The roll-off estimate uses the simulator's visibility model: a scene
     // with the same source and spectrometer (linear map, 0.1 nm response,
@@ -129,7 +129,7 @@ fn design_matches_the_published_formulas() {
     let scene = mirror_scene(300.0, "").replace("nonlinearity_nm = [3.0, -1.0]", "resolution_nm = 0.1\npixel_integration = true");
     let (_, truth) = simulate_scene(dir.path(), "design-check", &scene);
     let r = json(&fringeflow(&["design", "--centre-nm", "840", "--fwhm-nm", "50", "--span-nm", "150", "--pixels", "2048", "--resolution-nm", "0.1", "--json"], dir.path()));
-    let (est, sim) = (r["rolloff_6db_depth_air_um"].as_f64().unwrap(), truth.rolloff_6db_depth_um.unwrap());
+    let (est, sim) = (r["rolloff_6db_depth_um_air"].as_f64().unwrap(), truth.rolloff_6db_depth_um.unwrap());
     eprintln!("design −6 dB depth {est:.0} µm, simulator {sim:.0} µm");
     assert!((est - sim).abs() / sim < 0.02, "{est} vs {sim}");
     let table = fringeflow(&["design", "--centre-nm", "840", "--fwhm-nm", "50", "--span-nm", "100", "--pixels", "2048"], dir.path());

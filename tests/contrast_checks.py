@@ -83,9 +83,9 @@ def phase_noise(depth_um, *outdirs):
     span = max(r[0] for r in rows) - min(r[0] for r in rows)
     if span < 20:
         fail(f"SNR range {span:.1f} dB < 20 dB")
-    for snr_db, sd, theory in rows:
+    for peak_over_noise_sd_db, sd, theory in rows:
         if abs(sd / theory - 1) > 0.2:
-            fail(f"at {snr_db:.1f} dB the phase noise is {sd / theory:.3f} of sqrt(2/SNR)")
+            fail(f"at {peak_over_noise_sd_db:.1f} dB the phase noise is {sd / theory:.3f} of sqrt(2/SNR)")
 
 
 def vessel_profile(outdir, truth_h5, truth_json):
@@ -142,7 +142,7 @@ def doppler_bulk(outdir, truth_h5):
     far = ~binary_dilation(~np.isnan(t), structure=np.ones((1, 61, 17), bool))
     static = far & ~np.isnan(v)
     sc = s["scale"]
-    phase = v[static] * 4 * np.pi * sc["group_index"] * sc["period_us"] / sc["centre_wavelength_nm"]
+    phase = v[static] * 4 * np.pi * sc["group_index"] * sc["period_us"] / sc["band_centre_wavelength_nm"]
     removed = np.mean([np.mean(b) for b in s["bulk_phase_rad"]])
     print(f"measured: bulk phase removed {removed:+.4f} rad per A-line pair; static tissue residual mean {phase.mean():+.4f} rad (sd {phase.std():.3f}, {static.sum()} pixels)")
     if abs(phase.mean()) >= 0.05:

@@ -59,7 +59,7 @@ def main():
     x = np.linspace(-0.5, 0.5, n_k)
     a2, a3 = p["dispersion"]["a2"], p["dispersion"]["a3"]
     phase = np.exp(-1j * (a2 * x**2 + a3 * x**3))
-    w = window(p["window"]["kind"], n_k, p["window"]["gaussian_fwhm"], p["window"]["tukey_alpha"])
+    w = window(p["window"]["kind"], n_k, p["window"]["gaussian_fwhm_fraction"], p["window"]["tukey_alpha"])
     m = n_k * p["fft"]["zero_padding"]
     first, depth = derived["first_depth_bin"], derived["depth_pixels"]
 
@@ -74,7 +74,7 @@ def main():
     peak = 0.0
     for fi, frame in enumerate(fringes):
         method = derived["background_method"]
-        if method == "capture":
+        if method == "recorded":
             bg = background.reshape(-1, n_pix).mean(axis=0)
         elif method == "mean":
             bg = frame.mean(axis=0)

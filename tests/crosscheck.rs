@@ -41,8 +41,8 @@ scatterer_reflectivity = 1e-6
     let script = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/crosscheck.py");
     let pipelines = [
         "[k_linearization]\nmethod = \"linear\"\n[background]\nmethod = \"median\"\n[dispersion]\na2 = 12.5\na3 = -3.0\n[window]\nkind = \"tukey\"\ntukey_alpha = 0.3\n[fft]\nzero_padding = 2\ncrop_um = [100.0, 900.0]\n",
-        "[k_linearization]\nmethod = \"cubic\"\n[background]\nmethod = \"capture\"\n[dispersion]\na2 = 12.5\n[window]\nkind = \"hann\"\n",
-        "[k_linearization]\nmethod = \"cubic\"\nsamples = 1500\n[background]\nmethod = \"mean\"\n[window]\nkind = \"gaussian\"\ngaussian_fwhm = 0.4\n[fft]\ncrop_px = [10, 400]\n",
+        "[k_linearization]\nmethod = \"cubic\"\n[background]\nmethod = \"recorded\"\n[dispersion]\na2 = 12.5\n[window]\nkind = \"hann\"\n",
+        "[k_linearization]\nmethod = \"cubic\"\nsamples = 1500\n[background]\nmethod = \"mean\"\n[window]\nkind = \"gaussian\"\ngaussian_fwhm_fraction = 0.4\n[fft]\ncrop_px = [10, 400]\n",
     ];
     for (i, p) in pipelines.iter().enumerate() {
         let out = dir.path().join(format!("out{i}"));

@@ -69,13 +69,13 @@ def check_bscans(outdir):
     for rec, name in zip(log["frames"], pngs):
         im = decode(f"{outdir}/{name}")
         got = grey_array(im, bit_depth)
-        want = expected_grey(vol[rec["index"]], rec["grey_black_db"], rec["grey_white_db"], max_grey)
+        want = expected_grey(vol[rec["index"]], rec["black_db"], rec["white_db"], max_grey)
         if got.shape != want.shape:
             fail(f"{name}: shape {got.shape}, volume frame {want.shape}")
         # The 8-bit writer maps in f32: a value on a rounding boundary may
         # land one level away; a packed volume is off by up to half its
         # step. Anything more is a format error.
-        allowed = 1 + np.ceil(packing_db * max_grey / (rec["grey_white_db"] - rec["grey_black_db"]))
+        allowed = 1 + np.ceil(packing_db * max_grey / (rec["white_db"] - rec["black_db"]))
         worst = np.max(np.abs(got - want))
         if worst > allowed:
             fail(f"{name}: worst grey difference {worst} (bit depth {bit_depth})")
@@ -84,7 +84,7 @@ def check_bscans(outdir):
         rec = log["en_face"]
         im = decode(f"{outdir}/en-face.png")
         got = grey_array(im, bit_depth)
-        want = expected_grey(en_face, rec["grey_black_db"], rec["grey_white_db"], max_grey)
+        want = expected_grey(en_face, rec["black_db"], rec["white_db"], max_grey)
         if got.shape != want.shape:
             fail(f"en-face.png: shape {got.shape}, /en_face_db {want.shape}")
         worst = np.max(np.abs(got - want))
@@ -164,7 +164,7 @@ def check_angiography(outdir):
     log = json.load(open(f"{outdir}/log.json"))
     a = log["contrast"]["angiography"]
     with h5py.File(f"{outdir}/volume.h5", "r") as v:
-        for method, whites in a["grey_white"]:
+        for method, whites in a["white"]:
             data = v[f"angiography_{method}"][...]
             for p, white in enumerate(whites):
                 im = decode(f"{outdir}/angiography-{method}-{p:04d}.png")

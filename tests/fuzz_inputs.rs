@@ -29,8 +29,8 @@ fn value() -> impl Strategy<Value = String> {
 fn key() -> impl Strategy<Value = String> {
     prop_oneof![
         Just("method"), Just("samples"), Just("a2"), Just("a3"), Just("kind"), Just("tukey_alpha"),
-        Just("gaussian_fwhm"), Just("zero_padding"), Just("crop_um"), Just("crop_px"), Just("mapping"),
-        Just("db_min"), Just("db_max"), Just("bit_depth"), Just("dynamic_range_db"), Just("axes"),
+        Just("gaussian_fwhm_fraction"), Just("gaussian_fwhm"), Just("zero_padding"), Just("crop_um"), Just("crop_px"), Just("mapping"),
+        Just("black_db"), Just("white_db"), Just("db_min"), Just("bit_depth"), Just("dynamic_range_db"), Just("axes"),
         Just("fringes"), Just("wavelength_poly_nm"), Just("average"), Just("en_face_depth_um"),
         Just("enabled"), Just("floor"), Just("png"), Just("bogus"),
     ]

@@ -117,5 +117,5 @@ fn uint16_volume_holds_the_float32_db_to_within_half_a_step() {
     let (sa, sb) = (std::fs::metadata(&va).unwrap().len(), std::fs::metadata(&vb).unwrap().len());
     assert!((sb as f64) < 0.55 * sa as f64, "uint16 volume {sb} bytes against float32 {sa}");
     // The PNGs do not depend on how the volume is stored.
-    assert_eq!(std::fs::read(a.join("layered-phantom/frame-0000.png")).unwrap(), std::fs::read(b.join("layered-phantom/frame-0000.png")).unwrap());
+    assert_eq!(std::fs::read(a.join("layered-phantom/bscan-0000.png")).unwrap(), std::fs::read(b.join("layered-phantom/bscan-0000.png")).unwrap());
 }

@@ -13,7 +13,7 @@ fn two_runs_give_identical_outputs() {
     let (a, b) = (dir.path().join("a"), dir.path().join("b"));
     run_ok(dir.path(), &[&capture], &pipeline, &a);
     run_ok(dir.path(), &[&capture], &pipeline, &b);
-    let names = ["frame-0000.png", "frame-0001.png", "volume.h5"];
+    let names = ["bscan-0000.png", "bscan-0001.png", "volume.h5"];
     for name in names {
         let x = std::fs::read(a.join("layered-phantom").join(name)).unwrap();
         let y = std::fs::read(b.join("layered-phantom").join(name)).unwrap();
@@ -29,9 +29,9 @@ fn two_runs_give_identical_outputs() {
     let (la, lb) = (log(&a), log(&b));
     assert_eq!(la, lb);
     // The log names everything a rerun needs.
-    assert_eq!(la["input"]["sha256"].as_str().unwrap(), fringeflow::io::hash::sha256_file(&capture).unwrap());
+    assert_eq!(la["input_hash"].as_str().unwrap(), fringeflow::io::hash::input_hash(&capture).unwrap());
     assert_eq!(la["pipeline"]["k_linearization"]["method"], "cubic");
-    assert_eq!(la["derived"]["background_method"], "capture");
+    assert_eq!(la["derived"]["background_method"], "recorded");
     assert_eq!(la["frames"].as_array().unwrap().len(), 2);
     // Nothing but the capture's directory and the batch summary is left in
     // the output root (no lock, no staging directory).

@@ -312,14 +312,14 @@ fn rerun_refuses_an_edited_log() {
     assert!(!dir.path().join("again").join("e").exists());
     // A consistent but invalid pipeline (hash recomputed) is refused by the checks `run` applies.
     let mut bad: fringeflow::pipeline::config::PipelineConfig = serde_json::from_value(log["pipeline"].clone()).unwrap();
-    bad.log_compression.db_min = 10.0;
-    bad.log_compression.db_max = 5.0;
+    bad.log_compression.black_db = 10.0;
+    bad.log_compression.white_db = 5.0;
     log["pipeline"] = serde_json::to_value(&bad).unwrap();
     log["pipeline_sha256"] = bad.sha256().into();
     std::fs::write(&edited, serde_json::to_vec(&log).unwrap()).unwrap();
     let o = fringeflow(&["rerun", s(&edited), "--out", s(&dir.path().join("again"))]);
     assert_eq!(o.status.code(), Some(2), "{}", text(&o));
-    assert!(text(&o).contains("db_max"), "{}", text(&o));
+    assert!(text(&o).contains("white_db"), "{}", text(&o));
 }
 
 #[test]
@@ -403,20 +403,20 @@ fn inspect_diagnoses_damage_without_panicking() {
 
 #[test]
 fn image_names_sort_in_frame_order_past_ten_thousand() {
-    assert_eq!(fringeflow::run::frame_png_name(7, 12), "frame-0007.png");
-    assert_eq!(fringeflow::run::frame_png_name(7, 10_001), "frame-00007.png");
-    assert_eq!(fringeflow::run::frame_png_name(10_000, 10_001), "frame-10000.png");
+    assert_eq!(fringeflow::run::bscan_png_name(7, 12), "bscan-0007.png");
+    assert_eq!(fringeflow::run::bscan_png_name(7, 10_001), "bscan-00007.png");
+    assert_eq!(fringeflow::run::bscan_png_name(10_000, 10_001), "bscan-10000.png");
     let dir = tempfile::tempdir().unwrap();
     let scene = "seed = 3\nframes = 10001\nalines = 2\nbackground_lines = 2\n[spectrometer]\npixels = 32\nstart_nm = 800.0\nstop_nm = 880.0\n[[reflector]]\ndepth_um = 50.0\nreflectivity = 1e-3\n";
     let (cap, _) = simulate_scene(dir.path(), "many", scene);
     let out = dir.path().join("out");
     let o = fringeflow(&["run", s(&cap), "--out", s(&out), "--quiet"]);
     assert!(o.status.success(), "{}", text(&o));
-    let mut names: Vec<String> = std::fs::read_dir(out.join("many")).unwrap().flatten().map(|e| e.file_name().to_string_lossy().into_owned()).filter(|n| n.starts_with("frame-")).collect();
+    let mut names: Vec<String> = std::fs::read_dir(out.join("many")).unwrap().flatten().map(|e| e.file_name().to_string_lossy().into_owned()).filter(|n| n.starts_with("bscan-")).collect();
     names.sort();
     assert_eq!(names.len(), 10_001);
-    assert_eq!(names[0], "frame-00000.png");
-    assert_eq!(names[10_000], "frame-10000.png");
+    assert_eq!(names[0], "bscan-00000.png");
+    assert_eq!(names[10_000], "bscan-10000.png");
     assert!(names.windows(2).all(|w| w[0] < w[1]));
 }
 

@@ -432,7 +432,7 @@ impl Reconstructor {
             let Some(t) = period else {
                 return Err(pipeline_error(py, "Doppler needs the A-line period: set doppler.aline_period_us (µs) in the pipeline, or plan from a capture that records it"));
             };
-            Some(DopplerScale::new(self.plan.summary.centre_wavelength_nm, cfg.doppler.group_index, t))
+            Some(DopplerScale::new(self.plan.summary.band_centre_wavelength_nm, cfg.doppler.group_index, t))
         } else {
             None
         };

@@ -178,7 +178,7 @@ def test_measurements_agree_with_the_cli_json(tmp_path):
     assert truth["coherence_length_um"] > 0
     psf_cli = json.loads(cli("measure", "psf", tmp_path / "mirror.h5", "--json", "--plot", tmp_path / "psf.png").stdout)
     psf = ff.measure_psf(tmp_path / "mirror.h5")
-    for key in ("fwhm_um_air", "fwhm_um_medium", "peak_depth_um", "snr_db", "fwhm_over_limit"):
+    for key in ("fwhm_um_air", "fwhm_um_medium", "peak_depth_um", "peak_over_noise_sd_db", "fwhm_over_limit"):
         assert psf[key] == psf_cli[key], key
     design_cli = json.loads(cli("design", "--centre-nm", 840, "--fwhm-nm", 50, "--span-nm", 150, "--pixels", 2048, "--json").stdout)
     assert ff.design(840, 50, 150, 2048) == design_cli

@@ -128,11 +128,18 @@ fn attempt(path: &Path, me: &Holder) -> Result<Attempt> {
             return Ok(Attempt::Held(holder.describe()));
         }
     }
-    // Ours: record who holds it.
-    file.set_len(0)?;
-    file.seek(std::io::SeekFrom::Start(0))?;
-    file.write_all(serde_json::to_string(me)?.as_bytes())?;
-    file.flush()?;
+    // Ours: record who holds it. If that fails (a full disk), leave no
+    // empty lock file behind: it is ours to remove.
+    let recorded = (|| -> std::io::Result<()> {
+        file.set_len(0)?;
+        file.seek(std::io::SeekFrom::Start(0))?;
+        file.write_all(serde_json::to_string(me).unwrap_or_default().as_bytes())?;
+        file.flush()
+    })();
+    if let Err(e) = recorded {
+        std::fs::remove_file(path).ok();
+        return Err(e).with_context(|| format!("writing {}", path.display()));
+    }
     Ok(Attempt::Taken(file))
 }
 

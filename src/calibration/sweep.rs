@@ -84,7 +84,7 @@ pub struct SweepRow {
 #[derive(Debug, Clone, Serialize)]
 pub struct SweepReport {
     pub capture: PathBuf,
-    pub capture_sha256: String,
+    pub input_hash: String,
     pub pipeline_sha256: String,
     pub frame: usize,
     pub metric: &'static str,
@@ -129,12 +129,12 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
     // Grey scale shared by all thumbnails, from the uncorrected frame.
     let lc = &config.log_compression;
     let (black, white) = match lc.mapping {
-        GreyMapping::Fixed => (lc.db_min, lc.db_max),
+        GreyMapping::Fixed => (lc.black_db, lc.white_db),
         GreyMapping::Auto => {
             let amp = frame_set.amplitudes(0.0, 0.0);
-            let mut db: Vec<f64> = amp.iter().map(|a| 20.0 * a.max(1e-12).log10()).collect();
-            let floor = crate::stages::background::median_in_place(&mut db) + lc.floor_offset_db;
-            (floor, floor + lc.dynamic_range_db)
+            let db: Vec<f32> = amp.iter().map(|a| (20.0 * a.max(1e-12).log10()) as f32).collect();
+            let floor = crate::stages::log_compression::noise_floor_db(&db);
+            crate::stages::log_compression::auto_levels(&db, floor, lc.floor_offset_db, lc.dynamic_range_db, lc.white_percentile)
         }
     };
 
@@ -182,7 +182,7 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
     contact_sheet(&out.join("contact-sheet.png"), &rows, &thumbs, columns, best)?;
     let report = SweepReport {
         capture: std::path::absolute(capture_path).unwrap_or_else(|_| capture_path.to_path_buf()),
-        capture_sha256: hash::sha256_file(capture_path)?,
+        input_hash: hash::input_hash(capture_path)?,
         pipeline_sha256: config.sha256(),
         frame,
         metric: "entropy of normalised intensity (nats, lower is sharper)",

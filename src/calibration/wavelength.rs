@@ -72,10 +72,10 @@ pub struct ScaleHints {
 #[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct MirrorInput {
     pub path: PathBuf,
-    pub sha256: String,
+    pub input_hash: String,
     /// Fringe frequency, cycles over the spectrum.
     pub fringe_cycles: f64,
-    pub fringe_snr_db: f64,
+    pub fringe_peak_over_median_db: f64,
 }
 
 #[derive(Debug, Clone, Serialize, Deserialize)]
@@ -264,7 +264,7 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
     let mut inputs = inputs;
     for (input, ph) in inputs.iter_mut().zip(phases.iter()) {
         input.fringe_cycles = ph.cycles;
-        input.fringe_snr_db = ph.snr_db;
+        input.fringe_peak_over_median_db = ph.snr_db;
     }
     // Shallowest and deepest mirror by fringe frequency.
     let order: Vec<usize> = {
@@ -412,10 +412,10 @@ pub fn calibrate_files(paths: &[PathBuf], config: &PipelineConfig, frame: usize,
     let mut inputs = Vec::new();
     for p in paths {
         let s = mirror_spectrum(p, config, frame).with_context(|| format!("{}", p.display()))?;
-        let sha256 = hash::sha256_file(p).with_context(|| format!("{}", p.display()))?;
+        let input_hash = hash::input_hash(p).with_context(|| format!("{}", p.display()))?;
         spectra.push(s);
         let path = std::path::absolute(p).unwrap_or_else(|_| p.clone());
-        inputs.push(MirrorInput { path, sha256, fringe_cycles: 0.0, fringe_snr_db: 0.0 });
+        inputs.push(MirrorInput { path, input_hash, fringe_cycles: 0.0, fringe_peak_over_median_db: 0.0 });
     }
     calibrate(&spectra, inputs, hints, degree)
 }

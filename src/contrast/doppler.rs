@@ -27,7 +27,7 @@ use crate::pipeline::config::{DopplerConfig, DopplerPairs};
 #[derive(Debug, Clone, Copy, serde::Serialize)]
 pub struct DopplerScale {
     /// λ0 of v = λ0·Δφ/(4π·n·T): the band's centre wavelength, nm.
-    pub centre_wavelength_nm: f64,
+    pub band_centre_wavelength_nm: f64,
     pub group_index: f64,
     /// T, µs.
     pub period_us: f64,
@@ -36,15 +36,15 @@ pub struct DopplerScale {
 }
 
 impl DopplerScale {
-    pub fn new(centre_wavelength_nm: f64, group_index: f64, period_us: f64) -> Self {
+    pub fn new(band_centre_wavelength_nm: f64, group_index: f64, period_us: f64) -> Self {
         // λ in nm over T in µs is mm/s.
-        let limit = centre_wavelength_nm / (4.0 * group_index * period_us);
-        DopplerScale { centre_wavelength_nm, group_index, period_us, aliasing_limit_mm_s: limit }
+        let limit = band_centre_wavelength_nm / (4.0 * group_index * period_us);
+        DopplerScale { band_centre_wavelength_nm, group_index, period_us, aliasing_limit_mm_s: limit }
     }
 
     /// Velocity in mm/s of a phase step in rad.
     pub fn velocity_mm_s(&self, phase_step: f64) -> f64 {
-        self.centre_wavelength_nm * phase_step / (4.0 * std::f64::consts::PI * self.group_index * self.period_us)
+        self.band_centre_wavelength_nm * phase_step / (4.0 * std::f64::consts::PI * self.group_index * self.period_us)
     }
 }
 

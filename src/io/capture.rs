@@ -61,7 +61,7 @@ impl SampleType {
 pub enum WavelengthSource {
     Dataset { path: String },
     Polynomial { coefficients_nm: Vec<f64> },
-    Calibration { path: String, sha256: String },
+    Calibration { path: String, file_hash: String },
 }
 
 /// One frame of spectra (A-lines × pixels, standard layout) in the type it
@@ -341,7 +341,7 @@ impl Capture {
                         cal.wavelength_nm.len()
                     );
                 }
-                (cal.wavelength_nm, WavelengthSource::Calibration { path: cal_path.clone(), sha256 })
+                (cal.wavelength_nm, WavelengthSource::Calibration { path: cal_path.clone(), file_hash: format!("sha256:{sha256}") })
             }
             (Some(c), None) => {
                 let map = (0..pixels)

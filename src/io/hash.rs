@@ -4,6 +4,18 @@ use sha2::{Digest, Sha256};
 use std::io::Read;
 use std::path::Path;
 
+/// The input hash as every file fringeflow writes names it (`input_hash`):
+/// the algorithm, a colon, the hex digest.
+pub fn input_hash(path: &Path) -> std::io::Result<String> {
+    sha256_file(path).map(|h| format!("sha256:{h}"))
+}
+
+/// Whether `recorded` (an `input_hash`, or the bare hex SHA-256 of logs
+/// before it) names the digest `hash` (an `input_hash`).
+pub fn same_input(recorded: &str, hash: &str) -> bool {
+    recorded == hash || hash.strip_prefix("sha256:") == Some(recorded)
+}
+
 pub fn sha256_hex(bytes: &[u8]) -> String {
     hex(&Sha256::digest(bytes))
 }

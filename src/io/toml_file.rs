@@ -95,6 +95,38 @@ pub fn plain_words(message: &str) -> String {
     m.replace('`', "\"")
 }
 
+/// A key or value renamed in this release.
+pub enum Rename {
+    /// (section, old key, new key)
+    Key(&'static str, &'static str, &'static str),
+    /// (section, key, old value, new value)
+    Value(&'static str, &'static str, &'static str, &'static str),
+}
+
+/// One notice per old name the text uses (the parser accepts them through
+/// serde aliases; this says so, with the line).
+pub fn deprecated_names(file: &str, text: &str, renames: &[Rename]) -> Vec<String> {
+    let mut notices = Vec::new();
+    for r in renames {
+        match *r {
+            Rename::Key(section, old, new) => {
+                if let Some(line) = line_of_key(text, section, old) {
+                    notices.push(format!("{file}, line {line}: {section}.{old} is now called {section}.{new}; the old name is accepted until the next release"));
+                }
+            }
+            Rename::Value(section, key, old, new) => {
+                if let Some(line) = line_of_key(text, section, key) {
+                    let value = text.lines().nth(line - 1).and_then(|l| l.split_once('=')).map(|(_, v)| v.split('#').next().unwrap_or("").trim().trim_matches('"').to_string());
+                    if value.as_deref() == Some(old) {
+                        notices.push(format!("{file}, line {line}: {section}.{key} = \"{old}\" is now called \"{new}\"; the old name is accepted until the next release"));
+                    }
+                }
+            }
+        }
+    }
+    notices
+}
+
 /// Parses `text` (read from `file`) into `T`, turning TOML and range errors
 /// into a one-line [`ConfigError`] that names the key and its line.
 pub fn parse<T: DeserializeOwned>(file: &str, text: &str) -> Result<T, ConfigError> {

@@ -127,8 +127,8 @@ impl VolumeWriter {
     }
 
     /// Records the input's SHA-256 and closes the file.
-    pub fn finish(self, source_sha256: &str) -> Result<()> {
-        write_attr_str(&self.file, "source_sha256", source_sha256)?;
+    pub fn finish(self, input_hash: &str) -> Result<()> {
+        write_attr_str(&self.file, "input_hash", input_hash)?;
         self.file.flush().map_err(concise).context("writing volume.h5")?;
         self.file.close().map_err(concise).context("closing volume.h5")
     }

@@ -43,7 +43,7 @@ pub struct MirrorMeasurement {
     /// (otherwise it is the noise, and the PSF has no visible side lobes).
     pub side_lobe_above_noise: bool,
     pub noise_floor_db: f64,
-    pub snr_db: f64,
+    pub peak_over_noise_sd_db: f64,
     pub saturated_samples: u64,
     pub zero_padding: usize,
     pub depth_spacing_um: f64,
@@ -111,11 +111,11 @@ pub fn measure(path: &Path, config: &PipelineConfig, frame: usize, group_index: 
             20.0 * (line[i] / sd.max(f64::MIN_POSITIVE)).log10()
         })
         .collect();
-    let snr_db = crate::stages::background::median_in_place(&mut snrs);
+    let peak_over_noise_sd_db = crate::stages::background::median_in_place(&mut snrs);
     let noise_mean = noise_index.iter().map(|&j| profile[j]).sum::<f64>() / noise_index.len() as f64;
-    if snr_db < MIN_PEAK_SNR_DB {
+    if peak_over_noise_sd_db < MIN_PEAK_SNR_DB {
         bail!(
-            "no clear peak: the brightest point stands {snr_db:.1} dB above the noise (need {MIN_PEAK_SNR_DB} dB); is this a mirror capture?"
+            "no clear peak: the brightest point stands {peak_over_noise_sd_db:.1} dB above the noise (need {MIN_PEAK_SNR_DB} dB); is this a mirror capture?"
         );
     }
     let Some(fwhm_px) = fwhm_px else {
@@ -148,7 +148,7 @@ pub fn measure(path: &Path, config: &PipelineConfig, frame: usize, group_index: 
         side_lobe_above_noise: side_lobe_db.is_some_and(|s| s > 20.0 * (noise_mean / peak).log10() + 6.0),
         side_lobe_db,
         noise_floor_db: 20.0 * noise_mean.log10(),
-        snr_db,
+        peak_over_noise_sd_db,
         saturated_samples: saturated,
         zero_padding: pad,
         depth_spacing_um: spacing,

@@ -60,7 +60,7 @@ pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
                         (Some(s), true) => format!("{s:.1} dB"),
                         _ => "below the noise".into(),
                     },
-                    m.snr_db
+                    m.peak_over_noise_sd_db
                 ),
                 ("sans-serif", 20),
             )

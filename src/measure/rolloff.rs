@@ -25,7 +25,7 @@ pub struct RolloffPoint {
     pub capture: String,
     pub depth_um: f64,
     pub peak_db: f64,
-    pub snr_db: f64,
+    pub peak_over_noise_sd_db: f64,
     pub fwhm_um: f64,
     pub saturated_samples: u64,
 }
@@ -124,7 +124,7 @@ pub fn measure_rolloff(captures: &[PathBuf], config: &PipelineConfig, attenuatio
             warnings.push(format!("{}: clipped fringes ({} samples at full scale)", m.capture, m.saturated_samples));
         }
     }
-    let sensitivity_db = attenuation_db.map(|a| found[0].snr_db + 2.0 * a);
+    let sensitivity_db = attenuation_db.map(|a| found[0].peak_over_noise_sd_db + 2.0 * a);
     let report = RolloffReport {
         points: found
             .iter()
@@ -132,7 +132,7 @@ pub fn measure_rolloff(captures: &[PathBuf], config: &PipelineConfig, attenuatio
                 capture: m.capture.clone(),
                 depth_um: m.peak_depth_um,
                 peak_db: m.peak_db,
-                snr_db: m.snr_db,
+                peak_over_noise_sd_db: m.peak_over_noise_sd_db,
                 fwhm_um: m.fwhm_um_air,
                 saturated_samples: m.saturated_samples,
             })

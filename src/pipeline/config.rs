@@ -62,8 +62,10 @@ impl Default for InputConfig {
 pub enum BackgroundMethod {
     /// The capture's background dataset when present, else the frame median.
     Auto,
-    /// Mean of the capture's background dataset (error when missing).
-    Capture,
+    /// Mean of the capture's recorded blocked-sample-arm spectra (its
+    /// background dataset; error when missing). Old name: `capture`.
+    #[serde(alias = "capture")]
+    Recorded,
     /// Mean over the frame's A-lines.
     Mean,
     /// Median over the frame's A-lines.
@@ -164,13 +166,14 @@ pub struct ShapingConfig {
     #[serde(deserialize_with = "de_non_negative")]
     pub fwhm_nm: f64,
     /// Envelope level (fraction of its peak) below which the gain is zero.
-    #[serde(deserialize_with = "de_unit_interval")]
-    pub floor: f64,
+    /// Old name: `floor`.
+    #[serde(alias = "floor", deserialize_with = "de_unit_interval")]
+    pub envelope_floor: f64,
 }
 
 impl Default for ShapingConfig {
     fn default() -> Self {
-        ShapingConfig { enabled: false, centre_nm: 0.0, fwhm_nm: 0.0, floor: 0.01 }
+        ShapingConfig { enabled: false, centre_nm: 0.0, fwhm_nm: 0.0, envelope_floor: 0.01 }
     }
 }
 
@@ -178,9 +181,9 @@ impl Default for ShapingConfig {
 #[serde(default, deny_unknown_fields)]
 pub struct WindowConfig {
     pub kind: WindowKind,
-    /// Gaussian window FWHM as a fraction of the band.
-    #[serde(deserialize_with = "de_positive")]
-    pub gaussian_fwhm: f64,
+    /// Gaussian window FWHM as a fraction of the band. Old name: `gaussian_fwhm`.
+    #[serde(alias = "gaussian_fwhm", deserialize_with = "de_positive")]
+    pub gaussian_fwhm_fraction: f64,
     /// Tukey taper fraction, 0 (rectangular) to 1 (Hann).
     #[serde(deserialize_with = "de_unit_interval")]
     pub tukey_alpha: f64,
@@ -188,7 +191,7 @@ pub struct WindowConfig {
 
 impl Default for WindowConfig {
     fn default() -> Self {
-        WindowConfig { kind: WindowKind::Hann, gaussian_fwhm: 0.5, tukey_alpha: 0.5 }
+        WindowConfig { kind: WindowKind::Hann, gaussian_fwhm_fraction: 0.5, tukey_alpha: 0.5 }
     }
 }
 
@@ -214,6 +217,16 @@ impl Default for FftConfig {
     }
 }
 
+fn de_percentile<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
+    use serde::de::Error;
+    let v = f64::deserialize(d)?;
+    if v.is_finite() && v > 0.0 && v <= 100.0 {
+        Ok(v)
+    } else {
+        Err(D::Error::custom(format!("value {v} out of range: a percentile above 0 and at most 100")))
+    }
+}
+
 fn de_bit_depth<'de, D: Deserializer<'de>>(d: D) -> Result<u8, D::Error> {
     use serde::de::Error;
     let v = i64::deserialize(d)?;
@@ -227,18 +240,24 @@ fn de_bit_depth<'de, D: Deserializer<'de>>(d: D) -> Result<u8, D::Error> {
 #[serde(default, deny_unknown_fields)]
 pub struct LogCompressionConfig {
     pub mapping: GreyMapping,
-    /// Fixed mapping: dB shown black.
-    #[serde(deserialize_with = "de_finite")]
-    pub db_min: f64,
-    /// Fixed mapping: dB shown white.
-    #[serde(deserialize_with = "de_finite")]
-    pub db_max: f64,
+    /// Fixed mapping: dB shown black. Old name: `db_min`.
+    #[serde(alias = "db_min", deserialize_with = "de_finite")]
+    pub black_db: f64,
+    /// Fixed mapping: dB shown white. Old name: `db_max`.
+    #[serde(alias = "db_max", deserialize_with = "de_finite")]
+    pub white_db: f64,
     /// Auto mapping: black sits this far above the estimated noise floor.
     #[serde(deserialize_with = "de_finite")]
     pub floor_offset_db: f64,
-    /// Auto mapping: dB range from black to white.
+    /// Auto mapping: white is at most this far above black (dB).
     #[serde(deserialize_with = "de_positive")]
     pub dynamic_range_db: f64,
+    /// Auto mapping: white sits at this percentile of the frame's dB values
+    /// (or black + dynamic_range_db, whichever is lower).
+    #[serde(deserialize_with = "de_percentile")]
+    pub white_percentile: f64,
+    /// Draw bright structure dark on white (for print).
+    pub invert: bool,
     /// Grey levels of the images: 8 or 16 bits.
     #[serde(deserialize_with = "de_bit_depth")]
     pub bit_depth: u8,
@@ -248,10 +267,12 @@ impl Default for LogCompressionConfig {
     fn default() -> Self {
         LogCompressionConfig {
             mapping: GreyMapping::Auto,
-            db_min: 0.0,
-            db_max: 60.0,
+            black_db: 0.0,
+            white_db: 60.0,
             floor_offset_db: 3.0,
             dynamic_range_db: 45.0,
+            white_percentile: 99.9,
+            invert: false,
             bit_depth: 8,
         }
     }
@@ -548,6 +569,10 @@ impl Default for VolumeConfig {
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
 #[serde(default, deny_unknown_fields)]
 pub struct PipelineConfig {
+    /// Old key and value names the text used (accepted for one release),
+    /// as one-line notices for the caller to print. Not part of the settings.
+    #[serde(skip)]
+    pub deprecations: Vec<String>,
     pub input: InputConfig,
     pub background: BackgroundConfig,
     pub k_linearization: KLinearizationConfig,
@@ -567,6 +592,16 @@ pub struct PipelineConfig {
     pub angiography: AngiographyConfig,
     pub output: OutputConfig,
 }
+
+/// Keys and values renamed in this release: (section, old key, new key,
+/// old value → new value when only a value was renamed).
+pub const PIPELINE_RENAMES: &[toml_file::Rename] = &[
+    toml_file::Rename::Key("window", "gaussian_fwhm", "gaussian_fwhm_fraction"),
+    toml_file::Rename::Key("shaping", "floor", "envelope_floor"),
+    toml_file::Rename::Key("log_compression", "db_min", "black_db"),
+    toml_file::Rename::Key("log_compression", "db_max", "white_db"),
+    toml_file::Rename::Value("background", "method", "capture", "recorded"),
+];
 
 fn is_default<T: Default + PartialEq>(v: &T) -> bool {
     *v == T::default()
@@ -599,6 +634,13 @@ impl PipelineConfig {
     pub fn from_file(path: &Path) -> Result<Self, ConfigError> {
         let (mut config, text): (PipelineConfig, String) = toml_file::read(path)?;
         config.check(&path.display().to_string(), &text)?;
+        config.deprecations = toml_file::deprecated_names(&path.display().to_string(), &text, PIPELINE_RENAMES);
+        // Preset files kept under an old name say so on their first line.
+        if let Some(first) = text.lines().next().filter(|l| l.starts_with("# Deprecated name:")) {
+            let rest: String = text.lines().take(2).map(|l| l.trim_start_matches('#').trim()).collect::<Vec<_>>().join(" ");
+            let _ = first;
+            config.deprecations.push(format!("{}: {rest}", path.display()));
+        }
         // A relative calibration path is relative to the pipeline file; store
         // it absolute so the log alone is enough to rerun.
         if let Some(c) = &config.input.calibration {
@@ -631,8 +673,9 @@ impl PipelineConfig {
 
     /// Parses pipeline text (`name` is used in messages).
     pub fn from_str(name: &str, text: &str) -> Result<Self, ConfigError> {
-        let config: PipelineConfig = toml_file::parse(name, text)?;
+        let mut config: PipelineConfig = toml_file::parse(name, text)?;
         config.check(name, text)?;
+        config.deprecations = toml_file::deprecated_names(name, text, PIPELINE_RENAMES);
         Ok(config)
     }
 
@@ -670,11 +713,11 @@ impl PipelineConfig {
                 return Err(fail("volume", "en_face_depth_um", format!("needs 0 <= start < end, found [{a}, {b}]")));
             }
         }
-        if self.log_compression.db_max <= self.log_compression.db_min {
+        if self.log_compression.white_db <= self.log_compression.black_db {
             return Err(fail(
                 "log_compression",
-                "db_max",
-                format!("must exceed db_min ({} <= {})", self.log_compression.db_max, self.log_compression.db_min),
+                "white_db",
+                format!("must exceed black_db ({} <= {})", self.log_compression.white_db, self.log_compression.black_db),
             ));
         }
         for (key, [a, b]) in [("a2_range", self.dispersion.a2_range), ("a3_range", self.dispersion.a3_range)] {
@@ -771,7 +814,7 @@ mod tests {
         assert_eq!(e.line, Some(3), "{e}");
         let e = PipelineConfig::from_str("p.toml", "[fft]\nzero_padding = 0\n").unwrap_err();
         assert_eq!(e.line, Some(2), "{e}");
-        let e = PipelineConfig::from_str("p.toml", "[log_compression]\ndb_min = 10\ndb_max = 5\n").unwrap_err();
+        let e = PipelineConfig::from_str("p.toml", "[log_compression]\nblack_db = 10\nwhite_db = 5\n").unwrap_err();
         assert_eq!(e.line, Some(3), "{e}");
     }
 }

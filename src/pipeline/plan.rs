@@ -50,7 +50,7 @@ pub struct PlanSummary {
     pub wavelength_min_nm: f64,
     pub wavelength_max_nm: f64,
     /// Centre of the resampled band, λ of (k_min + k_max)/2, nm.
-    pub centre_wavelength_nm: f64,
+    pub band_centre_wavelength_nm: f64,
     pub k_min_per_um: f64,
     pub k_max_per_um: f64,
     /// Depth of one output pixel, single pass, in air.
@@ -101,15 +101,15 @@ impl Plan {
         let mut stages: Vec<Box<dyn Stage>> = Vec::new();
 
         let method = match (config.background.method, capture.background) {
-            (BackgroundMethod::Auto, Some(_)) => BackgroundMethod::Capture,
+            (BackgroundMethod::Auto, Some(_)) => BackgroundMethod::Recorded,
             (BackgroundMethod::Auto, None) => BackgroundMethod::Median,
-            (BackgroundMethod::Capture, None) => {
-                bail!("background.method = \"capture\" but the capture has no '{}' dataset", config.input.background)
+            (BackgroundMethod::Recorded, None) => {
+                bail!("background.method = \"recorded\" but the capture has no '{}' dataset (the blocked-sample-arm spectra)", config.input.background)
             }
             (m, _) => m,
         };
         let source = match method {
-            BackgroundMethod::Capture => capture.background.map(|b| BackgroundSource::Fixed(b.to_vec())),
+            BackgroundMethod::Recorded => capture.background.map(|b| BackgroundSource::Fixed(b.to_vec())),
             BackgroundMethod::Mean => Some(BackgroundSource::FrameMean),
             BackgroundMethod::Median => Some(BackgroundSource::FrameMedian),
             BackgroundMethod::None | BackgroundMethod::Auto => None,
@@ -136,7 +136,7 @@ impl Plan {
         }
 
         let w = &config.window;
-        let coefficients = window::coefficients(w.kind, k_samples, w.gaussian_fwhm, w.tukey_alpha);
+        let coefficients = window::coefficients(w.kind, k_samples, w.gaussian_fwhm_fraction, w.tukey_alpha);
         let window_sum: f64 = coefficients.iter().sum();
         if w.kind != WindowKind::None {
             stages.push(Box::new(Window { coefficients }));
@@ -177,7 +177,7 @@ impl Plan {
             fft_length,
             wavelength_min_nm: wl_min,
             wavelength_max_nm: wl_max,
-            centre_wavelength_nm: physics::wavelength_nm(0.5 * (k_min + k_max)),
+            band_centre_wavelength_nm: physics::wavelength_nm(0.5 * (k_min + k_max)),
             k_min_per_um: k_min,
             k_max_per_um: k_max,
             depth_spacing_um,
@@ -211,7 +211,7 @@ impl Plan {
         let centre = if sh.centre_nm > 0.0 { sh.centre_nm } else { measured.centre_nm };
         let fwhm = if sh.fwhm_nm > 0.0 { sh.fwhm_nm } else { measured.fwhm_nm };
         let (envelope, _) = crate::measure::spectrum::remove_baseline(source);
-        Ok(Some((Shaping::new(klin, &envelope, centre, fwhm, sh.floor), [centre, fwhm])))
+        Ok(Some((Shaping::new(klin, &envelope, centre, fwhm, sh.envelope_floor), [centre, fwhm])))
     }
 
     /// Scale from |FFT| of the windowed fringe to fringe amplitude (2/Σw).

@@ -21,7 +21,6 @@ pub struct InputInfo {
     pub path: String,
     /// The same made absolute (what `rerun` falls back to from elsewhere).
     pub absolute_path: String,
-    pub sha256: String,
     pub fringes_dataset: String,
     pub shape: Vec<usize>,
     pub axes: Vec<AxisName>,
@@ -37,6 +36,9 @@ pub struct InputInfo {
     pub scan: ScanAttributes,
 }
 
+/// The version of log.json's layout (1: before it was recorded).
+pub const LOG_FORMAT_VERSION: u32 = 2;
+
 #[derive(Debug, Serialize)]
 pub struct FrameRecord {
     /// Output frame (slow-axis position when averaging).
@@ -46,8 +48,9 @@ pub struct FrameRecord {
     pub noise_floor_db: f64,
     pub peak_db: f64,
     pub saturated_samples: u64,
-    pub grey_black_db: f64,
-    pub grey_white_db: f64,
+    /// dB shown black and white in its image.
+    pub black_db: f64,
+    pub white_db: f64,
 }
 
 /// Effect of averaging repeated B-scans, measured on the first position.
@@ -72,8 +75,8 @@ pub struct EnFaceRecord {
     pub depth_um: [f64; 2],
     pub projection: Projection,
     /// dB mapped to black and to white (the 1st and 99.5th percentiles).
-    pub grey_black_db: f64,
-    pub grey_white_db: f64,
+    pub black_db: f64,
+    pub white_db: f64,
 }
 
 /// What the contrast stages did (registration, Doppler, angiography,
@@ -125,7 +128,7 @@ pub struct AngiographyRecord {
     pub noise_floor_db: Vec<f64>,
     /// Per method and position: the value shown white in its PNG (the
     /// 99.5th percentile of the unmasked values; black is 0).
-    pub grey_white: Vec<(AngiographyMethod, Vec<f64>)>,
+    pub white: Vec<(AngiographyMethod, Vec<f64>)>,
     pub en_face_depth_um: Option<[f64; 2]>,
     pub en_face_from_surface: bool,
     pub en_face_projection: Projection,
@@ -148,8 +151,11 @@ pub struct Timing {
 /// Contents of log.json.
 #[derive(Debug, Serialize)]
 pub struct ProcessingLog {
+    pub format_version: u32,
     pub tool: ToolInfo,
     pub input: InputInfo,
+    /// `sha256:<hex>` of the input file.
+    pub input_hash: String,
     pub pipeline: PipelineConfig,
     pub pipeline_sha256: String,
     /// `fused` (f32 fast path) or `reference` (f64 stage chain).

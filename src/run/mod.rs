@@ -30,7 +30,7 @@ use crate::pipeline::fused::FusedPlan;
 use crate::pipeline::plan::{CaptureGeometry, Plan};
 use crate::stages::log_compression::{grey_levels, grey_levels_u8};
 use log::*;
-pub use writer::frame_png_name;
+pub use writer::bscan_png_name;
 use writer::{ContrastDatasets, Writer};
 
 /// What happened to a capture.
@@ -84,7 +84,8 @@ pub fn peak_resident_mb() -> Option<f64> {
 fn up_to_date(dir: &Path, sha256: &str, pipeline_sha256: &str) -> bool {
     let Ok(bytes) = std::fs::read(dir.join("log.json")) else { return false };
     let Ok(log) = serde_json::from_slice::<serde_json::Value>(&bytes) else { return false };
-    log["input"]["sha256"] == sha256
+    let recorded = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str()).unwrap_or("");
+    hash::same_input(recorded, sha256)
         && log["pipeline_sha256"] == pipeline_sha256
         && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file())))
 }
@@ -139,7 +140,7 @@ fn open(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: &RunContext
         bail!("{problem}");
     }
     crate::io::staging::check_replaceable(&out_root.join(&name))?;
-    let sha_now = if ctx.resume { Some(hash::sha256_file(input).with_context(|| format!("hashing {}", input.display()))?) } else { None };
+    let sha_now = if ctx.resume { Some(hash::input_hash(input).with_context(|| format!("hashing {}", input.display()))?) } else { None };
     let pipeline_sha256 = config.sha256();
     if let Some(p) = ctx.capture_progress {
         p.set_length(capture.frames as u64);
@@ -246,7 +247,7 @@ fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> {
                 ),
             },
         };
-        Some((DopplerScale::new(plan.summary.centre_wavelength_nm, d.group_index, period), source))
+        Some((DopplerScale::new(plan.summary.band_centre_wavelength_nm, d.group_index, period), source))
     } else {
         None
     };
@@ -373,7 +374,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     // are processed (unless resume needed it up front).
     let hasher = opened.sha_now.is_none().then(|| {
         let p = input.to_path_buf();
-        std::thread::spawn(move || hash::sha256_file(&p).with_context(|| format!("hashing {}", p.display())))
+        std::thread::spawn(move || hash::input_hash(&p).with_context(|| format!("hashing {}", p.display())))
     });
     let planned = plan(&opened, config)?;
     let staging = Staging::new(out_root, &opened.name)?;
@@ -410,7 +411,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         if let Some(v) = &volume {
             v.write_en_face(en_face, positions, alines, slab)?;
         }
-        en_face_record = Some(EnFaceRecord { depth_um: slab, projection: config.volume.en_face_projection, grey_black_db: black, grey_white_db: white });
+        en_face_record = Some(EnFaceRecord { depth_um: slab, projection: config.volume.en_face_projection, black_db: black, white_db: white });
     }
     let sha256 = match (&opened.sha_now, hasher) {
         (Some(s), _) => s.clone(),
@@ -427,11 +428,11 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     let contrast = contrast_record(config, &planned, &mut written);
     let total = started.elapsed().as_secs_f64();
     let log = ProcessingLog {
+        format_version: LOG_FORMAT_VERSION,
         tool: ToolInfo { name: "fringeflow", version: env!("CARGO_PKG_VERSION") },
         input: InputInfo {
             path: input.display().to_string(),
             absolute_path: std::path::absolute(input).unwrap_or_else(|_| input.to_path_buf()).display().to_string(),
-            sha256,
             fringes_dataset: capture.fringes_path.clone(),
             shape: capture.shape.clone(),
             axes: capture.axes.clone(),
@@ -444,6 +445,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             has_background: capture.background.is_some(),
             scan: capture.scan.clone(),
         },
+        input_hash: sha256,
         pipeline: config.clone(),
         pipeline_sha256: opened.pipeline_sha256.clone(),
         engine: if ctx.reference_engine { "reference" } else { "fused" },
@@ -503,7 +505,7 @@ fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut wri
             noise_bias_threshold_db: a.threshold_db,
             noise_bias_note: "static pixels decorrelate through noise (D ≈ 1/(2·SNR)); pure noise reads like fully decorrelated speckle (D = 1 − π/4 ≈ 0.215), so pixels below the structure's noise floor + threshold are masked",
             noise_floor_db: std::mem::take(&mut written.angiography_floor_db),
-            grey_white: std::mem::take(&mut written.angiography_white),
+            white: std::mem::take(&mut written.angiography_white),
             en_face_depth_um: a.en_face_depth_um,
             en_face_from_surface: a.en_face_from_surface,
             en_face_projection: a.en_face_projection,

@@ -15,7 +15,7 @@ use crate::io::png;
 use crate::io::staging::Staging;
 use crate::io::volume::{write_stack_image, VolumeWriter};
 use crate::pipeline::config::{AngiographyMethod, PipelineConfig, Projection};
-use crate::stages::log_compression::{grey_levels, grey_levels_u8, noise_floor_db, peak_db, GreyMapping};
+use crate::stages::log_compression::{auto_levels, grey_levels, grey_levels_u8, noise_floor_db, peak_db, GreyMapping};
 
 /// Digits of the image numbers of a capture with `count` images: 4, or
 /// more when needed, so that names sort in frame order.
@@ -24,8 +24,8 @@ pub fn index_digits(count: usize) -> usize {
 }
 
 /// Name of position `index`'s B-scan image among `count`.
-pub fn frame_png_name(index: usize, count: usize) -> String {
-    format!("frame-{index:0w$}.png", w = index_digits(count))
+pub fn bscan_png_name(index: usize, count: usize) -> String {
+    format!("bscan-{index:0w$}.png", w = index_digits(count))
 }
 
 /// The contrast datasets of volume.h5.
@@ -122,19 +122,21 @@ impl<'a> Writer<'a> {
         let floor = noise_floor_db(values);
         let peak = peak_db(values) as f64;
         let (black, white) = match lc.mapping {
-            GreyMapping::Auto => (floor + lc.floor_offset_db, floor + lc.floor_offset_db + lc.dynamic_range_db),
-            GreyMapping::Fixed => (lc.db_min, lc.db_max),
+            GreyMapping::Auto => auto_levels(values, floor, lc.floor_offset_db, lc.dynamic_range_db, lc.white_percentile),
+            GreyMapping::Fixed => (lc.black_db, lc.white_db),
         };
+        // Inverted grey (for print): the same mapping run from white to black.
+        let (from, to) = if lc.invert { (white, black) } else { (black, white) };
         let position = p.position;
         if cfg.output.png {
-            let name = frame_png_name(position, self.positions);
+            let name = bscan_png_name(position, self.positions);
             let path = self.staging.path(&name);
             if lc.bit_depth == 8 {
                 self.grey.resize(values.len(), 0);
-                grey_levels_u8(values, black, white, &mut self.grey);
+                grey_levels_u8(values, from, to, &mut self.grey);
                 png::write_grey8(&path, alines, depth, &self.grey)?;
             } else {
-                png::write_grey(&path, alines, depth, &grey_levels(values, black, white, 65535.0), lc.bit_depth)?;
+                png::write_grey(&path, alines, depth, &grey_levels(values, from, to, 65535.0), lc.bit_depth)?;
             }
             self.written.outputs.push(name);
         }
@@ -164,8 +166,8 @@ impl<'a> Writer<'a> {
             noise_floor_db: round6(floor),
             peak_db: round6(peak),
             saturated_samples: p.saturated,
-            grey_black_db: round6(black),
-            grey_white_db: round6(white),
+            black_db: round6(black),
+            white_db: round6(white),
         });
         if let (Some(single), None) = (&p.first_single_db, &self.written.averaging) {
             self.written.averaging = Some(measure_averaging(single, image, self.average));

@@ -160,7 +160,7 @@ fn source_spectrum(scene: &Scene, k: f64) -> f64 {
     match s.shape {
         SpectrumShape::Gaussian => gauss(s.centre_nm, s.fwhm_nm),
         SpectrumShape::Flat => 1.0,
-        SpectrumShape::Gaussians => {
+        SpectrumShape::GaussianSum => {
             let total: f64 = s.components.iter().map(|c| c.weight).sum();
             s.components.iter().map(|c| c.weight * gauss(c.centre_nm, c.fwhm_nm)).sum::<f64>() / total
         }
@@ -529,7 +529,7 @@ pub fn simulate_with_progress(scene: &Scene, out: &Path, progress: &(dyn Fn(usiz
             progress(f + 1);
         }
         let recorded = match scene.spectrometer.recorded_map {
-            scene::RecordedMap::True => wl.clone(),
+            scene::RecordedMap::Exact => wl.clone(),
             scene::RecordedMap::Nominal => {
                 let s = &scene.spectrometer;
                 (0..pixels).map(|p| s.start_nm + (s.stop_nm - s.start_nm) * p as f64 / (pixels - 1) as f64).collect()

@@ -37,8 +37,9 @@ fn de_reflectivity<'de, D: Deserializer<'de>>(d: D) -> Result<f64, D::Error> {
 pub enum SpectrumShape {
     /// One Gaussian (in wavenumber) of given centre and FWHM.
     Gaussian,
-    /// A weighted sum of Gaussians (non-Gaussian overall).
-    Gaussians,
+    /// A weighted sum of Gaussians (non-Gaussian overall). Old name: `gaussians`.
+    #[serde(rename = "gaussian_sum", alias = "gaussians")]
+    GaussianSum,
     /// Flat across the spectrometer's band.
     Flat,
 }
@@ -89,23 +90,25 @@ pub struct SpectrometerSpec {
     /// Integrate each pixel over its width (adds a sinc roll-off factor).
     pub pixel_integration: bool,
     /// What the capture records as its wavelength map: the true map
-    /// (`true`, default) or the nominal linear one from start_nm to stop_nm
+    /// (`exact`, default) or the nominal linear one from start_nm to stop_nm
     /// (`nominal`: a spectrometer that was never calibrated).
-    #[serde(skip_serializing_if = "RecordedMap::is_true")]
+    #[serde(skip_serializing_if = "RecordedMap::is_exact")]
     pub recorded_map: RecordedMap,
 }
 
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum RecordedMap {
+    /// The spectrometer's true map. Old name: `true`.
     #[default]
-    True,
+    #[serde(alias = "true")]
+    Exact,
     Nominal,
 }
 
 impl RecordedMap {
-    fn is_true(&self) -> bool {
-        *self == RecordedMap::True
+    fn is_exact(&self) -> bool {
+        *self == RecordedMap::Exact
     }
 }
 
@@ -118,7 +121,7 @@ impl Default for SpectrometerSpec {
             nonlinearity_nm: [0.0, 0.0],
             resolution_nm: 0.0,
             pixel_integration: false,
-            recorded_map: RecordedMap::True,
+            recorded_map: RecordedMap::Exact,
         }
     }
 }
@@ -381,8 +384,8 @@ impl Scene {
         if !super::wavelength_map(s).windows(2).all(|w| w[1] > w[0]) {
             return Err(fail("spectrometer", "nonlinearity_nm", "makes the wavelength map non-monotonic".into()));
         }
-        if scene.source.shape == SpectrumShape::Gaussians && scene.source.components.is_empty() {
-            return Err(fail("source", "components", "shape = \"gaussians\" needs at least one component".into()));
+        if scene.source.shape == SpectrumShape::GaussianSum && scene.source.components.is_empty() {
+            return Err(fail("source", "components", "shape = \"gaussian_sum\" needs at least one component".into()));
         }
         if scene.scan.is_none() && (scene.motion.is_some() || !scene.vessels.is_empty()) {
             let key = if scene.motion.is_some() { "motion" } else { "vessel" };
@@ -398,6 +401,12 @@ impl Scene {
             return Err(fail("detector", "full_scale", format!("{} exceeds the {:?} range", scene.detector.full_scale, scene.detector.dtype)));
         }
         Ok(scene)
+    }
+
+    /// Old key and value names the text uses, as one-line notices.
+    pub fn deprecations(name: &str, text: &str) -> Vec<String> {
+        use crate::io::toml_file::{deprecated_names, Rename};
+        deprecated_names(name, text, &[Rename::Value("spectrometer", "recorded_map", "true", "exact"), Rename::Value("source", "shape", "gaussians", "gaussian_sum")])
     }
 
     pub fn from_file(path: &std::path::Path) -> Result<Scene, ConfigError> {

@@ -1,10 +1,12 @@
 //! Log-compression stage: 20·log10|A| in dB, and the mapping of a frame's dB
 //! values to 8-bit or 16-bit grey levels for images.
 //!
-//! The grey mapping is either fixed ([db_min, db_max] → [0, max grey]) or
+//! The grey mapping is either fixed ([black_db, white_db] → [0, max grey]) or
 //! automatic: the frame's noise floor (median of its dB values: most depth
 //! pixels hold only noise, common practice) plus an offset gives black, and
-//! black plus a dynamic range in dB gives white.
+//! a high percentile of the frame's values (99.9th by default) gives white,
+//! at most a dynamic range above black; so the brightest structure is near
+//! white whatever the sample.
 
 use serde::{Deserialize, Serialize};
 
@@ -64,6 +66,29 @@ pub fn noise_floor_db(db: &[f32]) -> f64 {
         let below = lower.iter().copied().fold(f32::NEG_INFINITY, f32::max) as f64;
         0.5 * (below + upper)
     }
+}
+
+/// The q-th percentile (0 < q ≤ 100) of a frame's dB values, over the same
+/// deterministic sample as [`noise_floor_db`] (nearest rank).
+pub fn percentile_db(db: &[f32], q: f64) -> f64 {
+    if db.is_empty() {
+        return f64::NAN;
+    }
+    let stride = db.len().div_ceil(NOISE_FLOOR_SAMPLES);
+    let mut v: Vec<f32> = db.iter().step_by(stride).copied().collect();
+    // Nearest rank, with a margin for the rounding of q/100·n.
+    let i = (((q / 100.0) * v.len() as f64 - 1e-9).ceil() as usize).clamp(1, v.len()) - 1;
+    let (_, x, _) = v.select_nth_unstable_by(i, f32::total_cmp);
+    *x as f64
+}
+
+/// (black, white) dB of the automatic mapping: black = floor + offset,
+/// white = the `white_percentile`-th percentile, at most `dynamic_range_db`
+/// above black and at least 1 dB above it.
+pub fn auto_levels(db: &[f32], floor_db: f64, floor_offset_db: f64, dynamic_range_db: f64, white_percentile: f64) -> (f64, f64) {
+    let black = floor_db + floor_offset_db;
+    let white = percentile_db(db, white_percentile).min(black + dynamic_range_db).max(black + 1.0);
+    (black, white)
 }
 
 /// Largest value (NaN-free input), in SIMD-friendly chunks.
@@ -134,6 +159,18 @@ mod tests {
         assert!((to_db(10.0) - 20.0).abs() < 1e-12);
         assert!((to_db(0.5) + 6.0206).abs() < 1e-4);
         assert_eq!(to_db(0.0), -240.0);
+    }
+
+    #[test]
+    fn percentile_and_auto_levels() {
+        let v: Vec<f32> = (0..1000).map(|i| i as f32 / 10.0).collect();
+        // Nearest rank: the 999th of 1000 values for 99.9 %.
+        assert_eq!(percentile_db(&v, 99.9), 99.8f32 as f64);
+        assert_eq!(percentile_db(&v, 100.0), 99.9f32 as f64);
+        let (b, w) = auto_levels(&v, 10.0, 3.0, 45.0, 99.9);
+        assert_eq!((b, w), (13.0, 58.0)); // capped at black + 45 dB
+        let (_, w) = auto_levels(&v, 80.0, 3.0, 45.0, 99.9);
+        assert!((w - 99.8).abs() < 1e-4, "{w}");
     }
 
     #[test]
