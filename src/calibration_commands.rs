@@ -4,17 +4,24 @@
 use std::process::ExitCode;
 
 use crate::cli::{CalibrateCommand, DispersionCommand};
-use crate::{fail, load_pipeline};
+use crate::{check_out_dir, fail, load_pipeline};
 use fringeflow::calibration::{dispersion, sweep, wavelength};
 use fringeflow::io::staging::write_atomically;
 
 pub fn calibrate(command: CalibrateCommand) -> ExitCode {
     let CalibrateCommand::Wavelength { mirrors, out, centre_nm, span_nm, depths_um, decreasing, degree, pipeline, frame, json } = command;
-    let config = match load_pipeline(pipeline.as_deref()) {
+    let config = match load_pipeline(pipeline.as_deref(), &[]) {
         Ok(c) => c,
         Err(code) => return code,
     };
     let hints = wavelength::ScaleHints { centre_nm, span_nm, depths_um, decreasing };
+    // Usage mistakes (which hints, how many depths, the degree) exit 2 before any file is read.
+    if let Err(e) = wavelength::check_hints(mirrors.len(), &hints, degree) {
+        return fail(2, format!("calibrate wavelength: {e:#}"));
+    }
+    if out.is_dir() {
+        return fail(2, format!("--out {}: is a folder; give the calibration file to write, e.g. {}", out.display(), out.join("calibration.json").display()));
+    }
     let cal = match wavelength::calibrate_files(&mirrors, &config, frame, &hints, degree) {
         Ok(c) => c,
         Err(e) => return fail(1, format!("{e:#}")),
@@ -61,8 +68,8 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
 
 pub fn dispersion(command: DispersionCommand) -> ExitCode {
     match command {
-        DispersionCommand::Estimate { capture: path, pipeline, frame, json } => {
-            let config = match load_pipeline(pipeline.as_deref()) {
+        DispersionCommand::Estimate { capture: path, pipeline, overrides, frame, json } => {
+            let config = match load_pipeline(pipeline.as_deref(), &overrides) {
                 Ok(c) => c,
                 Err(code) => return code,
             };
@@ -83,11 +90,14 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
             }
             ExitCode::SUCCESS
         }
-        DispersionCommand::Sweep { capture, a2, a3, frame, pipeline, out } => {
-            let config = match load_pipeline(pipeline.as_deref()) {
+        DispersionCommand::Sweep { capture, a2, a3, frame, pipeline, overrides, out, json } => {
+            let config = match load_pipeline(pipeline.as_deref(), &overrides) {
                 Ok(c) => c,
                 Err(code) => return code,
             };
+            if let Err(code) = check_out_dir(&out) {
+                return code;
+            }
             let (a2, a3) = match (sweep::parse_range(&a2, "a2"), sweep::parse_range(&a3, "a3")) {
                 (Ok(a), Ok(b)) => (a, b),
                 (Err(e), _) | (_, Err(e)) => return fail(2, e),
@@ -96,6 +106,10 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 Ok(r) => r,
                 Err(e) => return fail(1, format!("{}: {e:#}", capture.display())),
             };
+            if json {
+                outln!("{}", serde_json::to_string_pretty(&report).unwrap());
+                return ExitCode::SUCCESS;
+            }
             outln!("{:>10} {:>10} {:>10} {:>9} {:>9}", "a2 rad", "a3 rad", "entropy", "FWHM µm", "peak dB");
             for (i, r) in report.rows.iter().enumerate() {
                 let fwhm = r.fwhm_um.map(|v| format!("{v:.2}")).unwrap_or_else(|| "-".into());

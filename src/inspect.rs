@@ -16,7 +16,7 @@ use crate::io::capture::{check_wavelength_map, open_hdf5, Capture};
 use crate::pipeline::config::InputConfig;
 
 /// Statistics of one dataset.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize)]
 pub struct DatasetStats {
     pub name: String,
     pub shape: Vec<usize>,
@@ -24,11 +24,13 @@ pub struct DatasetStats {
     pub min: f64,
     pub max: f64,
     pub non_finite: u64,
+    /// (samples at or above full scale, the full scale) for integer fringes.
+    #[serde(serialize_with = "full_scale_json")]
     pub at_full_scale: Option<(u64, f64)>,
 }
 
 /// The result of inspecting a capture.
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, serde::Serialize)]
 pub struct Inspection {
     pub datasets: Vec<DatasetStats>,
     pub problems: Vec<String>,
@@ -68,7 +70,7 @@ fn is_numeric(d: &TypeDescriptor) -> bool {
 }
 
 /// Every dataset below `group`; members that cannot be opened become problems.
-fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hdf5::Dataset)>, problems: &mut Vec<String>) {
+pub(crate) fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hdf5::Dataset)>, problems: &mut Vec<String>) {
     let names = match group.member_names() {
         Ok(n) => n,
         Err(e) => {
@@ -86,6 +88,11 @@ fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hd
             problems.push(format!("{path}: cannot be opened (damaged, or a link to something missing)"));
         }
     }
+}
+
+fn full_scale_json<S: serde::Serializer>(v: &Option<(u64, f64)>, s: S) -> Result<S::Ok, S::Error> {
+    use serde::Serialize;
+    v.map(|(saturated, full_scale)| serde_json::json!({ "saturated": saturated, "full_scale": full_scale })).serialize(s)
 }
 
 fn first_line(s: &str) -> String {

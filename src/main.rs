@@ -17,13 +17,13 @@ mod calibration_commands;
 mod cli;
 
 use anyhow::Result;
-use clap::Parser;
+use clap::FromArgMatches;
 use std::collections::BTreeMap;
 use std::io::IsTerminal;
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-use cli::{Cli, Command, MeasureCommand};
+use cli::{Cli, Command, MeasureCommand, PipelineCommand};
 use fringeflow::pipeline::config::PipelineConfig;
 
 pub(crate) fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
@@ -31,9 +31,10 @@ pub(crate) fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
     ExitCode::from(code)
 }
 
-pub(crate) fn load_pipeline(path: Option<&Path>) -> Result<PipelineConfig, ExitCode> {
+pub(crate) fn load_pipeline(path: Option<&Path>, overrides: &[String]) -> Result<PipelineConfig, ExitCode> {
     let config = match path {
-        Some(p) => PipelineConfig::from_file(p).map_err(|e| fail(2, e))?,
+        Some(p) => PipelineConfig::from_file_with(p, overrides).map_err(|e| fail(2, e))?,
+        None if !overrides.is_empty() => PipelineConfig::from_overrides(overrides).map_err(|e| fail(2, e))?,
         None => PipelineConfig::default(),
     };
     for notice in &config.deprecations {
@@ -42,14 +43,42 @@ pub(crate) fn load_pipeline(path: Option<&Path>) -> Result<PipelineConfig, ExitC
     Ok(config)
 }
 
-#[allow(clippy::too_many_arguments)]
-fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: &Path, resume: bool, shard: Option<&str>, quiet: bool, reference_engine: bool) -> ExitCode {
+/// `--out DIR` must be a folder or not exist yet (exit 2 otherwise).
+pub(crate) fn check_out_dir(out: &Path) -> Result<(), ExitCode> {
+    if out.exists() && !out.is_dir() {
+        return Err(fail(2, format!("--out {}: is a file, not a folder", out.display())));
+    }
+    Ok(())
+}
+
+/// What the command line asked of `run`.
+struct RunRequest<'a> {
+    captures: &'a [PathBuf],
+    list: Option<&'a Path>,
+    pipeline: Option<&'a Path>,
+    overrides: &'a [String],
+    out: &'a Path,
+    resume: bool,
+    overwrite: bool,
+    shard: Option<&'a str>,
+    dry_run: bool,
+    json: bool,
+    progress_json: bool,
+    reference_engine: bool,
+    quiet: bool,
+    verbose: u8,
+}
+
+fn run(r: RunRequest<'_>) -> ExitCode {
     use fringeflow::batch::{self, inputs};
-    let config = match load_pipeline(pipeline) {
+    let config = match load_pipeline(r.pipeline, r.overrides) {
         Ok(c) => c,
         Err(code) => return code,
     };
-    let all = match inputs::expand(captures, list) {
+    if let Err(code) = check_out_dir(r.out) {
+        return code;
+    }
+    let all = match inputs::expand(r.captures, r.list) {
         Ok(a) => a,
         Err(e) => return fail(2, format!("{e:#}")),
     };
@@ -59,10 +88,10 @@ fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: 
     let mut names = BTreeMap::new();
     for c in &all {
         if let Some(other) = names.insert(fringeflow::run::output_name(c), c) {
-            return fail(2, format!("{} and {} would both write {}", other.display(), c.display(), out.join(fringeflow::run::output_name(c)).display()));
+            return fail(2, format!("{} and {} would both write {}", other.display(), c.display(), r.out.join(fringeflow::run::output_name(c)).display()));
         }
     }
-    let shard = match shard {
+    let shard = match r.shard {
         Some(s) => inputs::Shard::parse(s),
         None => inputs::Shard::from_env(|k| std::env::var(k).ok()).map(|s| s.unwrap_or(inputs::Shard::WHOLE)),
     };
@@ -71,17 +100,69 @@ fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: 
         Err(e) => return fail(2, format!("{e:#}")),
     };
     let mine = shard.select(&all);
+    let pipeline_sha = config.sha256();
+    if r.verbose > 0 {
+        errln!("pipeline {} (sha256 {pipeline_sha}):", r.pipeline.map_or("built-in defaults".to_string(), |p| p.display().to_string()));
+        for line in toml::to_string(&config).unwrap_or_default().lines() {
+            errln!("  {line}");
+        }
+        errln!("{} of {} captures in this shard; {} threads", mine.len(), all.len(), rayon::current_num_threads());
+    }
+    // Outputs another pipeline made are not replaced without --overwrite.
+    let foreign: Vec<(PathBuf, String)> = mine
+        .iter()
+        .filter_map(|c| {
+            let dir = r.out.join(fringeflow::run::output_name(c));
+            fringeflow::run::recorded_pipeline(&dir).filter(|h| *h != pipeline_sha).map(|h| (dir, h))
+        })
+        .collect();
+    if r.dry_run {
+        return dry_run(&r, &config, &mine, &foreign, shard, all.len());
+    }
+    if let (false, Some((dir, theirs))) = (r.overwrite, foreign.first()) {
+        let more = if foreign.len() > 1 { format!(" (and {} more)", foreign.len() - 1) } else { String::new() };
+        return fail(
+            2,
+            format!(
+                "{} holds outputs of pipeline sha256 {theirs}{more}, this run's is sha256 {pipeline_sha}: refusing to replace them; pass --overwrite, or choose another --out",
+                dir.display()
+            ),
+        );
+    }
     let stop = match batch::StopSignals::install(true) {
         Ok(s) => s,
         Err(e) => return fail(1, format!("{e:#}")),
     };
-    let options = batch::BatchOptions { resume, quiet, terminal: std::io::stderr().is_terminal(), shard, inputs_total: all.len(), reference_engine };
-    let report = match batch::run_batch(&mine, &config, out, &options, &stop) {
-        Ok(r) => r,
+    let options = batch::BatchOptions {
+        resume: r.resume,
+        quiet: r.quiet,
+        terminal: std::io::stderr().is_terminal(),
+        shard,
+        inputs_total: all.len(),
+        reference_engine: r.reference_engine,
+        verbose: r.verbose > 0,
+        json: r.json,
+        progress_json: r.progress_json,
+    };
+    let report = match batch::run_batch(&mine, &config, r.out, &options, &stop) {
+        Ok(rep) => rep,
         Err(e) => return fail(1, format!("{e:#}")),
     };
-    if !quiet {
-        out!("{}", report.render());
+    if r.json {
+        let summary = r.out.join(batch::report_name(shard));
+        outln!(
+            "{}",
+            serde_json::json!({
+                "kind": "batch",
+                "format_version": report.format_version,
+                "summary": summary.display().to_string(),
+                "pipeline_sha256": report.pipeline_sha256,
+                "counts": report.counts,
+                "interrupted": report.interrupted,
+            })
+        );
+    } else if !r.quiet {
+        out!("{}", report.render_counts());
     }
     if let Some((_, code)) = stop.stopped() {
         return ExitCode::from(code);
@@ -93,7 +174,48 @@ fn run(captures: &[PathBuf], list: Option<&Path>, pipeline: Option<&Path>, out: 
     }
 }
 
-fn rerun(log_path: &Path, out: &Path) -> ExitCode {
+/// `run --dry-run`: what would happen to each capture; writes nothing.
+fn dry_run(r: &RunRequest<'_>, config: &PipelineConfig, mine: &[PathBuf], foreign: &[(PathBuf, String)], shard: fringeflow::batch::inputs::Shard, total: usize) -> ExitCode {
+    let mut counts = BTreeMap::<&str, usize>::new();
+    for c in mine {
+        let dir = r.out.join(fringeflow::run::output_name(c));
+        let refused = foreign.iter().find(|(d, _)| *d == dir).filter(|_| !r.overwrite);
+        let (action, reason) = match (refused, fringeflow::run::would_skip(c, config, r.out, r.resume)) {
+            (Some((_, theirs)), _) => ("refuse", Some(format!("holds outputs of pipeline sha256 {theirs} (--overwrite replaces them)"))),
+            (None, Ok(true)) => ("skip", Some("up to date (same input SHA-256 and pipeline)".to_string())),
+            (None, Ok(false)) => ("run", None),
+            (None, Err(e)) => ("fail", Some(format!("{e:#}").replace('\n', " "))),
+        };
+        *counts.entry(action).or_default() += 1;
+        if r.json {
+            outln!("{}", serde_json::json!({ "kind": "dry_run", "input": c.display().to_string(), "action": action, "output": dir.display().to_string(), "reason": reason }));
+        } else {
+            outln!("{action:<7} {} → {}{}", c.display(), dir.display(), reason.map(|m| format!(": {m}")).unwrap_or_default());
+        }
+    }
+    let get = |k: &str| counts.get(k).copied().unwrap_or(0);
+    if r.json {
+        outln!(
+            "{}",
+            serde_json::json!({ "kind": "dry_run_summary", "run": get("run"), "skip": get("skip"), "refuse": get("refuse"), "fail": get("fail"), "shard": format!("{}/{}", shard.index, shard.count), "inputs_total": total })
+        );
+    } else {
+        let shard_note = if shard.is_whole() { String::new() } else { format!(" (shard {}/{} of {total} captures)", shard.index, shard.count) };
+        outln!("dry run: {} to run, {} to skip, {} refused, {} would fail{shard_note}; nothing written", get("run"), get("skip"), get("refuse"), get("fail"));
+    }
+    if get("refuse") > 0 {
+        ExitCode::from(2)
+    } else if get("fail") > 0 {
+        ExitCode::from(1)
+    } else {
+        ExitCode::SUCCESS
+    }
+}
+
+fn rerun(log_path: &Path, out: &Path, json: bool) -> ExitCode {
+    if let Err(code) = check_out_dir(out) {
+        return code;
+    }
     let log: serde_json::Value = match std::fs::read(log_path).map_err(anyhow::Error::from).and_then(|b| Ok(serde_json::from_slice(&b)?)) {
         Ok(v) => v,
         Err(e) => return fail(2, format!("{}: not a readable processing log: {e}", log_path.display())),
@@ -149,14 +271,33 @@ fn rerun(log_path: &Path, out: &Path) -> ExitCode {
             for w in &o.warnings {
                 fringeflow::output::warn(&format!("{}: {w}", input.display()));
             }
-            fringeflow::output::note(&format!("reproduced {} → {}", input.display(), o.output_dir.display()));
+            if json {
+                outln!(
+                    "{}",
+                    serde_json::json!({
+                        "input": input.display().to_string(),
+                        "input_hash": sha,
+                        "pipeline_sha256": recorded,
+                        "output": o.output_dir.display().to_string(),
+                        "frames": o.frames,
+                        "alines": o.alines,
+                        "seconds": o.seconds,
+                        "warnings": o.warnings,
+                    })
+                );
+            } else {
+                fringeflow::output::note(&format!("reproduced {} → {}", input.display(), o.output_dir.display()));
+            }
             ExitCode::SUCCESS
         }
         Err(e) => fail(1, format!("{}: {e:#}", input.display())),
     }
 }
 
-fn summarize(dir: &Path) -> ExitCode {
+fn summarize(dir: &Path, json_out: bool) -> ExitCode {
+    if !dir.is_dir() {
+        return fail(2, format!("{}: not a folder (give the --out folder of a run)", dir.display()));
+    }
     let (report, problems) = match fringeflow::batch::merge_reports(dir) {
         Ok(r) => r,
         Err(e) => return fail(1, format!("{e:#}")),
@@ -166,7 +307,11 @@ fn summarize(dir: &Path) -> ExitCode {
     if let Err(e) = fringeflow::io::staging::write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &json)?)) {
         return fail(1, format!("{e:#}"));
     }
-    out!("{}", report.render());
+    if json_out {
+        outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "summary": path.display().to_string(), "report": report, "problems": problems })).unwrap());
+    } else {
+        out!("{}", report.render());
+    }
     for p in &problems {
         errln!("fringeflow: problem: {p}");
     }
@@ -183,8 +328,8 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
         return fail(2, "--tasks and --cpus-per-task must be at least 1");
     }
     let abs = |p: &Path| std::path::absolute(p).unwrap_or_else(|_| p.to_path_buf());
-    if let Err(e) = PipelineConfig::from_file(pipeline) {
-        return fail(2, e);
+    if let Err(code) = load_pipeline(Some(pipeline), &[]) {
+        return code;
     }
     let n = match fringeflow::batch::inputs::expand(&[], Some(list)) {
         Ok(v) => v.len(),
@@ -230,8 +375,8 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
 fn measure(command: MeasureCommand) -> ExitCode {
     use fringeflow::measure::{mirror, plot, rolloff};
     match command {
-        MeasureCommand::Psf { mirror: path, pipeline, frame, group_index, plot: plot_path, json } => {
-            let config = match load_pipeline(pipeline.as_deref()) {
+        MeasureCommand::Psf { mirror: path, pipeline, overrides, frame, group_index, plot: plot_path, json } => {
+            let config = match load_pipeline(pipeline.as_deref(), &overrides) {
                 Ok(c) => c,
                 Err(code) => return code,
             };
@@ -239,8 +384,10 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 Ok(m) => m,
                 Err(e) => return fail(1, format!("{}: {e:#}", path.display())),
             };
-            if let Err(e) = plot::psf(&plot_path, &m) {
-                return fail(1, format!("{}: {e:#}", plot_path.display()));
+            if let Some(p) = &plot_path {
+                if let Err(e) = plot::psf(p, &m) {
+                    return fail(1, format!("{}: {e:#}", p.display()));
+                }
             }
             for w in &m.warnings {
                 errln!("fringeflow: warning: {w}");
@@ -256,12 +403,15 @@ fn measure(command: MeasureCommand) -> ExitCode {
                     (Some(s), false) => outln!("no side lobe above the noise (highest local maximum {s:.1} dB is noise)"),
                     (None, _) => outln!("highest side lobe: none found"),
                 }
-                outln!("peak SNR {:.1} dB (noise floor {:.1} dB); plot {}", m.peak_over_noise_sd_db, m.noise_floor_db, plot_path.display());
+                outln!("peak SNR {:.1} dB (noise floor {:.1} dB)", m.peak_over_noise_sd_db, m.noise_floor_db);
+                if let Some(p) = &plot_path {
+                    outln!("wrote {}", p.display());
+                }
             }
             ExitCode::SUCCESS
         }
-        MeasureCommand::Rolloff { mirrors, pipeline, attenuation_db, plot: plot_path, json } => {
-            let config = match load_pipeline(pipeline.as_deref()) {
+        MeasureCommand::Rolloff { mirrors, pipeline, overrides, attenuation_db, plot: plot_path, json } => {
+            let config = match load_pipeline(pipeline.as_deref(), &overrides) {
                 Ok(c) => c,
                 Err(code) => return code,
             };
@@ -272,8 +422,10 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 Ok(r) => r,
                 Err(e) => return fail(1, format!("{e:#}")),
             };
-            if let Err(e) = plot::rolloff(&plot_path, &report) {
-                return fail(1, format!("{}: {e:#}", plot_path.display()));
+            if let Some(p) = &plot_path {
+                if let Err(e) = plot::rolloff(p, &report) {
+                    return fail(1, format!("{}: {e:#}", p.display()));
+                }
             }
             for w in &report.warnings {
                 errln!("fringeflow: warning: {w}");
@@ -290,7 +442,10 @@ fn measure(command: MeasureCommand) -> ExitCode {
                     "fit: A0 {:.2} dB, spectral response FWHM {:.4} nm, pixel width {:.3e} rad/µm, RMS residual {:.2} dB",
                     f.a0_db, f.resolution_fwhm_nm, f.pixel_dk_per_um, f.rms_residual_db
                 );
-                outln!("-6 dB roll-off depth {:.0} µm (in air); plot {}", f.rolloff_6db_depth_um, plot_path.display());
+                outln!("-6 dB roll-off depth {:.0} µm (in air)", f.rolloff_6db_depth_um);
+                if let Some(p) = &plot_path {
+                    outln!("wrote {}", p.display());
+                }
                 if let (Some(s), Some(a)) = (report.sensitivity_db, attenuation_db) {
                     outln!("sensitivity {s:.1} dB = SNR {:.1} dB + round-trip attenuation 2 × {a:.1} dB", report.points[0].peak_over_noise_sd_db);
                 }
@@ -300,8 +455,195 @@ fn measure(command: MeasureCommand) -> ExitCode {
     }
 }
 
+fn simulate(scene_path: &Path, out: &Path, json: bool, quiet: bool) -> ExitCode {
+    use fringeflow::io::toml_file::{kind_hint, sniff, FileKind};
+    if let (FileKind::Hdf5, Some(hint)) = (sniff(scene_path), kind_hint(FileKind::Hdf5)) {
+        return fail(2, format!("{}: not a scene file: {hint}", scene_path.display()));
+    }
+    if let Ok(text) = std::fs::read_to_string(scene_path) {
+        for notice in fringeflow::simulate::scene::Scene::deprecations(&scene_path.display().to_string(), &text) {
+            fringeflow::output::warn(&notice);
+        }
+    }
+    let scene = match fringeflow::simulate::scene::Scene::from_file(scene_path) {
+        Ok(s) => s,
+        Err(e) => return fail(2, e),
+    };
+    if out.is_dir() {
+        return fail(2, format!("--out {}: is a folder; give the capture file to write, e.g. {}", out.display(), out.join("capture.h5").display()));
+    }
+    let started = std::time::Instant::now();
+    let bar = (!quiet && std::io::stderr().is_terminal()).then(|| {
+        let b = indicatif::ProgressBar::new(scene.frames as u64);
+        b.set_style(indicatif::ProgressStyle::with_template("{bar:40} {pos}/{len} frames simulated, {elapsed} elapsed, about {eta} left").unwrap());
+        b
+    });
+    let result = fringeflow::simulate::simulate_with_progress(&scene, out, &|done| {
+        if let Some(b) = &bar {
+            b.set_position(done as u64);
+        }
+    });
+    if let Some(b) = bar {
+        b.finish_and_clear();
+    }
+    match result {
+        Ok(_) => {
+            let truth = fringeflow::simulate::truth_path(out);
+            if json {
+                outln!(
+                    "{}",
+                    serde_json::json!({
+                        "scene": scene_path.display().to_string(),
+                        "capture": out.display().to_string(),
+                        "truth": truth.display().to_string(),
+                        "frames": scene.frames,
+                        "alines": scene.alines,
+                        "pixels": scene.spectrometer.pixels,
+                        "seconds": started.elapsed().as_secs_f64(),
+                    })
+                );
+            } else if !quiet {
+                errln!("wrote {} and {} ({:.1} s)", out.display(), truth.display(), started.elapsed().as_secs_f64());
+            }
+            ExitCode::SUCCESS
+        }
+        Err(e) => fail(1, format!("{e:#}")),
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: usize, no_scaling: bool, no_end_to_end: bool, no_simulator: bool, report_path: Option<PathBuf>, json: bool, quiet: bool) -> ExitCode {
+    if let Some(c) = &capture {
+        if !c.is_file() {
+            return fail(2, format!("--capture {}: no such file", c.display()));
+        }
+    }
+    let opts = fringeflow::throughput::BenchOptions {
+        capture,
+        work_dir,
+        alines,
+        repeats,
+        scaling: !no_scaling,
+        end_to_end: !no_end_to_end,
+        simulator: !no_simulator,
+        progress: !quiet && std::io::stderr().is_terminal(),
+    };
+    let report = match fringeflow::throughput::run_bench(&opts) {
+        Ok(r) => r,
+        Err(e) => return fail(1, format!("{e:#}")),
+    };
+    if json {
+        outln!("{}", serde_json::to_string_pretty(&report).unwrap());
+    } else {
+        out!("{}", report.render());
+    }
+    if let Some(path) = report_path {
+        let written = fringeflow::io::staging::write_atomically(&path, |tmp| {
+            std::fs::write(tmp, serde_json::to_vec_pretty(&report)?)?;
+            Ok(())
+        });
+        if let Err(e) = written {
+            return fail(1, format!("{}: {e:#}", path.display()));
+        }
+    }
+    ExitCode::SUCCESS
+}
+
+fn pipeline_command(command: PipelineCommand) -> ExitCode {
+    use fringeflow::pipeline::defaults;
+    match command {
+        PipelineCommand::Defaults => {
+            out!("{}", defaults::defaults_text());
+            ExitCode::SUCCESS
+        }
+        PipelineCommand::Check { file, overrides } => match load_pipeline(Some(&file), &overrides) {
+            Ok(c) => {
+                outln!("{}: valid (pipeline sha256 {})", file.display(), c.sha256());
+                ExitCode::SUCCESS
+            }
+            Err(code) => code,
+        },
+        PipelineCommand::Show { file, overrides, json } => {
+            let config = match load_pipeline(file.as_deref(), &overrides) {
+                Ok(c) => c,
+                Err(code) => return code,
+            };
+            if json {
+                outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "pipeline": config, "pipeline_sha256": config.sha256() })).unwrap());
+            } else {
+                let title = format!(
+                    "Resolved pipeline{}{} (sha256 {}): every key with the value `run` uses.",
+                    file.as_ref().map(|f| format!(" {}", f.display())).unwrap_or_else(|| " (built-in defaults)".into()),
+                    if overrides.is_empty() { String::new() } else { format!(" with --set {}", overrides.join(" --set ")) },
+                    config.sha256()
+                );
+                out!("{}", defaults::commented(&config, &title));
+            }
+            ExitCode::SUCCESS
+        }
+    }
+}
+
+fn man(out_dir: Option<&Path>) -> ExitCode {
+    let cmd = cli::command();
+    let render = |c: clap::Command| -> std::io::Result<Vec<u8>> {
+        let mut buf = Vec::new();
+        clap_mangen::Man::new(c).render(&mut buf)?;
+        Ok(buf)
+    };
+    let Some(dir) = out_dir else {
+        return match render(cmd) {
+            Ok(b) => {
+                out!("{}", String::from_utf8_lossy(&b));
+                ExitCode::SUCCESS
+            }
+            Err(e) => fail(1, e),
+        };
+    };
+    if let Err(e) = std::fs::create_dir_all(dir) {
+        return fail(1, format!("creating {}: {e}", dir.display()));
+    }
+    let mut cmd = cmd;
+    cmd.build();
+    let mut pages: Vec<(String, clap::Command)> = vec![("fringeflow.1".into(), cmd.clone())];
+    for sub in cmd.get_subcommands() {
+        let name = format!("fringeflow-{}", sub.get_name());
+        pages.push((format!("{name}.1"), sub.clone().name(name)));
+    }
+    for (file, c) in pages {
+        let path = dir.join(&file);
+        let written = render(c).map_err(anyhow::Error::from).and_then(|b| fringeflow::io::staging::write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &b)?)));
+        if let Err(e) = written {
+            return fail(1, format!("{}: {e:#}", path.display()));
+        }
+        if !quiet_flag() {
+            errln!("wrote {}", path.display());
+        }
+    }
+    ExitCode::SUCCESS
+}
+
+static QUIET: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+fn quiet_flag() -> bool {
+    QUIET.load(std::sync::atomic::Ordering::Relaxed)
+}
+
 fn main() -> ExitCode {
-    let cli = Cli::parse();
+    let matches = cli::command().get_matches();
+    let cli = match Cli::from_arg_matches(&matches) {
+        Ok(c) => c,
+        Err(e) => e.exit(),
+    };
+    QUIET.store(cli.quiet, std::sync::atomic::Ordering::Relaxed);
+    if let Some(n) = cli.threads {
+        if n == 0 {
+            return fail(2, "--threads: give a whole number of at least 1");
+        }
+        if let Err(e) = rayon::ThreadPoolBuilder::new().num_threads(n).build_global() {
+            return fail(1, format!("--threads: {e}"));
+        }
+    }
     // Single commands stop at the first signal (removing what they were
     // writing); `run` and `rerun` install their own graceful handling.
     if !matches!(cli.command, Command::Run { .. } | Command::Rerun { .. }) {
@@ -309,57 +651,42 @@ fn main() -> ExitCode {
             return fail(1, format!("{e:#}"));
         }
     }
+    let (quiet, verbose) = (cli.quiet, cli.verbose);
     match cli.command {
-        Command::Run { captures, list, pipeline, out, resume, shard, quiet, engine } => {
-            run(&captures, list.as_deref(), pipeline.as_deref(), &out, resume, shard.as_deref(), quiet, engine == cli::Engine::Reference)
-        }
-        Command::Rerun { log, out } => rerun(&log, &out),
-        Command::Summarize { dir } => summarize(&dir),
+        Command::Run { captures, list, pipeline, overrides, out, resume, overwrite, shard, dry_run, json, progress_json, engine } => run(RunRequest {
+            captures: &captures,
+            list: list.as_deref(),
+            pipeline: pipeline.as_deref(),
+            overrides: &overrides,
+            out: &out,
+            resume,
+            overwrite,
+            shard: shard.as_deref(),
+            dry_run,
+            json,
+            progress_json,
+            reference_engine: engine == cli::Engine::Reference,
+            quiet,
+            verbose,
+        }),
+        Command::Rerun { log, out, json } => rerun(&log, &out, json),
+        Command::Summarize { dir, json } => summarize(&dir, json),
         Command::SlurmScript { list, pipeline, out, tasks, cpus_per_task, mem, time, partition, job_name } => {
             slurm_script(&list, &pipeline, &out, tasks, cpus_per_task, &mem, &time, partition.as_deref(), &job_name)
         }
-        Command::Simulate { scene, out } => {
-            if let Ok(text) = std::fs::read_to_string(&scene) {
-                for notice in fringeflow::simulate::scene::Scene::deprecations(&scene.display().to_string(), &text) {
-                    fringeflow::output::warn(&notice);
-                }
-            }
-            let scene = match fringeflow::simulate::scene::Scene::from_file(&scene) {
-                Ok(s) => s,
-                Err(e) => return fail(2, e),
-            };
-            match fringeflow::simulate::simulate(&scene, &out) {
-                Ok(_) => {
-                    errln!("wrote {} and {}", out.display(), fringeflow::simulate::truth_path(&out).display());
-                    ExitCode::SUCCESS
-                }
-                Err(e) => fail(1, format!("{e:#}")),
-            }
-        }
+        Command::Simulate { scene, out, json } => simulate(&scene, &out, json, quiet),
         Command::Measure(m) => measure(m),
-        Command::Bench { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, json } => {
-            let opts = fringeflow::throughput::BenchOptions { capture, work_dir, alines, repeats, scaling: !no_scaling, end_to_end: !no_end_to_end };
-            match fringeflow::throughput::run_bench(&opts) {
-                Ok(report) => {
-                    out!("{}", report.render());
-                    if let Some(path) = json {
-                        let written = fringeflow::io::staging::write_atomically(&path, |tmp| {
-                            std::fs::write(tmp, serde_json::to_vec_pretty(&report)?)?;
-                            Ok(())
-                        });
-                        if let Err(e) = written {
-                            return fail(1, format!("{}: {e:#}", path.display()));
-                        }
-                    }
-                    ExitCode::SUCCESS
-                }
-                Err(e) => fail(1, format!("{e:#}")),
-            }
+        Command::Bench { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, report, json } => {
+            bench(capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, report, json, quiet)
         }
         Command::Calibrate(c) => calibration_commands::calibrate(c),
         Command::Dispersion(c) => calibration_commands::dispersion(c),
         Command::Design { centre_nm, fwhm_nm, span_nm, pixel_width_nm, pixels, group_index, resolution_nm, json } => {
-            let span = span_nm.unwrap_or_else(|| pixel_width_nm.unwrap_or(0.0) * pixels as f64);
+            let span = match (span_nm, pixel_width_nm) {
+                (Some(s), None) => s,
+                (None, Some(w)) => w * pixels as f64,
+                _ => return fail(2, "design: give one of --span-nm, --pixel-width-nm"),
+            };
             let values = [centre_nm, fwhm_nm, span, group_index, resolution_nm.unwrap_or(1.0)];
             if values.iter().any(|v| !(v.is_finite() && *v > 0.0)) || pixels < 2 {
                 return fail(2, "design: wavelengths, span, group index and resolution must be positive numbers, and pixels at least 2");
@@ -379,14 +706,18 @@ fn main() -> ExitCode {
             }
             ExitCode::SUCCESS
         }
-        Command::Inspect { capture, pipeline } => {
-            let config = match load_pipeline(pipeline.as_deref()) {
+        Command::Inspect { capture, pipeline, json } => {
+            let config = match load_pipeline(pipeline.as_deref(), &[]) {
                 Ok(c) => c,
                 Err(code) => return code,
             };
             match fringeflow::inspect::inspect(&capture, &config.input) {
                 Ok(report) => {
-                    out!("{}", report.render(&capture));
+                    if json {
+                        outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "capture": capture.display().to_string(), "inspection": report })).unwrap());
+                    } else {
+                        out!("{}", report.render(&capture));
+                    }
                     if report.problems.is_empty() {
                         ExitCode::SUCCESS
                     } else {
@@ -396,5 +727,14 @@ fn main() -> ExitCode {
                 Err(e) => fail(1, format!("{}: {e:#}", capture.display())),
             }
         }
+        Command::Pipeline(c) => pipeline_command(c),
+        Command::Completions { shell } => {
+            let mut cmd = cli::command();
+            let mut buf = Vec::new();
+            clap_complete::generate(shell, &mut cmd, "fringeflow", &mut buf);
+            out!("{}", String::from_utf8_lossy(&buf));
+            ExitCode::SUCCESS
+        }
+        Command::Man { out_dir } => man(out_dir.as_deref()),
     }
 }

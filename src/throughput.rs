@@ -40,6 +40,10 @@ pub struct BenchOptions {
     pub scaling: bool,
     /// Also time `run` end to end.
     pub end_to_end: bool,
+    /// Also time the simulator against its scalar reference.
+    pub simulator: bool,
+    /// Show a progress bar while the bench capture is simulated.
+    pub progress: bool,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -141,6 +145,7 @@ fn machine() -> Machine {
 /// The bench capture: the given one, or the embedded scene simulated once.
 fn bench_capture(opts: &BenchOptions) -> Result<PathBuf> {
     if let Some(c) = &opts.capture {
+        anyhow::ensure!(c.is_file(), "--capture {}: no such file", c.display());
         return Ok(c.clone());
     }
     std::fs::create_dir_all(&opts.work_dir).with_context(|| format!("creating {}", opts.work_dir.display()))?;
@@ -148,7 +153,19 @@ fn bench_capture(opts: &BenchOptions) -> Result<PathBuf> {
     if !path.exists() {
         eprintln!("simulating the bench capture {} (once)", path.display());
         let scene = crate::simulate::scene::Scene::from_str("benches/throughput-scene.toml", SCENE)?;
-        crate::simulate::simulate(&scene, &path)?;
+        let bar = opts.progress.then(|| {
+            let b = indicatif::ProgressBar::new(scene.frames as u64);
+            b.set_style(indicatif::ProgressStyle::with_template("  {bar:40} {pos}/{len} frames simulated, about {eta} left").unwrap());
+            b
+        });
+        crate::simulate::simulate_with_progress(&scene, &path, &|done| {
+            if let Some(b) = &bar {
+                b.set_position(done as u64);
+            }
+        })?;
+        if let Some(b) = bar {
+            b.finish_and_clear();
+        }
     }
     Ok(path)
 }
@@ -299,7 +316,7 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
     };
 
     let contrast = time_contrast(&config, &capture, &plan, &frames, opts, pipe_rate)?;
-    let simulator = if opts.end_to_end { Some(time_simulator(opts)?) } else { None };
+    let simulator = if opts.simulator { Some(time_simulator(opts)?) } else { None };
 
     Ok(BenchReport {
         contrast,

@@ -80,9 +80,20 @@ impl Counts {
     }
 }
 
+/// Version of the batch summary's layout (batch*.json, summary.json):
+/// raised when a field changes meaning or goes away.
+pub const BATCH_FORMAT_VERSION: u32 = 1;
+
+fn format_version_before_it_was_recorded() -> u32 {
+    0
+}
+
 /// Contents of batch.json.
 #[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct BatchReport {
+    /// [`BATCH_FORMAT_VERSION`] of the writer (0: written before it was recorded).
+    #[serde(default = "format_version_before_it_was_recorded")]
+    pub format_version: u32,
     pub tool_version: String,
     pub shard: Shard,
     /// Captures in the whole (unsharded) input list.
@@ -155,8 +166,24 @@ pub struct BatchOptions {
     pub terminal: bool,
     pub shard: Shard,
     pub inputs_total: usize,
-    /// Use the plain f64 stage chain instead of the fused fast path.
+    /// Use the plain f64 stage chain instead of the fused f32 fast path.
     pub reference_engine: bool,
+    /// Per-capture detail in the status lines (frames, rate, background method).
+    pub verbose: bool,
+    /// One JSON object per capture on stdout as it finishes.
+    pub json: bool,
+    /// JSON-lines progress events on stderr instead of bars and status lines.
+    pub progress_json: bool,
+}
+
+/// One line of the `--progress-json` stream on stderr.
+fn progress_event(event: &str, fields: serde_json::Value) {
+    let mut object = serde_json::Map::new();
+    object.insert("event".into(), event.into());
+    if let serde_json::Value::Object(f) = fields {
+        object.extend(f);
+    }
+    crate::output::note(&serde_json::Value::Object(object).to_string());
 }
 
 /// Name of the batch summary for a shard.
@@ -168,7 +195,7 @@ pub fn report_name(shard: Shard) -> String {
     }
 }
 
-fn process_one(input: &Path, config: &PipelineConfig, out: &Path, ctx: RunContext<'_>) -> CaptureRecord {
+fn process_one(input: &Path, config: &PipelineConfig, out: &Path, ctx: RunContext<'_>) -> (CaptureRecord, Option<String>) {
     let name = output_name(input);
     let started = std::time::Instant::now();
     let result = match crate::io::staging::output_name_problem(&name) {
@@ -186,19 +213,29 @@ fn process_one(input: &Path, config: &PipelineConfig, out: &Path, ctx: RunContex
             for w in &o.warnings {
                 crate::output::warn(&format!("{input}: {w}"));
             }
-            record(
+            let detail = (!o.skipped).then(|| {
+                format!(
+                    "{} frames × {} A-lines, {:.0} A-lines/s, background {}",
+                    o.frames,
+                    o.alines,
+                    (o.frames * o.alines) as f64 / o.seconds.max(1e-9),
+                    o.background_method.as_deref().unwrap_or("-")
+                )
+            });
+            let r = record(
                 if o.skipped { Status::Skipped } else { Status::Done },
                 o.skipped.then(|| "up to date (same input SHA-256 and pipeline)".to_string()),
                 Some(o.output_dir.display().to_string()),
                 o.warnings.len(),
-            )
+            );
+            (r, detail)
         }
-        Err(e) if e.is::<Interrupted>() => record(Status::NotRun, Some(e.to_string()), None, 0),
-        Err(e) if e.is::<lock::HeldByAnother>() => record(Status::Held, Some(format!("held by another run: {e}")), None, 0),
+        Err(e) if e.is::<Interrupted>() => (record(Status::NotRun, Some(e.to_string()), None, 0), None),
+        Err(e) if e.is::<lock::HeldByAnother>() => (record(Status::Held, Some(format!("held by another run: {e}")), None, 0), None),
         Err(e) => {
             let mut r = record(Status::Failed, Some(format!("{e:#}").replace('\n', " ")), None, 0);
             r.error_kind = Some(crate::errors::kind_of(&e).to_string());
-            r
+            (r, None)
         }
     }
 }
@@ -206,7 +243,10 @@ fn process_one(input: &Path, config: &PipelineConfig, out: &Path, ctx: RunContex
 /// Runs every capture, in parallel, and writes the batch summary.
 pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts: &BatchOptions, stop: &StopSignals) -> Result<BatchReport> {
     std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
-    let show_bars = opts.terminal && !opts.quiet;
+    let show_bars = opts.terminal && !opts.quiet && !opts.progress_json;
+    if opts.progress_json {
+        progress_event("start", serde_json::json!({ "captures": captures.len(), "out": out.display().to_string() }));
+    }
     let multi = MultiProgress::new();
     let overall = show_bars.then(|| {
         let total: u64 = captures
@@ -230,15 +270,40 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
                 b.set_message(input.display().to_string());
                 b
             });
-            let ctx = RunContext { progress: overall.as_ref(), capture_progress: own.as_ref(), cancel: Some(&stop.any), resume: opts.resume, reference_engine: opts.reference_engine };
-            let record = process_one(input, config, out, ctx);
+            let name = input.display().to_string();
+            let tell = |done: usize, total: usize| progress_event("frame", serde_json::json!({ "input": name, "done": done, "frames": total }));
+            if opts.progress_json {
+                progress_event("capture_start", serde_json::json!({ "input": name }));
+            }
+            let ctx = RunContext {
+                progress: overall.as_ref(),
+                capture_progress: own.as_ref(),
+                cancel: Some(&stop.any),
+                resume: opts.resume,
+                reference_engine: opts.reference_engine,
+                on_frame: opts.progress_json.then_some(&tell as &(dyn Fn(usize, usize) + Sync)),
+            };
+            let (record, detail) = process_one(input, config, out, ctx);
+            if opts.progress_json {
+                progress_event("capture_end", serde_json::to_value(&record).unwrap_or_default());
+            }
+            if opts.json {
+                let mut line = serde_json::Map::new();
+                line.insert("kind".into(), "capture".into());
+                if let Ok(serde_json::Value::Object(fields)) = serde_json::to_value(&record) {
+                    line.extend(fields);
+                }
+                crate::output::println(&serde_json::Value::Object(line).to_string());
+            }
             if let Some(b) = own {
                 b.finish_and_clear();
                 multi.remove(&b);
             }
-            // Failures are reported even when quiet.
-            if !opts.quiet || matches!(record.status, Status::Failed) {
+            // One status line per capture on stderr; failures even when quiet
+            // (the JSON-lines stream carries them instead).
+            if !opts.progress_json && (!opts.quiet || matches!(record.status, Status::Failed)) {
                 let line = match record.status {
+                    Status::Done if opts.verbose => format!("done    {} → {} ({:.2} s; {})", record.input, record.output.as_deref().unwrap_or(""), record.seconds, detail.as_deref().unwrap_or("")),
                     Status::Done => format!("done    {} → {} ({:.2} s)", record.input, record.output.as_deref().unwrap_or(""), record.seconds),
                     Status::Skipped => format!("skipped {}: {}", record.input, record.reason.as_deref().unwrap_or("")),
                     Status::Failed => format!("fringeflow: error: {}: {}", record.input, record.reason.as_deref().unwrap_or("")),
@@ -259,6 +324,7 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
     }
     let counts = Counts::tally(&records);
     let report = BatchReport {
+        format_version: BATCH_FORMAT_VERSION,
         tool_version: env!("CARGO_PKG_VERSION").into(),
         shard: opts.shard,
         inputs_total: opts.inputs_total,
@@ -269,6 +335,9 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
     };
     let path = out.join(report_name(opts.shard));
     let report = write_merged_report(&path, report)?;
+    if opts.progress_json {
+        progress_event("end", serde_json::json!({ "counts": report.counts, "summary": path.display().to_string(), "interrupted": report.interrupted }));
+    }
     Ok(report)
 }
 
@@ -308,7 +377,13 @@ fn write_merged_report(path: &Path, mut report: BatchReport) -> Result<BatchRepo
 }
 
 impl BatchReport {
-    /// The end-of-run table.
+    /// The counts line `run` prints at the end (the captures were each
+    /// reported on stderr as they finished).
+    pub fn render_counts(&self) -> String {
+        self.render().lines().last().unwrap_or("").to_string() + "\n"
+    }
+
+    /// The table `summarize` prints: a line per capture, then the counts.
     pub fn render(&self) -> String {
         let mut s = String::new();
         for r in &self.captures {
@@ -372,6 +447,7 @@ pub fn merge_reports(dir: &Path) -> Result<(BatchReport, Vec<String>)> {
     }
     let counts = Counts::tally(&captures);
     let merged = BatchReport {
+        format_version: BATCH_FORMAT_VERSION,
         tool_version: reports[0].tool_version.clone(),
         shard: Shard::WHOLE,
         inputs_total: reports[0].inputs_total,

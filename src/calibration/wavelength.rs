@@ -222,6 +222,40 @@ fn bisect(mut lo: f64, mut hi: f64, f: impl Fn(f64) -> f64) -> Option<f64> {
     Some(0.5 * (lo + hi))
 }
 
+/// The argument checks of a calibration: the degree, exactly two scale
+/// hints, one depth per mirror. Run before any capture is read, so that a
+/// wrong command line is a usage error.
+pub fn check_hints(mirrors: usize, hints: &ScaleHints, degree: usize) -> Result<()> {
+    if mirrors == 0 {
+        bail!("no mirror captures given");
+    }
+    if !(1..=9).contains(&degree) {
+        bail!("polynomial degree {degree}: need 1 to 9");
+    }
+    let given = [hints.centre_nm.is_some(), hints.span_nm.is_some(), hints.depths_um.is_some()];
+    if given.iter().filter(|&&g| g).count() != 2 {
+        bail!("give exactly two of --centre-nm, --span-nm and --depths-um to fix the wavelength scale");
+    }
+    if let Some(d) = &hints.depths_um {
+        if d.len() != mirrors {
+            bail!("--depths-um has {} values for {} mirror captures", d.len(), mirrors);
+        }
+        if d.iter().any(|z| !(z.is_finite() && *z > 0.0)) {
+            bail!("--depths-um values must be positive");
+        }
+    }
+    for v in [hints.centre_nm, hints.span_nm].into_iter().flatten() {
+        if !(v.is_finite() && v > 0.0) {
+            bail!("--centre-nm and --span-nm must be positive");
+        }
+    }
+    if mirrors == 1 && hints.depths_um.is_none() {
+        bail!("one mirror capture needs its depth (--depths-um) and the centre wavelength");
+    }
+
+    Ok(())
+}
+
 /// Estimates the wavelength map from mirror spectra (each background-free,
 /// pixel order), their file records, the scale hints and the degree of the
 /// polynomial fit.
@@ -233,29 +267,7 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
     if let Some(i) = spectra.iter().position(|s| s.len() != pixels) {
         bail!("{} has {} pixels but {} has {pixels}", inputs[i].path.display(), spectra[i].len(), inputs[0].path.display());
     }
-    if !(1..=9).contains(&degree) {
-        bail!("polynomial degree {degree}: need 1 to 9");
-    }
-    let given = [hints.centre_nm.is_some(), hints.span_nm.is_some(), hints.depths_um.is_some()];
-    if given.iter().filter(|&&g| g).count() != 2 {
-        bail!("give exactly two of --centre-nm, --span-nm and --depths-um to fix the wavelength scale");
-    }
-    if let Some(d) = &hints.depths_um {
-        if d.len() != spectra.len() {
-            bail!("--depths-um has {} values for {} mirror captures", d.len(), spectra.len());
-        }
-        if d.iter().any(|z| !(z.is_finite() && *z > 0.0)) {
-            bail!("--depths-um values must be positive");
-        }
-    }
-    for v in [hints.centre_nm, hints.span_nm].into_iter().flatten() {
-        if !(v.is_finite() && v > 0.0) {
-            bail!("--centre-nm and --span-nm must be positive");
-        }
-    }
-    if spectra.len() == 1 && hints.depths_um.is_none() {
-        bail!("one mirror capture needs its depth (--depths-um) and the centre wavelength");
-    }
+    check_hints(spectra.len(), hints, degree)?;
 
     let mut phases = Vec::new();
     for (s, input) in spectra.iter().zip(inputs.iter()) {

@@ -184,7 +184,10 @@ fn open_hdf5_with(path: &Path, chunk_cache: Option<(usize, usize)>) -> Result<hd
     opened.map_err(|e| {
         let detail = e.to_string();
         if detail.contains("signature not found") {
-            anyhow!("not an HDF5 file (no HDF5 signature)")
+            match crate::io::toml_file::kind_hint(crate::io::toml_file::sniff(path)) {
+                Some(hint) => anyhow!("not an HDF5 file (no HDF5 signature): {hint}"),
+                None => anyhow!("not an HDF5 file (no HDF5 signature)"),
+            }
         } else if detail.contains("truncated file") {
             anyhow!("truncated HDF5 file ({} bytes on disk, fewer than its header records)", meta.len())
         } else if detail.contains("superblock") || detail.contains("bad object header") || detail.contains("unable to load") || detail.contains("checksum") {
@@ -226,6 +229,42 @@ fn frame_chunk_cache(ds: &Dataset, axes: &[AxisName]) -> Option<(usize, usize)> 
     let slots = [10_007usize, 100_003, 1_000_003].into_iter().find(|&p| p >= 100 * per_frame.max(1)).unwrap_or(1_000_003);
     Some((bytes, slots))
 }
+/// The capture's 2-D and 3-D datasets and the key that names the fringes,
+/// for a "dataset not found" error.
+fn dataset_hint(file: &hdf5::File) -> String {
+    let mut sets = Vec::new();
+    crate::inspect::collect_datasets(file, "", &mut sets, &mut Vec::new());
+    let candidates: Vec<String> = sets.iter().filter(|(_, d)| matches!(d.ndim(), 2 | 3)).map(|(n, d)| format!("{n} {:?}", d.shape())).collect();
+    match candidates.first() {
+        None => "the capture has no 2-D or 3-D dataset (fringes are (A-lines, pixels) or (frames, A-lines, pixels))".to_string(),
+        Some(first) => {
+            let name = first.split(' ').next().unwrap_or("/fringes");
+            format!(
+                "the capture's 2-D/3-D datasets: {}; name the fringes with `fringes = \"{name}\"` in the pipeline's [input] section (or --set input.fringes={name})",
+                candidates.join(", ")
+            )
+        }
+    }
+}
+
+/// A suggestion of `input.axes` when the fringe dataset looks transposed:
+/// the spectra seem to run along another axis (the longest one, or the one
+/// as long as the wavelength map).
+fn transposed_hint(shape: &[usize], axes: &[AxisName], map_len: Option<usize>) -> String {
+    let pixel_axis = match map_len {
+        Some(n) => shape.iter().position(|&s| s == n),
+        None => shape.iter().enumerate().max_by_key(|(_, s)| **s).map(|(i, _)| i),
+    };
+    let Some(p) = pixel_axis.filter(|&p| axes.get(p) != Some(&AxisName::Pixel)) else { return String::new() };
+    let mut order: Vec<&str> = match shape.len() {
+        3 => vec!["frame", "aline"],
+        _ => vec!["aline"],
+    };
+    order.insert(p.min(order.len()), "pixel");
+    let list = order.iter().map(|a| format!("\"{a}\"")).collect::<Vec<_>>().join(", ");
+    format!("; the layout {shape:?} looks transposed (spectra along axis {p}): set `axes = [{list}]` in the pipeline's [input] section")
+}
+
 fn open_dataset(file: &hdf5::File, name: &str) -> Option<Dataset> {
     if file.link_exists(name.trim_start_matches('/')) || file.link_exists(name) {
         file.dataset(name).ok()
@@ -283,8 +322,7 @@ impl Capture {
     /// Opens and validates a capture according to the pipeline's input settings.
     pub fn open(path: &Path, input: &InputConfig) -> Result<Self> {
         let file = open_hdf5(path)?;
-        let fringes = open_dataset(&file, &input.fringes)
-            .ok_or_else(|| anyhow!("dataset '{}' not found", input.fringes))?;
+        let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)))?;
         let shape = fringes.shape();
         let axes = match &input.axes {
             Some(a) => a.clone(),
@@ -310,7 +348,7 @@ impl Capture {
             bail!("dataset '{}' is empty (shape {:?})", input.fringes, shape);
         }
         if pixels < 16 {
-            bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16", input.fringes);
+            bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16{}", input.fringes, transposed_hint(&shape, &axes, None));
         }
         // Captures stored in chunks of several frames: reopen with a chunk
         // cache that holds a frame's chunks.
@@ -368,6 +406,13 @@ impl Capture {
             WavelengthSource::Polynomial { .. } => "input.wavelength_poly_nm".to_string(),
             WavelengthSource::Calibration { path, .. } => format!("from calibration {path}"),
         };
+        if wavelength_nm.len() != pixels && shape.contains(&wavelength_nm.len()) {
+            bail!(
+                "wavelength map {source_name} has {} values but the fringes have {pixels} pixels{}",
+                wavelength_nm.len(),
+                transposed_hint(&shape, &axes, Some(wavelength_nm.len()))
+            );
+        }
         check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
 
         let background = match open_dataset(&file, &input.background) {

@@ -138,8 +138,130 @@ pub fn parse<T: DeserializeOwned>(file: &str, text: &str) -> Result<T, ConfigErr
             Some(key) if !message.starts_with("unknown key") => format!("{key}: {message}"),
             _ => message,
         };
+        let message = match closest_suggestion(&message) {
+            Some(best) => format!("{message}; did you mean \"{best}\"?"),
+            None => message,
+        };
         ConfigError { file: file.to_string(), line, message }
     })
+}
+
+/// For "unknown key "x", expected one of "a", "b" …" (and unknown values):
+/// the expected name closest to the one given, when it is close enough to
+/// be a typo (edit distance at most 2, or a third of the name).
+pub fn closest_suggestion(message: &str) -> Option<String> {
+    let rest = message.strip_prefix("unknown key ").or_else(|| message.split_once("unknown value ").map(|(_, r)| r))?;
+    let quoted: Vec<&str> = rest.split('"').skip(1).step_by(2).collect();
+    let (given, expected) = quoted.split_first()?;
+    let limit = (given.chars().count() / 3).max(2);
+    expected
+        .iter()
+        .map(|e| (edit_distance(&given.to_lowercase(), &e.to_lowercase()), *e))
+        .filter(|(d, _)| *d <= limit)
+        .min_by_key(|(d, _)| *d)
+        .map(|(_, e)| e.to_string())
+}
+
+/// Levenshtein distance (insertions, deletions, substitutions).
+pub fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut row: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut diagonal = row[0];
+        row[0] = i + 1;
+        for (j, cb) in b.iter().enumerate() {
+            let next = (diagonal + usize::from(ca != *cb)).min(row[j] + 1).min(row[j + 1] + 1);
+            diagonal = row[j + 1];
+            row[j + 1] = next;
+        }
+    }
+    row[b.len()]
+}
+
+/// What a file given on the command line looks like, for errors that say
+/// which command takes it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FileKind {
+    Hdf5,
+    /// A TOML file with the simulator's scene keys.
+    Scene,
+    /// A TOML file with pipeline sections.
+    Pipeline,
+    /// A processing log (JSON).
+    Log,
+    Other,
+}
+
+/// Looks at the first bytes (and for text, the top-level keys).
+pub fn sniff(path: &Path) -> FileKind {
+    let Ok(bytes) = std::fs::read(path) else { return FileKind::Other };
+    if bytes.starts_with(b"\x89HDF\r\n\x1a\n") {
+        return FileKind::Hdf5;
+    }
+    let Ok(text) = std::str::from_utf8(&bytes) else { return FileKind::Other };
+    if text.trim_start().starts_with('{') {
+        return match serde_json::from_str::<serde_json::Value>(text) {
+            Ok(v) if v.get("pipeline").is_some() && v.get("input").is_some() => FileKind::Log,
+            _ => FileKind::Other,
+        };
+    }
+    let Ok(table) = text.parse::<toml::Table>() else { return FileKind::Other };
+    const SCENE: [&str; 7] = ["alines", "frames", "background_lines", "source", "spectrometer", "detector", "reflector"];
+    const PIPELINE: [&str; 12] = ["input", "background", "k_linearization", "window", "fft", "log_compression", "output", "volume", "shaping", "registration", "doppler", "angiography"];
+    if table.keys().any(|k| SCENE.contains(&k.as_str())) {
+        FileKind::Scene
+    } else if table.keys().any(|k| PIPELINE.contains(&k.as_str())) {
+        FileKind::Pipeline
+    } else {
+        FileKind::Other
+    }
+}
+
+/// Which command takes a file of this kind (for "wrong file" errors).
+pub fn kind_hint(kind: FileKind) -> Option<&'static str> {
+    match kind {
+        FileKind::Hdf5 => Some("it is an HDF5 capture: give it to `fringeflow run`, `inspect` or `measure` as a capture argument"),
+        FileKind::Scene => Some("it is a scene file for the simulator: make a capture from it with `fringeflow simulate SCENE --out capture.h5`"),
+        FileKind::Pipeline => Some("it is a pipeline file: give it with --pipeline (-p)"),
+        FileKind::Log => Some("it is a processing log: reproduce its output with `fringeflow rerun LOG --out DIR`"),
+        FileKind::Other => None,
+    }
+}
+
+/// Applies `section.key=value` overrides to TOML text. The value is read as
+/// TOML (`2.5`, `true`, `[1, 2]`, `"hann"`), else taken as text, so
+/// `window.kind=hann` works unquoted. Returns the text unchanged when there
+/// are none.
+pub fn apply_overrides(file: &str, text: &str, overrides: &[String]) -> Result<String, ConfigError> {
+    if overrides.is_empty() {
+        return Ok(text.to_string());
+    }
+    let err = |message: String| ConfigError { file: file.to_string(), line: None, message };
+    let mut table: toml::Table = parse(file, text)?;
+    for o in overrides {
+        let Some((path, value)) = o.split_once('=') else {
+            return Err(err(format!("--set {o}: expected SECTION.KEY=VALUE")));
+        };
+        let keys: Vec<&str> = path.trim().split('.').map(str::trim).collect();
+        if keys.iter().any(|k| k.is_empty()) {
+            return Err(err(format!("--set {o}: expected SECTION.KEY=VALUE")));
+        }
+        let value = value.trim();
+        let value = match format!("v = {value}").parse::<toml::Table>() {
+            Ok(mut t) => t.remove("v").unwrap_or_else(|| toml::Value::String(value.to_string())),
+            Err(_) => toml::Value::String(value.to_string()),
+        };
+        let mut here = &mut table;
+        for k in &keys[..keys.len() - 1] {
+            let entry = here.entry(k.to_string()).or_insert_with(|| toml::Value::Table(toml::Table::new()));
+            here = match entry {
+                toml::Value::Table(t) => t,
+                _ => return Err(err(format!("--set {o}: {k} is a value, not a section"))),
+            };
+        }
+        here.insert(keys[keys.len() - 1].to_string(), value);
+    }
+    toml::to_string(&table).map_err(|e| err(format!("--set: {e}")))
 }
 
 /// Reads a text file: (its name for messages, its text).

@@ -632,12 +632,25 @@ impl PipelineConfig {
 impl PipelineConfig {
     /// Reads a pipeline file and checks the settings that involve several keys.
     pub fn from_file(path: &Path) -> Result<Self, ConfigError> {
-        let (mut config, text): (PipelineConfig, String) = toml_file::read(path)?;
+        Self::from_file_with(path, &[])
+    }
+
+    /// The same with `section.key=value` overrides applied to the file's
+    /// text before parsing (the command line's `--set`).
+    pub fn from_file_with(path: &Path, overrides: &[String]) -> Result<Self, ConfigError> {
+        let kind = toml_file::sniff(path);
+        if matches!(kind, toml_file::FileKind::Hdf5 | toml_file::FileKind::Scene | toml_file::FileKind::Log) {
+            let hint = toml_file::kind_hint(kind).unwrap_or_default();
+            return Err(ConfigError { file: path.display().to_string(), line: None, message: format!("not a pipeline file: {hint}") });
+        }
+        let (file, original) = toml_file::read_text(path)?;
+        let text = toml_file::apply_overrides(&file, &original, overrides)?;
+        let mut config: PipelineConfig = toml_file::parse(&file, &text)?;
         config.check(&path.display().to_string(), &text)?;
         config.deprecations = toml_file::deprecated_names(&path.display().to_string(), &text, PIPELINE_RENAMES);
         // Preset files kept under an old name say so on their first line.
-        if let Some(first) = text.lines().next().filter(|l| l.starts_with("# Deprecated name:")) {
-            let rest: String = text.lines().take(2).map(|l| l.trim_start_matches('#').trim()).collect::<Vec<_>>().join(" ");
+        if let Some(first) = original.lines().next().filter(|l| l.starts_with("# Deprecated name:")) {
+            let rest: String = original.lines().take(2).map(|l| l.trim_start_matches('#').trim()).collect::<Vec<_>>().join(" ");
             let _ = first;
             config.deprecations.push(format!("{}: {rest}", path.display()));
         }
@@ -653,6 +666,21 @@ impl PipelineConfig {
             }
         }
         config.check_files(&path.display().to_string(), &text)?;
+        Ok(config)
+    }
+
+    /// The built-in defaults with `section.key=value` overrides (`--set`
+    /// without a pipeline file); a relative calibration path is taken from
+    /// the current directory.
+    pub fn from_overrides(overrides: &[String]) -> Result<Self, ConfigError> {
+        let name = "--set";
+        let text = toml_file::apply_overrides(name, "", overrides)?;
+        let mut config = Self::from_str(name, &text)?;
+        if let Some(c) = &config.input.calibration {
+            let p = Path::new(c);
+            config.input.calibration = Some(std::path::absolute(p).unwrap_or_else(|_| p.to_path_buf()).display().to_string());
+        }
+        config.check_files(name, &text)?;
         Ok(config)
     }
 

@@ -889,6 +889,21 @@ impl FusedPlan {
     }
 }
 
+/// The vector kernels the fast path will run on this CPU (for `--version`
+/// and the bench report).
+pub fn simd_path() -> &'static str {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if lane_fft_available() {
+            return "AVX-512 lane FFT (AVX-512F/BW, AVX2, FMA)";
+        }
+        if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+            return "AVX2 + FMA";
+        }
+    }
+    "portable (no AVX2)"
+}
+
 /// Whether this CPU runs the lane FFT path (AVX-512F/BW besides AVX2 and FMA).
 fn lane_fft_available() -> bool {
     #[cfg(target_arch = "x86_64")]

@@ -2,6 +2,7 @@
 //! into precomputed stages and runs frames through them ([`plan`]).
 
 pub mod config;
+pub mod defaults;
 pub mod fused;
 pub mod lane_fft;
 pub mod plan;

@@ -139,6 +139,9 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
             for p in [ctx.progress, ctx.capture_progress].into_iter().flatten() {
                 p.inc(1);
             }
+            if let Some(tell) = ctx.on_frame {
+                tell(f + 1, capture.frames);
+            }
             repeats.push(RepeatFrame { index: f, db, complex, sub_bands, saturated, amplitude });
             if repeats.len() < average {
                 continue;

@@ -44,6 +44,8 @@ pub struct CaptureOutcome {
     pub skipped: bool,
     /// The warnings log.json records.
     pub warnings: Vec<String>,
+    /// The background method the plan chose (`auto` resolved), when processed.
+    pub background_method: Option<String>,
 }
 
 /// The run was stopped by a signal; nothing of this capture was kept.
@@ -64,6 +66,9 @@ pub struct RunContext<'a> {
     pub resume: bool,
     /// Use the plain f64 stage chain instead of the fused f32 fast path.
     pub reference_engine: bool,
+    /// Called after each frame with (frames done, frames in the capture):
+    /// the batch's JSON-lines progress stream.
+    pub on_frame: Option<&'a (dyn Fn(usize, usize) + Sync)>,
 }
 
 /// Name of the output directory of a capture: its file stem.
@@ -81,6 +86,35 @@ pub fn peak_resident_mb() -> Option<f64> {
 
 /// True when `dir/log.json` records this input hash and pipeline hash and
 /// every output it lists exists.
+/// The pipeline hash recorded by an existing output directory's log.json,
+/// when there is one (what `run` compares before replacing outputs).
+pub fn recorded_pipeline(dir: &Path) -> Option<String> {
+    let bytes = std::fs::read(dir.join("log.json")).ok()?;
+    let log = serde_json::from_slice::<serde_json::Value>(&bytes).ok()?;
+    log["pipeline_sha256"].as_str().map(String::from)
+}
+
+/// What `run` would do with `input` (for `--dry-run`): Ok(true) when
+/// `--resume` would skip it as up to date, Ok(false) when it would be
+/// processed, Err when it would fail before processing (the reason).
+pub fn would_skip(input: &Path, config: &PipelineConfig, out_root: &Path, resume: bool) -> Result<bool> {
+    let capture = Capture::open(input, &config.input)?;
+    let name = output_name(input);
+    if let Some(problem) = crate::io::staging::output_name_problem(&name) {
+        bail!("{problem}");
+    }
+    crate::io::staging::check_replaceable(&out_root.join(&name))?;
+    let frames = capture.frames;
+    if frames % config.volume.average != 0 {
+        bail!("the capture has {frames} frames, not a multiple of volume.average = {}", config.volume.average);
+    }
+    if !resume {
+        return Ok(false);
+    }
+    let sha = hash::input_hash(input).with_context(|| format!("hashing {}", input.display()))?;
+    Ok(up_to_date(&out_root.join(&name), &sha, &config.sha256()))
+}
+
 fn up_to_date(dir: &Path, sha256: &str, pipeline_sha256: &str) -> bool {
     let Ok(bytes) = std::fs::read(dir.join("log.json")) else { return false };
     let Ok(log) = serde_json::from_slice::<serde_json::Value>(&bytes) else { return false };
@@ -367,7 +401,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             if let Some(p) = ctx.progress {
                 p.inc(frames as u64);
             }
-            return Ok(CaptureOutcome { output_dir: out_root.join(output_name(input)), frames, alines, seconds: 0.0, skipped: true, warnings: Vec::new() });
+            return Ok(CaptureOutcome { output_dir: out_root.join(output_name(input)), frames, alines, seconds: 0.0, skipped: true, warnings: Vec::new(), background_method: None });
         }
     };
     // The input's SHA-256 is computed on its own thread while the frames
@@ -425,6 +459,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     outputs.push("log.json".into());
     let write_s = written.write_seconds + t.elapsed().as_secs_f64();
 
+    let background_method = serde_json::to_value(planned.plan.summary.background_method).ok().and_then(|v| v.as_str().map(String::from));
     let contrast = contrast_record(config, &planned, &mut written);
     let total = started.elapsed().as_secs_f64();
     let log = ProcessingLog {
@@ -474,7 +509,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         return Err(Interrupted.into());
     }
     let output_dir = staging.commit()?;
-    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false, warnings })
+    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false, warnings, background_method })
 }
 
 /// The log's contrast section, when any contrast stage ran.

@@ -410,6 +410,12 @@ impl Scene {
     }
 
     pub fn from_file(path: &std::path::Path) -> Result<Scene, ConfigError> {
+        use crate::io::toml_file::{kind_hint, sniff, FileKind};
+        let kind = sniff(path);
+        if matches!(kind, FileKind::Hdf5 | FileKind::Pipeline | FileKind::Log) {
+            let hint = kind_hint(kind).unwrap_or_default();
+            return Err(ConfigError { file: path.display().to_string(), line: None, message: format!("not a scene file: {hint}") });
+        }
         let (name, text) = crate::io::toml_file::read_text(path)?;
         Scene::from_str(&name, &text)
     }

@@ -16,6 +16,8 @@ use super::{ALine, FrameContext, Stage};
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum WindowKind {
+    /// Also accepted as "hanning", the common synonym.
+    #[serde(alias = "hanning")]
     Hann,
     Hamming,
     Blackman,
