@@ -167,13 +167,27 @@ fn bench_report_runs_on_a_small_capture() {
         .arg(&capture)
         .arg("--work-dir")
         .arg(dir.path().join("work"))
-        .arg("--json")
+        .arg("--report")
         .arg(&json)
         .output()
         .unwrap();
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
     assert!(String::from_utf8_lossy(&out.stdout).contains("ratio pipeline / bare FFT"));
     let r: serde_json::Value = serde_json::from_slice(&std::fs::read(&json).unwrap()).unwrap();
+    // `--json` prints the same report on stdout instead of the table.
+    let printed = std::process::Command::new(bin())
+        .env("HDF5_USE_FILE_LOCKING", "FALSE")
+        .args(["bench", "--alines", "256", "--repeats", "1", "--no-scaling", "--no-end-to-end", "--no-simulator", "--json", "--capture"])
+        .arg(&capture)
+        .arg("--work-dir")
+        .arg(dir.path().join("work"))
+        .output()
+        .unwrap();
+    assert!(printed.status.success(), "{}", String::from_utf8_lossy(&printed.stderr));
+    let p: serde_json::Value = serde_json::from_slice(&printed.stdout).expect("bench --json prints one JSON document");
+    assert_eq!(p["alines_per_run"], 256);
+    assert!(p["pipeline_over_fft"].as_f64().is_some_and(|v| v > 0.0));
+    assert!(p["simulator"].is_null() && p["end_to_end_alines_per_second"].is_null());
     let get = |k: &str| r[k].as_f64().unwrap_or_else(|| panic!("{k} missing"));
     assert_eq!(r["alines_per_run"], 512);
     for k in ["bare_fft_alines_per_second", "pipeline_alines_per_second", "reference_alines_per_second", "end_to_end_alines_per_second", "end_to_end_uint16_alines_per_second"] {

@@ -77,6 +77,10 @@ pub fn write_atomically<F>(path: &Path, write: F) -> Result<()>
 where
     F: FnOnce(&Path) -> Result<()>,
 {
+    // A missing parent folder is created (as `run` creates its --out).
+    if let Some(parent) = path.parent().filter(|p| !p.as_os_str().is_empty() && !p.exists()) {
+        std::fs::create_dir_all(parent).with_context(|| format!("creating {}", parent.display()))?;
+    }
     let tmp = temp_sibling(path);
     register(&tmp);
     let result = write(&tmp).and_then(|()| std::fs::rename(&tmp, path).with_context(|| format!("renaming into {}", path.display())));
