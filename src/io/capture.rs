@@ -234,11 +234,13 @@ fn frame_chunk_cache(ds: &Dataset, axes: &[AxisName]) -> Option<(usize, usize)> 
 fn dataset_hint(file: &hdf5::File) -> String {
     let mut sets = Vec::new();
     crate::inspect::collect_datasets(file, "", &mut sets, &mut Vec::new());
-    let candidates: Vec<String> = sets.iter().filter(|(_, d)| matches!(d.ndim(), 2 | 3)).map(|(n, d)| format!("{n} {:?}", d.shape())).collect();
-    match candidates.first() {
+    let multi: Vec<_> = sets.iter().filter(|(_, d)| matches!(d.ndim(), 2 | 3)).collect();
+    let candidates: Vec<String> = multi.iter().map(|(n, d)| format!("{n} {:?}", d.shape())).collect();
+    // The likeliest fringes: the largest of them (a background is a few lines).
+    let largest = multi.iter().max_by_key(|(_, d)| d.shape().iter().product::<usize>()).map(|(n, _)| n.clone());
+    match largest {
         None => "the capture has no 2-D or 3-D dataset (fringes are (A-lines, pixels) or (frames, A-lines, pixels))".to_string(),
-        Some(first) => {
-            let name = first.split(' ').next().unwrap_or("/fringes");
+        Some(name) => {
             format!(
                 "the capture's 2-D/3-D datasets: {}; name the fringes with `fringes = \"{name}\"` in the pipeline's [input] section (or --set input.fringes={name})",
                 candidates.join(", ")
