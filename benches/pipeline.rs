@@ -95,7 +95,7 @@ fn bench_fused(c: &mut Criterion) {
     group.sample_size(20);
     for (name, method) in [
         ("frame_u16_median_background", fringeflow::pipeline::config::BackgroundMethod::Median),
-        ("frame_u16_fixed_background", fringeflow::pipeline::config::BackgroundMethod::Capture),
+        ("frame_u16_fixed_background", fringeflow::pipeline::config::BackgroundMethod::Recorded),
     ] {
         let mut config = PipelineConfig::default();
         config.background.method = method;

@@ -550,7 +550,7 @@ fn run(py: Python<'_>, captures: Vec<PathBuf>, out: PathBuf, pipeline: Option<&P
     if all.is_empty() {
         return Err(raise(py, "CaptureError", "no captures given".into()));
     }
-    let options = batch::BatchOptions { resume, quiet: true, terminal: false, shard: inputs::Shard::WHOLE, inputs_total: all.len(), reference_engine: false };
+    let options = batch::BatchOptions { resume, quiet: true, terminal: false, shard: inputs::Shard::WHOLE, inputs_total: all.len(), reference_engine: false, verbose: false, json: false, progress_json: false };
     let stop = batch::StopSignals::default();
     let report = py.detach(|| batch::run_batch(&all, &config, &out, &options, &stop));
     report.map(|r| json_of(&r)).map_err(|e| raise(py, "CaptureError", format!("{e:#}")))
