@@ -343,10 +343,10 @@ fn pipeline_errors_are_reported_once_and_crops_name_the_range() {
     assert!(text(&o).contains("fft.crop_um ends beyond this capture's depth range") && text(&o).contains("µm in air"), "{}", text(&o));
 }
 
-/// A capture stored in gzip chunks of 16 frames reads within 3× the time of
+/// A capture stored in gzip chunks of 16 frames reads within 10× the time of
 /// the same frames stored contiguously (it took 33× before the chunk cache
-/// was sized to a frame's chunks). A generous bound: it catches the fault,
-/// not a speed.
+/// was sized to a frame's chunks; 3–4× with it, the gzip decoding). A
+/// generous bound: it catches the fault, not a speed.
 #[test]
 fn a_frame_chunked_capture_streams_at_the_speed_of_a_contiguous_one() {
     let dir = tempfile::tempdir().unwrap();
@@ -372,7 +372,7 @@ fn a_frame_chunked_capture_streams_at_the_speed_of_a_contiguous_one() {
     time("contig");
     let (c, k) = (time("contig"), time("chunked"));
     eprintln!("contiguous {c:.2} s, frame-chunked (16 frames, gzip 1) {k:.2} s: {:.1}x", k / c);
-    assert!(k < 3.0 * c + 0.5, "chunked {k:.2} s against contiguous {c:.2} s");
+    assert!(k < 10.0 * c + 1.0, "chunked {k:.2} s against contiguous {c:.2} s");
 }
 
 #[test]

@@ -142,7 +142,11 @@ impl Staging {
         std::fs::create_dir_all(out_root).with_context(|| format!("creating {}", out_root.display()))?;
         let final_dir = out_root.join(name);
         check_replaceable(&final_dir)?;
-        let dir = out_root.join(format!(".{name}.partial-{}", process_tag()));
+        // Unique per staging, not only per process: two stagings of one name
+        // in a process (without the capture's lock) must not share a folder.
+        static NEXT: std::sync::atomic::AtomicUsize = std::sync::atomic::AtomicUsize::new(0);
+        let n = NEXT.fetch_add(1, std::sync::atomic::Ordering::Relaxed);
+        let dir = out_root.join(format!(".{name}.partial-{}-{n}", process_tag()));
         if dir.exists() {
             std::fs::remove_dir_all(&dir).ok();
         }
