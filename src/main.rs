@@ -584,7 +584,7 @@ fn pipeline_command(command: PipelineCommand) -> ExitCode {
     }
 }
 
-fn man(out_dir: Option<&Path>) -> ExitCode {
+fn man(out_dir: Option<&Path>, quiet: bool) -> ExitCode {
     let cmd = cli::command();
     let render = |c: clap::Command| -> std::io::Result<Vec<u8>> {
         let mut buf = Vec::new();
@@ -616,17 +616,11 @@ fn man(out_dir: Option<&Path>) -> ExitCode {
         if let Err(e) = written {
             return fail(1, format!("{}: {e:#}", path.display()));
         }
-        if !quiet_flag() {
+        if !quiet {
             errln!("wrote {}", path.display());
         }
     }
     ExitCode::SUCCESS
-}
-
-static QUIET: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
-
-fn quiet_flag() -> bool {
-    QUIET.load(std::sync::atomic::Ordering::Relaxed)
 }
 
 fn main() -> ExitCode {
@@ -635,7 +629,6 @@ fn main() -> ExitCode {
         Ok(c) => c,
         Err(e) => e.exit(),
     };
-    QUIET.store(cli.quiet, std::sync::atomic::Ordering::Relaxed);
     if let Some(n) = cli.threads {
         if n == 0 {
             return fail(2, "--threads: give a whole number of at least 1");
@@ -735,6 +728,6 @@ fn main() -> ExitCode {
             out!("{}", String::from_utf8_lossy(&buf));
             ExitCode::SUCCESS
         }
-        Command::Man { out_dir } => man(out_dir.as_deref()),
+        Command::Man { out_dir } => man(out_dir.as_deref(), quiet),
     }
 }

@@ -55,6 +55,18 @@ fn json_output_of_every_command_has_its_documented_fields() {
 
     let o = ff(d, &["run", s, "--out", "out", "--json"]);
     assert!(o.status.success(), "{}", stderr(&o));
+    // An independent reader first: Python's json module parses every line.
+    let mut py = Command::new("python3")
+        .args(["-c", "import json,sys; rows=[json.loads(l) for l in sys.stdin]; print(len(rows), rows[-1]['kind'], rows[-1]['counts']['done'])"])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    use std::io::Write;
+    py.stdin.take().unwrap().write_all(&o.stdout).unwrap();
+    let py = py.wait_with_output().unwrap();
+    assert!(py.status.success(), "{}", String::from_utf8_lossy(&py.stderr));
+    assert_eq!(String::from_utf8_lossy(&py.stdout).trim(), "2 batch 1");
     let lines: Vec<serde_json::Value> = String::from_utf8_lossy(&o.stdout).lines().map(|l| serde_json::from_str(l).unwrap()).collect();
     assert_eq!(lines.len(), 2, "one capture line and one batch line");
     assert_eq!(lines[0]["kind"], "capture");
@@ -117,6 +129,11 @@ fn completions_and_man_pages_are_generated() {
         let text = String::from_utf8_lossy(&o.stdout);
         assert!(text.len() > 1000 && text.contains("dry-run"), "{shell}: {} bytes", text.len());
     }
+    // bash itself reads the bash script (syntax check, then it defines the completion function).
+    let script = dir.path().join("fringeflow.bash");
+    std::fs::write(&script, ff(dir.path(), &["completions", "bash"]).stdout).unwrap();
+    let b = Command::new("bash").arg("-c").arg(format!("source '{}' && complete -p fringeflow", script.display())).output().unwrap();
+    assert!(b.status.success() && String::from_utf8_lossy(&b.stdout).contains("fringeflow"), "{}", String::from_utf8_lossy(&b.stderr));
     let o = ff(dir.path(), &["man"]);
     assert!(o.status.success());
     assert!(String::from_utf8_lossy(&o.stdout).contains(".TH fringeflow"));

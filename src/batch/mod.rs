@@ -380,7 +380,22 @@ impl BatchReport {
     /// The counts line `run` prints at the end (the captures were each
     /// reported on stderr as they finished).
     pub fn render_counts(&self) -> String {
-        self.render().lines().last().unwrap_or("").to_string() + "\n"
+        let c = &self.counts;
+        let mut s = format!("{} done, {} skipped, {} failed, {} not run", c.done, c.skipped, c.failed, c.not_run);
+        if c.held > 0 {
+            s += &format!(", {} held by another run", c.held);
+        }
+        if c.warnings > 0 {
+            s += &format!(", {} warnings", c.warnings);
+        }
+        if !self.shard.is_whole() {
+            s += &format!(" (shard {}/{} of {} captures)", self.shard.index, self.shard.count, self.inputs_total);
+        }
+        if let Some(sig) = &self.interrupted {
+            s += &format!("; stopped by {sig}");
+        }
+        s.push('\n');
+        s
     }
 
     /// The table `summarize` prints: a line per capture, then the counts.
@@ -396,21 +411,7 @@ impl BatchReport {
             };
             s += &format!("{status:<8} {}{}\n", r.input, r.reason.as_ref().filter(|_| r.status != Status::Done).map(|m| format!(": {m}")).unwrap_or_default());
         }
-        let c = &self.counts;
-        s += &format!("{} done, {} skipped, {} failed, {} not run", c.done, c.skipped, c.failed, c.not_run);
-        if c.held > 0 {
-            s += &format!(", {} held by another run", c.held);
-        }
-        if c.warnings > 0 {
-            s += &format!(", {} warnings", c.warnings);
-        }
-        if !self.shard.is_whole() {
-            s += &format!(" (shard {}/{} of {} captures)", self.shard.index, self.shard.count, self.inputs_total);
-        }
-        if let Some(sig) = &self.interrupted {
-            s += &format!("; stopped by {sig}");
-        }
-        s.push('\n');
+        s += &self.render_counts();
         s
     }
 }
