@@ -2,8 +2,8 @@
 //! every command that prints results, generated completions and man pages,
 //! `--dry-run` writing nothing, the overwrite refusal, and one check per
 //! error hint (message and exit status). Exit codes: 0 success, 1 input
-//! could not be processed, 2 usage or settings error (common practice for
-//! command-line tools, as in BSD sysexits' split of usage from data errors).
+//! could not be processed, 2 usage or settings error (common practice:
+//! clap and many Unix tools exit 2 on a usage error).
 
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
