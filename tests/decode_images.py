@@ -10,6 +10,10 @@ Usage:
   decode_images.py doppler OUTPUT_DIR     Doppler images against the velocity
                                           dataset and matplotlib's coolwarm
   decode_images.py plot PNG [PNG...]      plots: decode, RGB, not blank
+  decode_images.py axes OUTPUT_DIR        volume.h5's dimension scales (h5py)
+
+Every image's tEXt chunks (tool version, pipeline hash, depth spacing, dB
+range) and pHYs pixel size are read with Pillow and checked against log.json.
 
 Prints one line per image; exits 1 on the first mismatch.
 """
@@ -51,6 +55,61 @@ def grey_array(im, bit_depth):
     return np.asarray(im, dtype=np.float64)
 
 
+def close(a, b, rel=1e-9):
+    return abs(float(a) - float(b)) <= rel * max(abs(float(a)), abs(float(b)), 1e-300)
+
+
+def check_provenance(im, name, log, black=None, white=None, pixel_um=None):
+    """tEXt chunks (PNG specification 1.2, section 4.2.3.1) and pHYs
+    (4.2.4.3): Pillow exposes the first in im.info by keyword and the
+    second as im.info["dpi"] in dots per inch (pixels per metre x 0.0254)."""
+    info = im.info
+    want_sw = f"fringeflow {log['tool']['version']}"
+    if info.get("Software") != want_sw:
+        fail(f"{name}: Software chunk {info.get('Software')!r}, expected {want_sw!r}")
+    if info.get("pipeline_sha256") != log["pipeline_sha256"]:
+        fail(f"{name}: pipeline_sha256 chunk {info.get('pipeline_sha256')!r}, log.json {log['pipeline_sha256']!r}")
+    if not close(info.get("depth_spacing_um", "nan"), log["derived"]["depth_spacing_um"]):
+        fail(f"{name}: depth_spacing_um chunk {info.get('depth_spacing_um')!r}, log.json {log['derived']['depth_spacing_um']}")
+    if not info.get("Description"):
+        fail(f"{name}: no Description chunk")
+    if black is not None and not (abs(float(info["black_db"]) - black) <= 5e-4 and abs(float(info["white_db"]) - white) <= 5e-4):
+        fail(f"{name}: dB range chunks {info.get('black_db')}..{info.get('white_db')}, log.json {black}..{white}")
+    lateral = pixel_of(log, 1.0)
+    if lateral is None:
+        if info.get("aline_spacing_um") != "unknown":
+            fail(f"{name}: aline_spacing_um chunk {info.get('aline_spacing_um')!r}, expected 'unknown'")
+    elif not close(info.get("aline_spacing_um", "nan"), lateral[0]):
+        fail(f"{name}: aline_spacing_um chunk {info.get('aline_spacing_um')!r}, expected {lateral[0]}")
+    if pixel_um is None:
+        if "dpi" in info or "aspect" in info:
+            fail(f"{name}: pHYs written though a step is unknown")
+    else:
+        if "dpi" not in info:
+            fail(f"{name}: no pHYs chunk in metres")
+        ppm = [d / 0.0254 for d in info["dpi"]]
+        want = [1e6 / pixel_um[0], 1e6 / pixel_um[1]]
+        # pHYs holds whole pixels per metre: within 0.5 of the exact value.
+        if any(abs(g - w) > 0.5 + 1e-6 for g, w in zip(ppm, want)):
+            fail(f"{name}: pHYs {ppm} px/m, expected {want} for {pixel_um} um pixels")
+
+
+def pixel_of(log, down_um):
+    across = log["pipeline"]["input"].get("aline_spacing_um") or log["input"].get("scan", {}).get("aline_spacing_um")
+    return None if across is None or down_um is None else (across, down_um)
+
+
+def en_face_pixel(log):
+    """(A-line step, step between stored frames): frames that average
+    `average` input frames, at `repeats_per_position` repeats a position,
+    step by frame_spacing x average / repeats when repeats divides average."""
+    scan = log["input"].get("scan", {})
+    spacing, repeats = scan.get("frame_spacing_um"), round(scan.get("repeats_per_position", 1))
+    average = log["pipeline"]["volume"]["average"]
+    down = None if spacing is None or average % repeats else spacing * (average // repeats)
+    return pixel_of(log, down)
+
+
 def check_bscans(outdir):
     log = json.load(open(f"{outdir}/log.json"))
     bit_depth = log["pipeline"]["log_compression"]["bit_depth"]
@@ -79,6 +138,7 @@ def check_bscans(outdir):
         worst = np.max(np.abs(got - want))
         if worst > allowed:
             fail(f"{name}: worst grey difference {worst} (bit depth {bit_depth})")
+        check_provenance(im, name, log, rec["black_db"], rec["white_db"], pixel_of(log, log["derived"]["depth_spacing_um"]))
         print(f"ok {name}: {im.mode} {im.size}, worst grey difference {worst:g} of {max_grey}")
     if en_face is not None:
         rec = log["en_face"]
@@ -90,6 +150,7 @@ def check_bscans(outdir):
         worst = np.max(np.abs(got - want))
         if worst > 1:
             fail(f"en-face.png: worst grey difference {worst}")
+        check_provenance(im, "en-face.png", log, rec["black_db"], rec["white_db"], en_face_pixel(log))
         print(f"ok en-face.png: {im.mode} {im.size}, worst grey difference {worst:g}")
 
 
@@ -137,6 +198,7 @@ def check_doppler(outdir):
         depth, alines = vel[p].shape
         if a.shape[0] != depth or a.shape[1] <= alines:
             fail(f"doppler-{p:04d}.png: size {a.shape} for a {depth} x {alines} image")
+        check_provenance(im, f"doppler-{p:04d}.png", log, pixel_um=pixel_of(log, log["derived"]["depth_spacing_um"]))
         part = a[:, :alines]
         nan = np.isnan(vel[p])
         if np.any(part[nan] != 0):
@@ -174,9 +236,13 @@ def check_angiography(outdir):
                 worst = np.abs(got - want).max()
                 if worst > 1:
                     fail(f"angiography-{method}-{p:04d}.png: worst grey difference {worst}")
+                check_provenance(im, f"angiography-{method}-{p:04d}.png", log, pixel_um=pixel_of(log, log["derived"]["depth_spacing_um"]))
+                if not close(im.info["white"], white, 1e-5):
+                    fail(f"angiography-{method}-{p:04d}.png: white chunk {im.info['white']}, log.json {white}")
             en = decode(f"{outdir}/angiography-{method}-en-face.png")
             if en.size != (data.shape[2], data.shape[0]):
                 fail(f"en face size {en.size}")
+            check_provenance(en, f"angiography-{method}-en-face.png", log, pixel_um=en_face_pixel(log))
             print(f"ok angiography-{method}: {len(whites)} images and the en face decode to the dataset")
 
 
@@ -191,6 +257,54 @@ def check_plots(paths):
         print(f"ok {p}: {im.size}")
 
 
+def check_axes(outdir):
+    """volume.h5's axes as HDF5 dimension scales (HDF5 Dimension Scale
+    Specification, The HDF Group 2005), read through h5py's `dims`: every
+    image stack's dimensions are labelled and carry the axis datasets, each
+    with a `units` attribute, and the axes' values follow log.json."""
+    log = json.load(open(f"{outdir}/log.json"))
+    dz = log["derived"]["depth_spacing_um"]
+    lateral = pixel_of(log, 1.0)
+    frame_step = en_face_pixel(log)
+    with h5py.File(f"{outdir}/volume.h5", "r") as v:
+        stacks = [n for n in v if v[n].ndim == 3]
+        if "volume_db" not in stacks:
+            fail("no /volume_db")
+        for n in stacks:
+            ds = v[n]
+            labels = [d.label for d in ds.dims]
+            if labels != ["frame", "depth", "aline"]:
+                fail(f"/{n}: dimension labels {labels}")
+            depth_scales = {s.name: s for s in ds.dims[1].values()}
+            if "/depth_um" not in depth_scales:
+                fail(f"/{n}: /depth_um not attached to its depth dimension")
+            z = depth_scales["/depth_um"][...]
+            if z.shape[0] != ds.shape[1] or depth_scales["/depth_um"].attrs["units"] != "um" or np.max(np.abs(np.diff(z) - dz)) > 1e-6 * dz:
+                fail(f"/{n}: depth scale {z.shape} units {depth_scales['/depth_um'].attrs.get('units')} not {dz} um steps")
+            aline_scales = {s.name: s for s in ds.dims[2].values()}
+            if "/aline_index" not in aline_scales:
+                fail(f"/{n}: /aline_index not attached")
+            if lateral is not None:
+                x = aline_scales.get("/aline_um")
+                if x is None or x.attrs["units"] != "um" or np.max(np.abs(x[...] - np.arange(ds.shape[2]) * lateral[0])) > 1e-9:
+                    fail(f"/{n}: lateral scale missing or not {lateral[0]} um steps")
+            elif "/aline_um" in v:
+                fail("/aline_um written though the lateral step is unknown")
+            frame_scales = {s.name: s for s in ds.dims[0].values()}
+            if ds.shape[0] == v["frame_index"].shape[0]:
+                if "/frame_index" not in frame_scales:
+                    fail(f"/{n}: /frame_index not attached")
+                if frame_step is not None:
+                    y = frame_scales.get("/position_um")
+                    if y is None or np.max(np.abs(y[...] - np.arange(ds.shape[0]) * frame_step[1])) > 1e-9:
+                        fail(f"/{n}: slow-axis scale missing or not {frame_step[1]} um steps")
+            print(f"ok /{n}: dims {labels} with scales {[list(d.keys()) for d in ds.dims]}")
+        for n in [n for n in v if v[n].ndim == 2]:
+            if [d.label for d in v[n].dims] != ["frame", "aline"] or "/aline_index" not in [s.name for s in v[n].dims[1].values()]:
+                fail(f"/{n}: en face dimensions not labelled or scaled")
+            print(f"ok /{n}: en face dims labelled")
+
+
 if __name__ == "__main__":
     kind = sys.argv[1]
     if kind == "bscans":
@@ -201,6 +315,8 @@ if __name__ == "__main__":
         check_angiography(sys.argv[2])
     elif kind == "doppler":
         check_doppler(sys.argv[2])
+    elif kind == "axes":
+        check_axes(sys.argv[2])
     elif kind == "plot":
         check_plots(sys.argv[2:])
     else:

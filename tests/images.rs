@@ -52,13 +52,16 @@ scatterer_reflectivity = 1e-6
 fn bscans_and_en_face_decode_to_the_volume_at_8_and_16_bits() {
     let dir = tempfile::tempdir().unwrap();
     let (capture, _) = simulate_scene(dir.path(), "layers", SCENE);
-    for (bits, volume_type) in [(8, "float32"), (16, "float32"), (16, "uint16")] {
+    // The 8-bit run states the lateral step (so its PNGs carry pHYs and
+    // volume.h5 a lateral scale); the others leave it unknown.
+    for (bits, volume_type, input) in [(8, "float32", "[input]\naline_spacing_um = 3.5\n"), (16, "float32", ""), (16, "uint16", "")] {
         let out = dir.path().join(format!("out{bits}-{volume_type}"));
         let pipeline = format!(
-            "[log_compression]\nbit_depth = {bits}\n[volume]\nen_face = true\n[output]\nvolume_type = \"{volume_type}\"\n"
+            "{input}[log_compression]\nbit_depth = {bits}\n[volume]\nen_face = true\n[output]\nvolume_type = \"{volume_type}\"\n"
         );
         run_ok(dir.path(), &[&capture], &pipeline, &out);
         decode(&["bscans".as_ref(), out.join("layers").as_os_str()]);
+        decode(&["axes".as_ref(), out.join("layers").as_os_str()]);
     }
 }
 
@@ -99,4 +102,5 @@ fn doppler_and_angiography_images_decode() {
     run_ok(dir.path(), &[&capture], "[volume]\naverage = 2\n[doppler]\nenabled = true\n[angiography]\nmethods = [\"decorrelation\"]\n", &out);
     decode(&["doppler".as_ref(), out.join("flow").as_os_str()]);
     decode(&["angiography".as_ref(), out.join("flow").as_os_str()]);
+    decode(&["axes".as_ref(), out.join("flow").as_os_str()]);
 }

@@ -133,11 +133,23 @@ pub struct ScanAttributes {
     /// `frame_spacing_um`: step between slow-axis positions.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub frame_spacing_um: Option<f64>,
+    /// `repeats_per_position`: B-scans recorded at each slow-axis position.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub repeats_per_position: Option<f64>,
 }
 
 impl ScanAttributes {
     pub fn is_empty(&self) -> bool {
         *self == ScanAttributes::default()
+    }
+
+    /// Slow-axis step between stored frames that each average `average`
+    /// input frames (µm), when the frames form a uniform axis: the repeats
+    /// at one position must be averaged together.
+    pub fn stored_frame_spacing_um(&self, average: usize) -> Option<f64> {
+        let spacing = self.frame_spacing_um?;
+        let repeats = self.repeats_per_position.unwrap_or(1.0).round().max(1.0) as usize;
+        (average % repeats == 0).then(|| spacing * (average / repeats) as f64)
     }
 }
 
@@ -456,6 +468,7 @@ impl Capture {
             frame_period_us: positive_attr(&fringes, "frame_period_us")?,
             aline_spacing_um: positive_attr(&fringes, "aline_spacing_um")?,
             frame_spacing_um: positive_attr(&fringes, "frame_spacing_um")?,
+            repeats_per_position: positive_attr(&fringes, "repeats_per_position")?,
         };
 
         Ok(Capture {

@@ -51,3 +51,53 @@ pub fn write_1d<T: H5Type>(file: &hdf5::Group, name: &str, data: &[T]) -> Result
         .map_err(concise)
         .with_context(|| format!("writing dataset {name}"))
 }
+
+// Dimension scales (HDF5 high-level library, H5DS): the axis datasets are
+// attached to the dimensions of the data, so h5py's `dims`, netCDF-4 readers
+// and HDF viewers show the axes with their units.
+extern "C" {
+    fn H5DSset_scale(dsid: hdf5_sys::h5i::hid_t, dimname: *const std::ffi::c_char) -> hdf5_sys::h5::herr_t;
+    fn H5DSset_label(did: hdf5_sys::h5i::hid_t, idx: std::ffi::c_uint, label: *const std::ffi::c_char) -> hdf5_sys::h5::herr_t;
+    fn H5DSattach_scale(did: hdf5_sys::h5i::hid_t, dsid: hdf5_sys::h5i::hid_t, idx: std::ffi::c_uint) -> hdf5_sys::h5::herr_t;
+}
+
+/// Makes `axis` a dimension scale named `name`, with a `units` attribute.
+pub fn make_scale(axis: &hdf5::Dataset, name: &str, units: &str) -> Result<()> {
+    write_attr_str(axis, "units", units)?;
+    let c_name = std::ffi::CString::new(name).expect("scale names have no NUL");
+    // SAFETY: both handles are open datasets; the library lock serialises
+    // the call with the crate's own HDF5 calls.
+    let status = hdf5::sync::sync(|| unsafe { H5DSset_scale(axis.id(), c_name.as_ptr()) });
+    if status < 0 {
+        anyhow::bail!("making {} a dimension scale failed", axis.name());
+    }
+    Ok(())
+}
+
+/// Attaches each scale to the dimension of `data` at its position (`None`
+/// leaves a dimension without a scale).
+pub fn attach_scales(data: &hdf5::Dataset, scales: &[Option<&hdf5::Dataset>]) -> Result<()> {
+    for (dim, scale) in scales.iter().enumerate() {
+        if let Some(s) = scale {
+            // SAFETY: as in make_scale.
+            let status = hdf5::sync::sync(|| unsafe { H5DSattach_scale(data.id(), s.id(), dim as std::ffi::c_uint) });
+            if status < 0 {
+                anyhow::bail!("attaching {} to dimension {dim} of {} failed", s.name(), data.name());
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Names the dimensions of `data` (h5py's `dims[i].label`).
+pub fn label_dimensions(data: &hdf5::Dataset, labels: &[&str]) -> Result<()> {
+    for (dim, label) in labels.iter().enumerate() {
+        let c = std::ffi::CString::new(*label).expect("labels have no NUL");
+        // SAFETY: as in make_scale.
+        let status = hdf5::sync::sync(|| unsafe { H5DSset_label(data.id(), dim as std::ffi::c_uint, c.as_ptr()) });
+        if status < 0 {
+            anyhow::bail!("labelling dimension {dim} of {} failed", data.name());
+        }
+    }
+    Ok(())
+}

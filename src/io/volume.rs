@@ -6,14 +6,17 @@
 //! datasets `/depth_um`, `/aline_index`, `/frame_index`; the depth pixel
 //! spacing (µm, in air) and the axis order as attributes of `/volume_db`;
 //! with averaging, each stored frame is one slow-axis position; optionally
-//! `/en_face_db` (frames, A-lines), an en face projection in dB.
+//! `/en_face_db` (frames, A-lines), an en face projection in dB. The axis
+//! datasets are HDF5 dimension scales attached to every image stack, each
+//! with a `units` attribute; with a known lateral step, `/aline_um` (and
+//! `/position_um` with a known slow-axis step) are attached too.
 
 use anyhow::{Context, Result};
 use hdf5::Dataset;
 use ndarray::Array2;
 use std::path::Path;
 
-use super::h5::{concise, create_file, write_1d, write_attr, write_attr_str};
+use super::h5::{attach_scales, concise, create_file, label_dimensions, make_scale, write_1d, write_attr, write_attr_str};
 use crate::pipeline::config::VolumeType;
 
 /// uint16 volumes: dB = stored · PACKED_DB_STEP + PACKED_DB_OFFSET. The
@@ -26,6 +29,37 @@ pub struct VolumeWriter {
     file: hdf5::File,
     volume: Dataset,
     volume_type: VolumeType,
+    frames: usize,
+    axes: Axes,
+}
+
+/// The dimension scales: depth, and per lateral and slow axis the index
+/// and, when the step is known, the distance.
+struct Axes {
+    depth: Dataset,
+    aline: Dataset,
+    frame: Dataset,
+    aline_um: Option<Dataset>,
+    position_um: Option<Dataset>,
+}
+
+impl Axes {
+    /// Attaches the scales of (frame, depth, A-line) to a stack of `frames`
+    /// images (the frame axis only when the lengths agree).
+    fn attach_stack(&self, ds: &Dataset, frames: usize, count: usize) -> Result<()> {
+        let same = count == frames;
+        label_dimensions(ds, &["frame", "depth", "aline"])?;
+        attach_scales(ds, &[same.then_some(&self.frame), Some(&self.depth), Some(&self.aline)])?;
+        attach_scales(ds, &[same.then_some(self.position_um.as_ref()).flatten(), None, self.aline_um.as_ref()])
+    }
+
+    /// Attaches (frame, A-line) scales to an en face image.
+    fn attach_en_face(&self, ds: &Dataset, frames: usize, rows: usize) -> Result<()> {
+        let same = rows == frames;
+        label_dimensions(ds, &["frame", "aline"])?;
+        attach_scales(ds, &[same.then_some(&self.frame), Some(&self.aline)])?;
+        attach_scales(ds, &[same.then_some(self.position_um.as_ref()).flatten(), self.aline_um.as_ref()])
+    }
 }
 
 /// Facts stored as attributes of the volume.
@@ -36,6 +70,10 @@ pub struct VolumeAttributes<'a> {
     /// Input frames averaged into each stored frame.
     pub frames_averaged: usize,
     pub volume_type: VolumeType,
+    /// Lateral step between A-lines, µm, when known.
+    pub aline_spacing_um: Option<f64>,
+    /// Step between stored frames (slow-axis positions), µm, when known.
+    pub position_spacing_um: Option<f64>,
 }
 
 impl VolumeWriter {
@@ -68,10 +106,23 @@ impl VolumeWriter {
         write_attr(&volume, "frames_averaged", attrs.frames_averaged as u32)?;
         write_attr_str(&file, "pipeline_sha256", attrs.pipeline_sha256)?;
         write_attr_str(&file, "producer", concat!("fringeflow ", env!("CARGO_PKG_VERSION")))?;
-        write_1d(&file, "depth_um", depth_um)?;
-        write_1d(&file, "aline_index", &(0..alines as u32).collect::<Vec<_>>())?;
-        write_1d(&file, "frame_index", &(0..frames as u32).collect::<Vec<_>>())?;
-        Ok(VolumeWriter { file, volume, volume_type: attrs.volume_type })
+        let depth_axis = write_1d(&file, "depth_um", depth_um)?;
+        make_scale(&depth_axis, "depth (optical path in air)", "um")?;
+        let aline = write_1d(&file, "aline_index", &(0..alines as u32).collect::<Vec<_>>())?;
+        make_scale(&aline, "A-line index", "1")?;
+        let frame = write_1d(&file, "frame_index", &(0..frames as u32).collect::<Vec<_>>())?;
+        make_scale(&frame, "frame index", "1")?;
+        let distance = |name: &str, label: &str, step: Option<f64>, count: usize| -> Result<Option<Dataset>> {
+            let Some(step) = step else { return Ok(None) };
+            let ds = write_1d(&file, name, &(0..count).map(|i| i as f64 * step).collect::<Vec<_>>())?;
+            make_scale(&ds, label, "um")?;
+            Ok(Some(ds))
+        };
+        let aline_um = distance("aline_um", "lateral position", attrs.aline_spacing_um, alines)?;
+        let position_um = distance("position_um", "slow-axis position", attrs.position_spacing_um, frames)?;
+        let axes = Axes { depth: depth_axis, aline, frame, aline_um, position_um };
+        axes.attach_stack(&volume, frames, frames)?;
+        Ok(VolumeWriter { file, volume, volume_type: attrs.volume_type, frames, axes })
     }
 
     /// Writes frame `index` from a (depth × A-lines) image in standard layout.
@@ -88,6 +139,8 @@ impl VolumeWriter {
         let image = ndarray::ArrayView2::from_shape((positions, alines), values)?;
         let ds = self.file.new_dataset_builder().with_data(&image).create("en_face_db").map_err(concise).context("writing /en_face_db")?;
         write_attr_str(&ds, "axes", "frame,aline")?;
+        write_attr_str(&ds, "units", "dB")?;
+        self.axes.attach_en_face(&ds, self.frames, positions)?;
         write_attr(&ds, "first_depth_um", depth_range_um[0])?;
         write_attr(&ds, "last_depth_um", depth_range_um[1])?;
         Ok(())
@@ -108,6 +161,7 @@ impl VolumeWriter {
         for (k, v) in attrs {
             write_attr_str(&ds, k, v)?;
         }
+        self.axes.attach_stack(&ds, self.frames, count)?;
         Ok(ds)
     }
 
@@ -118,6 +172,7 @@ impl VolumeWriter {
         for (k, v) in attrs {
             write_attr_str(&ds, k, v)?;
         }
+        self.axes.attach_en_face(&ds, self.frames, rows)?;
         Ok(())
     }
 

@@ -41,6 +41,10 @@ pub struct InputConfig {
     /// wavelength`); used instead of the dataset when given. A relative path
     /// is taken from the pipeline file's directory.
     pub calibration: Option<String>,
+    /// Lateral step between A-lines, µm, for captures that do not record it
+    /// (their `aline_spacing_um` attribute); used for the images' pixel size.
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub aline_spacing_um: Option<f64>,
 }
 
 impl Default for InputConfig {
@@ -52,6 +56,7 @@ impl Default for InputConfig {
             axes: None,
             wavelength_poly_nm: None,
             calibration: None,
+            aline_spacing_um: None,
         }
     }
 }

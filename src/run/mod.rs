@@ -341,6 +341,8 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
             pipeline_sha256: &opened.pipeline_sha256,
             frames_averaged: config.volume.average,
             volume_type: config.output.volume_type,
+            aline_spacing_um: config.input.aline_spacing_um.or(opened.capture.scan.aline_spacing_um),
+            position_spacing_um: opened.capture.scan.stored_frame_spacing_um(config.volume.average),
         },
     )?;
     let complex = if config.output.complex {
@@ -418,6 +420,12 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     let velocity_range = planned.doppler.as_ref().map_or(0.0, |(s, _)| config.doppler.velocity_range_mm_s.unwrap_or(s.aliasing_limit_mm_s));
     let mut writer = Writer::new(config, &staging, volume, datasets, planned.en_face_range, alines, capture.full_scale, velocity_range);
     writer.positions = positions;
+    let aline_spacing = config.input.aline_spacing_um.or(capture.scan.aline_spacing_um);
+    let depth_spacing = planned.plan.summary.depth_spacing_um;
+    writer.png_base = png_base_info(&opened.pipeline_sha256, depth_spacing, aline_spacing, capture.scan.stored_frame_spacing_um(config.volume.average));
+    writer.bscan_pixel_um = aline_spacing.map(|a| (a, depth_spacing));
+    let en_face_pixel_um = writer.en_face_pixel_um();
+    let en_face_base = writer.png_base.clone();
     let computed = compute::run(capture, config, &planned, writer, &ctx)?;
     let mut written = computed.written;
     let mut warnings = planned.warnings.clone();
@@ -437,7 +445,13 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         let pick = |q: f64| sorted[((sorted.len() - 1) as f64 * q).round() as usize] as f64;
         let (black, white) = (pick(0.01), pick(0.995).max(pick(0.01) + 1e-3));
         if config.output.png {
-            crate::io::png::write_grey(&staging.path(name), alines, positions, &grey_levels(en_face, black, white, max_grey), lc.bit_depth)?;
+            let mut info = en_face_base
+                .with("Description", format!("en face {} projection, A-lines across, positions down: grey linear in dB", format!("{:?}", config.volume.en_face_projection).to_lowercase()))
+                .with("black_db", format!("{black:.3}"))
+                .with("white_db", format!("{white:.3}"))
+                .with("grey_levels", format!("0 at black_db, {max_grey} at white_db"));
+            info.pixel_um = en_face_pixel_um;
+            crate::io::png::write_grey(&staging.path(name), alines, positions, &grey_levels(en_face, black, white, max_grey), lc.bit_depth, &info)?;
             outputs.push(name.into());
         }
         let (a, b) = planned.en_face_range;
@@ -510,6 +524,17 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     }
     let output_dir = staging.commit()?;
     Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false, warnings, background_method })
+}
+
+/// The tEXt chunks every image of a capture carries.
+fn png_base_info(pipeline_sha256: &str, depth_spacing_um: f64, aline_spacing_um: Option<f64>, position_spacing_um: Option<f64>) -> crate::io::png::PngInfo {
+    let known = |v: Option<f64>| v.map_or_else(|| "unknown".to_string(), |v| format!("{v}"));
+    crate::io::png::PngInfo::new("")
+        .with("pipeline_sha256", pipeline_sha256)
+        .with("depth_spacing_um", format!("{depth_spacing_um}"))
+        .with("depth_axis", "optical path in air, 0 at zero delay, increasing downwards")
+        .with("aline_spacing_um", known(aline_spacing_um))
+        .with("position_spacing_um", known(position_spacing_um))
 }
 
 /// The log's contrast section, when any contrast stage ran.

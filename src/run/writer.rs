@@ -11,7 +11,7 @@ use rustfft::num_complex::Complex32;
 
 use super::log::{AveragingRecord, FrameRecord};
 use crate::contrast::position::{FrameShift, PositionOutput};
-use crate::io::png;
+use crate::io::png::{self, PngInfo};
 use crate::io::staging::Staging;
 use crate::io::volume::{write_stack_image, VolumeWriter};
 use crate::pipeline::config::{AngiographyMethod, PipelineConfig, Projection};
@@ -65,6 +65,11 @@ pub struct Writer<'a> {
     pub velocity_range_mm_s: f64,
     /// Images (positions) the capture gives.
     pub positions: usize,
+    /// What every image says about itself (tool, pipeline hash, spacings).
+    pub png_base: PngInfo,
+    /// Pixel size of a B-scan, (A-line step, depth step) in µm, when the
+    /// lateral step is known.
+    pub bscan_pixel_um: Option<(f64, f64)>,
     written: Written,
     grey: Vec<u8>,
 }
@@ -93,6 +98,8 @@ impl<'a> Writer<'a> {
             full_scale,
             velocity_range_mm_s,
             positions: 0,
+            png_base: PngInfo::default(),
+            bscan_pixel_um: None,
             written: Written {
                 records: Vec::new(),
                 en_face: Vec::new(),
@@ -131,12 +138,17 @@ impl<'a> Writer<'a> {
         if cfg.output.png {
             let name = bscan_png_name(position, self.positions);
             let path = self.staging.path(&name);
+            let max_grey = if lc.bit_depth == 8 { 255 } else { 65535 };
+            let info = self.image_info(format!("B-scan {position} (of {}, counted from 0): grey level linear in dB of the depth profile's magnitude", self.positions))
+                .with("black_db", format!("{black:.3}"))
+                .with("white_db", format!("{white:.3}"))
+                .with("grey_levels", if lc.invert { format!("{max_grey} at black_db, 0 at white_db (inverted)") } else { format!("0 at black_db, {max_grey} at white_db") });
             if lc.bit_depth == 8 {
                 self.grey.resize(values.len(), 0);
                 grey_levels_u8(values, from, to, &mut self.grey);
-                png::write_grey8(&path, alines, depth, &self.grey)?;
+                png::write_grey8(&path, alines, depth, &self.grey, &info)?;
             } else {
-                png::write_grey(&path, alines, depth, &grey_levels(values, from, to, 65535.0), lc.bit_depth)?;
+                png::write_grey(&path, alines, depth, &grey_levels(values, from, to, 65535.0), lc.bit_depth, &info)?;
             }
             self.written.outputs.push(name);
         }
@@ -189,7 +201,10 @@ impl<'a> Writer<'a> {
             if cfg.output.png {
                 let name = format!("doppler-{position:0w$}.png", w = index_digits(self.positions));
                 let rgb = crate::render::signed_with_colour_bar(v.view(), self.velocity_range_mm_s, "mm/s")?;
-                png::write_rgb8(&self.staging.path(&name), rgb.width, rgb.height, &rgb.bytes)?;
+                let info = self
+                    .image_info(format!("Doppler axial velocity, position {position}: cool-warm colour, positive away from the probe; colour bar at the right"))
+                    .with("velocity_range_mm_s", format!("{:.4}", self.velocity_range_mm_s));
+                png::write_rgb8(&self.staging.path(&name), rgb.width, rgb.height, &rgb.bytes, &info)?;
                 self.written.outputs.push(name);
             }
         }
@@ -206,12 +221,28 @@ impl<'a> Writer<'a> {
             if cfg.output.png {
                 let name = format!("angiography-{}-{position:0w$}.png", method.name(), w = index_digits(self.positions));
                 let bytes = flow_grey(map.as_slice().expect("standard layout"), white);
-                png::write_grey8(&self.staging.path(&name), alines, depth, &bytes)?;
+                let info = self
+                    .image_info(format!("{} angiography, position {position}: grey 0 at 0, 255 at white (masked pixels black)", method.name()))
+                    .with("white", format!("{white:.6}"));
+                png::write_grey8(&self.staging.path(&name), alines, depth, &bytes, &info)?;
                 self.written.outputs.push(name);
             }
         }
         self.written.write_seconds += t.elapsed().as_secs_f64();
         Ok(p.structure_db)
+    }
+
+    /// The base chunks with a description and the B-scan pixel size.
+    fn image_info(&self, description: String) -> PngInfo {
+        let mut info = self.png_base.clone().with("Description", description);
+        info.pixel_um = self.bscan_pixel_um;
+        info
+    }
+
+    /// Pixel size of an en face image, (A-line step, position step) in µm.
+    pub fn en_face_pixel_um(&self) -> Option<(f64, f64)> {
+        let across = self.bscan_pixel_um?.0;
+        self.png_base.get("position_spacing_um")?.parse().ok().map(|down| (across, down))
     }
 
     /// The angiography en face images and datasets, after the last position.
@@ -226,7 +257,9 @@ impl<'a> Writer<'a> {
             if self.config.output.png {
                 let png_name = format!("angiography-{}-en-face.png", method.name());
                 let white = percentile_unmasked(rows, 0.995);
-                png::write_grey8(&self.staging.path(&png_name), self.alines, positions, &flow_grey(rows, white))?;
+                let mut info = self.png_base.clone().with("Description", format!("{} angiography en face: A-lines across, positions down; grey 0 at 0, 255 at white", method.name())).with("white", format!("{white:.6}"));
+                info.pixel_um = self.en_face_pixel_um();
+                png::write_grey8(&self.staging.path(&png_name), self.alines, positions, &flow_grey(rows, white), &info)?;
                 self.written.outputs.push(png_name);
             }
         }
