@@ -290,12 +290,12 @@ proptest! {
                     locks.remove(&(n, w));
                 }
                 Step::Stage(n, w) => {
-                    if !staged.contains_key(&(n, w)) {
+                    if let std::collections::hash_map::Entry::Vacant(slot) = staged.entry((n, w)) {
                         match Staging::new(dir.path(), &name(n)) {
                             Ok(st) => {
                                 prop_assert!(!user[n], "staged over the user's {}", name(n));
                                 std::fs::write(st.path("log.json"), "{}").unwrap();
-                                staged.insert((n, w), st);
+                                slot.insert(st);
                             }
                             Err(e) => prop_assert!(user[n], "staging refused: {e}"),
                         }

@@ -246,7 +246,7 @@ fn contact_sheet(path: &Path, rows: &[SweepRow], thumbs: &[GrayImage], columns: 
             root.draw(&Text::new(format!("a2 {:.2}  a3 {:.2} rad", r.a2_rad, r.a3_rad), (x as i32, (y - LABEL_H + 2) as i32), style.clone()))
                 .map_err(err)?;
             let fwhm = r.fwhm_um.map(|v| format!("{v:.2} µm")).unwrap_or_else(|| "—".into());
-            root.draw(&Text::new(format!("H {:.3}  FWHM {fwhm}", r.entropy), (x as i32, (y - LABEL_H + 20) as i32), style))
+            root.draw(&Text::new(format!("entropy {:.3}  FWHM {fwhm}", r.entropy), (x as i32, (y - LABEL_H + 20) as i32), style))
                 .map_err(err)?;
             if i == best {
                 root.draw(&Rectangle::new([(x as i32 - 3, y as i32 - 3), ((x + w) as i32 + 2, (y + h) as i32 + 2)], RED.stroke_width(3)))
@@ -295,12 +295,14 @@ fn metric_plot(path: &Path, report: &SweepReport, along_a2: bool) -> Result<()> 
             .map_err(err)?;
         chart
             .configure_mesh()
+            .x_label_formatter(&crate::measure::plot::tick)
+            .y_label_formatter(&|v: &f64| format!("{v:.4}"))
             .x_desc(if along_a2 { "a2 (rad)" } else { "a3 (rad)" })
             .y_desc("entropy (nats, lower is sharper)")
             .draw()
             .map_err(err)?;
         for (gi, g) in groups.iter().enumerate() {
-            let colour = Palette99::pick(gi).to_rgba();
+            let colour = crate::render::colour::OKABE_ITO[gi % crate::render::colour::OKABE_ITO.len()].to_rgba();
             let pts: Vec<(f64, f64)> = report.rows.iter().filter(|r| other(r) == *g).map(|r| (key(r), r.entropy)).collect();
             chart
                 .draw_series(LineSeries::new(pts.iter().copied(), colour.stroke_width(2)))

@@ -149,7 +149,7 @@ impl ScanAttributes {
     pub fn stored_frame_spacing_um(&self, average: usize) -> Option<f64> {
         let spacing = self.frame_spacing_um?;
         let repeats = self.repeats_per_position.unwrap_or(1.0).round().max(1.0) as usize;
-        (average % repeats == 0).then(|| spacing * (average / repeats) as f64)
+        average.is_multiple_of(repeats).then(|| spacing * (average / repeats) as f64)
     }
 }
 

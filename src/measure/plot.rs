@@ -8,9 +8,17 @@ use std::path::Path;
 use super::mirror::MirrorMeasurement;
 use super::rolloff::{model, RolloffReport};
 use crate::io::staging::write_atomically;
+use crate::render::colour::OKABE_ITO;
 
 pub const WIDTH: u32 = 1000;
 pub const HEIGHT: u32 = 720;
+
+/// A tick label without pointless decimals: 220 not 220.0, 0.5 not 0.50.
+pub fn tick(v: &f64) -> String {
+    let t = format!("{v:.3}");
+    let t = t.trim_end_matches('0').trim_end_matches('.');
+    if t == "-0" { "0".into() } else { t.to_string() }
+}
 
 fn err<E: std::fmt::Debug>(e: E) -> anyhow::Error {
     anyhow!("drawing plot: {e:?}")
@@ -45,10 +53,10 @@ pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
             .y_label_area_size(56)
             .build_cartesian_2d(z0..z1, 0.0..1.05)
             .map_err(err)?;
-        chart.configure_mesh().x_desc("depth (µm, air)").y_desc("amplitude / peak").draw().map_err(err)?;
-        chart.draw_series(LineSeries::new(pts.iter().copied(), &BLUE)).map_err(err)?;
+        chart.configure_mesh().x_label_formatter(&tick).y_label_formatter(&tick).x_desc("depth (µm, air)").y_desc("amplitude / peak").draw().map_err(err)?;
+        chart.draw_series(LineSeries::new(pts.iter().copied(), &OKABE_ITO[0])).map_err(err)?;
         chart
-            .draw_series(std::iter::once(PathElement::new(vec![(half.0, 0.5), (half.1, 0.5)], RED.stroke_width(2))))
+            .draw_series(std::iter::once(PathElement::new(vec![(half.0, 0.5), (half.1, 0.5)], OKABE_ITO[1].stroke_width(2))))
             .map_err(err)?;
 
         let floor_db = (m.noise_floor_db - m.peak_db - 10.0).clamp(-100.0, -20.0);
@@ -69,13 +77,27 @@ pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
             .y_label_area_size(56)
             .build_cartesian_2d(z0..z1, floor_db..3.0)
             .map_err(err)?;
-        chart.configure_mesh().x_desc("depth (µm, air)").y_desc("dB re peak").draw().map_err(err)?;
+        chart.configure_mesh().x_label_formatter(&tick).y_label_formatter(&tick).x_desc("depth (µm, air)").y_desc("dB re peak").draw().map_err(err)?;
         chart
-            .draw_series(LineSeries::new(pts.iter().map(|(z, a)| (*z, (20.0 * a.log10()).max(floor_db))), &BLUE))
+            .draw_series(LineSeries::new(pts.iter().map(|(z, a)| (*z, (20.0 * a.log10()).max(floor_db))), &OKABE_ITO[0]))
             .map_err(err)?;
         chart
-            .draw_series(std::iter::once(PathElement::new(vec![(half.0, -6.02), (half.1, -6.02)], RED.stroke_width(2))))
+            .draw_series(std::iter::once(PathElement::new(vec![(half.0, -6.02), (half.1, -6.02)], OKABE_ITO[1].stroke_width(2))))
             .map_err(err)?;
+        // The mean noise floor (grey) and the highest side lobe's level
+        // (green, when it stands above the noise), across the panel.
+        let noise = m.noise_floor_db - m.peak_db;
+        let mut level = |db: f64, colour: RGBColor, label: String| -> Result<()> {
+            if db > floor_db {
+                chart.draw_series(std::iter::once(PathElement::new(vec![(z0, db), (z1, db)], colour.stroke_width(1)))).map_err(err)?;
+                chart.draw_series(std::iter::once(Text::new(label, (z0 + 0.02 * (z1 - z0), db - 0.8), ("sans-serif", 14).into_font().color(&colour)))).map_err(err)?;
+            }
+            Ok(())
+        };
+        level(noise, RGBColor(110, 110, 110), format!("noise floor {noise:.1} dB"))?;
+        if let (Some(s), true) = (m.side_lobe_db, m.side_lobe_above_noise) {
+            level(-s.abs(), OKABE_ITO[2], format!("highest side lobe {:.1} dB", -s.abs()))?;
+        }
         root.present().map_err(err)?;
         Ok(())
     })
@@ -96,14 +118,14 @@ pub fn rolloff(path: &Path, r: &RolloffReport) -> Result<()> {
             .y_label_area_size(60)
             .build_cartesian_2d(0.0..zmax, ymin..ymax)
             .map_err(err)?;
-        chart.configure_mesh().x_desc("mirror depth (µm, air)").y_desc("peak (dB)").draw().map_err(err)?;
+        chart.configure_mesh().x_label_formatter(&tick).y_label_formatter(&tick).x_desc("mirror depth (µm, air)").y_desc("peak (dB)").draw().map_err(err)?;
         let curve = (0..=400).map(|i| {
             let z = zmax * i as f64 / 400.0;
             (z, r.fit.a0_db + 20.0 * model(z, r.fit.pixel_dk_per_um, r.fit.sigma_k_per_um).max(1e-9).log10())
         });
-        chart.draw_series(LineSeries::new(curve, &BLUE)).map_err(err)?;
+        chart.draw_series(LineSeries::new(curve, &OKABE_ITO[0])).map_err(err)?;
         chart
-            .draw_series(r.points.iter().map(|p| Circle::new((p.depth_um, p.peak_db), 5, RED.filled())))
+            .draw_series(r.points.iter().map(|p| Circle::new((p.depth_um, p.peak_db), 5, OKABE_ITO[1].filled())))
             .map_err(err)?;
         let z6 = r.fit.rolloff_6db_depth_um;
         chart
@@ -115,4 +137,13 @@ pub fn rolloff(path: &Path, r: &RolloffReport) -> Result<()> {
         root.present().map_err(err)?;
         Ok(())
     })
+}
+
+#[cfg(test)]
+mod tests {
+    #[test]
+    fn tick_labels_drop_trailing_zeros() {
+        let t = |v: f64| super::tick(&v);
+        assert_eq!((t(220.0), t(0.5), t(-6.25), t(-0.0), t(1e-4)), ("220".into(), "0.5".into(), "-6.25".into(), "0".into(), "0".into()));
+    }
 }
