@@ -103,36 +103,56 @@ pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
     })
 }
 
-/// Peak dB against depth with the fitted model and the −6 dB depth.
+/// Peak dB relative to the fit's zero-delay value against depth, with the
+/// fitted model, the −6 dB depth labelled, the sensitivity (when the
+/// attenuation was given) and the maximum (Nyquist) imaging depth.
 pub fn rolloff(path: &Path, r: &RolloffReport) -> Result<()> {
+    // Nyquist depth π/(2·δk) in air for a camera pixel δk wide in
+    // wavenumber, the same as λ0²/(4·δλ) (common practice; physics::max_depth_um).
+    let max_depth_um = std::f64::consts::PI / (2.0 * r.fit.pixel_dk_per_um);
+    let a0 = r.fit.a0_db;
     write_atomically(path, |tmp| {
         let root = BitMapBackend::new(tmp, (WIDTH, HEIGHT)).into_drawing_area();
         root.fill(&WHITE).map_err(err)?;
         let zmax = r.points.iter().map(|p| p.depth_um).fold(0.0, f64::max).max(r.fit.rolloff_6db_depth_um) * 1.15;
-        let ymax = r.fit.a0_db + 3.0;
-        let ymin = r.points.iter().map(|p| p.peak_db).fold(f64::MAX, f64::min).min(r.fit.a0_db - 6.0) - 6.0;
+        let ymax = 3.0;
+        let ymin = r.points.iter().map(|p| p.peak_db - a0).fold(f64::MAX, f64::min).min(-6.0) - 6.0;
+        let sensitivity = r.sensitivity_db.map(|s| format!(", sensitivity {s:.1} dB")).unwrap_or_default();
         let mut chart = ChartBuilder::on(&root)
-            .caption(format!("Roll-off: −6 dB at {:.0} µm (fit RMS {:.2} dB)", r.fit.rolloff_6db_depth_um, r.fit.rms_residual_db), ("sans-serif", 22))
+            .caption(
+                format!("Roll-off: −6 dB at {:.0} µm, maximum depth {:.0} µm{sensitivity} (fit RMS {:.2} dB)", r.fit.rolloff_6db_depth_um, max_depth_um, r.fit.rms_residual_db),
+                ("sans-serif", 20),
+            )
             .margin(14)
             .x_label_area_size(40)
             .y_label_area_size(60)
             .build_cartesian_2d(0.0..zmax, ymin..ymax)
             .map_err(err)?;
-        chart.configure_mesh().x_label_formatter(&tick).y_label_formatter(&tick).x_desc("mirror depth (µm, air)").y_desc("peak (dB)").draw().map_err(err)?;
+        chart
+            .configure_mesh()
+            .x_label_formatter(&tick)
+            .y_label_formatter(&tick)
+            .x_desc("mirror depth (µm, air)")
+            .y_desc(format!("peak, dB re the zero-delay fit ({a0:.1} dB)"))
+            .draw()
+            .map_err(err)?;
         let curve = (0..=400).map(|i| {
             let z = zmax * i as f64 / 400.0;
-            (z, r.fit.a0_db + 20.0 * model(z, r.fit.pixel_dk_per_um, r.fit.sigma_k_per_um).max(1e-9).log10())
+            (z, 20.0 * model(z, r.fit.pixel_dk_per_um, r.fit.sigma_k_per_um).max(1e-9).log10())
         });
         chart.draw_series(LineSeries::new(curve, &OKABE_ITO[0])).map_err(err)?;
         chart
-            .draw_series(r.points.iter().map(|p| Circle::new((p.depth_um, p.peak_db), 5, OKABE_ITO[1].filled())))
+            .draw_series(r.points.iter().map(|p| Circle::new((p.depth_um, p.peak_db - a0), 5, OKABE_ITO[1].filled())))
             .map_err(err)?;
         let z6 = r.fit.rolloff_6db_depth_um;
         chart
             .draw_series(std::iter::once(PathElement::new(vec![(z6, ymin), (z6, ymax)], BLACK.stroke_width(1))))
             .map_err(err)?;
         chart
-            .draw_series(std::iter::once(PathElement::new(vec![(0.0, r.fit.a0_db - 6.02), (zmax, r.fit.a0_db - 6.02)], BLACK.stroke_width(1))))
+            .draw_series(std::iter::once(PathElement::new(vec![(0.0, -6.02), (zmax, -6.02)], BLACK.stroke_width(1))))
+            .map_err(err)?;
+        chart
+            .draw_series(std::iter::once(Text::new(format!("−6 dB at {z6:.0} µm"), (z6 + 0.01 * zmax, ymin + 0.06 * (ymax - ymin)), ("sans-serif", 16).into_font())))
             .map_err(err)?;
         root.present().map_err(err)?;
         Ok(())

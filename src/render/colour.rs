@@ -99,6 +99,20 @@ fn srgb_of_msh(c: Msh) -> [u8; 3] {
     [gamma(r).round() as u8, gamma(g).round() as u8, gamma(bl).round() as u8]
 }
 
+/// Eight colours told apart with the common colour-vision deficiencies
+/// (Okabe & Ito 2002, "Color Universal Design"), black last; for lines
+/// and markers in plots.
+pub const OKABE_ITO: [plotters::style::RGBColor; 8] = [
+    plotters::style::RGBColor(0, 114, 178),
+    plotters::style::RGBColor(213, 94, 0),
+    plotters::style::RGBColor(0, 158, 115),
+    plotters::style::RGBColor(204, 121, 167),
+    plotters::style::RGBColor(230, 159, 0),
+    plotters::style::RGBColor(86, 180, 233),
+    plotters::style::RGBColor(240, 228, 66),
+    plotters::style::RGBColor(0, 0, 0),
+];
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -113,17 +127,3 @@ mod tests {
         assert!(mid.iter().all(|&c| (220..=222).contains(&c)), "{mid:?}");
     }
 }
-
-/// Eight colours told apart with the common colour-vision deficiencies
-/// (Okabe & Ito 2002, "Color Universal Design"), black last; for lines
-/// and markers in plots.
-pub const OKABE_ITO: [plotters::style::RGBColor; 8] = [
-    plotters::style::RGBColor(0, 114, 178),
-    plotters::style::RGBColor(213, 94, 0),
-    plotters::style::RGBColor(0, 158, 115),
-    plotters::style::RGBColor(204, 121, 167),
-    plotters::style::RGBColor(230, 159, 0),
-    plotters::style::RGBColor(86, 180, 233),
-    plotters::style::RGBColor(240, 228, 66),
-    plotters::style::RGBColor(0, 0, 0),
-];
