@@ -422,7 +422,8 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     writer.positions = positions;
     let aline_spacing = config.input.aline_spacing_um.or(capture.scan.aline_spacing_um);
     let depth_spacing = planned.plan.summary.depth_spacing_um;
-    writer.png_base = png_base_info(&opened.pipeline_sha256, depth_spacing, aline_spacing, capture.scan.stored_frame_spacing_um(config.volume.average));
+    writer.position_step_um = capture.scan.stored_frame_spacing_um(config.volume.average);
+    writer.png_base = png_base_info(&opened.pipeline_sha256, depth_spacing, aline_spacing, writer.position_step_um);
     writer.bscan_pixel_um = aline_spacing.map(|a| (a, depth_spacing));
     let en_face_pixel_um = writer.en_face_pixel_um();
     let en_face_base = writer.png_base.clone();

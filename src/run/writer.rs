@@ -70,6 +70,8 @@ pub struct Writer<'a> {
     /// Pixel size of a B-scan, (A-line step, depth step) in µm, when the
     /// lateral step is known.
     pub bscan_pixel_um: Option<(f64, f64)>,
+    /// Slow-axis step between stored frames, µm, when known.
+    pub position_step_um: Option<f64>,
     written: Written,
     grey: Vec<u8>,
 }
@@ -100,6 +102,7 @@ impl<'a> Writer<'a> {
             positions: 0,
             png_base: PngInfo::default(),
             bscan_pixel_um: None,
+            position_step_um: None,
             written: Written {
                 records: Vec::new(),
                 en_face: Vec::new(),
@@ -241,8 +244,7 @@ impl<'a> Writer<'a> {
 
     /// Pixel size of an en face image, (A-line step, position step) in µm.
     pub fn en_face_pixel_um(&self) -> Option<(f64, f64)> {
-        let across = self.bscan_pixel_um?.0;
-        self.png_base.get("position_spacing_um")?.parse().ok().map(|down| (across, down))
+        Some((self.bscan_pixel_um?.0, self.position_step_um?))
     }
 
     /// The angiography en face images and datasets, after the last position.
