@@ -134,6 +134,9 @@ pub struct FringeTables<'a> {
     pub two_sigma2: &'a [f64],
     /// Width in k of the pixel (0: no integration).
     pub pixel_dk: &'a [f64],
+    /// max_p pixel_dk[p] and max_p two_sigma2[p], to choose the loop.
+    pub max_pixel_dk: f64,
+    pub max_two_sigma2: f64,
     /// Whether any pixel has a spectral response or integrates (else V = 1).
     pub roll_off: bool,
 }
@@ -194,6 +197,29 @@ fn add_fringe_portable(t: &FringeTables<'_>, amplitude: f64, z: f64, with_chirp:
     }
     let (s2, dk) = (&t.two_sigma2[..n], &t.pixel_dk[..n]);
     let z2 = z * z;
+    if z.abs() * t.max_pixel_dk <= std::f64::consts::FRAC_PI_2 && t.max_two_sigma2 * z2 <= 0.5 * std::f64::consts::LN_2 {
+        // Every |z·δk| is inside [0, π/2]: sin x / x is the polynomial in
+        // x² directly, no reduction and no division; and every 2σ²z² is
+        // inside [0, ln2/2], where exp_neg's reduction is the identity
+        // (n = 0), so the polynomial alone gives the same bits. The common
+        // case: a pixel's width and response in k times the depth stay
+        // well below 1 rad.
+        for p in 0..n {
+            let x = z * dk[p];
+            let v = horner(&EXP_TAYLOR, -s2[p] * z2) * horner(&SIN_TAYLOR, x * x);
+            out[p] += amplitude * v * cos(two_k[p] * z + chirp_on * chirp[p]);
+        }
+        return;
+    }
+    if z.abs() * t.max_pixel_dk <= std::f64::consts::FRAC_PI_2 {
+        // sin x / x directly as above; exp reduced.
+        for p in 0..n {
+            let x = z * dk[p];
+            let v = exp_neg(-s2[p] * z2) * horner(&SIN_TAYLOR, x * x);
+            out[p] += amplitude * v * cos(two_k[p] * z + chirp_on * chirp[p]);
+        }
+        return;
+    }
     for p in 0..n {
         // sin|x|/|x| (even), with |x| kept ≥ 1e-300 so that x = 0 gives 1.
         let x = (z * dk[p]).abs().max(1e-300);
@@ -255,14 +281,30 @@ mod tests {
         let chirp: Vec<f64> = (0..n).map(|p| 0.01 * (p as f64 - 150.0).powi(2)).collect();
         let s2: Vec<f64> = (0..n).map(|p| 1e-8 * (1.0 + p as f64 / n as f64)).collect();
         let dk: Vec<f64> = vec![0.003; n];
-        let t = FringeTables { two_k: &two_k, chirp: &chirp, two_sigma2: &s2, pixel_dk: &dk, roll_off: true };
+        let t = FringeTables { two_k: &two_k, chirp: &chirp, two_sigma2: &s2, pixel_dk: &dk, max_pixel_dk: 0.003, max_two_sigma2: 2e-8, roll_off: true };
+        // 812.3 µm: |z·δk| = 2.4 > π/2 (the reduced sine); 300.7 µm: 0.9
+        // (the direct polynomial); 5000 µm: 2σ²z² = 0.5 > ln2/2 with
+        // |z·δk| = 15 (both reduced); 500 µm with a wider response below.
+        for z in [812.3f64, 300.7, -300.7, 5000.0] {
+            let mut out = vec![0.0; n];
+            add_fringe(&t, 2.5, z, true, &mut out);
+            for p in 0..n {
+                let x = z * dk[p];
+                let want = 2.5 * (-s2[p] * z * z).exp() * x.sin() / x * (two_k[p] * z + chirp[p]).cos();
+                assert!((out[p] - want).abs() < 1e-12, "z {z}, pixel {p}: {} vs {want}", out[p]);
+            }
+        }
+        // 2σ²z² up to 1.0 > ln2/2 with |z·δk| = 0.15 < π/2: the direct sine, reduced exp.
+        let wide: Vec<f64> = vec![2e-6; n];
+        let dk_small: Vec<f64> = vec![0.0003; n];
+        let t = FringeTables { two_k: &two_k, chirp: &chirp, two_sigma2: &wide, pixel_dk: &dk_small, max_pixel_dk: 0.0003, max_two_sigma2: 2e-6, roll_off: true };
+        let z = 500.0f64;
         let mut out = vec![0.0; n];
-        add_fringe(&t, 2.5, 812.3, true, &mut out);
+        add_fringe(&t, 1.5, z, false, &mut out);
         for p in 0..n {
-            let z = 812.3f64;
-            let x = z * dk[p];
-            let want = 2.5 * (-s2[p] * z * z).exp() * x.sin() / x * (two_k[p] * z + chirp[p]).cos();
-            assert!((out[p] - want).abs() < 1e-12, "pixel {p}: {} vs {want}", out[p]);
+            let x = z * dk_small[p];
+            let want = 1.5 * (-wide[p] * z * z).exp() * x.sin() / x * (two_k[p] * z).cos();
+            assert!((out[p] - want).abs() < 1e-12, "wide response, pixel {p}: {} vs {want}", out[p]);
         }
     }
 }

@@ -145,6 +145,8 @@ impl Optics {
             chirp: &self.chirp,
             two_sigma2: &self.two_sigma2,
             pixel_dk: &self.pixel_dk,
+            max_pixel_dk: self.pixel_dk.iter().fold(0.0, |m: f64, &d| m.max(d)),
+            max_two_sigma2: self.two_sigma2.iter().fold(0.0, |m: f64, &d| m.max(d)),
             roll_off: self.sigma_k.iter().any(|&s| s > 0.0) || self.pixel_dk.iter().any(|&d| d > 0.0),
         }
     }
