@@ -9,7 +9,7 @@ use fringeflow::calibration::{dispersion, sweep, wavelength};
 use fringeflow::io::staging::write_atomically;
 
 pub fn calibrate(command: CalibrateCommand) -> ExitCode {
-    let CalibrateCommand::Wavelength { mirrors, out, centre_nm, span_nm, depths_um, decreasing, degree, pipeline, frame, json } = command;
+    let CalibrateCommand::Wavelength { mirrors, out, centre_nm, span_nm, depths_um, decreasing, degree, pipeline, frame, plot, json } = command;
     let config = match load_pipeline(pipeline.as_deref(), &[]) {
         Ok(c) => c,
         Err(code) => return code,
@@ -22,6 +22,9 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
     if out.is_dir() {
         return fail(2, format!("--out {}: is a folder; give the calibration file to write, e.g. {}", out.display(), out.join("calibration.json").display()));
     }
+    if let Some(p) = plot.as_ref().filter(|p| p.is_dir()) {
+        return fail(2, format!("--plot {}: is a folder; give the PNG file to write, e.g. {}", p.display(), p.join("calibration.png").display()));
+    }
     let cal = match wavelength::calibrate_files(&mirrors, &config, frame, &hints, degree) {
         Ok(c) => c,
         Err(e) => return fail(1, format!("{e:#}")),
@@ -32,6 +35,12 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
     });
     if let Err(e) = written {
         return fail(1, format!("{}: {e:#}", out.display()));
+    }
+    if let Some(p) = &plot {
+        let nominal = wavelength::nominal_map(&mirrors[0], &config);
+        if let Err(e) = fringeflow::measure::plot::wavelength_map(p, &cal, nominal.as_deref(), &config.sha256()) {
+            return fail(1, format!("{}: {e:#}", p.display()));
+        }
     }
     if json {
         outln!("{}", serde_json::to_string_pretty(&cal).unwrap());
@@ -63,6 +72,9 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
         None => outln!("residual dispersion: needs two mirror depths (with one, it is folded into the map)"),
     }
     outln!("wrote {}", out.display());
+    if let Some(p) = &plot {
+        outln!("wrote {}", p.display());
+    }
     ExitCode::SUCCESS
 }
 

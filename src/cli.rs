@@ -424,7 +424,7 @@ pub enum CalibrateCommand {
     #[command(after_help = concat!(
         "EXAMPLES:\n",
         "  fringeflow calibrate wavelength m1.h5 m2.h5 --centre-nm 840 --span-nm 150 --out cal.json\n",
-        "  fringeflow calibrate wavelength m.h5 --depths-um 400 --centre-nm 840 --out cal.json\n\n",
+        "  fringeflow calibrate wavelength m.h5 --depths-um 400 --centre-nm 840 --out cal.json --plot cal.png\n\n",
         "Give exactly two of --centre-nm, --span-nm and --depths-um.\n\n",
         EXIT_STATUS_USAGE!()
     ))]
@@ -456,6 +456,9 @@ pub enum CalibrateCommand {
         /// Frame whose A-lines are averaged.
         #[arg(long, default_value_t = 0)]
         frame: usize,
+        /// Also draw the calibrated map against the nominal one and the fit residual (PNG).
+        #[arg(long, value_name = "FILE")]
+        plot: Option<PathBuf>,
         /// Print the calibration as JSON instead of a summary.
         #[arg(long)]
         json: bool,

@@ -385,7 +385,7 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 Err(e) => return fail(1, format!("{}: {e:#}", path.display())),
             };
             if let Some(p) = &plot_path {
-                if let Err(e) = plot::psf(p, &m) {
+                if let Err(e) = plot::psf(p, &m, &config.sha256()) {
                     return fail(1, format!("{}: {e:#}", p.display()));
                 }
             }
@@ -423,7 +423,7 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 Err(e) => return fail(1, format!("{e:#}")),
             };
             if let Some(p) = &plot_path {
-                if let Err(e) = plot::rolloff(p, &report) {
+                if let Err(e) = plot::rolloff(p, &report, &config.sha256()) {
                     return fail(1, format!("{}: {e:#}", p.display()));
                 }
             }

@@ -103,10 +103,12 @@ fn wavelength_map_from_two_mirrors() {
     let map = true_map(&near_scene);
     let centre = 0.5 * (map[1023] + map[1024]);
     let o = fringeflow(
-        &["calibrate", "wavelength", "near.h5", "far.h5", "--centre-nm", &centre.to_string(), "--span-nm", "150", "--out", "cal.json"],
+        &["calibrate", "wavelength", "near.h5", "far.h5", "--centre-nm", &centre.to_string(), "--span-nm", "150", "--out", "cal.json", "--plot", "cal.png"],
         d,
     );
     assert!(o.status.success(), "{}", stderr(&o));
+    // The plot of the map (Pillow reads it; its residual chunk is the file's).
+    decode(&["calplot".as_ref(), d.join("cal.png").as_os_str(), d.join("cal.json").as_os_str()]);
     let cal = read_cal(&d.join("cal.json"));
     let recovered = f64s(&cal["wavelength_nm"]);
     let error = rms(&recovered, &map);
@@ -221,18 +223,16 @@ fn sweep_table_thumbnails_and_best_setting() {
     let report: serde_json::Value = serde_json::from_slice(&std::fs::read(d.join("sweep/sweep.json")).unwrap()).unwrap();
     let rows = report["rows"].as_array().unwrap();
     assert_eq!(rows.len(), n);
-    let sheet = image::open(d.join("sweep/contact-sheet.png")).unwrap().to_luma8();
     let mut tiles = std::collections::BTreeSet::new();
     for r in rows {
-        let t: Vec<u32> = r["tile"].as_array().unwrap().iter().map(|v| v.as_u64().unwrap() as u32).collect();
+        let t: Vec<u64> = r["tile"].as_array().unwrap().iter().map(|v| v.as_u64().unwrap()).collect();
         assert!(tiles.insert((t[0], t[1])), "two settings share a tile");
-        // The mirror line makes each thumbnail non-uniform.
-        let px: Vec<u8> = (t[1]..t[1] + t[3]).flat_map(|y| (t[0]..t[0] + t[2]).map(move |x| (x, y))).map(|(x, y)| sheet.get_pixel(x, y).0[0]).collect();
-        let (lo, hi) = (px.iter().min().unwrap(), px.iter().max().unwrap());
-        assert!(hi - lo > 60, "thumbnail at {t:?} is flat ({lo}..{hi})");
     }
-    let plot = image::open(d.join("sweep/metric.png")).unwrap();
-    assert_eq!((plot.width(), plot.height()), (1000, 720));
+    // Every tile shows the mirror line (not blank) in the crop sweep.json
+    // names, the mirror near the crop's interface row; the plot carries its
+    // provenance. Read back with Pillow.
+    decode(&["sheet".as_ref(), d.join("sweep").as_os_str()]);
+    decode(&["plot".as_ref(), d.join("sweep/metric.png").as_os_str()]);
 
     let best = &rows[report["best"].as_u64().unwrap() as usize];
     let est = json(&fringeflow(&["dispersion", "estimate", capture.to_str().unwrap(), "--json"], d));

@@ -9,7 +9,10 @@ Usage:
   decode_images.py sheet SWEEP_DIR        contact-sheet.png against sweep.json
   decode_images.py doppler OUTPUT_DIR     Doppler images against the velocity
                                           dataset and matplotlib's coolwarm
-  decode_images.py plot PNG [PNG...]      plots: decode, RGB, not blank
+  decode_images.py plot PNG [PNG...]      plots: decode, RGB, not blank, with
+                                          their provenance chunks
+  decode_images.py calplot PNG CAL.json   the wavelength-calibration plot
+                                          against its calibration file
   decode_images.py axes OUTPUT_DIR        volume.h5's dimension scales (h5py)
 
 Every image's tEXt chunks (tool version, pipeline hash, depth spacing, dB
@@ -159,9 +162,25 @@ def check_sheet(sweepdir):
     im = decode(f"{sweepdir}/contact-sheet.png")
     if im.mode != "RGB":
         fail(f"contact-sheet.png: mode {im.mode}")
+    plot_provenance(im, "contact-sheet.png", report["pipeline_sha256"])
+    crop = report["tile_crop"]
+    zoom = crop["zoom"]
+    if not close(im.text.get("depth_spacing_um", "nan"), crop["depth_spacing_um"] / zoom, 1e-6):
+        fail(f"contact-sheet.png: depth_spacing_um {im.text.get('depth_spacing_um')} is not the crop's {crop['depth_spacing_um']} / {zoom}")
+    # The tiles show the crop enlarged, not shrunk: zoom >= 1 screen pixel per
+    # pixel, and the crop's depth range is what its pixels say.
+    if zoom < 1:
+        fail(f"tile zoom {zoom} shrinks the B-scan")
+    span = crop["last_depth_um"] - crop["first_depth_um"]
+    if not close(span, (crop["depth_pixels"] - 1) * crop["depth_spacing_um"], 1e-9):
+        fail(f"crop depth range {span} um for {crop['depth_pixels']} pixels of {crop['depth_spacing_um']} um")
+    if not (crop["first_depth_um"] <= crop["interface_depth_um"] <= crop["last_depth_um"]):
+        fail(f"crop {crop['first_depth_um']}-{crop['last_depth_um']} um misses the interface at {crop['interface_depth_um']} um")
     a = np.asarray(im).astype(int)
     for i, row in enumerate(report["rows"]):
         x, y, w, h = row["tile"]
+        if (w, h) != (crop["alines"] * zoom, crop["depth_pixels"] * zoom):
+            fail(f"tile {i}: {w}x{h} is not the crop {crop['alines']}x{crop['depth_pixels']} at {zoom}x")
         if x + w > im.size[0] or y + h > im.size[1]:
             fail(f"tile {i} {row['tile']} outside the {im.size} sheet")
         tile = a[y:y + h, x:x + w]
@@ -170,13 +189,21 @@ def check_sheet(sweepdir):
             fail(f"tile {i}: not grey")
         if tile[..., 0].std() < 1.0:
             fail(f"tile {i}: blank (sd {tile[..., 0].std():.2f})")
-    # The best tile is framed in red just outside its edge.
+    # In the best (sharpest) tile the brightest row, column by column, lies
+    # near the interface the crop is centred on (within a sixth of the crop:
+    # the surface is curved across the A-lines).
     x, y, w, h = report["rows"][report["best"]]["tile"]
+    tile = a[y:y + h, x:x + w, 0].astype(float)
+    want = (crop["interface_depth_um"] - crop["first_depth_um"]) / crop["depth_spacing_um"] * zoom
+    got = float(np.median(np.argmax(tile[:, 20:], axis=0)))
+    if abs(got - want) > h / 6:
+        fail(f"best tile: brightest row {got} px, interface expected at {want:.1} px")
+    # The best tile is framed in red just outside its edge.
     edge = a[y - 2, x:x + w]
     red = np.mean((edge[:, 0] > 200) & (edge[:, 1] < 60) & (edge[:, 2] < 60))
     if red < 0.9:
         fail(f"best tile {report['best']} not framed in red ({red:.2f} of its top edge)")
-    print(f"ok contact-sheet.png: {im.size}, {len(report['rows'])} tiles, best framed")
+    print(f"ok contact-sheet.png: {im.size}, {len(report['rows'])} tiles at {zoom}x, interface row {got:.0f} (expected {want:.0f}), best framed")
 
 
 def check_doppler(outdir):
@@ -246,6 +273,19 @@ def check_angiography(outdir):
             print(f"ok angiography-{method}: {len(whites)} images and the en face decode to the dataset")
 
 
+def plot_provenance(im, name, pipeline_sha256=None):
+    t = im.text
+    if not t.get("Software", "").startswith("fringeflow "):
+        fail(f"{name}: Software chunk {t.get('Software')!r}")
+    if not t.get("Description"):
+        fail(f"{name}: no Description chunk")
+    h = t.get("pipeline_sha256", "")
+    if len(h) != 64 or any(c not in "0123456789abcdef" for c in h):
+        fail(f"{name}: pipeline_sha256 {h!r}")
+    if pipeline_sha256 is not None and h != pipeline_sha256:
+        fail(f"{name}: pipeline_sha256 {h} but the report says {pipeline_sha256}")
+
+
 def check_plots(paths):
     for p in paths:
         im = decode(p)
@@ -254,7 +294,25 @@ def check_plots(paths):
         a = np.asarray(im)
         if a.std() < 5:
             fail(f"{p}: nearly blank")
-        print(f"ok {p}: {im.size}")
+        plot_provenance(im, p)
+        print(f"ok {p}: {im.size}, {im.text['Description']!r}")
+
+
+def check_calibration_plot(path, cal_path):
+    cal = json.load(open(cal_path))
+    im = decode(path)
+    check_plots([path])
+    if not close(im.text.get("fit_residual_rms_nm", "nan"), cal["fit_residual_rms_nm"], 1e-5):
+        fail(f"{path}: fit_residual_rms_nm {im.text.get('fit_residual_rms_nm')} vs {cal['fit_residual_rms_nm']} in {cal_path}")
+    # Three panels (map, change from nominal, residual) drawn: the picture
+    # is taller than wide and ink reaches each third.
+    a = np.asarray(im).astype(int)
+    h = a.shape[0]
+    for k in range(3):
+        part = a[k * h // 3:(k + 1) * h // 3]
+        if np.mean(part < 128) < 0.002:
+            fail(f"{path}: panel {k + 1} is empty")
+    print(f"ok {path}: residual RMS {im.text['fit_residual_rms_nm']} nm as in {cal_path}")
 
 
 def check_axes(outdir):
@@ -319,5 +377,7 @@ if __name__ == "__main__":
         check_axes(sys.argv[2])
     elif kind == "plot":
         check_plots(sys.argv[2:])
+    elif kind == "calplot":
+        check_calibration_plot(sys.argv[2], sys.argv[3])
     else:
         fail(f"unknown kind {kind}")

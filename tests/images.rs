@@ -9,21 +9,7 @@
 
 mod common;
 use common::*;
-use std::path::Path;
 use std::process::Command;
-
-fn decode(args: &[&std::ffi::OsStr]) {
-    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/decode_images.py");
-    let o = Command::new("python3")
-        .arg(&script)
-        .args(args)
-        .output()
-        .expect("python3 with Pillow, numpy and h5py (make test installs them)");
-    let text = String::from_utf8_lossy(&o.stdout);
-    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
-    assert!(o.status.success(), "decode check failed: {text}");
-    assert!(text.contains("ok "), "nothing was checked: {text}");
-}
 
 const SCENE: &str = r#"
 seed = 21

@@ -8,7 +8,7 @@
 //! interface are measured on those A-lines with 8× zero padding.
 
 use anyhow::{anyhow, bail, Context, Result};
-use image::{imageops, GrayImage, RgbImage};
+use image::{imageops, GrayImage};
 use ndarray::{Array2, Axis};
 use plotters::prelude::*;
 use rayon::prelude::*;
@@ -33,6 +33,31 @@ const THUMB_H: u32 = 180;
 const LABEL_H: u32 = 40;
 const GAP: u32 = 8;
 const COLUMNS: usize = 6;
+/// Height of the sheet's header line (what the tiles show).
+const HEADER_H: u32 = 26;
+/// Screen pixels per A-line and per depth pixel in a tile: the crop is
+/// shown enlarged, never shrunk, so the PSF's sharpening stays visible.
+const TILE_ZOOM: usize = 2;
+
+/// The part of the frame every tile shows: A-lines and depth pixels
+/// around the brightest interface, at `zoom` screen pixels per pixel.
+#[derive(Debug, Clone, Serialize)]
+pub struct TileCrop {
+    pub first_aline: usize,
+    pub alines: usize,
+    /// Index of the crop's first depth pixel in the reconstructed frame.
+    pub first_depth_pixel: usize,
+    /// Depth of the crop's first and last pixel, µm in air.
+    pub first_depth_um: f64,
+    pub last_depth_um: f64,
+    pub depth_pixels: usize,
+    pub depth_spacing_um: f64,
+    pub zoom: usize,
+    /// Depth of the brightest interface the crop is centred on, µm in air.
+    pub interface_depth_um: f64,
+    /// Length of the scale bar drawn in each tile, µm in air.
+    pub scale_bar_um: f64,
+}
 
 /// Parses `START:STOP:STEP` into the values START, START+STEP, … ≤ STOP.
 pub fn parse_range(text: &str, name: &str) -> Result<Vec<f64>> {
@@ -90,6 +115,7 @@ pub struct SweepReport {
     pub metric: &'static str,
     pub alines_used: usize,
     pub best: usize,
+    pub tile_crop: TileCrop,
     pub rows: Vec<SweepRow>,
 }
 
@@ -126,13 +152,15 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
     let (k_min, k_max) = (plan.summary.k_min_per_um, plan.summary.k_max_per_um);
     let fine_spacing = fine_plan.summary.depth_spacing_um;
 
-    // Grey scale shared by all thumbnails, from the uncorrected frame.
+    // Grey scale shared by all thumbnails, and the crop, from the
+    // uncorrected frame.
+    let uncorrected = frame_set.amplitudes(0.0, 0.0);
+    let crop = tile_crop(&uncorrected, &lines, &plan);
     let lc = &config.log_compression;
     let (black, white) = match lc.mapping {
         GreyMapping::Fixed => (lc.black_db, lc.white_db),
         GreyMapping::Auto => {
-            let amp = frame_set.amplitudes(0.0, 0.0);
-            let db: Vec<f32> = amp.iter().map(|a| (20.0 * a.max(1e-12).log10()) as f32).collect();
+            let db: Vec<f32> = uncorrected.iter().map(|a| (20.0 * a.max(1e-12).log10()) as f32).collect();
             let floor = crate::stages::log_compression::noise_floor_db(&db);
             crate::stages::log_compression::auto_levels(&db, floor, lc.floor_offset_db, lc.dynamic_range_db, lc.white_percentile)
         }
@@ -167,7 +195,7 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
                 fused_silica_mm: eq.fused_silica_mm,
                 tile: [0; 4],
             };
-            (row, thumbnail(&amp, black, white))
+            (row, thumbnail(&amp, &crop, black, white))
         })
         .collect();
     let (mut rows, thumbs): (Vec<SweepRow>, Vec<GrayImage>) = results.into_iter().unzip();
@@ -177,17 +205,20 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
     let columns = settings.len().min(COLUMNS);
     for (i, row) in rows.iter_mut().enumerate() {
         let (c, r) = ((i % columns) as u32, (i / columns) as u32);
-        row.tile = [GAP + c * (THUMB_W + GAP), GAP + r * (THUMB_H + LABEL_H + GAP) + LABEL_H, THUMB_W, THUMB_H];
+        let (w, h) = thumbs[i].dimensions();
+        row.tile = [GAP + c * (THUMB_W + GAP), HEADER_H + GAP + r * (THUMB_H + LABEL_H + GAP) + LABEL_H, w, h];
     }
-    contact_sheet(&out.join("contact-sheet.png"), &rows, &thumbs, columns, best)?;
+    let pipeline_sha256 = config.sha256();
+    contact_sheet(&out.join("contact-sheet.png"), &rows, &thumbs, columns, best, &crop, (black, white), &pipeline_sha256)?;
     let report = SweepReport {
         capture: std::path::absolute(capture_path).unwrap_or_else(|_| capture_path.to_path_buf()),
         input_hash: hash::input_hash(capture_path)?,
-        pipeline_sha256: config.sha256(),
+        pipeline_sha256,
         frame,
         metric: "entropy of normalised intensity (nats, lower is sharper)",
         alines_used: lines.len(),
         best,
+        tile_crop: crop,
         rows,
     };
     write_atomically(&out.join("sweep.csv"), |tmp| {
@@ -215,30 +246,95 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
         std::fs::write(tmp, serde_json::to_vec_pretty(&report)?)?;
         Ok(())
     })?;
-    metric_plot(&out.join("metric.png"), &report, a2.len() > 1)?;
+    metric_plot(&out.join("metric.png"), &report, a2.len() > 1, physics::dispersion_equivalent(1.0, k_min, k_max))?;
     Ok(report)
 }
 
-/// B-scan thumbnail: depth down, A-lines across, shared grey scale.
-fn thumbnail(amplitude: &Array2<f64>, black: f64, white: f64) -> GrayImage {
-    let (alines, depth) = amplitude.dim();
-    let db: Vec<f32> = amplitude.t().iter().map(|a| (20.0 * a.max(1e-12).log10()) as f32).collect();
+/// The crop every tile shows: centred on the brightest interface of the
+/// bright A-lines (the median of their peaks, skipping the 8 bins next to
+/// zero delay) and on the median bright A-line, as large as a tile holds
+/// at [`TILE_ZOOM`].
+fn tile_crop(uncorrected: &Array2<f64>, lines: &[usize], plan: &Plan) -> TileCrop {
+    let (alines, depth) = uncorrected.dim();
+    let skip = 8usize.saturating_sub(plan.summary.first_depth_bin).min(depth.saturating_sub(1));
+    let mut peaks: Vec<f64> = lines
+        .iter()
+        .map(|&l| {
+            let row = uncorrected.row(l);
+            (skip..depth).max_by(|&a, &b| row[a].total_cmp(&row[b])).unwrap_or(0) as f64
+        })
+        .collect();
+    let centre_px = if peaks.is_empty() { depth as f64 / 2.0 } else { crate::stages::background::median_in_place(&mut peaks) };
+    let mut across: Vec<f64> = lines.iter().map(|&l| l as f64).collect();
+    let centre_a = if across.is_empty() { alines as f64 / 2.0 } else { crate::stages::background::median_in_place(&mut across) };
+    let cw = alines.min(THUMB_W as usize / TILE_ZOOM).max(1);
+    let ch = depth.min(THUMB_H as usize / TILE_ZOOM).max(1);
+    let start = |centre: f64, len: usize, total: usize| ((centre - len as f64 / 2.0).round().max(0.0) as usize).min(total - len);
+    let (a0, d0) = (start(centre_a, cw, alines), start(centre_px, ch, depth));
+    let spacing = plan.summary.depth_spacing_um;
+    // A round scale bar about a third of the crop's depth.
+    let span = ch as f64 * spacing;
+    let target = span / 3.0;
+    let magnitude = 10f64.powf(target.log10().floor());
+    let scale_bar_um = [5.0, 2.0, 1.0].iter().map(|m| m * magnitude).find(|&v| v <= target).unwrap_or(magnitude);
+    TileCrop {
+        first_aline: a0,
+        alines: cw,
+        first_depth_pixel: d0,
+        first_depth_um: plan.depth_um(d0),
+        last_depth_um: plan.depth_um(d0 + ch - 1),
+        depth_pixels: ch,
+        depth_spacing_um: spacing,
+        zoom: TILE_ZOOM,
+        interface_depth_um: plan.depth_um(centre_px.round() as usize),
+        scale_bar_um,
+    }
+}
+
+/// B-scan tile: the crop of the frame, depth down, A-lines across, shared
+/// grey scale, each pixel `zoom` × `zoom` screen pixels (no smoothing).
+fn thumbnail(amplitude: &Array2<f64>, crop: &TileCrop, black: f64, white: f64) -> GrayImage {
+    let (a0, d0) = (crop.first_aline, crop.first_depth_pixel);
+    let part = amplitude.slice(ndarray::s![a0..a0 + crop.alines, d0..d0 + crop.depth_pixels]);
+    let db: Vec<f32> = part.t().iter().map(|a| (20.0 * a.max(1e-12).log10()) as f32).collect();
     let grey: Vec<u8> = grey_levels(&db, black, white, 255.0).into_iter().map(|g| g as u8).collect();
-    let full = GrayImage::from_raw(alines as u32, depth as u32, grey).expect("image size");
-    imageops::resize(&full, THUMB_W, THUMB_H, imageops::FilterType::Triangle)
+    let tile = GrayImage::from_raw(crop.alines as u32, crop.depth_pixels as u32, grey).expect("image size");
+    let z = crop.zoom as u32;
+    imageops::resize(&tile, tile.width() * z, tile.height() * z, imageops::FilterType::Nearest)
 }
 
 fn err<E: std::fmt::Debug>(e: E) -> anyhow::Error {
     anyhow!("drawing: {e:?}")
 }
 
-fn contact_sheet(path: &Path, rows: &[SweepRow], thumbs: &[GrayImage], columns: usize, best: usize) -> Result<()> {
+#[allow(clippy::too_many_arguments)]
+fn contact_sheet(path: &Path, rows: &[SweepRow], thumbs: &[GrayImage], columns: usize, best: usize, crop: &TileCrop, levels: (f64, f64), pipeline_sha256: &str) -> Result<()> {
     let lines = rows.len().div_ceil(columns) as u32;
     let width = GAP + columns as u32 * (THUMB_W + GAP);
-    let height = GAP + lines * (THUMB_H + LABEL_H + GAP);
+    let height = HEADER_H + GAP + lines * (THUMB_H + LABEL_H + GAP);
     let mut buf = vec![255u8; (width * height * 3) as usize];
+    for (r, t) in rows.iter().zip(thumbs.iter()) {
+        let [x, y, _, _] = r.tile;
+        for (tx, ty, p) in t.enumerate_pixels() {
+            let i = (((y + ty) * width + x + tx) * 3) as usize;
+            buf[i..i + 3].fill(p.0[0]);
+        }
+    }
     {
         let root = BitMapBackend::with_buffer(&mut buf, (width, height)).into_drawing_area();
+        let header = format!(
+            "Each tile: A-lines {}–{}, depth {:.0}–{:.0} µm in air around the brightest interface ({:.0} µm), {}× enlarged; grey {:.1} to {:.1} dB",
+            crop.first_aline,
+            crop.first_aline + crop.alines - 1,
+            crop.first_depth_um,
+            crop.last_depth_um,
+            crop.interface_depth_um,
+            crop.zoom,
+            levels.0,
+            levels.1
+        );
+        root.draw(&Text::new(header, (GAP as i32, 6), ("sans-serif", 15).into_font().color(&BLACK))).map_err(err)?;
+        let bar_px = (crop.scale_bar_um / crop.depth_spacing_um * crop.zoom as f64).round() as i32;
         for (i, r) in rows.iter().enumerate() {
             let [x, y, w, h] = r.tile;
             let colour = if i == best { RED } else { BLACK };
@@ -252,47 +348,65 @@ fn contact_sheet(path: &Path, rows: &[SweepRow], thumbs: &[GrayImage], columns: 
                 root.draw(&Rectangle::new([(x as i32 - 3, y as i32 - 3), ((x + w) as i32 + 2, (y + h) as i32 + 2)], RED.stroke_width(3)))
                     .map_err(err)?;
             }
+            // Depth scale: a white bar in the tile's lower left corner.
+            if bar_px >= 4 && bar_px + 12 < h as i32 {
+                let (bx, by) = (x as i32 + 6, (y + h) as i32 - 6);
+                root.draw(&PathElement::new(vec![(bx, by), (bx, by - bar_px)], WHITE.stroke_width(2))).map_err(err)?;
+                root.draw(&Text::new(format!("{} µm", crate::measure::plot::tick(&crop.scale_bar_um)), (bx + 5, by - bar_px), ("sans-serif", 13).into_font().color(&WHITE)))
+                    .map_err(err)?;
+            }
         }
         root.present().map_err(err)?;
     }
-    let mut sheet = RgbImage::from_raw(width, height, buf).expect("sheet size");
-    for (r, t) in rows.iter().zip(thumbs.iter()) {
-        let [x, y, _, _] = r.tile;
-        for (tx, ty, p) in t.enumerate_pixels() {
-            sheet.put_pixel(x + tx, y + ty, image::Rgb([p.0[0]; 3]));
-        }
-    }
-    write_atomically(path, |tmp| {
-        sheet.save_with_format(tmp, image::ImageFormat::Png).map_err(|e| anyhow!("writing {}: {e}", path.display()))
-    })
+    let info = crate::measure::plot::plot_info("dispersion sweep contact sheet: one tile per a2/a3 setting, same crop and grey scale".into(), pipeline_sha256)
+        .with("black_db", format!("{}", levels.0))
+        .with("white_db", format!("{}", levels.1))
+        .with("depth_spacing_um", format!("{}", crop.depth_spacing_um / crop.zoom as f64))
+        .with("tile_zoom", format!("{}", crop.zoom));
+    write_atomically(path, |tmp| crate::io::png::write_rgb8(tmp, width as usize, height as usize, &buf, &info))
 }
 
 /// Metric against the swept coefficient (a2 when it varies, else a3), one
-/// line per value of the other, the best setting circled.
-fn metric_plot(path: &Path, report: &SweepReport, along_a2: bool) -> Result<()> {
+/// line per value of the other, the best setting circled; below it the
+/// FWHM of the brightest interface. Along a2 a second axis on top gives the
+/// same coefficient as group-delay dispersion (fs²) and as the thickness of
+/// unmatched fused silica (mm), both linear in a2 (`per_rad`: their values
+/// at a2 = 1 rad).
+fn metric_plot(path: &Path, report: &SweepReport, along_a2: bool, per_rad: physics::DispersionEquivalent) -> Result<()> {
     let key = |r: &SweepRow| if along_a2 { r.a2_rad } else { r.a3_rad };
     let other = |r: &SweepRow| if along_a2 { r.a3_rad } else { r.a2_rad };
     let (xmin, xmax) = report.rows.iter().map(key).fold((f64::MAX, f64::MIN), |(a, b), v| (a.min(v), b.max(v)));
     let (ymin, ymax) = report.rows.iter().map(|r| r.entropy).fold((f64::MAX, f64::MIN), |(a, b), v| (a.min(v), b.max(v)));
     let pad_x = ((xmax - xmin) * 0.05).max(0.5);
+    // Head room above the curves for the legend.
     let pad_y = ((ymax - ymin) * 0.08).max(1e-3);
+    let (x0, x1) = (xmin - pad_x, xmax + pad_x);
     let mut groups: Vec<f64> = report.rows.iter().map(other).collect();
     groups.sort_by(f64::total_cmp);
     groups.dedup();
     let best = &report.rows[report.best];
-    write_atomically(path, |tmp| {
-        let root = BitMapBackend::new(tmp, (1000, 720)).into_drawing_area();
-        root.fill(&WHITE).map_err(err)?;
-        let mut chart = ChartBuilder::on(&root)
+    let widths: Vec<f64> = report.rows.iter().filter_map(|r| r.fwhm_um).collect();
+    let (wmin, wmax) = widths.iter().fold((f64::MAX, f64::MIN), |(a, b), &v| (a.min(v), b.max(v)));
+    let colour_of = |gi: usize| crate::render::colour::OKABE_ITO[gi % crate::render::colour::OKABE_ITO.len()];
+    let info = crate::measure::plot::plot_info(
+        format!("dispersion sweep: entropy and FWHM against {}", if along_a2 { "a2" } else { "a3" }),
+        &report.pipeline_sha256,
+    );
+    crate::measure::plot::save_plot(path, 1000, 900, &info, |root| {
+        let (upper, lower) = root.split_vertically(540);
+        let fwhm_text = best.fwhm_um.map(|w| format!(", FWHM {w:.2} µm")).unwrap_or_default();
+        let mut chart = ChartBuilder::on(&upper)
             .caption(
-                format!("Dispersion sweep: best a2 {:.2} rad, a3 {:.2} rad (entropy {:.4})", best.a2_rad, best.a3_rad, best.entropy),
+                format!("Dispersion sweep: best a2 {:.2} rad, a3 {:.2} rad (entropy {:.4}{fwhm_text})", best.a2_rad, best.a3_rad, best.entropy),
                 ("sans-serif", 22),
             )
             .margin(14)
             .x_label_area_size(40)
+            .top_x_label_area_size(if along_a2 { 40 } else { 0 })
             .y_label_area_size(70)
-            .build_cartesian_2d((xmin - pad_x)..(xmax + pad_x), (ymin - pad_y)..(ymax + pad_y))
-            .map_err(err)?;
+            .build_cartesian_2d(x0..x1, (ymin - pad_y)..(ymax + 4.0 * pad_y))
+            .map_err(err)?
+            .set_secondary_coord(x0 * per_rad.gdd_fs2..x1 * per_rad.gdd_fs2, 0.0..1.0);
         chart
             .configure_mesh()
             .x_label_formatter(&crate::measure::plot::tick)
@@ -301,8 +415,18 @@ fn metric_plot(path: &Path, report: &SweepReport, along_a2: bool) -> Result<()> 
             .y_desc("entropy (nats, lower is sharper)")
             .draw()
             .map_err(err)?;
+        if along_a2 {
+            let mm_per_fs2 = per_rad.fused_silica_mm / per_rad.gdd_fs2;
+            chart
+                .configure_secondary_axes()
+                .x_label_formatter(&|g: &f64| format!("{} fs² | {} mm", crate::measure::plot::tick(&g.round()), crate::measure::plot::tick(&(g * mm_per_fs2))))
+                .x_desc("group-delay dispersion (fs²) | unmatched fused silica (mm)")
+                .x_labels(6)
+                .draw()
+                .map_err(err)?;
+        }
         for (gi, g) in groups.iter().enumerate() {
-            let colour = crate::render::colour::OKABE_ITO[gi % crate::render::colour::OKABE_ITO.len()].to_rgba();
+            let colour = colour_of(gi);
             let pts: Vec<(f64, f64)> = report.rows.iter().filter(|r| other(r) == *g).map(|r| (key(r), r.entropy)).collect();
             chart
                 .draw_series(LineSeries::new(pts.iter().copied(), colour.stroke_width(2)))
@@ -313,9 +437,44 @@ fn metric_plot(path: &Path, report: &SweepReport, along_a2: bool) -> Result<()> 
         }
         chart.draw_series(std::iter::once(Circle::new((key(best), best.entropy), 9, RED.stroke_width(3)))).map_err(err)?;
         if groups.len() > 1 {
-            chart.configure_series_labels().background_style(WHITE.mix(0.8)).border_style(BLACK).draw().map_err(err)?;
+            // In the head room kept above the curves.
+            chart
+                .configure_series_labels()
+                .position(SeriesLabelPosition::UpperMiddle)
+                .background_style(WHITE.mix(0.85))
+                .border_style(BLACK)
+                .draw()
+                .map_err(err)?;
         }
-        root.present().map_err(err)?;
+
+        if widths.is_empty() {
+            return Ok(());
+        }
+        let wpad = ((wmax - wmin) * 0.08).max(0.05);
+        let mut chart = ChartBuilder::on(&lower)
+            .caption("FWHM of the brightest interface (median over the bright A-lines)", ("sans-serif", 18))
+            .margin(14)
+            .x_label_area_size(40)
+            .y_label_area_size(70)
+            .build_cartesian_2d(x0..x1, (wmin - wpad)..(wmax + wpad))
+            .map_err(err)?;
+        chart
+            .configure_mesh()
+            .x_label_formatter(&crate::measure::plot::tick)
+            .y_label_formatter(&crate::measure::plot::tick)
+            .x_desc(if along_a2 { "a2 (rad)" } else { "a3 (rad)" })
+            .y_desc("FWHM (µm, air)")
+            .draw()
+            .map_err(err)?;
+        for (gi, g) in groups.iter().enumerate() {
+            let colour = colour_of(gi);
+            let pts: Vec<(f64, f64)> = report.rows.iter().filter(|r| other(r) == *g).filter_map(|r| r.fwhm_um.map(|w| (key(r), w))).collect();
+            chart.draw_series(LineSeries::new(pts.iter().copied(), colour.stroke_width(2))).map_err(err)?;
+            chart.draw_series(pts.iter().map(|&p| Circle::new(p, 3, colour.filled()))).map_err(err)?;
+        }
+        if let Some(w) = best.fwhm_um {
+            chart.draw_series(std::iter::once(Circle::new((key(best), w), 9, RED.stroke_width(3)))).map_err(err)?;
+        }
         Ok(())
     })
 }

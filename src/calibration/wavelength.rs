@@ -55,6 +55,10 @@ pub struct WavelengthCalibration {
     /// Dispersion left in the mirror data, from the shallowest mirror's phase
     /// against the calibrated wavenumber (two or more mirrors only).
     pub residual_dispersion: Option<ResidualDispersion>,
+    /// The wavelength of each pixel measured from the fringe phase, before
+    /// the polynomial fit, nm (for plots; not in the file).
+    #[serde(skip)]
+    pub measured_nm: Vec<f64>,
 }
 
 #[derive(Debug, Clone, Default, PartialEq, Serialize, Deserialize)]
@@ -397,7 +401,15 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
         scale: hints.clone(),
         inputs,
         residual_dispersion,
+        measured_nm,
     })
+}
+
+/// The map the first capture would be processed with before calibration
+/// (its own wavelength dataset, or the pipeline's polynomial or calibration
+/// file), when it has one.
+pub fn nominal_map(path: &Path, config: &PipelineConfig) -> Option<Vec<f64>> {
+    Capture::open(path, &config.input).ok().map(|c| c.wavelength_nm.clone())
 }
 
 /// Converts coefficients of a polynomial in t = (p − m)/m into coefficients

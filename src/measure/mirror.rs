@@ -55,6 +55,12 @@ pub struct MirrorMeasurement {
     pub profile: Vec<f64>,
     #[serde(skip)]
     pub depth_um: Vec<f64>,
+    /// The source spectrum the limit was measured on (counts, baseline
+    /// removed) and its wavelengths (nm), for plots.
+    #[serde(skip)]
+    pub spectrum_counts: Vec<f64>,
+    #[serde(skip)]
+    pub spectrum_wavelength_nm: Vec<f64>,
 }
 
 /// Mean spectrum over a frame's A-lines.
@@ -156,5 +162,7 @@ pub fn measure(path: &Path, config: &PipelineConfig, frame: usize, group_index: 
         warnings,
         depth_um: (0..depth).map(|j| plan.depth_um(j)).collect(),
         profile,
+        spectrum_counts: spectrum::remove_baseline(&source_counts).0,
+        spectrum_wavelength_nm: capture.wavelength_nm.clone(),
     })
 }

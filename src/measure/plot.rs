@@ -1,14 +1,39 @@
 //! PNG plots of measurements (plotters, bitmap backend, system sans-serif
-//! font via fontconfig).
+//! font via fontconfig). Every plot is drawn into memory and written by
+//! `io::png` with its provenance in tEXt chunks (tool version, what it
+//! shows, the pipeline hash), atomically.
 
 use anyhow::{anyhow, Result};
+use plotters::coord::Shift;
 use plotters::prelude::*;
 use std::path::Path;
 
 use super::mirror::MirrorMeasurement;
 use super::rolloff::{model, RolloffReport};
+use crate::io::png::PngInfo;
 use crate::io::staging::write_atomically;
 use crate::render::colour::OKABE_ITO;
+
+/// Draws a `width` × `height` picture with `draw` and writes it to `path`
+/// (temp file and rename) as an RGB PNG carrying `info`.
+pub fn save_plot<F>(path: &Path, width: u32, height: u32, info: &PngInfo, draw: F) -> Result<()>
+where
+    F: FnOnce(&DrawingArea<BitMapBackend<'_>, Shift>) -> Result<()>,
+{
+    let mut buf = vec![255u8; (width * height * 3) as usize];
+    {
+        let root = BitMapBackend::with_buffer(&mut buf, (width, height)).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        draw(&root)?;
+        root.present().map_err(err)?;
+    }
+    write_atomically(path, |tmp| crate::io::png::write_rgb8(tmp, width as usize, height as usize, &buf, info))
+}
+
+/// Provenance of a measurement plot.
+pub fn plot_info(description: String, pipeline_sha256: &str) -> PngInfo {
+    PngInfo::new(description).with("pipeline_sha256", pipeline_sha256)
+}
 
 pub const WIDTH: u32 = 1000;
 pub const HEIGHT: u32 = 720;
@@ -24,13 +49,21 @@ fn err<E: std::fmt::Debug>(e: E) -> anyhow::Error {
     anyhow!("drawing plot: {e:?}")
 }
 
-/// PSF around its peak: linear amplitude (normalised) above, dB below, with
-/// the FWHM marked.
-pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
-    write_atomically(path, |tmp| {
-        let root = BitMapBackend::new(tmp, (WIDTH, HEIGHT)).into_drawing_area();
-        root.fill(&WHITE).map_err(err)?;
-        let (upper, lower) = root.split_vertically(HEIGHT / 2);
+/// Height of the PSF figure: spectrum, linear PSF and dB PSF panels.
+pub const PSF_HEIGHT: u32 = 1020;
+
+/// The source spectrum (baseline removed, normalised) with the Gaussian in
+/// k of the measured centre and FWHM above; the PSF around its peak in
+/// linear amplitude (normalised) with the FWHM marked; and in dB with the
+/// noise floor and the highest side lobe.
+pub fn psf(path: &Path, m: &MirrorMeasurement, pipeline_sha256: &str) -> Result<()> {
+    let info = plot_info(format!("axial PSF of {} frame {}: source spectrum, linear and dB profiles", m.capture, m.frame), pipeline_sha256)
+        .with("fwhm_um_air", format!("{:.4}", m.fwhm_um_air))
+        .with("depth_spacing_um", format!("{}", m.depth_spacing_um));
+    save_plot(path, WIDTH, PSF_HEIGHT, &info, |root| {
+        let (top, rest) = root.split_vertically(300);
+        let (upper, lower) = rest.split_vertically((PSF_HEIGHT - 300) / 2);
+        spectrum_panel(&top, m)?;
         let peak = m.profile.iter().copied().fold(f64::MIN, f64::max);
         let span = (12.0 * m.fwhm_um_air).max(20.0);
         let (z0, z1) = (m.peak_depth_um - span, m.peak_depth_um + span);
@@ -57,6 +90,13 @@ pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
         chart.draw_series(LineSeries::new(pts.iter().copied(), &OKABE_ITO[0])).map_err(err)?;
         chart
             .draw_series(std::iter::once(PathElement::new(vec![(half.0, 0.5), (half.1, 0.5)], OKABE_ITO[1].stroke_width(2))))
+            .map_err(err)?;
+        chart
+            .draw_series(std::iter::once(Text::new(
+                format!("FWHM {:.2} µm", m.fwhm_um_air),
+                (half.1 + 0.03 * (z1 - z0), 0.52),
+                ("sans-serif", 14).into_font().color(&OKABE_ITO[1]),
+            )))
             .map_err(err)?;
 
         let floor_db = (m.noise_floor_db - m.peak_db - 10.0).clamp(-100.0, -20.0);
@@ -98,27 +138,80 @@ pub fn psf(path: &Path, m: &MirrorMeasurement) -> Result<()> {
         if let (Some(s), true) = (m.side_lobe_db, m.side_lobe_above_noise) {
             level(-s.abs(), OKABE_ITO[2], format!("highest side lobe {:.1} dB", -s.abs()))?;
         }
-        root.present().map_err(err)?;
         Ok(())
     })
+}
+
+/// The measured source spectrum against wavelength (baseline removed,
+/// normalised to its peak) and the Gaussian in wavenumber with the
+/// measured centre and FWHM — the spectrum the coherence-length limit
+/// assumes.
+fn spectrum_panel(area: &DrawingArea<BitMapBackend<'_>, Shift>, m: &MirrorMeasurement) -> Result<()> {
+    let wl = &m.spectrum_wavelength_nm;
+    let (lo, hi) = wl.iter().fold((f64::MAX, f64::MIN), |(a, b), &v| (a.min(v), b.max(v)));
+    if wl.len() < 2 || hi.partial_cmp(&lo) != Some(std::cmp::Ordering::Greater) {
+        return Ok(());
+    }
+    let peak = m.spectrum_counts.iter().copied().fold(f64::MIN, f64::max).max(f64::MIN_POSITIVE);
+    let k0 = crate::physics::wavenumber_per_um(m.source.centre_nm);
+    let dk = 2.0 * std::f64::consts::PI * (m.source.fwhm_nm * 1e-3) / (m.source.centre_nm * 1e-3).powi(2);
+    let gauss = |l: f64| (-4.0 * std::f64::consts::LN_2 * ((crate::physics::wavenumber_per_um(l) - k0) / dk).powi(2)).exp();
+    let ymin = m.spectrum_counts.iter().map(|c| c / peak).fold(0.0, f64::min).max(-0.2);
+    let mut chart = ChartBuilder::on(area)
+        .caption(
+            format!(
+                "Source spectrum: centre {:.1} nm, FWHM {:.1} nm (half-maximum crossings), Gaussian in k limit {:.2} µm",
+                m.source.centre_nm, m.source.fwhm_nm, m.source.coherence_length_um
+            ),
+            ("sans-serif", 18),
+        )
+        .margin(12)
+        .x_label_area_size(36)
+        .y_label_area_size(56)
+        .build_cartesian_2d(lo..hi, ymin..1.12)
+        .map_err(err)?;
+    chart.configure_mesh().x_label_formatter(&tick).y_label_formatter(&tick).x_desc("wavelength (nm)").y_desc("counts / peak").draw().map_err(err)?;
+    chart
+        .draw_series(LineSeries::new(wl.iter().zip(m.spectrum_counts.iter()).map(|(&l, &c)| (l, c / peak)), &OKABE_ITO[0]))
+        .map_err(err)?
+        .label("measured, baseline removed")
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], OKABE_ITO[0]));
+    let n = 400;
+    chart
+        .draw_series(LineSeries::new((0..=n).map(|i| lo + (hi - lo) * i as f64 / n as f64).map(|l| (l, gauss(l))), OKABE_ITO[4].stroke_width(2)))
+        .map_err(err)?
+        .label("Gaussian in k, same centre and FWHM")
+        .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], OKABE_ITO[4].stroke_width(2)));
+    // The legend goes in the upper corner farther from the spectrum's
+    // centre, where the curves are low.
+    let position = if m.source.centre_nm > 0.5 * (lo + hi) { SeriesLabelPosition::UpperLeft } else { SeriesLabelPosition::UpperRight };
+    chart
+        .configure_series_labels()
+        .position(position)
+        .background_style(WHITE.mix(0.85))
+        .border_style(BLACK)
+        .label_font(("sans-serif", 14))
+        .draw()
+        .map_err(err)?;
+    Ok(())
 }
 
 /// Peak dB relative to the fit's zero-delay value against depth, with the
 /// fitted model, the −6 dB depth labelled, the sensitivity (when the
 /// attenuation was given) and the maximum (Nyquist) imaging depth.
-pub fn rolloff(path: &Path, r: &RolloffReport) -> Result<()> {
+pub fn rolloff(path: &Path, r: &RolloffReport, pipeline_sha256: &str) -> Result<()> {
     // Nyquist depth π/(2·δk) in air for a camera pixel δk wide in
     // wavenumber, the same as λ0²/(4·δλ) (common practice; physics::max_depth_um).
     let max_depth_um = std::f64::consts::PI / (2.0 * r.fit.pixel_dk_per_um);
     let a0 = r.fit.a0_db;
-    write_atomically(path, |tmp| {
-        let root = BitMapBackend::new(tmp, (WIDTH, HEIGHT)).into_drawing_area();
-        root.fill(&WHITE).map_err(err)?;
+    let info = plot_info(format!("roll-off: peak dB against depth of {} mirror captures", r.points.len()), pipeline_sha256)
+        .with("rolloff_6db_depth_um", format!("{:.1}", r.fit.rolloff_6db_depth_um));
+    save_plot(path, WIDTH, HEIGHT, &info, |root| {
         let zmax = r.points.iter().map(|p| p.depth_um).fold(0.0, f64::max).max(r.fit.rolloff_6db_depth_um) * 1.15;
         let ymax = 3.0;
         let ymin = r.points.iter().map(|p| p.peak_db - a0).fold(f64::MAX, f64::min).min(-6.0) - 6.0;
         let sensitivity = r.sensitivity_db.map(|s| format!(", sensitivity {s:.1} dB")).unwrap_or_default();
-        let mut chart = ChartBuilder::on(&root)
+        let mut chart = ChartBuilder::on(root)
             .caption(
                 format!("Roll-off: −6 dB at {:.0} µm, maximum depth {:.0} µm{sensitivity} (fit RMS {:.2} dB)", r.fit.rolloff_6db_depth_um, max_depth_um, r.fit.rms_residual_db),
                 ("sans-serif", 20),
@@ -154,7 +247,104 @@ pub fn rolloff(path: &Path, r: &RolloffReport) -> Result<()> {
         chart
             .draw_series(std::iter::once(Text::new(format!("−6 dB at {z6:.0} µm"), (z6 + 0.01 * zmax, ymin + 0.06 * (ymax - ymin)), ("sans-serif", 16).into_font())))
             .map_err(err)?;
-        root.present().map_err(err)?;
+        Ok(())
+    })
+}
+
+/// A wavelength calibration: the calibrated map and the nominal one
+/// against pixel (top), their difference (middle) and the residual of the
+/// polynomial fit, measured minus fitted, over the fitted pixels (bottom).
+pub fn wavelength_map(path: &Path, cal: &crate::calibration::wavelength::WavelengthCalibration, nominal: Option<&[f64]>, pipeline_sha256: &str) -> Result<()> {
+    let n = cal.pixels;
+    let nominal = nominal.filter(|m| m.len() == n);
+    let info = plot_info(format!("wavelength calibration from {} mirror capture(s): map, change from nominal, fit residual", cal.inputs.len()), pipeline_sha256)
+        .with("fit_residual_rms_nm", format!("{:.6}", cal.fit_residual_rms_nm));
+    let [p0, p1] = cal.fit_pixels;
+    let residual: Vec<(f64, f64)> = (p0..=p1)
+        .filter(|&p| cal.measured_nm.get(p).is_some_and(|v| v.is_finite()))
+        .map(|p| (p as f64, cal.measured_nm[p] - cal.wavelength_nm[p]))
+        .collect();
+    let height = 1020;
+    save_plot(path, WIDTH, height, &info, |root| {
+        let areas = root.split_evenly((3, 1));
+        let xmax = (n - 1) as f64;
+        let (lo, hi) = cal.wavelength_nm.iter().chain(nominal.unwrap_or(&[]).iter()).fold((f64::MAX, f64::MIN), |(a, b), &v| (a.min(v), b.max(v)));
+        let pad = ((hi - lo) * 0.04).max(0.1);
+        let mut chart = ChartBuilder::on(&areas[0])
+            .caption(format!("Wavelength map: {:.2}–{:.2} nm over {n} pixels (degree {})", cal.wavelength_nm[0], cal.wavelength_nm[n - 1], cal.polynomial_nm.len() - 1), ("sans-serif", 20))
+            .margin(12)
+            .x_label_area_size(36)
+            .y_label_area_size(60)
+            .build_cartesian_2d(0.0..xmax, (lo - pad)..(hi + pad))
+            .map_err(err)?;
+        chart.configure_mesh().x_label_formatter(&tick).y_label_formatter(&tick).x_desc("camera pixel").y_desc("wavelength (nm)").draw().map_err(err)?;
+        if let Some(nom) = nominal {
+            chart
+                .draw_series(LineSeries::new(nom.iter().enumerate().map(|(p, &l)| (p as f64, l)), OKABE_ITO[1].stroke_width(3)))
+                .map_err(err)?
+                .label("nominal (the capture's map or the pipeline's)")
+                .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], OKABE_ITO[1].stroke_width(3)));
+        }
+        chart
+            .draw_series(LineSeries::new(cal.wavelength_nm.iter().enumerate().map(|(p, &l)| (p as f64, l)), OKABE_ITO[0].stroke_width(1)))
+            .map_err(err)?
+            .label("calibrated (fit)")
+            .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], OKABE_ITO[0]));
+        // The map runs corner to corner; the legend sits in the empty corner.
+        let rising = cal.wavelength_nm[n - 1] > cal.wavelength_nm[0];
+        chart
+            .configure_series_labels()
+            .position(if rising { SeriesLabelPosition::UpperLeft } else { SeriesLabelPosition::LowerLeft })
+            .background_style(WHITE.mix(0.85))
+            .border_style(BLACK)
+            .label_font(("sans-serif", 14))
+            .draw()
+            .map_err(err)?;
+
+        match nominal {
+            Some(nom) => {
+                let diff: Vec<(f64, f64)> = cal.wavelength_nm.iter().zip(nom.iter()).enumerate().map(|(p, (c, m))| (p as f64, c - m)).collect();
+                let (dlo, dhi) = diff.iter().fold((f64::MAX, f64::MIN), |(a, b), &(_, v)| (a.min(v), b.max(v)));
+                let dpad = ((dhi - dlo) * 0.08).max(1e-3);
+                let worst = diff.iter().fold(0.0f64, |m, &(_, v)| m.max(v.abs()));
+                let mut chart = ChartBuilder::on(&areas[1])
+                    .caption(format!("Calibrated minus nominal: up to {worst:.3} nm"), ("sans-serif", 20))
+                    .margin(12)
+                    .x_label_area_size(36)
+                    .y_label_area_size(60)
+                    .build_cartesian_2d(0.0..xmax, (dlo - dpad)..(dhi + dpad))
+                    .map_err(err)?;
+                chart.configure_mesh().x_label_formatter(&tick).y_label_formatter(&tick).x_desc("camera pixel").y_desc("difference (nm)").draw().map_err(err)?;
+                chart.draw_series(LineSeries::new(diff.iter().copied(), OKABE_ITO[0].stroke_width(2))).map_err(err)?;
+                chart.draw_series(std::iter::once(PathElement::new(vec![(0.0, 0.0), (xmax, 0.0)], BLACK.stroke_width(1)))).map_err(err)?;
+            }
+            None => {
+                areas[1]
+                    .draw(&Text::new("no nominal map: the capture has no wavelength dataset and the pipeline gives none", (60, 150), ("sans-serif", 18).into_font()))
+                    .map_err(err)?;
+            }
+        }
+
+        let (rlo, rhi) = residual.iter().fold((f64::MAX, f64::MIN), |(a, b), &(_, v)| (a.min(v), b.max(v)));
+        let rpad = ((rhi - rlo) * 0.08).max(1e-6);
+        let (rlo, rhi) = if residual.is_empty() { (-1e-3, 1e-3) } else { (rlo - rpad, rhi + rpad) };
+        let mut chart = ChartBuilder::on(&areas[2])
+            .caption(format!("Fit residual, measured minus fitted, pixels {p0}–{p1}: RMS {:.4} nm", cal.fit_residual_rms_nm), ("sans-serif", 20))
+            .margin(12)
+            .x_label_area_size(36)
+            .y_label_area_size(60)
+            .build_cartesian_2d(0.0..xmax, rlo..rhi)
+            .map_err(err)?;
+        chart
+            .configure_mesh()
+            .x_label_formatter(&tick)
+            .y_label_formatter(&|v: &f64| format!("{v:.4}").trim_end_matches('0').trim_end_matches('.').to_string())
+            .x_desc("camera pixel")
+            .y_desc("residual (nm)")
+            .draw()
+            .map_err(err)?;
+        chart.draw_series(residual.iter().map(|&p| Circle::new(p, 1, OKABE_ITO[0].filled()))).map_err(err)?;
+        chart.draw_series(std::iter::once(PathElement::new(vec![(0.0, 0.0), (xmax, 0.0)], BLACK.stroke_width(1)))).map_err(err)?;
         Ok(())
     })
 }

@@ -184,3 +184,18 @@ pub fn assert_same_outputs(a: &Path, b: &Path) {
         }
     }
 }
+
+/// Runs tests/decode_images.py (Pillow, NumPy, h5py: independent readers of
+/// what fringeflow wrote) with `args`; fails the test on its FAIL line.
+pub fn decode(args: &[&std::ffi::OsStr]) {
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/decode_images.py");
+    let o = Command::new("python3")
+        .arg(&script)
+        .args(args)
+        .output()
+        .expect("python3 with Pillow, numpy and h5py (make test installs them)");
+    let text = String::from_utf8_lossy(&o.stdout);
+    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.success(), "decode check failed: {text}");
+    assert!(text.contains("ok "), "nothing was checked: {text}");
+}
