@@ -16,6 +16,7 @@ Reconstruct:
   rerun         Reproduce an output from its log.json alone
   inspect       List a capture's datasets, shapes, value ranges and problems
   pipeline      Print the commented defaults, check a pipeline, show its resolved form
+  report        Write (or rewrite) report.html for an output folder
 
 Batches and clusters:
   summarize     Merge the batch summaries of an output folder
@@ -327,6 +328,26 @@ pub enum Command {
     /// Pipeline files: print the commented defaults, check one, show its resolved form.
     #[command(subcommand)]
     Pipeline(PipelineCommand),
+    /// Write report.html, a self-contained page to browse and share, for output folders made by `run`.
+    #[command(after_help = concat!(
+        "EXAMPLES:\n",
+        "  fringeflow report out/sample/layered-phantom\n",
+        "  fringeflow report out/all/* --frame-step 10\n\n",
+        "The page needs no network: open it from the folder or send it as one file.\n\n",
+        EXIT_STATUS_USAGE!()
+    ))]
+    Report {
+        /// Output folders (each holding log.json and volume.h5).
+        #[arg(required = true, value_name = "DIR")]
+        dirs: Vec<PathBuf>,
+        /// Embed every N-th stored frame (default: the [output] report_frame_step of
+        /// the folder's pipeline; 0 chooses N so the page stays near 32 M pixels).
+        #[arg(long, value_name = "N")]
+        frame_step: Option<usize>,
+        /// Print what was written as JSON.
+        #[arg(long)]
+        json: bool,
+    },
     /// Print a shell completion script on stdout.
     #[command(after_help = concat!(
         "EXAMPLES:\n",

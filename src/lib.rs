@@ -27,6 +27,7 @@ pub mod output;
 pub mod physics;
 pub mod pipeline;
 pub mod render;
+pub mod report;
 pub mod run;
 pub mod simulate;
 pub mod stages;

@@ -372,6 +372,39 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
     ExitCode::SUCCESS
 }
 
+fn report(dirs: &[PathBuf], frame_step: Option<usize>, json: bool) -> ExitCode {
+    let mut written = Vec::new();
+    for dir in dirs {
+        if !dir.join("log.json").is_file() {
+            return fail(2, format!("{}: not an output folder of `run` (no log.json)", dir.display()));
+        }
+    }
+    for dir in dirs {
+        // The folder's own pipeline decides the frame step unless given.
+        let step = frame_step.unwrap_or_else(|| {
+            std::fs::read(dir.join("log.json"))
+                .ok()
+                .and_then(|b| serde_json::from_slice::<serde_json::Value>(&b).ok())
+                .and_then(|l| l["pipeline"]["output"]["report_frame_step"].as_u64())
+                .unwrap_or(0) as usize
+        });
+        let out = dir.join("report.html");
+        match fringeflow::report::write_report(dir, &out, step) {
+            Ok(r) => {
+                if !json {
+                    outln!("wrote {} ({:.1} MB, {} of {} frames)", out.display(), r.bytes as f64 / 1e6, r.frames_embedded, r.frames_total);
+                }
+                written.push(serde_json::json!({ "report": out.display().to_string(), "bytes": r.bytes, "frames_embedded": r.frames_embedded, "frames_total": r.frames_total }));
+            }
+            Err(e) => return fail(1, format!("{}: {e:#}", dir.display())),
+        }
+    }
+    if json {
+        outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "reports": written })).unwrap());
+    }
+    ExitCode::SUCCESS
+}
+
 fn measure(command: MeasureCommand) -> ExitCode {
     use fringeflow::measure::{mirror, plot, rolloff};
     match command {
@@ -663,6 +696,7 @@ fn main() -> ExitCode {
             verbose,
         }),
         Command::Rerun { log, out, json } => rerun(&log, &out, json),
+        Command::Report { dirs, frame_step, json } => report(&dirs, frame_step, json),
         Command::Summarize { dir, json } => summarize(&dir, json),
         Command::SlurmScript { list, pipeline, out, tasks, cpus_per_task, mem, time, partition, job_name } => {
             slurm_script(&list, &pipeline, &out, tasks, cpus_per_task, &mem, &time, partition.as_deref(), &job_name)

@@ -221,6 +221,56 @@ pub fn pack_db(image: &Array2<f32>) -> Array2<u16> {
     }
 }
 
+/// What a page needs from a volume.h5: the dB B-scans of some frames and
+/// the axes.
+pub struct DbFrames {
+    /// Stored frames in the file.
+    pub frames: usize,
+    /// The frames read, in order, and their (depth × A-lines) dB images.
+    pub indices: Vec<usize>,
+    pub images: Vec<Array2<f32>>,
+    pub depth_um: Vec<f64>,
+    pub depth_spacing_um: f64,
+    /// Lateral and slow-axis steps when the file has `/aline_um` and `/position_um`.
+    pub aline_spacing_um: Option<f64>,
+    pub position_spacing_um: Option<f64>,
+}
+
+/// Reads the frames `every`-th apart (0, every, 2·every, …) of
+/// `/volume_db`, unpacking uint16 volumes (CF `scale_factor`/`add_offset`).
+pub fn read_db_frames(path: &Path, every: usize) -> Result<DbFrames> {
+    let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;
+    let ds = file.dataset("volume_db").map_err(concise).with_context(|| format!("{}: /volume_db", path.display()))?;
+    let shape = ds.shape();
+    if shape.len() != 3 {
+        anyhow::bail!("{}: /volume_db has {} dimensions, expected 3 (frame, depth, A-line)", path.display(), shape.len());
+    }
+    let packed = ds.dtype().map_err(concise)?.is::<u16>();
+    let (scale, offset) = if packed {
+        (ds.attr("scale_factor").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_STEP), ds.attr("add_offset").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_OFFSET))
+    } else {
+        (1.0, 0.0)
+    };
+    let indices: Vec<usize> = (0..shape[0]).step_by(every.max(1)).collect();
+    let mut images = Vec::with_capacity(indices.len());
+    for &f in &indices {
+        let image: Array2<f32> = if packed {
+            let raw: Array2<u16> = ds.read_slice(ndarray::s![f, .., ..]).map_err(concise)?;
+            raw.mapv(|v| (v as f64 * scale + offset) as f32)
+        } else {
+            ds.read_slice(ndarray::s![f, .., ..]).map_err(concise)?
+        };
+        images.push(image);
+    }
+    let depth_um: Vec<f64> = file.dataset("depth_um").and_then(|d| d.read_raw::<f64>()).map_err(concise).context("/depth_um")?;
+    let depth_spacing_um = ds.attr("depth_spacing_um").and_then(|a| a.read_scalar::<f64>()).map_err(concise).context("depth_spacing_um")?;
+    let step = |name: &str| -> Option<f64> {
+        let v = file.dataset(name).ok()?.read_raw::<f64>().ok()?;
+        (v.len() >= 2).then(|| v[1] - v[0])
+    };
+    Ok(DbFrames { frames: shape[0], indices, images, depth_um, depth_spacing_um, aline_spacing_um: step("aline_um"), position_spacing_um: step("position_um") })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

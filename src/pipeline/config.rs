@@ -301,15 +301,32 @@ pub struct OutputConfig {
     /// pipeline when off.
     #[serde(skip_serializing_if = "is_false")]
     pub complex: bool,
+    /// report.html beside the outputs (needs the volume). Left out of the
+    /// serialised pipeline when on (the default): it changes no number.
+    #[serde(skip_serializing_if = "is_true")]
+    pub report: bool,
+    /// Frames embedded in report.html: every N-th; 0 (the default) chooses N
+    /// so that the page holds at most about 32 M pixels. Left out of the
+    /// serialised pipeline when 0.
+    #[serde(skip_serializing_if = "is_zero")]
+    pub report_frame_step: usize,
 }
 
 fn is_false(b: &bool) -> bool {
     !*b
 }
 
+fn is_true(b: &bool) -> bool {
+    *b
+}
+
+fn is_zero(n: &usize) -> bool {
+    *n == 0
+}
+
 impl Default for OutputConfig {
     fn default() -> Self {
-        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false }
+        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false, report: true, report_frame_step: 0 }
     }
 }
 

@@ -471,6 +471,10 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         v.finish(&sha256)?;
         outputs.push("volume.h5".into());
     }
+    let report = config.output.report && config.output.volume;
+    if report {
+        outputs.push("report.html".into());
+    }
     outputs.push("log.json".into());
     let write_s = written.write_seconds + t.elapsed().as_secs_f64();
 
@@ -520,6 +524,10 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     };
     let json = serde_json::to_vec_pretty(&log).context("serialising log")?;
     std::fs::write(staging.path("log.json"), json).context("writing log.json")?;
+    if report {
+        // Drawn from what was just written (log.json, volume.h5, the PNGs).
+        crate::report::write_report(&staging.path(""), &staging.path("report.html"), config.output.report_frame_step).context("writing report.html")?;
+    }
     if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
         return Err(Interrupted.into());
     }

@@ -1,0 +1,285 @@
+//! report.html: one self-contained page per output folder, built from what
+//! io wrote there (log.json, volume.h5, the contrast PNGs), never from the
+//! pipeline's internals. Everything is inline: the style, the script
+//! (src/report/page.js, ours), and the B-scans as 16-bit steps of 0.1 dB
+//! (zlib, base64) that the page maps to grey or colour with a live
+//! window/level. Opens from a file:// path or a mail attachment with no
+//! network.
+
+use anyhow::{Context, Result};
+use base64::Engine;
+use rayon::prelude::*;
+use serde_json::{json, Value};
+use std::io::Write;
+use std::path::Path;
+
+use crate::io::staging::write_atomically;
+
+const PAGE: &str = include_str!("page.html");
+const STYLE: &str = include_str!("page.css");
+const SCRIPT: &str = include_str!("page.js");
+/// viridis (matplotlib's, CC0), 32 stops as r,g,b bytes.
+const VIRIDIS: &str = "68,1,84,71,13,96,72,24,106,72,35,116,71,46,124,69,56,130,66,65,134,62,74,137,58,84,140,54,93,141,50,101,142,46,109,142,43,117,142,40,125,142,37,132,142,34,140,141,31,148,140,30,156,137,32,163,134,37,171,130,46,179,124,58,186,118,72,193,110,88,199,101,108,205,90,127,211,78,147,215,65,168,219,52,192,223,37,213,226,26,234,229,26,253,231,37";
+
+/// dB step of the embedded data (16-bit): rounding moves a value by at
+/// most 0.05 dB, under one grey level for any window wider than 6.4 dB.
+pub const STEP_DB: f64 = 0.1;
+/// With `report_frame_step = 0` (auto), frames are embedded every k-th so
+/// that at most this many pixels go into the page (about 1.6 bytes each
+/// after compression and base64).
+pub const AUTO_PIXEL_BUDGET: usize = 32 << 20;
+
+/// What was written.
+#[derive(Debug, Clone)]
+pub struct ReportSummary {
+    pub bytes: u64,
+    pub frames_embedded: usize,
+    pub frames_total: usize,
+}
+
+/// Writes `dir/report.html` for the output folder `dir` (log.json and
+/// volume.h5 written there). `frame_step` 0 chooses the step from
+/// [`AUTO_PIXEL_BUDGET`].
+pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportSummary> {
+    let log: Value = serde_json::from_slice(&std::fs::read(dir.join("log.json")).with_context(|| format!("reading {}", dir.join("log.json").display()))?)
+        .with_context(|| format!("{}: not a fringeflow log", dir.join("log.json").display()))?;
+    let volume_path = dir.join("volume.h5");
+    if !volume_path.exists() {
+        anyhow::bail!("{}: no volume.h5 (the report is drawn from it; turn [output] volume on)", dir.display());
+    }
+    let shape = crate::io::volume::read_db_frames(&volume_path, usize::MAX)?;
+    let (frames_total, depth, alines) = (shape.frames, shape.images[0].nrows(), shape.images[0].ncols());
+    let step = if frame_step > 0 { frame_step } else { (frames_total * depth * alines).div_ceil(AUTO_PIXEL_BUDGET).max(1) };
+    let v = crate::io::volume::read_db_frames(&volume_path, step)?;
+
+    // The embedded range: from the lowest logged noise floor (values below
+    // it show as it) up, in steps of STEP_DB.
+    let records = log["frames"].as_array().cloned().unwrap_or_default();
+    let floor = records.iter().filter_map(|r| r["noise_floor_db"].as_f64()).fold(f64::INFINITY, f64::min);
+    let max = v.images.iter().flat_map(|i| i.iter()).filter(|d| d.is_finite()).fold(f64::NEG_INFINITY, |m, &d| m.max(d as f64));
+    let floor = if floor.is_finite() { floor } else { v.images.iter().flat_map(|i| i.iter()).filter(|d| d.is_finite()).fold(f64::INFINITY, |m, &d| m.min(d as f64)) };
+    let base = (floor / STEP_DB).floor() * STEP_DB;
+    let max_q = (((max - base) / STEP_DB).round().clamp(0.0, 65535.0)) as u16;
+    let data: Vec<String> = v
+        .images
+        .par_iter()
+        .map(|image| {
+            // 16-bit steps, stored as two planes (high bytes, then low
+            // bytes): the high plane is nearly constant and compresses to
+            // almost nothing.
+            let q: Vec<u16> = image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect();
+            let mut planes = Vec::with_capacity(2 * q.len());
+            planes.extend(q.iter().map(|v| (v >> 8) as u8));
+            planes.extend(q.iter().map(|v| (v & 0xff) as u8));
+            let mut z = flate2::write::ZlibEncoder::new(Vec::new(), flate2::Compression::new(6));
+            z.write_all(&planes).expect("in memory");
+            base64::engine::general_purpose::STANDARD.encode(z.finish().expect("in memory"))
+        })
+        .collect();
+    // Per embedded frame, the levels its PNG used.
+    let levels: Vec<[f64; 2]> = v
+        .indices
+        .iter()
+        .map(|&f| {
+            let r = records.iter().find(|r| r["index"].as_u64() == Some(f as u64));
+            match r {
+                Some(r) => [r["black_db"].as_f64().unwrap_or(base), r["white_db"].as_f64().unwrap_or(base + 40.0)],
+                None => [base + 3.0, base + 43.0],
+            }
+        })
+        .collect();
+    // The en face slab: the logged one, else 60 µm around the depth of
+    // the brightest mean profile.
+    let slab = match log["en_face"]["depth_um"].as_array() {
+        Some(a) if a.len() == 2 => [a[0].as_f64().unwrap_or(v.depth_um[0]), a[1].as_f64().unwrap_or(v.depth_um[depth - 1])],
+        _ => {
+            let mut mean = vec![0.0f64; depth];
+            for image in &v.images {
+                for (z, row) in image.outer_iter().enumerate() {
+                    mean[z] += row.iter().filter(|d| d.is_finite()).map(|&d| d as f64).sum::<f64>();
+                }
+            }
+            let skip = 8.min(depth - 1);
+            let peak = (skip..depth).max_by(|&a, &b| mean[a].total_cmp(&mean[b])).unwrap_or(0);
+            let z = v.depth_um[peak];
+            [(z - 30.0).max(v.depth_um[0]), (z + 30.0).min(v.depth_um[depth - 1])]
+        }
+    };
+    let data_json = json!({
+        "frames_total": frames_total,
+        "frames_shown": v.indices,
+        "frame_step": step,
+        "depth": depth,
+        "alines": alines,
+        "first_depth_um": v.depth_um[0],
+        "depth_spacing_um": v.depth_spacing_um,
+        "aline_spacing_um": v.aline_spacing_um,
+        "position_spacing_um": v.position_spacing_um,
+        "base_db": base,
+        "step_db": STEP_DB,
+        "max_q": max_q,
+        "levels": levels,
+        "slab_um": slab,
+        "data": data,
+    });
+
+    // The output's name: the input's stem (the folder may still be a
+    // staging folder when `run` writes the report).
+    let name = log["input"]["path"]
+        .as_str()
+        .and_then(|p| Path::new(p).file_stem().map(|s| s.to_string_lossy().into_owned()))
+        .or_else(|| dir.file_name().map(|n| n.to_string_lossy().into_owned()))
+        .unwrap_or_else(|| "output".into());
+    let title = format!("fringeflow report: {name}");
+    let subtitle = format!(
+        "{} · input {} · pipeline sha256:{} · {} {}",
+        log["input"]["path"].as_str().unwrap_or("?"),
+        log["input_hash"].as_str().unwrap_or("?"),
+        log["pipeline_sha256"].as_str().unwrap_or("?"),
+        log["tool"]["name"].as_str().unwrap_or("fringeflow"),
+        log["tool"]["version"].as_str().unwrap_or("")
+    );
+    let page = PAGE
+        .replace("{{STYLE}}", STYLE)
+        .replace("{{SCRIPT}}", &SCRIPT.replace("{{VIRIDIS}}", VIRIDIS))
+        .replace("{{GENERATOR}}", concat!("fringeflow ", env!("CARGO_PKG_VERSION")))
+        .replace("{{TITLE}}", &escape(&title))
+        .replace("{{SUBTITLE}}", &escape(&subtitle))
+        .replace("{{WARNINGS}}", &warnings_html(&log))
+        .replace("{{IMAGES}}", &images_html(dir, &log)?)
+        .replace("{{LOG}}", &log_html(&log, &v))
+        // JSON inside <script>: "</" would end the element.
+        .replace("{{DATA}}", &data_json.to_string().replace("</", "<\\/"));
+    write_atomically(out, |tmp| {
+        std::fs::write(tmp, page.as_bytes())?;
+        Ok(())
+    })?;
+    Ok(ReportSummary { bytes: page.len() as u64, frames_embedded: v.indices.len(), frames_total })
+}
+
+/// HTML text escaping.
+pub fn escape(s: &str) -> String {
+    s.replace('&', "&amp;").replace('<', "&lt;").replace('>', "&gt;").replace('"', "&quot;")
+}
+
+fn warnings_html(log: &Value) -> String {
+    let warnings: Vec<&str> = log["warnings"].as_array().map(|a| a.iter().filter_map(|w| w.as_str()).collect()).unwrap_or_default();
+    if warnings.is_empty() {
+        return "<p class=\"ok\" id=\"warnings\">No warnings.</p>".into();
+    }
+    let items: String = warnings.iter().map(|w| format!("<li>{}</li>", escape(w))).collect();
+    format!("<div class=\"warnings\" id=\"warnings\"><strong>{} warning{}</strong><ul>{items}</ul></div>", warnings.len(), if warnings.len() == 1 { "" } else { "s" })
+}
+
+/// The contrast images of the folder (Doppler and angiography), inline.
+fn images_html(dir: &Path, log: &Value) -> Result<String> {
+    let outputs: Vec<&str> = log["outputs"].as_array().map(|a| a.iter().filter_map(|o| o.as_str()).collect()).unwrap_or_default();
+    let picked: Vec<&str> = outputs.iter().copied().filter(|o| o.ends_with(".png") && (o.contains("en-face") || o.starts_with("doppler-") && o.ends_with("-0000.png") || o.starts_with("angiography-") && o.ends_with("-0000.png"))).collect();
+    if picked.is_empty() {
+        return Ok(String::new());
+    }
+    let mut s = String::from("<h2>Flow, angiography and en face images</h2><p class=\"note\">As written beside this report (the first position of each stack; the rest are in the folder and in volume.h5).</p>");
+    for name in picked {
+        let bytes = std::fs::read(dir.join(name)).with_context(|| format!("reading {}", dir.join(name).display()))?;
+        s += &format!(
+            "<figure><img alt=\"{0}\" src=\"data:image/png;base64,{1}\"><figcaption>{0}</figcaption></figure>",
+            escape(name),
+            base64::engine::general_purpose::STANDARD.encode(bytes)
+        );
+    }
+    Ok(s)
+}
+
+fn value_text(v: &Value) -> String {
+    match v {
+        Value::Null => "—".into(),
+        Value::String(s) => s.clone(),
+        Value::Array(a) if a.iter().all(|x| !x.is_object()) => a.iter().map(value_text).collect::<Vec<_>>().join(", "),
+        Value::Object(o) => o.iter().map(|(k, v)| format!("{k} {}", value_text(v))).collect::<Vec<_>>().join(", "),
+        other => other.to_string(),
+    }
+}
+
+fn table(rows: &[(String, String)]) -> String {
+    let body: String = rows.iter().map(|(k, v)| format!("<tr><th>{}</th><td>{}</td></tr>", escape(k), escape(v))).collect();
+    format!("<table class=\"kv\">{body}</table>")
+}
+
+/// The log in words: the capture, the stages with every parameter, the
+/// derived numbers, the frames, the checks, the timing.
+fn log_html(log: &Value, v: &crate::io::volume::DbFrames) -> String {
+    let input = &log["input"];
+    let mut s = String::new();
+    s += &format!(
+        "<p>Capture <code>{}</code>: {} frames × {} A-lines × {} pixels of {} samples; fringes from <code>{}</code>; wavelength map from {}; {}.</p>",
+        escape(input["path"].as_str().unwrap_or("?")),
+        input["frames"],
+        input["alines"],
+        input["pixels"],
+        escape(&value_text(&input["dtype"])),
+        escape(input["fringes_dataset"].as_str().unwrap_or("?")),
+        escape(&value_text(&input["wavelength_map"])),
+        if input["has_background"].as_bool() == Some(true) { "recorded background spectra present" } else { "no recorded background" }
+    );
+    let derived = &log["derived"];
+    let stages: Vec<String> = derived["stages"].as_array().map(|a| a.iter().map(value_text).collect()).unwrap_or_default();
+    s += &format!(
+        "<p>Engine <code>{}</code>; stages in order: {}. Background method used: {}. Depth: {} pixels of {:.4} µm (in air) from {:.2} µm.</p>",
+        escape(log["engine"].as_str().unwrap_or("?")),
+        escape(&stages.join(" → ")),
+        escape(&value_text(&derived["background_method"])),
+        v.depth_um.len(),
+        v.depth_spacing_um,
+        v.depth_um[0]
+    );
+    s += "<h3>Pipeline (every stage and parameter)</h3>";
+    if let Some(p) = log["pipeline"].as_object() {
+        for (section, keys) in p {
+            let rows: Vec<(String, String)> = match keys.as_object() {
+                Some(o) => o.iter().map(|(k, v)| (k.clone(), value_text(v))).collect(),
+                None => vec![(section.clone(), value_text(keys))],
+            };
+            s += &format!("<p><strong>[{}]</strong></p>{}", escape(section), table(&rows));
+        }
+    }
+    s += "<h3>Derived</h3>";
+    if let Some(o) = derived.as_object() {
+        s += &table(&o.iter().map(|(k, v)| (k.clone(), value_text(v))).collect::<Vec<_>>());
+    }
+    s += "<h3>Frames</h3><table class=\"kv\"><tr><th>frame</th><th>noise floor (dB)</th><th>peak (dB)</th><th>black / white (dB)</th><th>saturated samples</th></tr>";
+    let records = log["frames"].as_array().cloned().unwrap_or_default();
+    for r in &records {
+        s += &format!(
+            "<tr><td>{}</td><td>{:.2}</td><td>{:.2}</td><td>{:.2} / {:.2}</td><td>{}</td></tr>",
+            r["index"],
+            r["noise_floor_db"].as_f64().unwrap_or(f64::NAN),
+            r["peak_db"].as_f64().unwrap_or(f64::NAN),
+            r["black_db"].as_f64().unwrap_or(f64::NAN),
+            r["white_db"].as_f64().unwrap_or(f64::NAN),
+            r["saturated_samples"]
+        );
+    }
+    s += "</table>";
+    let saturated: u64 = records.iter().filter_map(|r| r["saturated_samples"].as_u64()).sum();
+    let warnings = log["warnings"].as_array().map_or(0, |a| a.len());
+    s += "<h3>Checks</h3><ul>";
+    s += &format!("<li>{}</li>", if saturated == 0 { "No sample at or above full scale in any frame.".to_string() } else { format!("{saturated} samples at or above full scale: those fringes are clipped.") });
+    s += &format!("<li>Input hash recorded ({}); <code>fringeflow rerun</code> checks it before reproducing this output.</li>", escape(log["input_hash"].as_str().unwrap_or("?")));
+    s += &format!("<li>{}</li>", if warnings == 0 { "No warnings.".to_string() } else { format!("{warnings} warning(s), listed at the top.") });
+    if log["dispersion_estimate"].is_object() {
+        let e = &log["dispersion_estimate"];
+        s += &format!("<li>Dispersion estimated: a2 {:.2} rad, a3 {:.2} rad{}.</li>", e["a2_rad"].as_f64().unwrap_or(f64::NAN), e["a3_rad"].as_f64().unwrap_or(f64::NAN), if e["at_range_limit"].as_bool() == Some(true) { " — at the edge of the search range" } else { "" });
+    }
+    s += "</ul>";
+    let t = &log["timing"];
+    s += &format!(
+        "<h3>Timing</h3><p>{:.3} s in all ({:.0} A-lines/s on {} threads); reading {:.3} s, writing {:.3} s; peak memory {} MB. (The only part of this page that differs between identical runs.)</p>",
+        t["total_seconds"].as_f64().unwrap_or(f64::NAN),
+        t["alines_per_second"].as_f64().unwrap_or(f64::NAN),
+        t["threads"],
+        t["read_seconds"].as_f64().unwrap_or(f64::NAN),
+        t["write_seconds"].as_f64().unwrap_or(f64::NAN),
+        t["peak_resident_mb"].as_f64().map_or("—".into(), |m| format!("{m:.0}"))
+    );
+    s
+}

@@ -1,0 +1,163 @@
+#!/usr/bin/env python3
+"""Drives report.html in a real browser (Debian's chromium through
+chromium-driver and Selenium from PyPI) and checks what it shows against
+volume.h5 read with h5py.
+
+Usage: report_browser.py OUTPUT_DIR SCREENSHOT_DIR
+
+Checks: the page holds no external URL and loads with networking off and no
+errors in the console; stepping to frame k (arrow key) shows frame k, pixel
+for pixel, under the page's window/level (grey = round((dB - black) * 255 /
+range), clamped: the mapping log.json documents), within 1 grey level;
+moving the window sliders changes the pixels as that formula says; the
+depth scale bar's length in screen pixels matches its label through the
+depth spacing within 2 %; clicking an A-line shows a depth profile whose
+peak is the volume's. Screenshots go to SCREENSHOT_DIR.
+"""
+import base64
+import json
+import pathlib
+import re
+import sys
+
+import h5py
+import numpy as np
+from selenium import webdriver
+from selenium.webdriver.chrome.service import Service
+from selenium.webdriver.common.action_chains import ActionChains
+from selenium.webdriver.common.by import By
+from selenium.webdriver.common.keys import Keys
+from selenium.webdriver.support.ui import WebDriverWait
+
+
+def fail(msg):
+    print(f"FAIL {msg}")
+    sys.exit(1)
+
+
+def browser():
+    o = webdriver.ChromeOptions()
+    o.binary_location = "/usr/bin/chromium"
+    for a in ["--headless=new", "--no-sandbox", "--disable-gpu", "--window-size=1400,1600",
+              # No network: every host resolves to nothing and any proxy use fails.
+              "--host-resolver-rules=MAP * ~NOTFOUND", "--proxy-server=http://127.0.0.1:9",
+              "--disable-background-networking", "--disable-component-update"]:
+        o.add_argument(a)
+    o.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    return webdriver.Chrome(service=Service("/usr/bin/chromedriver"), options=o)
+
+
+def canvas_red(d, cid):
+    js = """const c = document.getElementById(arguments[0]);
+    const p = c.getContext('2d').getImageData(0, 0, c.width, c.height).data;
+    let s = ''; for (let i = 0; i < p.length; i += 4) s += String.fromCharCode(p[i]);
+    return [c.width, c.height, btoa(s)];"""
+    w, h, b = d.execute_script(js, cid)
+    return np.frombuffer(base64.b64decode(b), dtype=np.uint8).reshape(h, w).astype(int)
+
+
+def expected(db, black, rng):
+    return np.clip(np.round((db.astype(np.float64) - black) * 255.0 / rng), 0, 255)
+
+
+def set_slider(d, sid, value):
+    d.execute_script("const e = document.getElementById(arguments[0]); e.value = arguments[1]; e.dispatchEvent(new Event('input'));", sid, value)
+
+
+def main(outdir, shots):
+    outdir, shots = pathlib.Path(outdir), pathlib.Path(shots)
+    page = outdir / "report.html"
+    html = page.read_text()
+    urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[a-z]{2,}", html)
+    if urls:
+        fail(f"report.html names external URLs: {sorted(set(urls))[:5]}")
+    vol = h5py.File(outdir / "volume.h5", "r")
+    v = vol["volume_db"][()].astype(np.float64)
+    if "scale_factor" in vol["volume_db"].attrs:
+        v = v * vol["volume_db"].attrs["scale_factor"] + vol["volume_db"].attrs["add_offset"]
+    depth_um = vol["depth_um"][()]
+    spacing = float(vol["volume_db"].attrs["depth_spacing_um"])
+    log = json.load(open(outdir / "log.json"))
+
+    d = browser()
+    try:
+        d.get(page.resolve().as_uri())
+        WebDriverWait(d, 30).until(lambda x: x.execute_script("return document.body.dataset.ready") in ("1", "error"))
+        if d.execute_script("return document.body.dataset.ready") != "1":
+            fail("the viewer did not start: " + d.find_element(By.TAG_NAME, "body").text[:300])
+        shown = d.execute_script("return window.fringeflowReport.data.frames_shown")
+        black = float(d.find_element(By.ID, "black").get_attribute("value"))
+        rng = float(d.find_element(By.ID, "range").get_attribute("value"))
+        # The page opens on the first frame at the levels its PNG used.
+        lv = log["frames"][0]
+        if abs(black - lv["black_db"]) > 1e-6 or abs(black + rng - lv["white_db"]) > 1e-6:
+            fail(f"opening levels {black}/{black + rng} dB, logged {lv['black_db']}/{lv['white_db']}")
+        worst = 0
+        for k in range(len(shown)):
+            if k > 0:
+                ActionChains(d).send_keys(Keys.ARROW_RIGHT).perform()
+            f = int(d.find_element(By.ID, "bscan").get_attribute("data-frame"))
+            if f != shown[k]:
+                fail(f"after {k} arrow presses the page shows frame {f}, expected {shown[k]}")
+            got = canvas_red(d, "bscan")
+            diff = np.abs(got - expected(v[f], black, rng)).max()
+            worst = max(worst, diff)
+            if diff > 1:
+                fail(f"frame {f}: canvas differs from volume.h5 by {diff} grey levels")
+        print(f"ok frames: {len(shown)} frames by arrow key, worst difference {worst} grey level(s) at {black:.2f}/{rng:.2f} dB")
+        d.save_screenshot(str(shots / "report-frames.png"))
+
+        # A new window: black 5 dB lower, range 20 dB wider.
+        nb, nr = round(black - 5, 2), round(rng + 20, 2)
+        set_slider(d, "black", nb)
+        set_slider(d, "range", nr)
+        nb = float(d.find_element(By.ID, "black").get_attribute("value"))
+        nr = float(d.find_element(By.ID, "range").get_attribute("value"))
+        f = int(d.find_element(By.ID, "bscan").get_attribute("data-frame"))
+        got = canvas_red(d, "bscan")
+        diff = np.abs(got - expected(v[f], nb, nr)).max()
+        moved = np.abs(expected(v[f], nb, nr) - expected(v[f], black, rng)).max()
+        if diff > 1 or moved < 10:
+            fail(f"window {nb}/{nr} dB: canvas off by {diff} grey levels (the change moved pixels by up to {moved})")
+        print(f"ok window: {nb:.2f}/{nr:.2f} dB within {diff} grey level(s) of the formula")
+
+        # Scale bar: screen length against its label through the depth spacing.
+        canvas = d.find_element(By.ID, "bscan")
+        css_h = canvas.rect["height"]
+        px_per_um = css_h / (v.shape[1] * spacing)
+        bar = d.find_element(By.ID, "scale-bar")
+        label = d.find_element(By.ID, "scale-label").text
+        um = float(label.split()[0])
+        ratio = bar.rect["height"] / (um * px_per_um)
+        if abs(ratio - 1) > 0.02:
+            fail(f"scale bar {bar.rect['height']:.1f} px for '{label}', expected {um * px_per_um:.1f} px")
+        print(f"ok scale bar: {bar.rect['height']:.1f} px for {label} ({ratio:.4f} of the spacing's length)")
+
+        # Click the middle A-line: its profile's peak is the volume's.
+        a = v.shape[2] // 2
+        w = canvas.rect["width"]
+        x = (a + 0.5) / v.shape[2] * w - w / 2
+        ActionChains(d).move_to_element_with_offset(canvas, x, 0).click().perform()
+        p = d.find_element(By.ID, "profile-peak")
+        if int(p.get_attribute("data-aline")) != a:
+            fail(f"clicked A-line {a}, the profile is of {p.get_attribute('data-aline')}")
+        peak_um = float(p.get_attribute("data-peak-um"))
+        col = v[f, :, a]
+        z = int(np.argmax(col))
+        zi = int(np.argmin(np.abs(depth_um - peak_um)))
+        # Equal, or a tie within the embedded 0.1 dB steps.
+        if zi != z and col[z] - col[zi] > 0.1:
+            fail(f"profile peak at {peak_um} um ({col[zi]:.2f} dB), the volume's at {depth_um[z]} um ({col[z]:.2f} dB)")
+        print(f"ok profile: A-line {a} peaks at {peak_um:.2f} um (volume {depth_um[z]:.2f} um)")
+        d.save_screenshot(str(shots / "report-profile.png"))
+
+        errors = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
+        if errors:
+            fail(f"browser console errors: {errors[:3]}")
+        print("ok console: no errors")
+    finally:
+        d.quit()
+
+
+if __name__ == "__main__":
+    main(sys.argv[1], sys.argv[2])
