@@ -1,8 +1,9 @@
 # fringeflow: the two commands of the README, and their helpers.
 # `make demo` and `make test` install what they need on a fresh Debian 12
 # machine (as root): libhdf5-dev (and fontconfig + a font for plots) with
-# apt-get, slurm-wlm for the single-node cluster test, numpy/scipy/h5py
-# (cross-checks) and Pillow (independent PNG decoding) with pip.
+# apt-get, slurm-wlm for the single-node cluster test, chromium and
+# chromium-driver for the report's browser test, numpy/scipy/h5py
+# (cross-checks), Pillow (independent PNG decoding) and selenium with pip.
 
 CARGO  ?= cargo
 PYTHON ?= python3
@@ -22,14 +23,15 @@ deps-system:
 	  apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq $$missing >/dev/null; \
 	fi
 
-# The cluster test needs Slurm's daemons and clients.
+# The cluster test needs Slurm's daemons and clients; the report test a
+# real browser (Chromium, driven through chromium-driver).
 deps-test:
-	@$(MAKE) --no-print-directory deps-system APT_PACKAGES="$(APT_PACKAGES) slurm-wlm"
+	@$(MAKE) --no-print-directory deps-system APT_PACKAGES="$(APT_PACKAGES) slurm-wlm chromium chromium-driver"
 
 deps-python:
-	@if ! $(PYTHON) -c "import numpy, scipy, h5py, PIL, matplotlib" >/dev/null 2>&1; then \
-	  echo "== installing numpy, scipy, h5py, pillow, matplotlib (pip)"; \
-	  $(PYTHON) -m pip install -q numpy scipy h5py pillow matplotlib; \
+	@if ! $(PYTHON) -c "import numpy, scipy, h5py, PIL, matplotlib, selenium" >/dev/null 2>&1; then \
+	  echo "== installing numpy, scipy, h5py, pillow, matplotlib, selenium (pip)"; \
+	  $(PYTHON) -m pip install -q numpy scipy h5py pillow matplotlib selenium; \
 	fi
 
 build: deps-system
@@ -39,6 +41,7 @@ demo: build
 	$(BIN) inspect sample-data/layered-phantom.h5
 	$(BIN) run sample-data/layered-phantom.h5 --pipeline pipelines/default.toml --out out/demo
 	@echo "images: out/demo/layered-phantom/bscan-*.png; volume: out/demo/layered-phantom/volume.h5; log: out/demo/layered-phantom/log.json"
+	@echo "report: out/demo/layered-phantom/report.html (open it in a browser)"
 	@mkdir -p out/demo-captures
 	$(BIN) simulate sample-data/flow-phantom.toml --out out/demo-captures/flow-phantom.h5
 	$(BIN) run out/demo-captures/flow-phantom.h5 --pipeline pipelines/flow.toml --out out/demo

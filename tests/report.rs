@@ -1,0 +1,95 @@
+//! report.html in a real browser: Debian's chromium driven by Selenium
+//! (tests/report_browser.py) checks the frame browser, the window/level
+//! formula, the scale bar and the depth profile against volume.h5 (h5py),
+//! with networking off. Also: the page is one file with no external URL,
+//! it is listed in log.json, `fringeflow report` rewrites it, it stays
+//! under twice the size of the PNGs for the sample capture, and no report
+//! is written without the volume.
+
+mod common;
+use common::*;
+use std::path::Path;
+use std::process::Command;
+
+fn browser_check(outdir: &Path, shots: &Path) {
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/report_browser.py");
+    let o = Command::new("python3")
+        .arg(&script)
+        .arg(outdir)
+        .arg(shots)
+        .output()
+        .expect("python3 with selenium and h5py, and /usr/bin/chromium with chromium-driver (make test installs them)");
+    let text = String::from_utf8_lossy(&o.stdout);
+    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.success(), "browser check failed: {text}");
+    assert!(text.contains("ok profile") && text.contains("ok console"), "checks missing: {text}");
+}
+
+/// Three frames with a known lateral step (true aspect drawn), uint16 volume.
+const SCENE: &str = r#"
+seed = 5
+frames = 3
+alines = 96
+background_lines = 8
+[spectrometer]
+pixels = 1024
+start_nm = 790.0
+stop_nm = 890.0
+nonlinearity_nm = [2.0, 0.5]
+[detector]
+dtype = "u16"
+[sample]
+surface_um = 200.0
+sag_um = 60.0
+[[sample.layers]]
+thickness_um = 150.0
+group_index = 1.4
+top_reflectivity = 1e-4
+scatterers = 30
+scatterer_reflectivity = 1e-6
+"#;
+
+#[test]
+fn report_shows_the_volume_in_a_browser() {
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "layers", SCENE);
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&capture], "[input]\naline_spacing_um = 4.0\n[output]\nvolume_type = \"uint16\"\n", &out);
+    let folder = out.join("layers");
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(folder.join("log.json")).unwrap()).unwrap();
+    assert!(log["outputs"].as_array().unwrap().iter().any(|o| o == "report.html"), "{}", log["outputs"]);
+    let html = std::fs::read_to_string(folder.join("report.html")).unwrap();
+    assert!(html.contains("True aspect"), "the lateral step should give the true aspect");
+    browser_check(&folder, dir.path());
+    // `fringeflow report` rewrites it from the folder alone, embedding
+    // every other frame when asked, and says so on the page.
+    std::fs::remove_file(folder.join("report.html")).unwrap();
+    let o = Command::new(bin()).arg("report").arg(&folder).args(["--frame-step", "2", "--json"]).output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let r: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!((r["reports"][0]["frames_embedded"].as_u64(), r["reports"][0]["frames_total"].as_u64()), (Some(2), Some(3)));
+    browser_check(&folder, dir.path());
+    // Not an output folder: a usage error naming it.
+    let o = Command::new(bin()).arg("report").arg(dir.path()).output().unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("no log.json"));
+}
+
+#[test]
+fn sample_report_is_small_and_needs_the_volume() {
+    let dir = tempfile::tempdir().unwrap();
+    let capture = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-data/layered-phantom.h5");
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&capture], "", &out);
+    let folder = out.join("layered-phantom");
+    let size = |n: &str| std::fs::metadata(folder.join(n)).unwrap().len();
+    let pngs = size("bscan-0000.png") + size("bscan-0001.png");
+    let report = size("report.html");
+    eprintln!("report.html {report} bytes, PNGs {pngs} bytes ({:.2}x)", report as f64 / pngs as f64);
+    // Budget: under twice the PNGs of the sample capture.
+    assert!(report < 2 * pngs, "report {report} bytes against {pngs} bytes of PNGs");
+    browser_check(&folder, dir.path());
+    let out2 = dir.path().join("png-only");
+    run_ok(dir.path(), &[&capture], "[output]\nvolume = false\n", &out2);
+    assert!(!out2.join("layered-phantom/report.html").exists(), "a report without volume.h5");
+}
