@@ -236,6 +236,16 @@ pub struct DbFrames {
     pub position_spacing_um: Option<f64>,
 }
 
+/// (frames, depth, A-lines) of `/volume_db`.
+pub fn db_volume_shape(path: &Path) -> Result<[usize; 3]> {
+    let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;
+    let shape = file.dataset("volume_db").map_err(concise).with_context(|| format!("{}: /volume_db", path.display()))?.shape();
+    match shape.as_slice() {
+        &[f, d, a] => Ok([f, d, a]),
+        _ => anyhow::bail!("{}: /volume_db has {} dimensions, expected 3 (frame, depth, A-line)", path.display(), shape.len()),
+    }
+}
+
 /// Reads the frames `every`-th apart (0, every, 2·every, …) of
 /// `/volume_db`, unpacking uint16 volumes (CF `scale_factor`/`add_offset`).
 pub fn read_db_frames(path: &Path, every: usize) -> Result<DbFrames> {

@@ -171,6 +171,16 @@ pub fn log_without_timing(path: &Path) -> serde_json::Value {
     v
 }
 
+/// report.html without its timing paragraph (`<p id="timing">…</p>`), the
+/// only part that differs between identical runs.
+pub fn report_without_timing(path: &Path) -> String {
+    let page = std::fs::read_to_string(path).unwrap();
+    match (page.find("<p id=\"timing\">"), page.find("<p id=\"timing\">").and_then(|i| page[i..].find("</p>").map(|j| i + j))) {
+        (Some(i), Some(j)) => format!("{}{}", &page[..i], &page[j..]),
+        _ => panic!("{}: no timing paragraph", path.display()),
+    }
+}
+
 /// Asserts two capture output directories hold the same files with the same
 /// bytes (log.json compared without timing).
 pub fn assert_same_outputs(a: &Path, b: &Path) {
@@ -179,6 +189,8 @@ pub fn assert_same_outputs(a: &Path, b: &Path) {
     for f in ta {
         if f.ends_with("log.json") {
             assert_eq!(log_without_timing(&a.join(&f)), log_without_timing(&b.join(&f)), "{f}");
+        } else if f.ends_with("report.html") {
+            assert!(report_without_timing(&a.join(&f)) == report_without_timing(&b.join(&f)), "{f} differs beyond its timing line");
         } else {
             assert!(std::fs::read(a.join(&f)).unwrap() == std::fs::read(b.join(&f)).unwrap(), "{f} differs");
         }
