@@ -41,11 +41,12 @@ demo: build
 	$(BIN) inspect sample-data/layered-phantom.h5
 	$(BIN) run sample-data/layered-phantom.h5 --pipeline pipelines/default.toml --out out/demo
 	@echo "images: out/demo/layered-phantom/bscan-*.png; volume: out/demo/layered-phantom/volume.h5; log: out/demo/layered-phantom/log.json"
-	@echo "report: out/demo/layered-phantom/report.html (open it in a browser)"
+	@echo "report: out/demo/layered-phantom/report.html; batch page: out/demo/index.html (open them in a browser)"
 	@mkdir -p out/demo-captures
 	$(BIN) simulate sample-data/flow-phantom.toml --out out/demo-captures/flow-phantom.h5
 	$(BIN) run out/demo-captures/flow-phantom.h5 --pipeline pipelines/flow.toml --out out/demo
 	@echo "flow: out/demo/flow-phantom/bscan-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
+	@echo "pages: out/demo/layered-phantom/report.html, out/demo/flow-phantom/report.html and out/demo/index.html"
 
 test: deps-test deps-python build
 	$(CARGO) test --locked -- --test-threads=2

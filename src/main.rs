@@ -307,6 +307,9 @@ fn summarize(dir: &Path, json_out: bool) -> ExitCode {
     if let Err(e) = fringeflow::io::staging::write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &json)?)) {
         return fail(1, format!("{e:#}"));
     }
+    if let Err(e) = serde_json::to_value(&report).map_err(anyhow::Error::from).and_then(|v| fringeflow::report::write_index(dir, &v)) {
+        return fail(1, format!("{}: {e:#}", dir.join("index.html").display()));
+    }
     if json_out {
         outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "summary": path.display().to_string(), "report": report, "problems": problems })).unwrap());
     } else {

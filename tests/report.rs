@@ -93,3 +93,32 @@ fn sample_report_is_small_and_needs_the_volume() {
     run_ok(dir.path(), &[&capture], "[output]\nvolume = false\n", &out2);
     assert!(!out2.join("layered-phantom/report.html").exists(), "a report without volume.h5");
 }
+
+/// A batch with one bad file: index.html lists every capture with its
+/// status, the failure with its reason, links to the reports; filter and
+/// sort work in the browser. `summarize` writes the same page for the
+/// merged shards.
+#[test]
+fn batch_index_lists_every_capture_and_the_failure() {
+    let dir = tempfile::tempdir().unwrap();
+    let (a, _) = simulate_scene(dir.path(), "first", SCENE);
+    let (b, _) = simulate_scene(dir.path(), "second", &SCENE.replace("seed = 5", "seed = 6"));
+    let bad = dir.path().join("broken.h5");
+    std::fs::write(&bad, b"not a capture").unwrap();
+    let out = dir.path().join("batch");
+    let o = run(dir.path(), &[&a, &b, &bad], "", &out);
+    assert_eq!(o.status.code(), Some(1), "one capture fails: {}", String::from_utf8_lossy(&o.stderr));
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/report_browser.py");
+    let check = |d: &Path| {
+        let o = Command::new("python3").arg(&script).arg("index").arg(d).arg(dir.path()).output().unwrap();
+        let text = String::from_utf8_lossy(&o.stdout);
+        eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+        assert!(o.status.success() && text.contains("ok index: 3 captures, 1 failed"), "{text}");
+    };
+    check(&out);
+    std::fs::remove_file(out.join("index.html")).unwrap();
+    let o = Command::new(bin()).arg("summarize").arg(&out).output().unwrap();
+    assert_eq!(o.status.code(), Some(1), "summarize reports the failure");
+    assert!(out.join("index.html").exists(), "summarize writes index.html");
+    check(&out);
+}

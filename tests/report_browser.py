@@ -4,6 +4,11 @@ chromium-driver and Selenium from PyPI) and checks what it shows against
 volume.h5 read with h5py.
 
 Usage: report_browser.py OUTPUT_DIR SCREENSHOT_DIR
+       report_browser.py index BATCH_DIR SCREENSHOT_DIR
+
+The index mode checks a batch's index.html against its batch.json: one row
+per capture with its status, each failure with its reason, the links to
+the captures' reports; the status filter and a numeric sort work.
 
 Checks: the page holds no external URL and loads with networking off and no
 errors in the console; stepping to frame k (arrow key) shows frame k, pixel
@@ -27,7 +32,7 @@ from selenium.webdriver.chrome.service import Service
 from selenium.webdriver.common.action_chains import ActionChains
 from selenium.webdriver.common.by import By
 from selenium.webdriver.common.keys import Keys
-from selenium.webdriver.support.ui import WebDriverWait
+from selenium.webdriver.support.ui import Select, WebDriverWait
 
 
 def fail(msg):
@@ -163,5 +168,62 @@ def main(outdir, shots):
         d.quit()
 
 
+def check_index(batch, shots):
+    batch, shots = pathlib.Path(batch), pathlib.Path(shots)
+    page = batch / "index.html"
+    html = page.read_text()
+    urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[a-z]{2,}", html)
+    if urls:
+        fail(f"index.html names external URLs: {sorted(set(urls))[:5]}")
+    summary = json.load(open(batch / "batch.json"))
+    d = browser()
+    try:
+        d.get(page.resolve().as_uri())
+        WebDriverWait(d, 30).until(lambda x: x.execute_script("return document.body.dataset.ready") == "1")
+        rows = d.find_elements(By.CSS_SELECTOR, "#captures tbody tr")
+        if len(rows) != len(summary["captures"]):
+            fail(f"index lists {len(rows)} captures, batch.json {len(summary['captures'])}")
+        by_input = {r.find_elements(By.TAG_NAME, "td")[1].text: r for r in rows}
+        for c in summary["captures"]:
+            r = by_input.get(c["input"])
+            if r is None:
+                fail(f"{c['input']} missing from index.html")
+            cells = r.find_elements(By.TAG_NAME, "td")
+            if cells[0].text != c["status"]:
+                fail(f"{c['input']}: status {cells[0].text}, batch.json {c['status']}")
+            if c["status"] == "failed" and c["reason"] not in cells[8].text:
+                fail(f"{c['input']}: reason {cells[8].text!r} does not show {c['reason']!r}")
+            if c["status"] == "done":
+                link = cells[7].find_element(By.TAG_NAME, "a").get_attribute("href")
+                if not link.endswith("/report.html") or not pathlib.Path(link.replace("file://", "")).exists():
+                    fail(f"{c['input']}: report link {link}")
+                if not cells[6].find_elements(By.TAG_NAME, "img"):
+                    fail(f"{c['input']}: no thumbnail")
+        failed = sum(c["status"] == "failed" for c in summary["captures"])
+        Select(d.find_element(By.ID, "status")).select_by_value("failed")
+        visible = [r for r in rows if r.is_displayed()]
+        if len(visible) != failed:
+            fail(f"status filter 'failed' shows {len(visible)} rows, expected {failed}")
+        d.save_screenshot(str(shots / "index-failed.png"))
+        Select(d.find_element(By.ID, "status")).select_by_value("")
+        # Sorting by seconds (twice: descending) puts the slowest first.
+        th = d.find_elements(By.CSS_SELECTOR, "#captures th")[4]
+        th.click()
+        th.click()
+        first = d.find_elements(By.CSS_SELECTOR, "#captures tbody tr")[0].find_elements(By.TAG_NAME, "td")[1].text
+        slowest = max(summary["captures"], key=lambda c: c["seconds"])["input"]
+        if first != slowest:
+            fail(f"sorted by seconds (descending) the first row is {first}, the slowest is {slowest}")
+        errors = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
+        if errors:
+            fail(f"browser console errors: {errors[:3]}")
+        print(f"ok index: {len(rows)} captures, {failed} failed with reasons, filter and sort work, no console errors")
+    finally:
+        d.quit()
+
+
 if __name__ == "__main__":
-    main(sys.argv[1], sys.argv[2])
+    if sys.argv[1] == "index":
+        check_index(sys.argv[2], sys.argv[3])
+    else:
+        main(sys.argv[1], sys.argv[2])

@@ -373,6 +373,11 @@ fn write_merged_report(path: &Path, mut report: BatchReport) -> Result<BatchRepo
     }
     let json = serde_json::to_vec_pretty(&report)?;
     write_atomically(path, |tmp| Ok(std::fs::write(tmp, &json)?)).with_context(|| format!("writing {}", path.display()))?;
+    // The batch's page, from what was just written (under the same lock).
+    // A shard's summary covers its captures only; `summarize` writes the
+    // page of the merged batch.
+    let value = serde_json::to_value(&report)?;
+    crate::report::write_index(dir, &value).with_context(|| format!("writing {}", dir.join("index.html").display()))?;
     Ok(report)
 }
 

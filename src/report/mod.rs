@@ -15,6 +15,9 @@ use std::path::Path;
 
 use crate::io::staging::write_atomically;
 
+pub mod index;
+pub use index::write_index;
+
 const PAGE: &str = include_str!("page.html");
 const STYLE: &str = include_str!("page.css");
 const SCRIPT: &str = include_str!("page.js");
