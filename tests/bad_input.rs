@@ -44,9 +44,9 @@ fn assert_fails(dir: &Path, capture: &Path, pipeline: Option<&str>, expect: &str
     assert_eq!(o.status.code(), Some(code), "{}: {err}", capture.display());
     assert_eq!(err.trim_end().lines().count(), 1, "not one line: {err}");
     assert!(err.contains(expect), "expected '{expect}' in: {err}");
-    // Only the batch summary (written whole, atomically) may be there, and it
-    // must record the failure.
-    let leftovers: Vec<PathBuf> = walk(&out).into_iter().filter(|p| !p.ends_with("batch.json")).collect();
+    // Only the batch summary and the batch's page (each written whole,
+    // atomically) may be there, and the summary must record the failure.
+    let leftovers: Vec<PathBuf> = walk(&out).into_iter().filter(|p| !p.ends_with("batch.json") && !p.ends_with("index.html")).collect();
     assert!(leftovers.is_empty(), "files left behind: {leftovers:?}");
     if code == 1 {
         let batch: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("batch.json")).unwrap()).unwrap();

@@ -14,6 +14,8 @@ Usage:
   decode_images.py calplot PNG CAL.json   the wavelength-calibration plot
                                           against its calibration file
   decode_images.py axes OUTPUT_DIR        volume.h5's dimension scales (h5py)
+  decode_images.py ome OUTPUT_DIR         volume.ome.tif (tifffile) against
+                                          volume.h5: data and physical sizes
 
 Every image's tEXt chunks (tool version, pipeline hash, depth spacing, dB
 range) and pHYs pixel size are read with Pillow and checked against log.json.
@@ -363,6 +365,42 @@ def check_axes(outdir):
             print(f"ok /{n}: en face dims labelled")
 
 
+def check_ome(outdir):
+    import xml.etree.ElementTree as ET
+    import tifffile
+    f = h5py.File(f"{outdir}/volume.h5", "r")
+    ds = f["volume_db"]
+    v = ds[()].astype(np.float64)
+    if "scale_factor" in ds.attrs:
+        v = v * ds.attrs["scale_factor"] + ds.attrs["add_offset"]
+    with tifffile.TiffFile(f"{outdir}/volume.ome.tif") as t:
+        if not t.is_ome:
+            fail("volume.ome.tif: not recognised as OME-TIFF by tifffile")
+        s = t.series[0]
+        if s.axes != "ZYX" or s.shape != v.shape:
+            fail(f"volume.ome.tif: axes {s.axes} shape {s.shape}, volume.h5 {v.shape}")
+        a = s.asarray().astype(np.float64)
+        xml = ET.fromstring(t.ome_metadata)
+    worst = float(np.max(np.abs(a - v) / np.maximum(np.abs(v), 1e-30)))
+    if worst > 1e-6:
+        fail(f"volume.ome.tif data differ from volume.h5 by {worst:.2e} relative")
+    ns = {"o": "http://www.openmicroscopy.org/Schemas/OME/2016-06"}
+    px = xml.find("o:Image/o:Pixels", ns)
+    want = {"Y": float(ds.attrs["depth_spacing_um"])}
+    for axis, name in (("X", "aline_um"), ("Z", "position_um")):
+        if name in f:
+            want[axis] = float(f[name][1] - f[name][0])
+    for axis in "XYZ":
+        got = px.get(f"PhysicalSize{axis}")
+        unit = px.get(f"PhysicalSize{axis}Unit", "µm")
+        if axis in want:
+            if got is None or unit != "µm" or not close(got, want[axis], 1e-6):
+                fail(f"PhysicalSize{axis} {got} {unit}, expected {want[axis]} µm")
+        elif got is not None:
+            fail(f"PhysicalSize{axis} {got} written though the step is unknown")
+    print(f"ok volume.ome.tif: {s.axes} {s.shape}, data within {worst:.1e}, sizes {want} µm")
+
+
 if __name__ == "__main__":
     kind = sys.argv[1]
     if kind == "bscans":
@@ -375,6 +413,8 @@ if __name__ == "__main__":
         check_doppler(sys.argv[2])
     elif kind == "axes":
         check_axes(sys.argv[2])
+    elif kind == "ome":
+        check_ome(sys.argv[2])
     elif kind == "plot":
         check_plots(sys.argv[2:])
     elif kind == "calplot":

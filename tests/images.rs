@@ -43,11 +43,12 @@ fn bscans_and_en_face_decode_to_the_volume_at_8_and_16_bits() {
     for (bits, volume_type, input) in [(8, "float32", "[input]\naline_spacing_um = 3.5\n"), (16, "float32", ""), (16, "uint16", "")] {
         let out = dir.path().join(format!("out{bits}-{volume_type}"));
         let pipeline = format!(
-            "{input}[log_compression]\nbit_depth = {bits}\n[volume]\nen_face = true\n[output]\nvolume_type = \"{volume_type}\"\n"
+            "{input}[log_compression]\nbit_depth = {bits}\n[volume]\nen_face = true\n[output]\nvolume_type = \"{volume_type}\"\nome_tiff = true\n"
         );
         run_ok(dir.path(), &[&capture], &pipeline, &out);
         decode(&["bscans".as_ref(), out.join("layers").as_os_str()]);
         decode(&["axes".as_ref(), out.join("layers").as_os_str()]);
+        decode(&["ome".as_ref(), out.join("layers").as_os_str()]);
     }
 }
 

@@ -33,11 +33,11 @@ fn two_runs_give_identical_outputs() {
     assert_eq!(la["pipeline"]["k_linearization"]["method"], "cubic");
     assert_eq!(la["derived"]["background_method"], "recorded");
     assert_eq!(la["frames"].as_array().unwrap().len(), 2);
-    // Nothing but the capture's directory and the batch summary is left in
-    // the output root (no lock, no staging directory).
+    // Nothing but the capture's directory, the batch summary and the batch's
+    // page is left in the output root (no lock, no staging directory).
     let mut entries: Vec<_> = std::fs::read_dir(&a).unwrap().map(|e| e.unwrap().file_name().to_string_lossy().into_owned()).collect();
     entries.sort();
-    assert_eq!(entries, vec!["batch.json".to_string(), "layered-phantom".to_string()]);
+    assert_eq!(entries, vec!["batch.json".to_string(), "index.html".to_string(), "layered-phantom".to_string()]);
 }
 
 #[test]

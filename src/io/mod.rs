@@ -4,6 +4,7 @@
 pub mod capture;
 pub mod h5;
 pub mod hash;
+pub mod ome_tiff;
 pub mod png;
 pub mod staging;
 pub mod toml_file;

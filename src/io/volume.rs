@@ -236,6 +236,20 @@ pub struct DbFrames {
     pub position_spacing_um: Option<f64>,
 }
 
+/// Frame `index` of `/volume_db` in dB (uint16 volumes unpacked).
+pub fn read_db_frame(path: &Path, index: usize) -> Result<Array2<f32>> {
+    let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;
+    let ds = file.dataset("volume_db").map_err(concise).with_context(|| format!("{}: /volume_db", path.display()))?;
+    if ds.dtype().map_err(concise)?.is::<u16>() {
+        let scale = ds.attr("scale_factor").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_STEP);
+        let offset = ds.attr("add_offset").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_OFFSET);
+        let raw: Array2<u16> = ds.read_slice(ndarray::s![index, .., ..]).map_err(concise)?;
+        Ok(raw.mapv(|v| (v as f64 * scale + offset) as f32))
+    } else {
+        Ok(ds.read_slice(ndarray::s![index, .., ..]).map_err(concise)?)
+    }
+}
+
 /// (frames, depth, A-lines) of `/volume_db`.
 pub fn db_volume_shape(path: &Path) -> Result<[usize; 3]> {
     let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;

@@ -310,6 +310,11 @@ pub struct OutputConfig {
     /// serialised pipeline when 0.
     #[serde(skip_serializing_if = "is_zero")]
     pub report_frame_step: usize,
+    /// Also write volume.ome.tif: the dB volume as OME-TIFF with its
+    /// physical pixel sizes (needs the volume). Left out of the serialised
+    /// pipeline when off.
+    #[serde(skip_serializing_if = "is_false")]
+    pub ome_tiff: bool,
 }
 
 fn is_false(b: &bool) -> bool {
@@ -326,7 +331,7 @@ fn is_zero(n: &usize) -> bool {
 
 impl Default for OutputConfig {
     fn default() -> Self {
-        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false, report: true, report_frame_step: 0 }
+        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false, report: true, report_frame_step: 0, ome_tiff: false }
     }
 }
 
@@ -822,6 +827,9 @@ impl PipelineConfig {
         }
         if !(self.output.png || self.output.volume) {
             return Err(fail("output", "png", "png and volume are both off: the run would write nothing".into()));
+        }
+        if self.output.ome_tiff && !self.output.volume {
+            return Err(fail("output", "ome_tiff", "volume.ome.tif is written from volume.h5: set output.volume = true".into()));
         }
         if self.output.complex && !self.output.volume {
             return Err(fail("output", "complex", "the complex depth profile is written into volume.h5: set output.volume = true".into()));

@@ -471,6 +471,10 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         v.finish(&sha256)?;
         outputs.push("volume.h5".into());
     }
+    if config.output.ome_tiff {
+        write_ome_tiff(&staging, &opened)?;
+        outputs.push("volume.ome.tif".into());
+    }
     let report = config.output.report && config.output.volume;
     if report {
         outputs.push("report.html".into());
@@ -533,6 +537,22 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     }
     let output_dir = staging.commit()?;
     Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false, warnings, background_method })
+}
+
+/// volume.ome.tif from the staged volume.h5, one frame at a time.
+fn write_ome_tiff(staging: &Staging, opened: &Opened) -> Result<()> {
+    let h5 = staging.path("volume.h5");
+    let [frames, depth, alines] = crate::io::volume::db_volume_shape(&h5)?;
+    let axes = crate::io::volume::read_db_frames(&h5, usize::MAX)?;
+    let scale = crate::io::ome_tiff::OmeScale {
+        name: opened.name.clone(),
+        depth_spacing_um: axes.depth_spacing_um,
+        aline_spacing_um: axes.aline_spacing_um,
+        frame_spacing_um: axes.position_spacing_um,
+    };
+    let tmp = staging.path("volume.ome.tif");
+    crate::io::ome_tiff::write_ome_tiff(&tmp, frames, depth, alines, &scale, |f| crate::io::volume::read_db_frame(&h5, f)).context("writing volume.ome.tif")?;
+    Ok(())
 }
 
 /// The tEXt chunks every image of a capture carries.
