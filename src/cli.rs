@@ -17,6 +17,7 @@ Reconstruct:
   inspect       List a capture's datasets, shapes, value ranges and problems
   pipeline      Print the commented defaults, check a pipeline, show its resolved form
   report        Write (or rewrite) report.html for an output folder
+  compare       Page comparing two outputs of one capture (side by side, blink, difference)
 
 Batches and clusters:
   summarize     Merge the batch summaries of an output folder
@@ -328,6 +329,23 @@ pub enum Command {
     /// Pipeline files: print the commented defaults, check one, show its resolved form.
     #[command(subcommand)]
     Pipeline(PipelineCommand),
+    /// Compare two outputs of one capture on one page: side by side, blink, difference, settings and sharpness.
+    #[command(after_help = concat!(
+        "EXAMPLES:\n",
+        "  fringeflow compare out/linear/layered-phantom out/cubic/layered-phantom --out out/linear-vs-cubic.html\n\n",
+        EXIT_STATUS_USAGE!()
+    ))]
+    Compare {
+        /// Output folder A (log.json and volume.h5 made by `run`).
+        #[arg(value_name = "DIR_A")]
+        a: PathBuf,
+        /// Output folder B, from the same capture.
+        #[arg(value_name = "DIR_B")]
+        b: PathBuf,
+        /// The page to write (HTML).
+        #[arg(long, short, value_name = "FILE")]
+        out: PathBuf,
+    },
     /// Write report.html, a self-contained page to browse and share, for output folders made by `run`.
     #[command(after_help = concat!(
         "EXAMPLES:\n",

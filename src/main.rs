@@ -700,6 +700,23 @@ fn main() -> ExitCode {
         }),
         Command::Rerun { log, out, json } => rerun(&log, &out, json),
         Command::Report { dirs, frame_step, json } => report(&dirs, frame_step, json),
+        Command::Compare { a, b, out } => {
+            for d in [&a, &b] {
+                if !d.join("log.json").is_file() || !d.join("volume.h5").is_file() {
+                    return fail(2, format!("{}: not an output folder of `run` with a volume (needs log.json and volume.h5)", d.display()));
+                }
+            }
+            if out.is_dir() {
+                return fail(2, format!("--out {}: is a folder; give the page to write, e.g. {}", out.display(), out.join("compare.html").display()));
+            }
+            match fringeflow::report::write_comparison(&a, &b, &out) {
+                Ok(()) => {
+                    outln!("wrote {}", out.display());
+                    ExitCode::SUCCESS
+                }
+                Err(e) => fail(1, format!("{e:#}")),
+            }
+        }
         Command::Summarize { dir, json } => summarize(&dir, json),
         Command::SlurmScript { list, pipeline, out, tasks, cpus_per_task, mem, time, partition, job_name } => {
             slurm_script(&list, &pipeline, &out, tasks, cpus_per_task, &mem, &time, partition.as_deref(), &job_name)

@@ -122,3 +122,33 @@ fn batch_index_lists_every_capture_and_the_failure() {
     assert!(out.join("index.html").exists(), "summarize writes index.html");
     check(&out);
 }
+
+/// Two outputs of one capture (linear against cubic resampling) on one
+/// comparison page: each side against its volume, blink, the difference;
+/// outputs of different captures are refused.
+#[test]
+fn comparison_page_of_two_settings() {
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "layers", SCENE);
+    let (a, b) = (dir.path().join("linear"), dir.path().join("cubic"));
+    run_ok(dir.path(), &[&capture], "[k_linearization]\nmethod = \"linear\"\n", &a);
+    run_ok(dir.path(), &[&capture], "", &b);
+    let page = dir.path().join("linear-vs-cubic.html");
+    let o = Command::new(bin()).arg("compare").arg(a.join("layers")).arg(b.join("layers")).arg("--out").arg(&page).output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let html = std::fs::read_to_string(&page).unwrap();
+    assert!(html.contains("k_linearization.method"), "the differing setting is named");
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/report_browser.py");
+    let o = Command::new("python3").arg(&script).arg("compare").arg(&page).arg(a.join("layers")).arg(b.join("layers")).arg(dir.path()).output().unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.success() && text.contains("ok compare"), "{text}");
+    // Another capture: refused with the reason.
+    let (other, _) = simulate_scene(dir.path(), "other", &SCENE.replace("seed = 5", "seed = 9"));
+    let c = dir.path().join("other-out");
+    run_ok(dir.path(), &[&other], "", &c);
+    let o = Command::new(bin()).arg("compare").arg(a.join("layers")).arg(c.join("other")).arg("--out").arg(dir.path().join("x.html")).output().unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("different captures"), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(!dir.path().join("x.html").exists());
+}

@@ -5,6 +5,13 @@ volume.h5 read with h5py.
 
 Usage: report_browser.py OUTPUT_DIR SCREENSHOT_DIR
        report_browser.py index BATCH_DIR SCREENSHOT_DIR
+       report_browser.py compare PAGE DIR_A DIR_B SCREENSHOT_DIR
+
+The compare mode checks a comparison page: both sides against their
+volume.h5 under the shared window/level (within 1 grey level), the blink
+key showing the other side, and the difference image against
+A - B over the difference range (green channel 255 * (1 - |t|), within 2
+levels: each side is embedded in 0.1 dB steps).
 
 The index mode checks a batch's index.html against its batch.json: one row
 per capture with its status, each failure with its reason, the links to
@@ -222,8 +229,66 @@ def check_index(batch, shots):
         d.quit()
 
 
+def read_volume(d):
+    vol = h5py.File(pathlib.Path(d) / "volume.h5", "r")
+    v = vol["volume_db"][()].astype(np.float64)
+    if "scale_factor" in vol["volume_db"].attrs:
+        v = v * vol["volume_db"].attrs["scale_factor"] + vol["volume_db"].attrs["add_offset"]
+    return v
+
+
+def check_compare(page, da, db, shots):
+    page, shots = pathlib.Path(page), pathlib.Path(shots)
+    va, vb = read_volume(da), read_volume(db)
+    d = browser()
+    try:
+        d.get(page.resolve().as_uri())
+        WebDriverWait(d, 30).until(lambda x: x.execute_script("return document.body.dataset.ready") in ("1", "error"))
+        if d.execute_script("return document.body.dataset.ready") != "1":
+            fail("the comparison did not start: " + d.find_element(By.TAG_NAME, "body").text[:300])
+        black = float(d.find_element(By.ID, "black").get_attribute("value"))
+        rng = float(d.find_element(By.ID, "range").get_attribute("value"))
+        for cid, v in (("canvas-a", va), ("canvas-b", vb)):
+            diff = np.abs(canvas_red(d, cid) - expected(v[0], black, rng)).max()
+            if diff > 1:
+                fail(f"{cid}: differs from its volume.h5 by {diff} grey levels")
+        d.find_element(By.ID, "mode-blink").click()
+        sides = []
+        for k in range(2):
+            c = d.find_element(By.ID, "canvas-blink")
+            sides.append(c.get_attribute("data-side"))
+            want = va if sides[-1] == "A" else vb
+            diff = np.abs(canvas_red(d, "canvas-blink") - expected(want[0], black, rng)).max()
+            if diff > 1:
+                fail(f"blink view showing {sides[-1]} differs from its volume by {diff}")
+            ActionChains(d).send_keys("b").perform()
+        if sides != ["A", "B"]:
+            fail(f"blink key showed {sides}, expected A then B")
+        dr = float(d.find_element(By.ID, "diff-range").get_attribute("value"))
+        js = """const c = document.getElementById('canvas-diff');
+        const p = c.getContext('2d').getImageData(0, 0, c.width, c.height).data;
+        let s = ''; for (let i = 1; i < p.length; i += 4) s += String.fromCharCode(p[i]);
+        return btoa(s);"""
+        g = np.frombuffer(base64.b64decode(d.execute_script(js)), dtype=np.uint8).reshape(va.shape[1:]).astype(int)
+        base = d.execute_script("return window.fringeflowCompare.data.base_db")
+        # Values below the embedded floor show as the floor on both sides.
+        t = np.clip((np.maximum(va[0], base) - np.maximum(vb[0], base)) / dr, -1, 1)
+        diff = np.abs(g - np.round(255 * (1 - np.abs(t)))).max()
+        if diff > 2:
+            fail(f"difference image off by {diff} levels")
+        d.save_screenshot(str(shots / "compare.png"))
+        errors = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
+        if errors:
+            fail(f"browser console errors: {errors[:3]}")
+        print(f"ok compare: both sides within 1 grey level, blink A then B, difference within {diff} levels, no console errors")
+    finally:
+        d.quit()
+
+
 if __name__ == "__main__":
-    if sys.argv[1] == "index":
+    if sys.argv[1] == "compare":
+        check_compare(sys.argv[2], sys.argv[3], sys.argv[4], sys.argv[5])
+    elif sys.argv[1] == "index":
         check_index(sys.argv[2], sys.argv[3])
     else:
         main(sys.argv[1], sys.argv[2])

@@ -15,7 +15,9 @@ use std::path::Path;
 
 use crate::io::staging::write_atomically;
 
+pub mod compare;
 pub mod index;
+pub use compare::write_comparison;
 pub use index::write_index;
 
 const PAGE: &str = include_str!("page.html");
@@ -62,25 +64,7 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
     let floor = if floor.is_finite() { floor } else { v.images.iter().flat_map(|i| i.iter()).filter(|d| d.is_finite()).fold(f64::INFINITY, |m, &d| m.min(d as f64)) };
     let base = (floor / STEP_DB).floor() * STEP_DB;
     let max_q = (((max - base) / STEP_DB).round().clamp(0.0, 65535.0)) as u16;
-    let data: Vec<String> = v
-        .images
-        .par_iter()
-        .map(|image| {
-            // 16-bit steps, stored as two planes (high bytes, then low
-            // bytes): the high plane is nearly constant and compresses to
-            // almost nothing.
-            let q: Vec<u16> = image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect();
-            let mut planes = Vec::with_capacity(2 * q.len());
-            planes.extend(q.iter().map(|v| (v >> 8) as u8));
-            planes.extend(q.iter().map(|v| (v & 0xff) as u8));
-            // miniz at its fastest level: 479 kB for the sample capture
-            // against 463 kB at level 6, in a third of the time (fdeflate,
-            // quicker still, made 570 kB).
-            let mut z = flate2::write::ZlibEncoder::new(Vec::new(), flate2::Compression::fast());
-            z.write_all(&planes).expect("in memory");
-            base64::engine::general_purpose::STANDARD.encode(z.finish().expect("in memory"))
-        })
-        .collect();
+    let data = embed_frames(&v.images, base);
     // Per embedded frame, the levels its PNG used.
     let levels: Vec<[f64; 2]> = v
         .indices
@@ -160,6 +144,28 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
         Ok(())
     })?;
     Ok(ReportSummary { bytes: page.len() as u64, frames_embedded: v.indices.len(), frames_total })
+}
+
+/// The frames as the page embeds them: 16-bit steps of [`STEP_DB`] from
+/// `base` dB (lower and NaN values as 0), two byte planes (high bytes,
+/// then low bytes: the high plane is nearly constant and compresses to
+/// almost nothing), zlib, base64.
+pub fn embed_frames(images: &[ndarray::Array2<f32>], base: f64) -> Vec<String> {
+    images
+        .par_iter()
+        .map(|image| {
+            let q: Vec<u16> = image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect();
+            let mut planes = Vec::with_capacity(2 * q.len());
+            planes.extend(q.iter().map(|v| (v >> 8) as u8));
+            planes.extend(q.iter().map(|v| (v & 0xff) as u8));
+            // miniz at its fastest level: 479 kB for the sample capture
+            // against 463 kB at level 6, in a third of the time (fdeflate,
+            // quicker still, made 570 kB).
+            let mut z = flate2::write::ZlibEncoder::new(Vec::new(), flate2::Compression::fast());
+            z.write_all(&planes).expect("in memory");
+            base64::engine::general_purpose::STANDARD.encode(z.finish().expect("in memory"))
+        })
+        .collect()
 }
 
 /// HTML text escaping.
