@@ -14,6 +14,9 @@ Usage:
   decode_images.py calplot PNG CAL.json   the wavelength-calibration plot
                                           against its calibration file
   decode_images.py axes OUTPUT_DIR        volume.h5's dimension scales (h5py)
+  decode_images.py scaled OUTPUT_DIR      bscan-NNNN-scaled.png: physical
+                                          aspect, pHYs, scale bar, interface
+                                          depth against volume.h5
   decode_images.py ome OUTPUT_DIR         volume.ome.tif (tifffile) against
                                           volume.h5: data and physical sizes
 
@@ -127,7 +130,8 @@ def check_bscans(outdir):
             vol = vol * ds.attrs["scale_factor"] + ds.attrs["add_offset"]
             packing_db = 0.5 * float(ds.attrs["scale_factor"])
         en_face = v["en_face_db"][...] if "en_face_db" in v else None
-    pngs = [o for o in log["outputs"] if o.endswith(".png") and o != "en-face.png"]
+    # The raw-pixel B-scans (the -scaled.png figures are checked by check_scaled).
+    pngs = [o for o in log["outputs"] if o.endswith(".png") and o != "en-face.png" and not o.endswith("-scaled.png")]
     if len(pngs) != vol.shape[0]:
         fail(f"{len(pngs)} B-scan PNGs for {vol.shape[0]} frames")
     for rec, name in zip(log["frames"], pngs):
@@ -365,6 +369,45 @@ def check_axes(outdir):
             print(f"ok /{n}: en face dims labelled")
 
 
+def check_scaled(outdir):
+    import glob
+    log = json.load(open(f"{outdir}/log.json"))
+    f = h5py.File(f"{outdir}/volume.h5", "r")
+    v = f["volume_db"][()].astype(np.float64)
+    dz = float(f["volume_db"].attrs["depth_spacing_um"])
+    dx = float(f["aline_um"][1] - f["aline_um"][0])
+    paths = sorted(glob.glob(f"{outdir}/bscan-*-scaled.png"))
+    if len(paths) != v.shape[0]:
+        fail(f"{len(paths)} scaled PNGs for {v.shape[0]} frames")
+    for k, p in enumerate(paths):
+        im = decode(p)
+        t = im.text
+        px = float(t["pixel_um"] if "pixel_um" in t else t["depth_spacing_um"])
+        w, h = (int(n) for n in t["bscan_size_px"].split("x"))
+        # Physical aspect: the B-scan part spans the volume's width and depth.
+        if abs(w * px - v.shape[2] * dx) > px or abs(h * px - v.shape[1] * dz) > px:
+            fail(f"{p}: {w}x{h} px of {px} um is not {v.shape[2]} x {dx} um by {v.shape[1]} x {dz} um")
+        # pHYs: pixels per metre, the same across and down (Pillow gives dpi).
+        dpi = im.info.get("dpi")
+        if dpi is None or abs(dpi[0] / 0.0254 - 1e6 / px) > 1 or abs(dpi[1] / 0.0254 - 1e6 / px) > 1:
+            fail(f"{p}: pHYs {dpi} dpi, expected {1e6 / px:.1f} px/m")
+        a = np.asarray(im.convert("RGB")).astype(int)
+        # The scale bar: white pixels along its row for its length in pixels.
+        bx, by, n = (int(s) for s in t["scale_bar_px"].split(","))
+        run = np.sum(np.all(a[by, bx:bx + n + 1] == 255, axis=1))
+        if abs(run - n) > 1 or abs(n * px - float(t["scale_bar_um"])) > 0.02 * float(t["scale_bar_um"]):
+            fail(f"{p}: scale bar {run} white px of {n}, {n * px:.1f} um for a label of {t['scale_bar_um']} um")
+        # The brightest row of the B-scan part lies where the volume's
+        # brightest depth is, under the same levels.
+        r = log["frames"][k]
+        grey = expected_grey(v[k], r["black_db"], r["white_db"], 255)
+        z_volume = np.argmax(grey.mean(axis=1)) * dz
+        z_image = np.argmax(a[:h - 24, :w, 0].mean(axis=1)) * px
+        if abs(z_volume - z_image) > 3 * max(dz, px):
+            fail(f"{p}: brightest depth {z_image:.1f} um in the image, {z_volume:.1f} um in the volume")
+        print(f"ok {p}: {w}x{h} px of {px:.3f} um, scale bar {t['scale_bar_um']} um, brightest depth {z_image:.1f} um (volume {z_volume:.1f})")
+
+
 def check_ome(outdir):
     import xml.etree.ElementTree as ET
     import tifffile
@@ -413,6 +456,8 @@ if __name__ == "__main__":
         check_doppler(sys.argv[2])
     elif kind == "axes":
         check_axes(sys.argv[2])
+    elif kind == "scaled":
+        check_scaled(sys.argv[2])
     elif kind == "ome":
         check_ome(sys.argv[2])
     elif kind == "plot":

@@ -40,15 +40,18 @@ fn bscans_and_en_face_decode_to_the_volume_at_8_and_16_bits() {
     let (capture, _) = simulate_scene(dir.path(), "layers", SCENE);
     // The 8-bit run states the lateral step (so its PNGs carry pHYs and
     // volume.h5 a lateral scale); the others leave it unknown.
-    for (bits, volume_type, input) in [(8, "float32", "[input]\naline_spacing_um = 3.5\n"), (16, "float32", ""), (16, "uint16", "")] {
+    for (bits, volume_type, input, scaled) in [(8, "float32", "[input]\naline_spacing_um = 3.5\n", true), (16, "float32", "", false), (16, "uint16", "", false)] {
         let out = dir.path().join(format!("out{bits}-{volume_type}"));
         let pipeline = format!(
-            "{input}[log_compression]\nbit_depth = {bits}\n[volume]\nen_face = true\n[output]\nvolume_type = \"{volume_type}\"\nome_tiff = true\n"
+            "{input}[log_compression]\nbit_depth = {bits}\n[volume]\nen_face = true\n[output]\nvolume_type = \"{volume_type}\"\nome_tiff = true\nscaled_png = {scaled}\n"
         );
         run_ok(dir.path(), &[&capture], &pipeline, &out);
         decode(&["bscans".as_ref(), out.join("layers").as_os_str()]);
         decode(&["axes".as_ref(), out.join("layers").as_os_str()]);
         decode(&["ome".as_ref(), out.join("layers").as_os_str()]);
+        if scaled {
+            decode(&["scaled".as_ref(), out.join("layers").as_os_str()]);
+        }
     }
 }
 

@@ -315,6 +315,11 @@ pub struct OutputConfig {
     /// pipeline when off.
     #[serde(skip_serializing_if = "is_false")]
     pub ome_tiff: bool,
+    /// Also write bscan-NNNN-scaled.png: each B-scan resampled to its
+    /// physical aspect with a scale bar and a dB colour bar (needs the
+    /// lateral step). Left out of the serialised pipeline when off.
+    #[serde(skip_serializing_if = "is_false")]
+    pub scaled_png: bool,
 }
 
 fn is_false(b: &bool) -> bool {
@@ -331,7 +336,7 @@ fn is_zero(n: &usize) -> bool {
 
 impl Default for OutputConfig {
     fn default() -> Self {
-        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false, report: true, report_frame_step: 0, ome_tiff: false }
+        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false, report: true, report_frame_step: 0, ome_tiff: false, scaled_png: false }
     }
 }
 

@@ -2,6 +2,7 @@
 //! as RGB bytes for `io::png` to write. No file I/O here.
 
 pub mod colour;
+pub mod geometry;
 
 use anyhow::{anyhow, Result};
 use ndarray::ArrayView2;

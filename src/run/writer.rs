@@ -155,6 +155,29 @@ impl<'a> Writer<'a> {
             }
             self.written.outputs.push(name);
         }
+        if cfg.output.scaled_png {
+            let Some((across, down)) = self.bscan_pixel_um else {
+                anyhow::bail!("[output] scaled_png needs the lateral step: set [input] aline_spacing_um, or record aline_spacing_um in the capture");
+            };
+            let mut grey = vec![0u8; values.len()];
+            grey_levels_u8(values, from, to, &mut grey);
+            let s = crate::render::geometry::physical_aspect(&grey, depth, alines, down, across, black, white)?;
+            let name = bscan_png_name(position, self.positions).replace(".png", "-scaled.png");
+            let mut info = self
+                .png_base
+                .clone()
+                .with("Description", format!("B-scan {position} at its physical aspect ({:.4} µm per pixel across and down), scale bar and dB colour bar burnt in; for figures, not analysis", s.pixel_um))
+                .with("black_db", format!("{black:.3}"))
+                .with("white_db", format!("{white:.3}"))
+                .with("depth_spacing_um", format!("{}", s.pixel_um))
+                .with("aline_spacing_um", format!("{}", s.pixel_um))
+                .with("scale_bar_um", format!("{}", s.scale_bar_um))
+                .with("scale_bar_px", format!("{},{},{}", s.scale_bar_px[0], s.scale_bar_px[1], s.scale_bar_px[2]))
+                .with("bscan_size_px", format!("{}x{}", s.bscan_width, s.bscan_height));
+            info.pixel_um = Some((s.pixel_um, s.pixel_um));
+            png::write_rgb8(&self.staging.path(&name), s.image.width, s.image.height, &s.image.bytes, &info)?;
+            self.written.outputs.push(name);
+        }
         if let Some(v) = &self.volume {
             v.write_frame(position, image)?;
         }
