@@ -83,10 +83,8 @@ def main(outdir, shots):
     urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[a-z]{2,}", html)
     if urls:
         fail(f"report.html names external URLs: {sorted(set(urls))[:5]}")
+    v = read_volume(outdir)
     vol = h5py.File(outdir / "volume.h5", "r")
-    v = vol["volume_db"][()].astype(np.float64)
-    if "scale_factor" in vol["volume_db"].attrs:
-        v = v * vol["volume_db"].attrs["scale_factor"] + vol["volume_db"].attrs["add_offset"]
     depth_um = vol["depth_um"][()]
     spacing = float(vol["volume_db"].attrs["depth_spacing_um"])
     log = json.load(open(outdir / "log.json"))

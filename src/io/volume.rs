@@ -236,63 +236,68 @@ pub struct DbFrames {
     pub position_spacing_um: Option<f64>,
 }
 
-/// Frame `index` of `/volume_db` in dB (uint16 volumes unpacked).
-pub fn read_db_frame(path: &Path, index: usize) -> Result<Array2<f32>> {
-    let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;
-    let ds = file.dataset("volume_db").map_err(concise).with_context(|| format!("{}: /volume_db", path.display()))?;
-    if ds.dtype().map_err(concise)?.is::<u16>() {
-        let scale = ds.attr("scale_factor").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_STEP);
-        let offset = ds.attr("add_offset").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_OFFSET);
-        let raw: Array2<u16> = ds.read_slice(ndarray::s![index, .., ..]).map_err(concise)?;
-        Ok(raw.mapv(|v| (v as f64 * scale + offset) as f32))
-    } else {
-        Ok(ds.read_slice(ndarray::s![index, .., ..]).map_err(concise)?)
-    }
+/// An open volume.h5 for reading `/volume_db` frame by frame in dB
+/// (uint16 volumes unpacked with their CF `scale_factor`/`add_offset`).
+pub struct DbReader {
+    file: hdf5::File,
+    ds: Dataset,
+    /// (scale, offset) of a packed uint16 volume.
+    packed: Option<(f64, f64)>,
+    /// (frames, depth, A-lines).
+    pub shape: [usize; 3],
 }
 
-/// (frames, depth, A-lines) of `/volume_db`.
-pub fn db_volume_shape(path: &Path) -> Result<[usize; 3]> {
-    let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;
-    let shape = file.dataset("volume_db").map_err(concise).with_context(|| format!("{}: /volume_db", path.display()))?.shape();
-    match shape.as_slice() {
-        &[f, d, a] => Ok([f, d, a]),
-        _ => anyhow::bail!("{}: /volume_db has {} dimensions, expected 3 (frame, depth, A-line)", path.display(), shape.len()),
-    }
-}
-
-/// Reads the frames `every`-th apart (0, every, 2·every, …) of
-/// `/volume_db`, unpacking uint16 volumes (CF `scale_factor`/`add_offset`).
-pub fn read_db_frames(path: &Path, every: usize) -> Result<DbFrames> {
-    let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;
-    let ds = file.dataset("volume_db").map_err(concise).with_context(|| format!("{}: /volume_db", path.display()))?;
-    let shape = ds.shape();
-    if shape.len() != 3 {
-        anyhow::bail!("{}: /volume_db has {} dimensions, expected 3 (frame, depth, A-line)", path.display(), shape.len());
-    }
-    let packed = ds.dtype().map_err(concise)?.is::<u16>();
-    let (scale, offset) = if packed {
-        (ds.attr("scale_factor").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_STEP), ds.attr("add_offset").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_OFFSET))
-    } else {
-        (1.0, 0.0)
-    };
-    let indices: Vec<usize> = (0..shape[0]).step_by(every.max(1)).collect();
-    let mut images = Vec::with_capacity(indices.len());
-    for &f in &indices {
-        let image: Array2<f32> = if packed {
-            let raw: Array2<u16> = ds.read_slice(ndarray::s![f, .., ..]).map_err(concise)?;
-            raw.mapv(|v| (v as f64 * scale + offset) as f32)
-        } else {
-            ds.read_slice(ndarray::s![f, .., ..]).map_err(concise)?
+impl DbReader {
+    pub fn open(path: &Path) -> Result<DbReader> {
+        let file = hdf5::File::open(path).map_err(concise).with_context(|| format!("opening {}", path.display()))?;
+        let ds = file.dataset("volume_db").map_err(concise).with_context(|| format!("{}: /volume_db", path.display()))?;
+        let shape = match ds.shape().as_slice() {
+            &[f, d, a] => [f, d, a],
+            other => anyhow::bail!("{}: /volume_db has {} dimensions, expected 3 (frame, depth, A-line)", path.display(), other.len()),
         };
-        images.push(image);
+        let packed = ds.dtype().map_err(concise)?.is::<u16>().then(|| {
+            (ds.attr("scale_factor").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_STEP), ds.attr("add_offset").and_then(|a| a.read_scalar::<f64>()).unwrap_or(PACKED_DB_OFFSET))
+        });
+        Ok(DbReader { file, ds, packed, shape })
     }
-    let depth_um: Vec<f64> = file.dataset("depth_um").and_then(|d| d.read_raw::<f64>()).map_err(concise).context("/depth_um")?;
-    let depth_spacing_um = ds.attr("depth_spacing_um").and_then(|a| a.read_scalar::<f64>()).map_err(concise).context("depth_spacing_um")?;
-    let step = |name: &str| -> Option<f64> {
-        let v = file.dataset(name).ok()?.read_raw::<f64>().ok()?;
-        (v.len() >= 2).then(|| v[1] - v[0])
-    };
-    Ok(DbFrames { frames: shape[0], indices, images, depth_um, depth_spacing_um, aline_spacing_um: step("aline_um"), position_spacing_um: step("position_um") })
+
+    /// Frame `index` in dB.
+    pub fn frame(&self, index: usize) -> Result<Array2<f32>> {
+        Ok(match self.packed {
+            Some((scale, offset)) => {
+                let raw: Array2<u16> = self.ds.read_slice(ndarray::s![index, .., ..]).map_err(concise)?;
+                raw.mapv(|v| (v as f64 * scale + offset) as f32)
+            }
+            None => self.ds.read_slice(ndarray::s![index, .., ..]).map_err(concise)?,
+        })
+    }
+
+    /// The frames `every`-th apart (0, every, 2·every, …) with the axes.
+    pub fn frames(&self, every: usize) -> Result<DbFrames> {
+        let indices: Vec<usize> = (0..self.shape[0]).step_by(every.max(1)).collect();
+        let images = indices.iter().map(|&f| self.frame(f)).collect::<Result<Vec<_>>>()?;
+        let VolumeAxes { depth_um, depth_spacing_um, aline_spacing_um, position_spacing_um } = self.axes()?;
+        Ok(DbFrames { frames: self.shape[0], indices, images, depth_um, depth_spacing_um, aline_spacing_um, position_spacing_um })
+    }
+
+    /// Depth axis (µm), depth spacing, and the lateral and slow-axis steps when known.
+    pub fn axes(&self) -> Result<VolumeAxes> {
+        let depth_um: Vec<f64> = self.file.dataset("depth_um").and_then(|d| d.read_raw::<f64>()).map_err(concise).context("/depth_um")?;
+        let spacing = self.ds.attr("depth_spacing_um").and_then(|a| a.read_scalar::<f64>()).map_err(concise).context("depth_spacing_um")?;
+        let step = |name: &str| -> Option<f64> {
+            let v = self.file.dataset(name).ok()?.read_raw::<f64>().ok()?;
+            (v.len() >= 2).then(|| v[1] - v[0])
+        };
+        Ok(VolumeAxes { depth_um, depth_spacing_um: spacing, aline_spacing_um: step("aline_um"), position_spacing_um: step("position_um") })
+    }
+}
+
+/// The axes of a volume.h5.
+pub struct VolumeAxes {
+    pub depth_um: Vec<f64>,
+    pub depth_spacing_um: f64,
+    pub aline_spacing_um: Option<f64>,
+    pub position_spacing_um: Option<f64>,
 }
 
 #[cfg(test)]

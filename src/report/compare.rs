@@ -71,8 +71,8 @@ pub fn write_comparison(a: &Path, b: &Path, out: &Path) -> Result<()> {
     if la["input_hash"] != lb["input_hash"] {
         bail!("{} and {} come from different captures (input hashes differ): compare outputs of one capture", a.display(), b.display());
     }
-    let va = crate::io::volume::read_db_frames(&a.join("volume.h5"), 1)?;
-    let vb = crate::io::volume::read_db_frames(&b.join("volume.h5"), 1)?;
+    let va = crate::io::volume::DbReader::open(&a.join("volume.h5"))?.frames(1)?;
+    let vb = crate::io::volume::DbReader::open(&b.join("volume.h5"))?.frames(1)?;
     let dims = |v: &crate::io::volume::DbFrames| (v.images.len(), v.images[0].nrows(), v.images[0].ncols());
     if dims(&va) != dims(&vb) || (va.depth_um[0] - vb.depth_um[0]).abs() > 1e-9 || (va.depth_spacing_um - vb.depth_spacing_um).abs() > 1e-12 * va.depth_spacing_um {
         bail!(

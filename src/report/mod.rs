@@ -52,9 +52,10 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
     if !volume_path.exists() {
         anyhow::bail!("{}: no volume.h5 (the report is drawn from it; turn [output] volume on)", dir.display());
     }
-    let [frames_total, depth, alines] = crate::io::volume::db_volume_shape(&volume_path)?;
+    let reader = crate::io::volume::DbReader::open(&volume_path)?;
+    let [frames_total, depth, alines] = reader.shape;
     let step = if frame_step > 0 { frame_step } else { (frames_total * depth * alines).div_ceil(AUTO_PIXEL_BUDGET).max(1) };
-    let v = crate::io::volume::read_db_frames(&volume_path, step)?;
+    let v = reader.frames(step)?;
 
     // The embedded range: from the lowest logged noise floor (values below
     // it show as it) up, in steps of STEP_DB.

@@ -541,17 +541,12 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
 
 /// volume.ome.tif from the staged volume.h5, one frame at a time.
 fn write_ome_tiff(staging: &Staging, opened: &Opened) -> Result<()> {
-    let h5 = staging.path("volume.h5");
-    let [frames, depth, alines] = crate::io::volume::db_volume_shape(&h5)?;
-    let axes = crate::io::volume::read_db_frames(&h5, usize::MAX)?;
-    let scale = crate::io::ome_tiff::OmeScale {
-        name: opened.name.clone(),
-        depth_spacing_um: axes.depth_spacing_um,
-        aline_spacing_um: axes.aline_spacing_um,
-        frame_spacing_um: axes.position_spacing_um,
-    };
+    let h5 = crate::io::volume::DbReader::open(&staging.path("volume.h5"))?;
+    let [frames, depth, alines] = h5.shape;
+    let axes = h5.axes()?;
+    let scale = crate::io::ome_tiff::OmeScale { name: opened.name.clone(), depth_spacing_um: axes.depth_spacing_um, aline_spacing_um: axes.aline_spacing_um, frame_spacing_um: axes.position_spacing_um };
     let tmp = staging.path("volume.ome.tif");
-    crate::io::ome_tiff::write_ome_tiff(&tmp, frames, depth, alines, &scale, |f| crate::io::volume::read_db_frame(&h5, f)).context("writing volume.ome.tif")?;
+    crate::io::ome_tiff::write_ome_tiff(&tmp, frames, depth, alines, &scale, |f| h5.frame(f)).context("writing volume.ome.tif")?;
     Ok(())
 }
 
