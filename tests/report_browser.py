@@ -59,6 +59,26 @@ def browser():
     return webdriver.Chrome(service=Service("/usr/bin/chromedriver"), options=o)
 
 
+def open_page(d, page, what):
+    """Loads a page from file:// and waits for its script to say it is ready."""
+    d.get(page.resolve().as_uri())
+    WebDriverWait(d, 30).until(lambda x: x.execute_script("return document.body.dataset.ready") in ("1", "error"))
+    if d.execute_script("return document.body.dataset.ready") != "1":
+        fail(f"{what} did not start: " + d.find_element(By.TAG_NAME, "body").text[:300])
+
+
+def no_console_errors(d):
+    errors = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
+    if errors:
+        fail(f"browser console errors: {errors[:3]}")
+
+
+def no_external_urls(html, name):
+    urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[a-z]{2,}", html)
+    if urls:
+        fail(f"{name} names external URLs: {sorted(set(urls))[:5]}")
+
+
 def canvas_red(d, cid):
     js = """const c = document.getElementById(arguments[0]);
     const p = c.getContext('2d').getImageData(0, 0, c.width, c.height).data;
@@ -80,9 +100,7 @@ def main(outdir, shots):
     outdir, shots = pathlib.Path(outdir), pathlib.Path(shots)
     page = outdir / "report.html"
     html = page.read_text()
-    urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[a-z]{2,}", html)
-    if urls:
-        fail(f"report.html names external URLs: {sorted(set(urls))[:5]}")
+    no_external_urls(html, "report.html")
     v = read_volume(outdir)
     vol = h5py.File(outdir / "volume.h5", "r")
     depth_um = vol["depth_um"][()]
@@ -91,10 +109,7 @@ def main(outdir, shots):
 
     d = browser()
     try:
-        d.get(page.resolve().as_uri())
-        WebDriverWait(d, 30).until(lambda x: x.execute_script("return document.body.dataset.ready") in ("1", "error"))
-        if d.execute_script("return document.body.dataset.ready") != "1":
-            fail("the viewer did not start: " + d.find_element(By.TAG_NAME, "body").text[:300])
+        open_page(d, page, "the viewer")
         shown = d.execute_script("return window.fringeflowReport.data.frames_shown")
         black = float(d.find_element(By.ID, "black").get_attribute("value"))
         rng = float(d.find_element(By.ID, "range").get_attribute("value"))
@@ -165,9 +180,7 @@ def main(outdir, shots):
         print(f"ok profile: A-line {a} peaks at {peak_um:.2f} um (volume {depth_um[z]:.2f} um)")
         d.save_screenshot(str(shots / "report-profile.png"))
 
-        errors = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
-        if errors:
-            fail(f"browser console errors: {errors[:3]}")
+        no_console_errors(d)
         print("ok console: no errors")
     finally:
         d.quit()
@@ -177,14 +190,11 @@ def check_index(batch, shots):
     batch, shots = pathlib.Path(batch), pathlib.Path(shots)
     page = batch / "index.html"
     html = page.read_text()
-    urls = re.findall(r"(?:https?:)?//[A-Za-z0-9.-]+\.[a-z]{2,}", html)
-    if urls:
-        fail(f"index.html names external URLs: {sorted(set(urls))[:5]}")
+    no_external_urls(html, "index.html")
     summary = json.load(open(batch / "batch.json"))
     d = browser()
     try:
-        d.get(page.resolve().as_uri())
-        WebDriverWait(d, 30).until(lambda x: x.execute_script("return document.body.dataset.ready") == "1")
+        open_page(d, page, "the batch page")
         rows = d.find_elements(By.CSS_SELECTOR, "#captures tbody tr")
         if len(rows) != len(summary["captures"]):
             fail(f"index lists {len(rows)} captures, batch.json {len(summary['captures'])}")
@@ -219,9 +229,7 @@ def check_index(batch, shots):
         slowest = max(summary["captures"], key=lambda c: c["seconds"])["input"]
         if first != slowest:
             fail(f"sorted by seconds (descending) the first row is {first}, the slowest is {slowest}")
-        errors = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
-        if errors:
-            fail(f"browser console errors: {errors[:3]}")
+        no_console_errors(d)
         print(f"ok index: {len(rows)} captures, {failed} failed with reasons, filter and sort work, no console errors")
     finally:
         d.quit()
@@ -240,10 +248,7 @@ def check_compare(page, da, db, shots):
     va, vb = read_volume(da), read_volume(db)
     d = browser()
     try:
-        d.get(page.resolve().as_uri())
-        WebDriverWait(d, 30).until(lambda x: x.execute_script("return document.body.dataset.ready") in ("1", "error"))
-        if d.execute_script("return document.body.dataset.ready") != "1":
-            fail("the comparison did not start: " + d.find_element(By.TAG_NAME, "body").text[:300])
+        open_page(d, page, "the comparison")
         black = float(d.find_element(By.ID, "black").get_attribute("value"))
         rng = float(d.find_element(By.ID, "range").get_attribute("value"))
         for cid, v in (("canvas-a", va), ("canvas-b", vb)):
@@ -275,9 +280,7 @@ def check_compare(page, da, db, shots):
         if diff > 2:
             fail(f"difference image off by {diff} levels")
         d.save_screenshot(str(shots / "compare.png"))
-        errors = [e for e in d.get_log("browser") if e["level"] == "SEVERE"]
-        if errors:
-            fail(f"browser console errors: {errors[:3]}")
+        no_console_errors(d)
         print(f"ok compare: both sides within 1 grey level, blink A then B, difference within {diff} levels, no console errors")
     finally:
         d.quit()
