@@ -127,7 +127,7 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 let fwhm = r.fwhm_um.map(|v| format!("{v:.2}")).unwrap_or_else(|| "-".into());
                 outln!("{:>10.2} {:>10.2} {:>10.4} {:>9} {:>9.1}{}", r.a2_rad, r.a3_rad, r.entropy, fwhm, r.peak_db, if i == report.best { "  ← best" } else { "" });
             }
-            outln!("wrote contact-sheet.png, sweep.csv, sweep.json, metric.png in {}", out.display());
+            outln!("wrote contact-sheet.png, sweep.csv, sweep.json, metric.png, sweep.html in {}", out.display());
             ExitCode::SUCCESS
         }
     }

@@ -152,3 +152,46 @@ fn comparison_page_of_two_settings() {
     assert!(String::from_utf8_lossy(&o.stderr).contains("different captures"), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(!dir.path().join("x.html").exists());
 }
+
+/// A dispersion sweep's page: one side per setting, the best as A at
+/// first; two settings picked in the page match `run` outputs made at
+/// those settings (each side within 1 grey level of that volume.h5, blink,
+/// difference).
+#[test]
+fn sweep_page_matches_runs_at_its_settings() {
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "layers", &SCENE.replace("frames = 3", "frames = 1"));
+    let sweep = dir.path().join("sweep");
+    let o = Command::new(bin())
+        .args(["dispersion", "sweep"])
+        .arg(&capture)
+        .args(["--a2", "-40:40:20", "--out"])
+        .arg(&sweep)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let report: serde_json::Value = serde_json::from_slice(&std::fs::read(sweep.join("sweep.json")).unwrap()).unwrap();
+    let rows = report["rows"].as_array().unwrap();
+    let side = |a2: f64| rows.iter().position(|r| r["a2_rad"].as_f64() == Some(a2)).unwrap();
+    let html = std::fs::read_to_string(sweep.join("sweep.html")).unwrap();
+    assert!(html.contains(&format!("\"pick\":[{},", report["best"])), "the best setting is shown as A at first");
+    assert_eq!(html.matches("<tr data-side=").count(), rows.len(), "one table row per setting");
+    let (a, b) = (dir.path().join("a2-40"), dir.path().join("a2-0"));
+    run_ok(dir.path(), &[&capture], "[dispersion]\nmethod = \"fixed\"\na2 = 40.0\n", &a);
+    run_ok(dir.path(), &[&capture], "[dispersion]\nmethod = \"fixed\"\na2 = 0.0\n", &b);
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/report_browser.py");
+    let o = Command::new("python3")
+        .arg(&script)
+        .arg("compare")
+        .arg(sweep.join("sweep.html"))
+        .arg(a.join("layers"))
+        .arg(b.join("layers"))
+        .arg(dir.path())
+        .arg(side(40.0).to_string())
+        .arg(side(0.0).to_string())
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.success() && text.contains("ok compare"), "{text}");
+}

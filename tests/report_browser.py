@@ -5,13 +5,16 @@ volume.h5 read with h5py.
 
 Usage: report_browser.py OUTPUT_DIR SCREENSHOT_DIR
        report_browser.py index BATCH_DIR SCREENSHOT_DIR
-       report_browser.py compare PAGE DIR_A DIR_B SCREENSHOT_DIR
+       report_browser.py compare PAGE DIR_A DIR_B SCREENSHOT_DIR [SIDE_A SIDE_B]
 
 The compare mode checks a comparison page: both sides against their
 volume.h5 under the shared window/level (within 1 grey level), the blink
 key showing the other side, and the difference image against
 A - B over the difference range (green channel 255 * (1 - |t|), within 2
-levels: each side is embedded in 0.1 dB steps).
+levels: each side is embedded in 0.1 dB steps). With SIDE_A SIDE_B (a
+dispersion sweep's page, one side per setting) it first picks those sides
+in the page's A and B menus; DIR_A and DIR_B are then `run` outputs at
+those two settings.
 
 The index mode checks a batch's index.html against its batch.json: one row
 per capture with its status, each failure with its reason, the links to
@@ -243,12 +246,18 @@ def read_volume(d):
     return v
 
 
-def check_compare(page, da, db, shots):
+def check_compare(page, da, db, shots, picks=None):
     page, shots = pathlib.Path(page), pathlib.Path(shots)
     va, vb = read_volume(da), read_volume(db)
     d = browser()
     try:
         open_page(d, page, "the comparison")
+        if picks is not None:
+            for sid, side in zip(("pick-a", "pick-b"), picks):
+                Select(d.find_element(By.ID, sid)).select_by_value(str(side))
+            got = d.execute_script("return window.fringeflowCompare.st.pick")
+            if got != list(picks):
+                fail(f"picked sides {got}, asked for {list(picks)}")
         black = float(d.find_element(By.ID, "black").get_attribute("value"))
         rng = float(d.find_element(By.ID, "range").get_attribute("value"))
         for cid, v in (("canvas-a", va), ("canvas-b", vb)):
@@ -279,7 +288,7 @@ def check_compare(page, da, db, shots):
         diff = np.abs(g - np.round(255 * (1 - np.abs(t)))).max()
         if diff > 2:
             fail(f"difference image off by {diff} levels")
-        d.save_screenshot(str(shots / "compare.png"))
+        d.save_screenshot(str(shots / ("compare.png" if picks is None else "sweep.png")))
         no_console_errors(d)
         print(f"ok compare: both sides within 1 grey level, blink A then B, difference within {diff} levels, no console errors")
     finally:
@@ -288,7 +297,8 @@ def check_compare(page, da, db, shots):
 
 if __name__ == "__main__":
     if sys.argv[1] == "compare":
-        check_compare(sys.argv[2], sys.argv[3], sys.argv[4], sys.argv[5])
+        picks = [int(v) for v in sys.argv[6:8]] if len(sys.argv) >= 8 else None
+        check_compare(sys.argv[2], sys.argv[3], sys.argv[4], sys.argv[5], picks)
     elif sys.argv[1] == "index":
         check_index(sys.argv[2], sys.argv[3])
     else:

@@ -1,6 +1,8 @@
 //! Dispersion sweep: one frame reconstructed for every a2/a3 on a grid, with
 //! a contact sheet of thumbnails, a table of metrics (CSV and JSON) and a
-//! plot of the sharpness metric against the coefficient.
+//! plot of the sharpness metric against the coefficient, and sweep.html:
+//! the frame at every setting on a comparison page (any two side by side or
+//! blinking under one window/level, and their difference).
 //!
 //! The metric is the same entropy, on the same bright A-lines, that
 //! `dispersion = "auto"` minimises, so the sweep's best row and the automatic
@@ -119,8 +121,12 @@ pub struct SweepReport {
     pub rows: Vec<SweepRow>,
 }
 
-/// Runs the sweep and writes `contact-sheet.png`, `sweep.csv`, `sweep.json`
-/// and `metric.png` into `out`.
+/// Most pixels sweep.html embeds (all settings together); beyond it the
+/// page holds the tiles' crop of each setting instead of the whole frame.
+pub const PAGE_PIXEL_BUDGET: usize = 32 << 20;
+
+/// Runs the sweep and writes `contact-sheet.png`, `sweep.csv`, `sweep.json`,
+/// `metric.png` and `sweep.html` into `out`.
 pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f64], a3: &[f64], out: &Path) -> Result<SweepReport> {
     let settings: Vec<(f64, f64)> = a3.iter().flat_map(|&b| a2.iter().map(move |&a| (a, b))).collect();
     if settings.len() > MAX_SETTINGS {
@@ -157,16 +163,19 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
     let uncorrected = frame_set.amplitudes(0.0, 0.0);
     let crop = tile_crop(&uncorrected, &lines, &plan);
     let lc = &config.log_compression;
+    let uncorrected_db: Vec<f32> = uncorrected.iter().map(|a| (20.0 * a.max(1e-12).log10()) as f32).collect();
+    let floor_db = crate::stages::log_compression::noise_floor_db(&uncorrected_db);
     let (black, white) = match lc.mapping {
         GreyMapping::Fixed => (lc.black_db, lc.white_db),
-        GreyMapping::Auto => {
-            let db: Vec<f32> = uncorrected.iter().map(|a| (20.0 * a.max(1e-12).log10()) as f32).collect();
-            let floor = crate::stages::log_compression::noise_floor_db(&db);
-            crate::stages::log_compression::auto_levels(&db, floor, lc.floor_offset_db, lc.dynamic_range_db, lc.white_percentile)
-        }
+        GreyMapping::Auto => crate::stages::log_compression::auto_levels(&uncorrected_db, floor_db, lc.floor_offset_db, lc.dynamic_range_db, lc.white_percentile),
     };
+    // What sweep.html embeds of each setting: the whole frame, or the
+    // tiles' crop when all frames together would exceed the budget.
+    let (alines_n, depth_n) = uncorrected.dim();
+    let whole = settings.len() * alines_n * depth_n <= PAGE_PIXEL_BUDGET;
+    let page_part = if whole { (0, alines_n, 0, depth_n) } else { (crop.first_aline, crop.alines, crop.first_depth_pixel, crop.depth_pixels) };
 
-    let results: Vec<(SweepRow, GrayImage)> = settings
+    let results: Vec<(SweepRow, GrayImage, Array2<f32>)> = settings
         .par_iter()
         .map(|&(a2, a3)| {
             let amp = frame_set.amplitudes(a2, a3);
@@ -195,10 +204,19 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
                 fused_silica_mm: eq.fused_silica_mm,
                 tile: [0; 4],
             };
-            (row, thumbnail(&amp, &crop, black, white))
+            let (a0, na, d0, nd) = page_part;
+            let page_db = amp.slice(ndarray::s![a0..a0 + na, d0..d0 + nd]).t().mapv(|a| (20.0 * a.max(1e-12).log10()) as f32);
+            (row, thumbnail(&amp, &crop, black, white), page_db)
         })
         .collect();
-    let (mut rows, thumbs): (Vec<SweepRow>, Vec<GrayImage>) = results.into_iter().unzip();
+    let mut rows = Vec::with_capacity(results.len());
+    let mut thumbs = Vec::with_capacity(results.len());
+    let mut page_images = Vec::with_capacity(results.len());
+    for (r, t, p) in results {
+        rows.push(r);
+        thumbs.push(t);
+        page_images.push(p);
+    }
     let best = rows.iter().enumerate().min_by(|a, b| a.1.entropy.total_cmp(&b.1.entropy)).map(|(i, _)| i).unwrap_or(0);
 
     std::fs::create_dir_all(out).with_context(|| format!("creating {}", out.display()))?;
@@ -247,7 +265,69 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
         Ok(())
     })?;
     metric_plot(&out.join("metric.png"), &report, a2.len() > 1, physics::dispersion_equivalent(1.0, k_min, k_max))?;
+    let page = sweep_page(&report, page_images, &plan, (!whole).then_some(page_part), config.input.aline_spacing_um.or(capture.scan.aline_spacing_um), floor_db, (black, white));
+    write_atomically(&out.join("sweep.html"), |tmp| {
+        std::fs::write(tmp, page.as_bytes())?;
+        Ok(())
+    })?;
     Ok(report)
+}
+
+/// sweep.html: every setting as one side of a comparison page, the best
+/// (lowest entropy) as A and the setting nearest no correction as B, with
+/// the sweep's table (click a row to show it as B, shift-click as A).
+fn sweep_page(report: &SweepReport, images: Vec<Array2<f32>>, plan: &Plan, part: Option<(usize, usize, usize, usize)>, aline_spacing_um: Option<f64>, floor_db: f64, (black, white): (f64, f64)) -> String {
+    use crate::report::{compare, escape};
+    let rows = &report.rows;
+    let name = |r: &SweepRow| format!("a2 {} rad, a3 {} rad", r.a2_rad, r.a3_rad);
+    let nearest_zero = (0..rows.len()).filter(|&i| i != report.best).min_by(|&a, &b| (rows[a].a2_rad.hypot(rows[a].a3_rad)).total_cmp(&rows[b].a2_rad.hypot(rows[b].a3_rad))).unwrap_or(report.best);
+    let sides: Vec<compare::Side> = rows
+        .iter()
+        .zip(images)
+        .map(|(r, image)| compare::Side { name: name(r), images: vec![image], figures: vec![serde_json::json!({ "entropy": r.entropy, "fwhm_um": r.fwhm_um })] })
+        .collect();
+    let table: String = rows
+        .iter()
+        .enumerate()
+        .map(|(i, r)| {
+            format!(
+                "<tr data-side=\"{i}\"{}><td>{}</td><td>{}</td><td>{:.6}</td><td>{}</td><td>{:.2}</td><td>{:.0}</td><td>{:.3}</td></tr>",
+                if i == report.best { " class=\"best\"" } else { "" },
+                r.a2_rad,
+                r.a3_rad,
+                r.entropy,
+                r.fwhm_um.map_or("—".into(), |w| format!("{w:.2}")),
+                r.peak_db,
+                r.gdd_fs2,
+                r.fused_silica_mm
+            )
+        })
+        .collect();
+    let (shown, d0) = match part {
+        None => ("the whole frame".to_string(), 0),
+        Some((a0, na, d0, nd)) => (format!("A-lines {a0}–{} and depth pixels {d0}–{} of each setting (the tiles' crop: all settings' whole frames would exceed {} M pixels)", a0 + na - 1, d0 + nd - 1, PAGE_PIXEL_BUDGET >> 20), d0),
+    };
+    let intro = format!(
+        "<p class=\"note\">Frame {} at {} settings; the page shows {}. Entropy and FWHM are the sweep's, on the {} brightest A-lines ({}); the best row (lowest entropy) is in bold. Click a row to show it as B, shift-click to show it as A.</p>\n<h2>Settings</h2>\n<table class=\"kv\"><tr><th>a2 (rad)</th><th>a3 (rad)</th><th>entropy (nats)</th><th>FWHM (µm)</th><th>peak (dB)</th><th>GDD (fs²)</th><th>fused silica (mm)</th></tr>{table}</table>",
+        report.frame,
+        rows.len(),
+        escape(&shown),
+        report.alines_used,
+        escape(report.metric)
+    );
+    compare::comparison_html(&compare::Comparison {
+        title: format!("fringeflow dispersion sweep: {}", report.capture.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_default()),
+        subtitle: format!("Capture {} (input {}), pipeline sha256:{}.", report.capture.display(), report.input_hash, report.pipeline_sha256),
+        intro_html: intro,
+        sides,
+        pick: [report.best, nearest_zero],
+        first_depth_um: plan.depth_um(d0),
+        depth_spacing_um: plan.summary.depth_spacing_um,
+        aline_spacing_um,
+        floor_db,
+        black_db: black,
+        white_db: white,
+    })
 }
 
 /// The crop every tile shows: centred on the brightest interface of the

@@ -1,5 +1,7 @@
-// fringeflow comparison page: two volumes of one capture, same frame, one
-// window/level; side by side or blinking; their difference. Ours, inline.
+// fringeflow comparison page: volumes of one capture (two outputs, or every
+// setting of a dispersion sweep); any two of them on the same frame under
+// one window/level, side by side or blinking, and their difference. Ours,
+// inline.
 "use strict";
 (async function () {
   const D = JSON.parse(document.getElementById("ff-data").textContent);
@@ -8,9 +10,10 @@
   const b64 = (s) => { const t = atob(s); const u = new Uint8Array(t.length); for (let i = 0; i < t.length; i++) u[i] = t.charCodeAt(i); return u; };
   const inflate = async (u) => new Uint8Array(await new Response(new Blob([u]).stream().pipeThrough(new DecompressionStream("deflate"))).arrayBuffer());
   const unpack = (b) => { const n = b.length / 2, q = new Uint16Array(n); for (let i = 0; i < n; i++) q[i] = (b[i] << 8) | b[n + i]; return q; };
-  const vols = [await Promise.all(D.a.map(async (s) => unpack(await inflate(b64(s))))), await Promise.all(D.b.map(async (s) => unpack(await inflate(b64(s)))))];
+  const vols = await Promise.all(D.sides.map((side) => Promise.all(side.frames.map(async (s) => unpack(await inflate(b64(s)))))));
   const dbOf = (q) => D.base_db + q * D.step_db;
-  const st = { frame: 0, black: D.black, range: D.range, diff: 20, mode: "side", shown: 0 };
+  const st = { frame: 0, black: D.black, range: D.range, diff: 20, mode: "side", shown: 0, pick: D.pick.slice() };
+  const label = (k) => `${k === 0 ? "A" : "B"}: ${D.sides[st.pick[k]].name}`;
   let cssW, cssH;
   if (D.aline_spacing_um) { const wu = W * D.aline_spacing_um, hu = H * D.depth_spacing_um, s = Math.min(460 / wu, 520 / hu); cssW = wu * s; cssH = hu * s; }
   else { cssW = Math.min(460, Math.max(300, W)); cssH = Math.min(520, Math.max(300, H)); }
@@ -22,7 +25,7 @@
     c.putImageData(img, 0, 0);
   }
   function difference() {
-    const a = vols[0][st.frame], b = vols[1][st.frame];
+    const a = vols[st.pick[0]][st.frame], b = vols[st.pick[1]][st.frame];
     const c = $("canvas-diff").getContext("2d"), img = c.createImageData(W, H), p = img.data;
     for (let i = 0; i < W * H; i++) {
       const t = Math.max(-1, Math.min(1, (a[i] - b[i]) * D.step_db / st.diff));
@@ -31,18 +34,21 @@
     }
     c.putImageData(img, 0, 0);
   }
-  const fig = (k) => { const f = D.figures[k][st.frame]; return `entropy ${f.entropy.toFixed(4)} nats (lower is sharper); FWHM of the brightest interface ${f.fwhm_um === null ? "—" : f.fwhm_um.toFixed(2) + " µm"}`; };
+  const fig = (k) => { const f = D.sides[st.pick[k]].figures[st.frame]; return `entropy ${f.entropy.toFixed(4)} nats (lower is sharper); FWHM of the brightest interface ${f.fwhm_um === null ? "—" : f.fwhm_um.toFixed(2) + " µm"}`; };
   function draw() {
     $("frame-out").textContent = `${st.frame} of ${N - 1}`;
     $("black-out").textContent = st.black.toFixed(2); $("range-out").textContent = st.range.toFixed(2); $("diff-out").textContent = st.diff.toFixed(1);
-    $("name-a").textContent = D.names[0]; $("name-b").textContent = D.names[1];
-    grey("canvas-a", vols[0][st.frame]); grey("canvas-b", vols[1][st.frame]);
+    $("name-a").textContent = label(0); $("name-b").textContent = label(1);
+    grey("canvas-a", vols[st.pick[0]][st.frame]); grey("canvas-b", vols[st.pick[1]][st.frame]);
     $("fig-a").textContent = fig(0); $("fig-b").textContent = fig(1);
-    grey("canvas-blink", vols[st.shown][st.frame]);
+    grey("canvas-blink", vols[st.pick[st.shown]][st.frame]);
     $("canvas-blink").dataset.side = st.shown === 0 ? "A" : "B";
-    $("blink-name").textContent = D.names[st.shown]; $("blink-fig").textContent = fig(st.shown);
+    $("blink-name").textContent = label(st.shown); $("blink-fig").textContent = fig(st.shown);
     $("side").hidden = st.mode !== "side"; $("blink").hidden = st.mode !== "blink";
     difference();
+    for (const row of document.querySelectorAll("tr[data-side]")) {
+      row.classList.toggle("picked-a", +row.dataset.side === st.pick[0]); row.classList.toggle("picked-b", +row.dataset.side === st.pick[1]);
+    }
   }
   const fr = $("frame"), bl = $("black"), rg = $("range"), dr = $("diff-range");
   fr.max = N - 1; bl.min = D.base_db; bl.max = dbOf(D.max_q); rg.min = 1; rg.max = Math.max(60, Math.ceil(dbOf(D.max_q) - D.base_db));
@@ -53,6 +59,18 @@
   dr.addEventListener("input", () => { st.diff = +dr.value; draw(); });
   $("mode-side").addEventListener("click", () => { st.mode = "side"; draw(); });
   $("mode-blink").addEventListener("click", () => { st.mode = "blink"; draw(); });
+  for (const [k, id] of [[0, "pick-a"], [1, "pick-b"]]) {
+    const sel = $(id);
+    if (!sel) continue;
+    D.sides.forEach((side, i) => { const o = document.createElement("option"); o.value = i; o.textContent = side.name; sel.appendChild(o); });
+    sel.value = st.pick[k];
+    sel.addEventListener("change", () => { st.pick[k] = +sel.value; draw(); });
+  }
+  // A row of a settings table (tr data-side="i"): click shows it as B, shift-click as A.
+  for (const row of document.querySelectorAll("tr[data-side]")) {
+    row.style.cursor = "pointer";
+    row.addEventListener("click", (e) => { const k = e.shiftKey ? 0 : 1; st.pick[k] = +row.dataset.side; const sel = $(k === 0 ? "pick-a" : "pick-b"); if (sel) sel.value = st.pick[k]; draw(); });
+  }
   const toggle = () => { st.shown = 1 - st.shown; draw(); };
   $("toggle").addEventListener("click", toggle);
   document.addEventListener("keydown", (e) => {

@@ -1,12 +1,14 @@
-//! compare.html: two outputs of the same capture (two dispersion settings,
-//! linear against cubic resampling, …) on one page, from their log.json
-//! and volume.h5: side by side or blinking on the same frame under one
-//! window/level, their difference in dB on a diverging scale, the settings
-//! that differ, and each side's sharpness figures (entropy of the
-//! normalised intensity and the median FWHM of the brightest interface,
-//! per frame, as `dispersion sweep` measures them). Self-contained.
+//! Comparison pages: two outputs of the same capture (two dispersion
+//! settings, linear against cubic resampling, …) from their log.json and
+//! volume.h5 (`fringeflow compare`), and every setting of a dispersion
+//! sweep (sweep.html). Any two sides are shown side by side or blinking on
+//! the same frame under one window/level, with their difference in dB on a
+//! diverging scale and each side's sharpness figures (entropy of the
+//! normalised intensity and the median FWHM of the brightest interface).
+//! Self-contained, like report.html.
 
 use anyhow::{bail, Context, Result};
+use ndarray::Array2;
 use serde_json::{json, Value};
 use std::path::Path;
 
@@ -62,79 +64,82 @@ fn differences(a: &Value, b: &Value) -> Vec<(String, String, String)> {
     out
 }
 
-/// Writes the comparison page of output folders `a` and `b` to `out`.
-pub fn write_comparison(a: &Path, b: &Path, out: &Path) -> Result<()> {
-    let read_log = |d: &Path| -> Result<Value> {
-        serde_json::from_slice(&std::fs::read(d.join("log.json")).with_context(|| format!("reading {}", d.join("log.json").display()))?).with_context(|| format!("{}: not a fringeflow log", d.join("log.json").display()))
-    };
-    let (la, lb) = (read_log(a)?, read_log(b)?);
-    if la["input_hash"] != lb["input_hash"] {
-        bail!("{} and {} come from different captures (input hashes differ): compare outputs of one capture", a.display(), b.display());
-    }
-    let va = crate::io::volume::DbReader::open(&a.join("volume.h5"))?.frames(1)?;
-    let vb = crate::io::volume::DbReader::open(&b.join("volume.h5"))?.frames(1)?;
-    let dims = |v: &crate::io::volume::DbFrames| (v.images.len(), v.images[0].nrows(), v.images[0].ncols());
-    if dims(&va) != dims(&vb) || (va.depth_um[0] - vb.depth_um[0]).abs() > 1e-9 || (va.depth_spacing_um - vb.depth_spacing_um).abs() > 1e-12 * va.depth_spacing_um {
-        bail!(
-            "the two volumes differ in geometry ({:?} frames × depth × A-lines from {:.3} µm in {:.4} µm steps, against {:?} from {:.3} µm in {:.4} µm steps): compare outputs with the same zero padding and crop",
-            dims(&va), va.depth_um[0], va.depth_spacing_um, dims(&vb), vb.depth_um[0], vb.depth_spacing_um
-        );
-    }
-    let floor = |l: &Value| l["frames"].as_array().map(|f| f.iter().filter_map(|r| r["noise_floor_db"].as_f64()).fold(f64::INFINITY, f64::min)).unwrap_or(f64::NAN);
-    let lowest = floor(&la).min(floor(&lb));
-    let lowest = if lowest.is_finite() { lowest } else { -20.0 };
-    let base = (lowest / STEP_DB).floor() * STEP_DB;
-    let max = va.images.iter().chain(vb.images.iter()).flat_map(|i| i.iter()).filter(|d| d.is_finite()).fold(f64::NEG_INFINITY, |m, &d| m.max(d as f64));
+/// One side of a comparison: a name, its frames (depth × A-lines, dB) and
+/// per frame its figures (`{"entropy": nats, "fwhm_um": µm or null}`).
+pub struct Side {
+    pub name: String,
+    pub images: Vec<Array2<f32>>,
+    pub figures: Vec<Value>,
+}
+
+/// What a comparison page shows besides the sides.
+pub struct Comparison {
+    pub title: String,
+    /// One line under the title (HTML-escaped here).
+    pub subtitle: String,
+    /// Extra HTML before the viewer (a settings table), already escaped.
+    pub intro_html: String,
+    pub sides: Vec<Side>,
+    /// The sides shown at first as A and B.
+    pub pick: [usize; 2],
+    pub first_depth_um: f64,
+    pub depth_spacing_um: f64,
+    pub aline_spacing_um: Option<f64>,
+    /// Lowest dB worth embedding (the noise floor); the window's start.
+    pub floor_db: f64,
+    pub black_db: f64,
+    pub white_db: f64,
+}
+
+/// The page of a [`Comparison`].
+pub fn comparison_html(c: &Comparison) -> String {
+    let base = (c.floor_db / STEP_DB).floor() * STEP_DB;
+    let max = c.sides.iter().flat_map(|s| s.images.iter()).flat_map(|i| i.iter()).filter(|d| d.is_finite()).fold(f64::NEG_INFINITY, |m, &d| m.max(d as f64));
     let max_q = (((max - base) / STEP_DB).round().clamp(0.0, 65535.0)) as u16;
-    let figures = |v: &crate::io::volume::DbFrames| -> Vec<Value> {
-        v.images.iter().map(|i| sharpness(i, v.depth_spacing_um)).map(|(e, w)| json!({ "entropy": e, "fwhm_um": w })).collect()
-    };
-    let level = &la["frames"][0];
-    let (black, white) = (level["black_db"].as_f64().unwrap_or(base + 3.0), level["white_db"].as_f64().unwrap_or(base + 40.0));
-    let name = |d: &Path| d.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
-    let (na, nb) = (format!("A: {}", a.display()), format!("B: {}", b.display()));
+    let (depth, alines) = c.sides[0].images[0].dim();
+    let sides: Vec<Value> = c.sides.iter().map(|s| json!({ "name": s.name, "frames": embed_frames(&s.images, base), "figures": s.figures })).collect();
     let data = json!({
-        "depth": va.images[0].nrows(),
-        "alines": va.images[0].ncols(),
-        "frames": va.images.len(),
-        "first_depth_um": va.depth_um[0],
-        "depth_spacing_um": va.depth_spacing_um,
-        "aline_spacing_um": va.aline_spacing_um,
+        "depth": depth,
+        "alines": alines,
+        "frames": c.sides[0].images.len(),
+        "first_depth_um": c.first_depth_um,
+        "depth_spacing_um": c.depth_spacing_um,
+        "aline_spacing_um": c.aline_spacing_um,
         "base_db": base,
         "step_db": STEP_DB,
         "max_q": max_q,
-        "black": black,
-        "range": white - black,
-        "names": [na, nb],
-        "a": embed_frames(&va.images, base),
-        "b": embed_frames(&vb.images, base),
-        "figures": [figures(&va), figures(&vb)],
+        "black": c.black_db,
+        "range": c.white_db - c.black_db,
+        "pick": c.pick,
+        "sides": sides,
     });
-    let diffs = differences(&la, &lb);
-    let rows: String = if diffs.is_empty() {
-        "<tr><td colspan=\"3\">none: the two pipelines are the same</td></tr>".into()
+    let pickers = if c.sides.len() > 2 {
+        "<label for=\"pick-a\">A</label><select id=\"pick-a\"></select><span></span><label for=\"pick-b\">B</label><select id=\"pick-b\"></select><span></span>"
     } else {
-        diffs.iter().map(|(k, x, y)| format!("<tr><th>{}</th><td>{}</td><td>{}</td></tr>", escape(k), escape(x), escape(y))).collect()
+        ""
     };
-    let page = format!(
+    format!(
         r##"<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><meta name="generator" content="fringeflow {version}">
-<title>fringeflow comparison: {title}</title>
+<title>{title}</title>
 <style>
 {STYLE}
 .pair {{ display: flex; gap: 16px; flex-wrap: wrap; align-items: flex-start; }}
 .pair canvas {{ image-rendering: pixelated; display: block; border: 1px solid var(--line); }}
 .side {{ max-width: 470px; }}
 .side h3 {{ font-size: 14px; margin: 4px 0; word-break: break-all; }}
+tr.best td {{ font-weight: 600; }}
+tr.picked-a td:first-child::after {{ content: " (A)"; color: var(--accent); }}
+tr.picked-b td:first-child::after {{ content: " (B)"; color: var(--accent); }}
 [hidden] {{ display: none !important; }}
 </style></head>
 <body>
-<h1>fringeflow comparison: {title}</h1>
-<p class="sub">Two outputs of the capture {capture} (input {hash}).</p>
-<h2>Settings that differ</h2>
-<table class="kv"><tr><th>key</th><th>A</th><th>B</th></tr>{rows}</table>
+<h1>{title}</h1>
+<p class="sub">{subtitle}</p>
+{intro}
 <h2>Frame</h2>
 <div class="controls" style="max-width:720px">
+  {pickers}
   <label for="frame">frame</label><input type="range" id="frame" min="0" value="0" step="1"><output id="frame-out"></output>
   <label for="black">black (dB)</label><input type="range" id="black" step="any"><output id="black-out"></output>
   <label for="range">range (dB)</label><input type="range" id="range" step="any"><output id="range-out"></output>
@@ -159,11 +164,64 @@ pub fn write_comparison(a: &Path, b: &Path, out: &Path) -> Result<()> {
 </body></html>
 "##,
         version = env!("CARGO_PKG_VERSION"),
-        title = escape(&format!("{} vs {}", name(a), name(b))),
-        capture = escape(la["input"]["path"].as_str().unwrap_or("?")),
-        hash = escape(la["input_hash"].as_str().unwrap_or("?")),
+        title = escape(&c.title),
+        subtitle = escape(&c.subtitle),
+        intro = c.intro_html,
+        // JSON inside <script>: "</" would end the element.
         data = data.to_string().replace("</", "<\\/"),
-    );
+    )
+}
+
+/// Writes the comparison page of output folders `a` and `b` to `out`.
+pub fn write_comparison(a: &Path, b: &Path, out: &Path) -> Result<()> {
+    let read_log = |d: &Path| -> Result<Value> {
+        serde_json::from_slice(&std::fs::read(d.join("log.json")).with_context(|| format!("reading {}", d.join("log.json").display()))?).with_context(|| format!("{}: not a fringeflow log", d.join("log.json").display()))
+    };
+    let (la, lb) = (read_log(a)?, read_log(b)?);
+    if la["input_hash"] != lb["input_hash"] {
+        bail!("{} and {} come from different captures (input hashes differ): compare outputs of one capture", a.display(), b.display());
+    }
+    let va = crate::io::volume::DbReader::open(&a.join("volume.h5"))?.frames(1)?;
+    let vb = crate::io::volume::DbReader::open(&b.join("volume.h5"))?.frames(1)?;
+    let dims = |v: &crate::io::volume::DbFrames| (v.images.len(), v.images[0].nrows(), v.images[0].ncols());
+    if dims(&va) != dims(&vb) || (va.depth_um[0] - vb.depth_um[0]).abs() > 1e-9 || (va.depth_spacing_um - vb.depth_spacing_um).abs() > 1e-12 * va.depth_spacing_um {
+        bail!(
+            "the two volumes differ in geometry ({:?} frames × depth × A-lines from {:.3} µm in {:.4} µm steps, against {:?} from {:.3} µm in {:.4} µm steps): compare outputs with the same zero padding and crop",
+            dims(&va), va.depth_um[0], va.depth_spacing_um, dims(&vb), vb.depth_um[0], vb.depth_spacing_um
+        );
+    }
+    let floor = |l: &Value| l["frames"].as_array().map(|f| f.iter().filter_map(|r| r["noise_floor_db"].as_f64()).fold(f64::INFINITY, f64::min)).unwrap_or(f64::NAN);
+    let lowest = floor(&la).min(floor(&lb));
+    let lowest = if lowest.is_finite() { lowest } else { -20.0 };
+    let figures = |v: &crate::io::volume::DbFrames| -> Vec<Value> {
+        v.images.iter().map(|i| sharpness(i, v.depth_spacing_um)).map(|(e, w)| json!({ "entropy": e, "fwhm_um": w })).collect()
+    };
+    let level = &la["frames"][0];
+    let (black, white) = (level["black_db"].as_f64().unwrap_or(lowest + 3.0), level["white_db"].as_f64().unwrap_or(lowest + 40.0));
+    let name = |d: &Path| d.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+    let diffs = differences(&la, &lb);
+    let rows: String = if diffs.is_empty() {
+        "<tr><td colspan=\"3\">none: the two pipelines are the same</td></tr>".into()
+    } else {
+        diffs.iter().map(|(k, x, y)| format!("<tr><th>{}</th><td>{}</td><td>{}</td></tr>", escape(k), escape(x), escape(y))).collect()
+    };
+    let (first_depth_um, depth_spacing_um, aline_spacing_um) = (va.depth_um[0], va.depth_spacing_um, va.aline_spacing_um);
+    let page = comparison_html(&Comparison {
+        title: format!("fringeflow comparison: {} vs {}", name(a), name(b)),
+        subtitle: format!("Two outputs of the capture {} (input {}).", la["input"]["path"].as_str().unwrap_or("?"), la["input_hash"].as_str().unwrap_or("?")),
+        intro_html: format!("<h2>Settings that differ</h2>\n<table class=\"kv\"><tr><th>key</th><th>A</th><th>B</th></tr>{rows}</table>"),
+        sides: vec![
+            Side { name: a.display().to_string(), figures: figures(&va), images: va.images },
+            Side { name: b.display().to_string(), figures: figures(&vb), images: vb.images },
+        ],
+        pick: [0, 1],
+        first_depth_um,
+        depth_spacing_um,
+        aline_spacing_um,
+        floor_db: lowest,
+        black_db: black,
+        white_db: white,
+    });
     write_atomically(out, |tmp| {
         std::fs::write(tmp, page.as_bytes())?;
         Ok(())
