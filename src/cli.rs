@@ -422,7 +422,7 @@ pub enum MeasureCommand {
         /// Group index for the FWHM in a medium.
         #[arg(long, default_value_t = 1.38)]
         group_index: f64,
-        /// Write the PSF plot (PNG) here; no plot when omitted.
+        /// Write the PSF plot here (PNG, or SVG when the name ends in .svg); no plot when omitted.
         #[arg(long, value_name = "FILE")]
         plot: Option<PathBuf>,
         /// Print JSON instead of text.
@@ -448,7 +448,7 @@ pub enum MeasureCommand {
         /// Single-pass attenuation placed in the sample arm (dB of power); counted twice.
         #[arg(long, value_name = "DB")]
         attenuation_db: Option<f64>,
-        /// Write the roll-off plot (PNG) here; no plot when omitted.
+        /// Write the roll-off plot here (PNG, or SVG when the name ends in .svg); no plot when omitted.
         #[arg(long, value_name = "FILE")]
         plot: Option<PathBuf>,
         /// Print JSON instead of text.
@@ -495,7 +495,7 @@ pub enum CalibrateCommand {
         /// Frame whose A-lines are averaged.
         #[arg(long, default_value_t = 0)]
         frame: usize,
-        /// Also draw the calibrated map against the nominal one and the fit residual (PNG).
+        /// Also draw the calibrated map against the nominal one and the fit residual (PNG, or SVG when the name ends in .svg).
         #[arg(long, value_name = "FILE")]
         plot: Option<PathBuf>,
         /// Print the calibration as JSON instead of a summary.

@@ -195,3 +195,39 @@ fn sweep_page_matches_runs_at_its_settings() {
     eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
     assert!(o.status.success() && text.contains("ok compare"), "{text}");
 }
+
+/// A run with a wavelength calibration: the calibration plot is written as
+/// SVG beside the images and drawn inside report.html (checked in the
+/// browser, and parsed as XML with the residual cal.json gives); `measure
+/// psf --plot X.svg` writes an SVG whose FWHM is the measurement's.
+#[test]
+fn report_shows_the_calibration_plot() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let (capture, _) = simulate_scene(d, "mirror", &small_scene(300.0, 1, 32, 1024));
+    let fringeflow = |args: &[&str]| Command::new(bin()).current_dir(d).env("HDF5_USE_FILE_LOCKING", "FALSE").args(args).output().unwrap();
+    let o = fringeflow(&["calibrate", "wavelength", "mirror.h5", "--centre-nm", "840", "--depths-um", "300", "--out", "cal.json"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let out = d.join("out");
+    run_ok(d, &[&capture], "[input]\ncalibration = \"cal.json\"\n", &out);
+    let folder = out.join("mirror");
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(folder.join("log.json")).unwrap()).unwrap();
+    assert!(log["outputs"].as_array().unwrap().iter().any(|o| o == "wavelength-map.svg"), "{}", log["outputs"]);
+    let cal: serde_json::Value = serde_json::from_slice(&std::fs::read(d.join("cal.json")).unwrap()).unwrap();
+    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/report_browser.py");
+    let svg_check = |file: &Path, key: &str, value: f64| {
+        let o = Command::new("python3").arg(&script).arg("svg").arg(file).arg(key).arg(value.to_string()).output().unwrap();
+        let text = String::from_utf8_lossy(&o.stdout);
+        assert!(o.status.success() && text.contains("ok svg"), "{text}{}", String::from_utf8_lossy(&o.stderr));
+    };
+    svg_check(&folder.join("wavelength-map.svg"), "fit_residual_rms_nm", cal["fit_residual_rms_nm"].as_f64().unwrap());
+    let o = Command::new("python3").arg(&script).arg(&folder).arg(d).output().unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    eprint!("{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(o.status.success() && text.contains("ok plots: 1 SVG"), "{text}");
+
+    let o = fringeflow(&["measure", "psf", "mirror.h5", "--json", "--plot", "psf.svg"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let m: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    svg_check(&d.join("psf.svg"), "fwhm_um_air", (m["fwhm_um_air"].as_f64().unwrap() * 1e4).round() / 1e4);
+}

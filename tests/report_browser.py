@@ -6,6 +6,7 @@ volume.h5 read with h5py.
 Usage: report_browser.py OUTPUT_DIR SCREENSHOT_DIR
        report_browser.py index BATCH_DIR SCREENSHOT_DIR
        report_browser.py compare PAGE DIR_A DIR_B SCREENSHOT_DIR [SIDE_A SIDE_B]
+       report_browser.py svg FILE KEY VALUE
 
 The compare mode checks a comparison page: both sides against their
 volume.h5 under the shared window/level (within 1 grey level), the blink
@@ -27,7 +28,9 @@ range), clamped: the mapping log.json documents), within 1 grey level;
 moving the window sliders changes the pixels as that formula says; the
 depth scale bar's length in screen pixels matches its label through the
 depth spacing within 2 %; clicking an A-line shows a depth profile whose
-peak is the volume's. Screenshots go to SCREENSHOT_DIR.
+peak is the volume's; every fringeflow SVG plot of the folder is drawn
+in the page with the file's provenance. Screenshots go to SCREENSHOT_DIR.
+The svg mode parses one SVG plot as XML and checks one provenance value.
 """
 import base64
 import json
@@ -183,10 +186,51 @@ def main(outdir, shots):
         print(f"ok profile: A-line {a} peaks at {peak_um:.2f} um (volume {depth_um[z]:.2f} um)")
         d.save_screenshot(str(shots / "report-profile.png"))
 
+        check_plots(d, outdir, shots)
         no_console_errors(d)
         print("ok console: no errors")
     finally:
         d.quit()
+
+
+def svg_desc(path):
+    """The provenance lines of a fringeflow SVG, parsed as XML (ElementTree)."""
+    import xml.etree.ElementTree as ET
+    root = ET.parse(path).getroot()
+    ns = "{http://www.w3.org/2000/svg}"
+    if root.tag != ns + "svg":
+        fail(f"{path}: root element {root.tag}, not svg")
+    desc = root.find(ns + "desc")
+    if desc is None or not desc.text:
+        fail(f"{path}: no <desc> provenance")
+    return dict(line.split(": ", 1) for line in desc.text.splitlines())
+
+
+def check_plots(d, outdir, shots):
+    """Every fringeflow SVG of the folder is drawn in the page: a figure of
+    that name, rendered larger than 300 x 300 px, with text, and the same
+    provenance as the file."""
+    files = sorted(p for p in outdir.glob("*.svg") if "data-fringeflow-plot" in p.read_text()[:2000])
+    figures = d.find_elements(By.CSS_SELECTOR, "figure.plot")
+    names = [f.get_attribute("data-file") for f in figures]
+    if names != [p.name for p in files]:
+        fail(f"plots in the page {names}, in the folder {[p.name for p in files]}")
+    for fig, path in zip(figures, files):
+        svg = fig.find_element(By.TAG_NAME, "svg")
+        if svg.rect["width"] < 300 or svg.rect["height"] < 300:
+            fail(f"{path.name} drawn {svg.rect['width']:.0f} x {svg.rect['height']:.0f} px")
+        texts = d.execute_script("return arguments[0].querySelectorAll('text').length", svg)
+        if texts < 10:
+            fail(f"{path.name}: {texts} text elements in the page")
+        inline = d.execute_script("return arguments[0].querySelector('desc').textContent", svg)
+        want = svg_desc(path)
+        got = dict(line.split(": ", 1) for line in inline.splitlines())
+        if got != want:
+            fail(f"{path.name}: provenance in the page {got} differs from the file's {want}")
+        d.execute_script("arguments[0].scrollIntoView()", fig)
+    if files:
+        d.save_screenshot(str(shots / "report-plots.png"))
+    print(f"ok plots: {len(files)} SVG plot(s) drawn with their provenance")
 
 
 def check_index(batch, shots):
@@ -296,7 +340,14 @@ def check_compare(page, da, db, shots, picks=None):
 
 
 if __name__ == "__main__":
-    if sys.argv[1] == "compare":
+    if sys.argv[1] == "svg":
+        # svg FILE KEY VALUE: the file parses as SVG and its provenance KEY is VALUE (1e-5 relative).
+        got = float(svg_desc(sys.argv[2])[sys.argv[3]])
+        want = float(sys.argv[4])
+        if abs(got - want) > 1e-5 * max(abs(want), 1e-9):
+            fail(f"{sys.argv[2]}: {sys.argv[3]} {got}, expected {want}")
+        print(f"ok svg: {sys.argv[3]} {got}")
+    elif sys.argv[1] == "compare":
         picks = [int(v) for v in sys.argv[6:8]] if len(sys.argv) >= 8 else None
         check_compare(sys.argv[2], sys.argv[3], sys.argv[4], sys.argv[5], picks)
     elif sys.argv[1] == "index":

@@ -108,6 +108,10 @@ pub struct Capture {
     /// Per-pixel wavelength, nm.
     pub wavelength_nm: Vec<f64>,
     pub wavelength_source: WavelengthSource,
+    /// The capture's own wavelength dataset when the map in use comes from
+    /// elsewhere (a calibration file or the pipeline's polynomial), for
+    /// plots of the change.
+    pub dataset_wavelength_nm: Option<Vec<f64>>,
     /// Mean of the background spectra, when the capture has them.
     pub background: Option<Vec<f64>>,
     /// Detector full scale (attribute `full_scale` of the fringes, else the
@@ -428,6 +432,10 @@ impl Capture {
             );
         }
         check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
+        let dataset_wavelength_nm = match wavelength_source {
+            WavelengthSource::Dataset { .. } => None,
+            _ => open_dataset(&file, &input.wavelength).and_then(|ds| read_f64(&ds).ok()).filter(|m| m.ndim() == 1 && m.len() == pixels).map(|m| m.iter().copied().collect()),
+        };
 
         let background = match open_dataset(&file, &input.background) {
             None => None,
@@ -485,6 +493,7 @@ impl Capture {
             pixels,
             wavelength_nm,
             wavelength_source,
+            dataset_wavelength_nm,
             background,
             full_scale,
         })

@@ -1,5 +1,5 @@
-//! PNG plots of measurements (plotters, bitmap backend, system sans-serif
-//! font via fontconfig). Every plot is drawn into memory and written by
+//! Plots of measurements (plotters; PNG through the bitmap backend, SVG for
+//! pages; system sans-serif font via fontconfig). Every plot is drawn into memory and written by
 //! `io::png` with its provenance in tEXt chunks (tool version, what it
 //! shows, the pipeline hash), atomically.
 
@@ -14,8 +14,38 @@ use crate::io::png::PngInfo;
 use crate::io::staging::write_atomically;
 use crate::render::colour::OKABE_ITO;
 
-/// Draws a `width` × `height` picture with `draw` and writes it to `path`
-/// (temp file and rename) as an RGB PNG carrying `info`.
+/// A plot drawn the same way on any plotters backend: PNG for files and
+/// SVG for pages.
+pub trait Figure {
+    /// Width and height in pixels (PNG) or user units (SVG).
+    fn size(&self) -> (u32, u32);
+    /// Provenance: the PNG's tEXt chunks, the SVG's metadata.
+    fn info(&self) -> PngInfo;
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<()>;
+}
+
+/// Writes `figure` to `path` (temp file and rename): SVG when the name ends
+/// in `.svg`, else an RGB PNG carrying the figure's provenance.
+pub fn save_figure(path: &Path, figure: &impl Figure) -> Result<()> {
+    if path.extension().is_some_and(|e| e.eq_ignore_ascii_case("svg")) {
+        let svg = svg_string(figure)?;
+        return write_atomically(path, |tmp| Ok(std::fs::write(tmp, svg.as_bytes())?));
+    }
+    let (width, height) = figure.size();
+    let mut buf = vec![255u8; (width * height * 3) as usize];
+    {
+        let root = BitMapBackend::with_buffer(&mut buf, (width, height)).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        figure.draw(&root)?;
+        root.present().map_err(err)?;
+    }
+    let info = figure.info();
+    write_atomically(path, |tmp| crate::io::png::write_rgb8(tmp, width as usize, height as usize, &buf, &info))
+}
+
+/// Draws a `width` × `height` PNG with `draw` and writes it to `path`
+/// (temp file and rename) carrying `info`: for plots drawn on the bitmap
+/// only.
 pub fn save_plot<F>(path: &Path, width: u32, height: u32, info: &PngInfo, draw: F) -> Result<()>
 where
     F: FnOnce(&DrawingArea<BitMapBackend<'_>, Shift>) -> Result<()>,
@@ -28,6 +58,37 @@ where
         root.present().map_err(err)?;
     }
     write_atomically(path, |tmp| crate::io::png::write_rgb8(tmp, width as usize, height as usize, &buf, info))
+}
+
+/// Marks an SVG as a fringeflow plot (report.html embeds the SVG files of
+/// its folder that carry it).
+pub const SVG_MARK: &str = "data-fringeflow-plot";
+
+/// The figure as an SVG document, its provenance in `<title>` and
+/// `<desc>` and the root element marked with [`SVG_MARK`].
+pub fn svg_string(figure: &impl Figure) -> Result<String> {
+    let (width, height) = figure.size();
+    let mut svg = String::new();
+    {
+        let root = SVGBackend::with_string(&mut svg, (width, height)).into_drawing_area();
+        root.fill(&WHITE).map_err(err)?;
+        figure.draw(&root)?;
+        root.present().map_err(err)?;
+    }
+    let info = figure.info();
+    // Provenance as "keyword: text" lines in <desc> (elements such as
+    // <meta> would break out of an SVG inlined in HTML).
+    let lines: Vec<String> = info.text.iter().map(|(k, v)| format!("{k}: {v}")).collect();
+    let head = format!(
+        "<title>{}</title><desc>{}</desc>",
+        crate::report::escape(info.get("Description").unwrap_or("fringeflow plot")),
+        crate::report::escape(&lines.join("\n"))
+    );
+    let open = svg.find("<svg").ok_or_else(|| anyhow!("plotters wrote no <svg> element"))?;
+    let close = open + svg[open..].find('>').ok_or_else(|| anyhow!("unterminated <svg> element"))?;
+    svg.insert_str(close + 1, &head);
+    svg.insert_str(close, &format!(" {SVG_MARK}=\"1\""));
+    Ok(svg)
 }
 
 /// Provenance of a measurement plot.
@@ -57,10 +118,29 @@ pub const PSF_HEIGHT: u32 = 1020;
 /// linear amplitude (normalised) with the FWHM marked; and in dB with the
 /// noise floor and the highest side lobe.
 pub fn psf(path: &Path, m: &MirrorMeasurement, pipeline_sha256: &str) -> Result<()> {
-    let info = plot_info(format!("axial PSF of {} frame {}: source spectrum, linear and dB profiles", m.capture, m.frame), pipeline_sha256)
+    save_figure(path, &PsfFigure { m, pipeline_sha256 })
+}
+
+/// The PSF figure of [`psf`], for any backend.
+pub struct PsfFigure<'a> {
+    pub m: &'a MirrorMeasurement,
+    pub pipeline_sha256: &'a str,
+}
+
+impl Figure for PsfFigure<'_> {
+    fn size(&self) -> (u32, u32) {
+        (WIDTH, PSF_HEIGHT)
+    }
+    fn info(&self) -> PngInfo {
+        let (m, pipeline_sha256) = (self.m, self.pipeline_sha256);
+
+    plot_info(format!("axial PSF of {} frame {}: source spectrum, linear and dB profiles", m.capture, m.frame), pipeline_sha256)
         .with("fwhm_um_air", format!("{:.4}", m.fwhm_um_air))
-        .with("depth_spacing_um", format!("{}", m.depth_spacing_um));
-    save_plot(path, WIDTH, PSF_HEIGHT, &info, |root| {
+        .with("depth_spacing_um", format!("{}", m.depth_spacing_um))
+    }
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<()> {
+        let m = self.m;
+
         let (top, rest) = root.split_vertically(300);
         let (upper, lower) = rest.split_vertically((PSF_HEIGHT - 300) / 2);
         spectrum_panel(&top, m)?;
@@ -139,14 +219,15 @@ pub fn psf(path: &Path, m: &MirrorMeasurement, pipeline_sha256: &str) -> Result<
             level(-s.abs(), OKABE_ITO[2], format!("highest side lobe {:.1} dB", -s.abs()))?;
         }
         Ok(())
-    })
+    
+    }
 }
 
 /// The measured source spectrum against wavelength (baseline removed,
 /// normalised to its peak) and the Gaussian in wavenumber with the
 /// measured centre and FWHM — the spectrum the coherence-length limit
 /// assumes.
-fn spectrum_panel(area: &DrawingArea<BitMapBackend<'_>, Shift>, m: &MirrorMeasurement) -> Result<()> {
+fn spectrum_panel<DB: DrawingBackend>(area: &DrawingArea<DB, Shift>, m: &MirrorMeasurement) -> Result<()> {
     let wl = &m.spectrum_wavelength_nm;
     let (lo, hi) = wl.iter().fold((f64::MAX, f64::MIN), |(a, b), &v| (a.min(v), b.max(v)));
     if wl.len() < 2 || hi.partial_cmp(&lo) != Some(std::cmp::Ordering::Greater) {
@@ -200,13 +281,31 @@ fn spectrum_panel(area: &DrawingArea<BitMapBackend<'_>, Shift>, m: &MirrorMeasur
 /// fitted model, the −6 dB depth labelled, the sensitivity (when the
 /// attenuation was given) and the maximum (Nyquist) imaging depth.
 pub fn rolloff(path: &Path, r: &RolloffReport, pipeline_sha256: &str) -> Result<()> {
-    // Nyquist depth π/(2·δk) in air for a camera pixel δk wide in
-    // wavenumber, the same as λ0²/(4·δλ) (common practice; physics::max_depth_um).
-    let max_depth_um = std::f64::consts::PI / (2.0 * r.fit.pixel_dk_per_um);
-    let a0 = r.fit.a0_db;
-    let info = plot_info(format!("roll-off: peak dB against depth of {} mirror captures", r.points.len()), pipeline_sha256)
-        .with("rolloff_6db_depth_um", format!("{:.1}", r.fit.rolloff_6db_depth_um));
-    save_plot(path, WIDTH, HEIGHT, &info, |root| {
+    save_figure(path, &RolloffFigure { r, pipeline_sha256 })
+}
+
+/// The roll-off figure of [`rolloff`], for any backend.
+pub struct RolloffFigure<'a> {
+    pub r: &'a RolloffReport,
+    pub pipeline_sha256: &'a str,
+}
+
+impl Figure for RolloffFigure<'_> {
+    fn size(&self) -> (u32, u32) {
+        (WIDTH, HEIGHT)
+    }
+    fn info(&self) -> PngInfo {
+        let r = self.r;
+        plot_info(format!("roll-off: peak dB against depth of {} mirror captures", r.points.len()), self.pipeline_sha256)
+            .with("rolloff_6db_depth_um", format!("{:.1}", r.fit.rolloff_6db_depth_um))
+    }
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<()> {
+        let r = self.r;
+        // Nyquist depth π/(2·δk) in air for a camera pixel δk wide in
+        // wavenumber, the same as λ0²/(4·δλ) (common practice; physics::max_depth_um).
+        let max_depth_um = std::f64::consts::PI / (2.0 * r.fit.pixel_dk_per_um);
+        let a0 = r.fit.a0_db;
+
         let zmax = r.points.iter().map(|p| p.depth_um).fold(0.0, f64::max).max(r.fit.rolloff_6db_depth_um) * 1.15;
         let ymax = 3.0;
         let ymin = r.points.iter().map(|p| p.peak_db - a0).fold(f64::MAX, f64::min).min(-6.0) - 6.0;
@@ -248,30 +347,63 @@ pub fn rolloff(path: &Path, r: &RolloffReport, pipeline_sha256: &str) -> Result<
             .draw_series(std::iter::once(Text::new(format!("−6 dB at {z6:.0} µm"), (z6 + 0.01 * zmax, ymin + 0.06 * (ymax - ymin)), ("sans-serif", 16).into_font())))
             .map_err(err)?;
         Ok(())
-    })
+    
+    }
 }
 
 /// A wavelength calibration: the calibrated map and the nominal one
 /// against pixel (top), their difference (middle) and the residual of the
 /// polynomial fit, measured minus fitted, over the fitted pixels (bottom).
 pub fn wavelength_map(path: &Path, cal: &crate::calibration::wavelength::WavelengthCalibration, nominal: Option<&[f64]>, pipeline_sha256: &str) -> Result<()> {
-    let n = cal.pixels;
-    let nominal = nominal.filter(|m| m.len() == n);
-    let info = plot_info(format!("wavelength calibration from {} mirror capture(s): map, change from nominal, fit residual", cal.inputs.len()), pipeline_sha256)
-        .with("fit_residual_rms_nm", format!("{:.6}", cal.fit_residual_rms_nm));
-    let [p0, p1] = cal.fit_pixels;
-    let residual: Vec<(f64, f64)> = (p0..=p1)
-        .filter(|&p| cal.measured_nm.get(p).is_some_and(|v| v.is_finite()))
-        .map(|p| (p as f64, cal.measured_nm[p] - cal.wavelength_nm[p]))
-        .collect();
-    let height = 1020;
-    save_plot(path, WIDTH, height, &info, |root| {
-        let areas = root.split_evenly((3, 1));
+    save_figure(path, &WavelengthMapFigure { cal, nominal, nominal_name: "the capture's map or the pipeline's", pipeline_sha256 })
+}
+
+/// The calibration figure of [`wavelength_map`], for any backend. Without
+/// the per-pixel measurement (a calibration read back from its file) the
+/// residual panel gives the RMS only.
+pub struct WavelengthMapFigure<'a> {
+    pub cal: &'a crate::calibration::wavelength::WavelengthCalibration,
+    pub nominal: Option<&'a [f64]>,
+    /// What the nominal map is, for the legend.
+    pub nominal_name: &'a str,
+    pub pipeline_sha256: &'a str,
+}
+
+impl Figure for WavelengthMapFigure<'_> {
+    fn size(&self) -> (u32, u32) {
+        // Without the per-pixel measurement the residual panel is left out.
+        (WIDTH, if self.cal.measured_nm.is_empty() { 680 } else { 1020 })
+    }
+    fn info(&self) -> PngInfo {
+        let cal = self.cal;
+        plot_info(format!("wavelength calibration from {} mirror capture(s): map, change from nominal, fit residual", cal.inputs.len()), self.pipeline_sha256)
+            .with("fit_residual_rms_nm", format!("{:.6}", cal.fit_residual_rms_nm))
+    }
+    fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<()> {
+        let cal = self.cal;
+        let n = cal.pixels;
+        let nominal = self.nominal.filter(|m| m.len() == n);
+        let [p0, p1] = cal.fit_pixels;
+        let residual: Vec<(f64, f64)> = (p0..=p1)
+            .filter(|&p| cal.measured_nm.get(p).is_some_and(|v| v.is_finite()))
+            .map(|p| (p as f64, cal.measured_nm[p] - cal.wavelength_nm[p]))
+            .collect();
+
+        let areas = root.split_evenly((if residual.is_empty() { 2 } else { 3 }, 1));
         let xmax = (n - 1) as f64;
         let (lo, hi) = cal.wavelength_nm.iter().chain(nominal.unwrap_or(&[]).iter()).fold((f64::MAX, f64::MIN), |(a, b), &v| (a.min(v), b.max(v)));
         let pad = ((hi - lo) * 0.04).max(0.1);
         let mut chart = ChartBuilder::on(&areas[0])
-            .caption(format!("Wavelength map: {:.2}–{:.2} nm over {n} pixels (degree {})", cal.wavelength_nm[0], cal.wavelength_nm[n - 1], cal.polynomial_nm.len() - 1), ("sans-serif", 20))
+            .caption(
+                format!(
+                    "Wavelength map: {:.2}–{:.2} nm over {n} pixels (degree {}){}",
+                    cal.wavelength_nm[0],
+                    cal.wavelength_nm[n - 1],
+                    cal.polynomial_nm.len() - 1,
+                    if residual.is_empty() { format!(", fit RMS {:.4} nm", cal.fit_residual_rms_nm) } else { String::new() }
+                ),
+                ("sans-serif", 20),
+            )
             .margin(12)
             .x_label_area_size(36)
             .y_label_area_size(60)
@@ -282,7 +414,7 @@ pub fn wavelength_map(path: &Path, cal: &crate::calibration::wavelength::Wavelen
             chart
                 .draw_series(LineSeries::new(nom.iter().enumerate().map(|(p, &l)| (p as f64, l)), OKABE_ITO[1].stroke_width(3)))
                 .map_err(err)?
-                .label("nominal (the capture's map or the pipeline's)")
+                .label(format!("nominal ({})", self.nominal_name))
                 .legend(|(x, y)| PathElement::new(vec![(x, y), (x + 20, y)], OKABE_ITO[1].stroke_width(3)));
         }
         chart
@@ -325,11 +457,20 @@ pub fn wavelength_map(path: &Path, cal: &crate::calibration::wavelength::Wavelen
             }
         }
 
+        if residual.is_empty() {
+            return Ok(());
+        }
         let (rlo, rhi) = residual.iter().fold((f64::MAX, f64::MIN), |(a, b), &(_, v)| (a.min(v), b.max(v)));
         let rpad = ((rhi - rlo) * 0.08).max(1e-6);
         let (rlo, rhi) = if residual.is_empty() { (-1e-3, 1e-3) } else { (rlo - rpad, rhi + rpad) };
         let mut chart = ChartBuilder::on(&areas[2])
-            .caption(format!("Fit residual, measured minus fitted, pixels {p0}–{p1}: RMS {:.4} nm", cal.fit_residual_rms_nm), ("sans-serif", 20))
+            .caption(
+                format!(
+                    "Fit residual, measured minus fitted, pixels {p0}–{p1}: RMS {:.4} nm",
+                    cal.fit_residual_rms_nm
+                ),
+                ("sans-serif", 20),
+            )
             .margin(12)
             .x_label_area_size(36)
             .y_label_area_size(60)
@@ -346,7 +487,8 @@ pub fn wavelength_map(path: &Path, cal: &crate::calibration::wavelength::Wavelen
         chart.draw_series(residual.iter().map(|&p| Circle::new(p, 1, OKABE_ITO[0].filled()))).map_err(err)?;
         chart.draw_series(std::iter::once(PathElement::new(vec![(0.0, 0.0), (xmax, 0.0)], BLACK.stroke_width(1)))).map_err(err)?;
         Ok(())
-    })
+    
+    }
 }
 
 #[cfg(test)]

@@ -136,7 +136,7 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
         .replace("{{TITLE}}", &escape(&title))
         .replace("{{SUBTITLE}}", &escape(&subtitle))
         .replace("{{WARNINGS}}", &warnings_html(&log))
-        .replace("{{IMAGES}}", &images_html(dir, &log)?)
+        .replace("{{IMAGES}}", &(images_html(dir, &log)? + &plots_html(dir)?))
         .replace("{{LOG}}", &log_html(&log, &v))
         // JSON inside <script>: "</" would end the element.
         .replace("{{DATA}}", &data_json.to_string().replace("</", "<\\/"));
@@ -200,6 +200,33 @@ fn images_html(dir: &Path, log: &Value) -> Result<String> {
         );
     }
     Ok(s)
+}
+
+/// The measurement and calibration plots of the folder: every SVG file in
+/// it that fringeflow drew (marked with [`crate::measure::plot::SVG_MARK`]),
+/// inline, by name (HTML needs no SVG namespace: it is dropped, so the page
+/// names no URL).
+fn plots_html(dir: &Path) -> Result<String> {
+    let mut names: Vec<std::path::PathBuf> = std::fs::read_dir(dir)
+        .with_context(|| format!("listing {}", dir.display()))?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|x| x == "svg") && p.is_file())
+        .collect();
+    names.sort();
+    let mut s = String::new();
+    for p in names {
+        let text = std::fs::read_to_string(&p).with_context(|| format!("reading {}", p.display()))?;
+        let Some(start) = text.find("<svg") else { continue };
+        if !text[start..text[start..].find('>').map_or(start, |e| start + e)].contains(crate::measure::plot::SVG_MARK) {
+            continue;
+        }
+        let name = p.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+        s += &format!("<figure class=\"plot\" data-file=\"{}\">{}<figcaption>{}</figcaption></figure>", escape(&name), text[start..].replacen(" xmlns=\"http://www.w3.org/2000/svg\"", "", 1), escape(&name));
+    }
+    if s.is_empty() {
+        return Ok(s);
+    }
+    Ok(format!("<h2>Measurement and calibration plots</h2><p class=\"note\">Drawn by fringeflow (SVG files in this folder).</p>{s}"))
 }
 
 fn value_text(v: &Value) -> String {

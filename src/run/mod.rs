@@ -475,6 +475,18 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         write_ome_tiff(&staging, &opened)?;
         outputs.push("volume.ome.tif".into());
     }
+    if let crate::io::capture::WavelengthSource::Calibration { path, .. } = &capture.wavelength_source {
+        // The calibration in use, beside the images and in the report.
+        let (cal, _) = crate::calibration::wavelength::WavelengthCalibration::load(std::path::Path::new(path))?;
+        let figure = crate::measure::plot::WavelengthMapFigure {
+            cal: &cal,
+            nominal: capture.dataset_wavelength_nm.as_deref(),
+            nominal_name: "the capture's own wavelength dataset",
+            pipeline_sha256: &opened.pipeline_sha256,
+        };
+        crate::measure::plot::save_figure(&staging.path("wavelength-map.svg"), &figure).context("writing wavelength-map.svg")?;
+        outputs.push("wavelength-map.svg".into());
+    }
     let report = config.output.report && config.output.volume;
     if report {
         outputs.push("report.html".into());
