@@ -408,7 +408,9 @@ def check_scaled(outdir):
         print(f"ok {p}: {w}x{h} px of {px:.3f} um, scale bar {t['scale_bar_um']} um, brightest depth {z_image:.1f} um (volume {z_volume:.1f})")
 
 
-def check_ome(outdir):
+def check_ome(outdir, expect=()):
+    """expect: "AXIS=µm" pairs the scene set (X lateral, Z slow axis): those
+    PhysicalSizes must be written and equal them."""
     import xml.etree.ElementTree as ET
     import tifffile
     f = h5py.File(f"{outdir}/volume.h5", "r")
@@ -441,6 +443,11 @@ def check_ome(outdir):
                 fail(f"PhysicalSize{axis} {got} {unit}, expected {want[axis]} µm")
         elif got is not None:
             fail(f"PhysicalSize{axis} {got} written though the step is unknown")
+    for pair in expect:
+        axis, um = pair.split("=")
+        got = px.get(f"PhysicalSize{axis}")
+        if got is None or not close(got, float(um), 1e-6):
+            fail(f"PhysicalSize{axis} {got}, the scene's step is {um} µm")
     print(f"ok volume.ome.tif: {s.axes} {s.shape}, data within {worst:.1e}, sizes {want} µm")
 
 
@@ -459,7 +466,7 @@ if __name__ == "__main__":
     elif kind == "scaled":
         check_scaled(sys.argv[2])
     elif kind == "ome":
-        check_ome(sys.argv[2])
+        check_ome(sys.argv[2], sys.argv[3:])
     elif kind == "plot":
         check_plots(sys.argv[2:])
     elif kind == "calplot":

@@ -55,6 +55,42 @@ fn bscans_and_en_face_decode_to_the_volume_at_8_and_16_bits() {
     }
 }
 
+/// A scanned capture (lateral and slow-axis steps recorded): the OME-TIFF
+/// carries PhysicalSizeX and PhysicalSizeZ equal to the scene's steps, as
+/// tifffile reads them.
+#[test]
+fn ome_tiff_of_a_scanned_capture_has_every_physical_size() {
+    let dir = tempfile::tempdir().unwrap();
+    let scene = r#"
+seed = 17
+frames = 4
+alines = 48
+background_lines = 8
+[spectrometer]
+pixels = 512
+start_nm = 790.0
+stop_nm = 890.0
+[detector]
+dtype = "u16"
+[scan]
+aline_spacing_um = 2.5
+position_spacing_um = 7.5
+beam_radius_um = 6.0
+[sample]
+surface_um = 150.0
+[[sample.layers]]
+thickness_um = 100.0
+group_index = 1.4
+top_reflectivity = 1e-4
+scatterers = 20
+scatterer_reflectivity = 1e-6
+"#;
+    let (capture, _) = simulate_scene(dir.path(), "scanned", scene);
+    let out = dir.path().join("out");
+    run_ok(dir.path(), &[&capture], "[output]\nome_tiff = true\n", &out);
+    decode(&["ome".as_ref(), out.join("scanned").as_os_str(), "X=2.5".as_ref(), "Z=7.5".as_ref()]);
+}
+
 #[test]
 fn contact_sheet_and_plots_decode() {
     let dir = tempfile::tempdir().unwrap();
