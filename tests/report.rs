@@ -61,6 +61,12 @@ fn report_shows_the_volume_in_a_browser() {
     let html = std::fs::read_to_string(folder.join("report.html")).unwrap();
     assert!(html.contains("True aspect"), "the lateral step should give the true aspect");
     browser_check(&folder, dir.path());
+    // The run embeds its frames while writing them; `fringeflow report`
+    // embeds them from volume.h5: the same page but for its timing line.
+    let from_run = report_without_timing(&folder.join("report.html"));
+    let o = Command::new(bin()).arg("report").arg(&folder).output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(report_without_timing(&folder.join("report.html")) == from_run, "report.html from the run and from `fringeflow report` differ");
     // `fringeflow report` rewrites it from the folder alone, embedding
     // every other frame when asked, and says so on the page.
     std::fs::remove_file(folder.join("report.html")).unwrap();
@@ -89,6 +95,10 @@ fn sample_report_is_small_and_needs_the_volume() {
     // Budget: under twice the PNGs of the sample capture.
     assert!(report < 2 * pngs, "report {report} bytes against {pngs} bytes of PNGs");
     browser_check(&folder, dir.path());
+    let from_run = report_without_timing(&folder.join("report.html"));
+    let o = Command::new(bin()).arg("report").arg(&folder).output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(report_without_timing(&folder.join("report.html")) == from_run, "float32 volume: report.html from the run and from `fringeflow report` differ");
     let out2 = dir.path().join("png-only");
     run_ok(dir.path(), &[&capture], "[output]\nvolume = false\n", &out2);
     assert!(!out2.join("layered-phantom/report.html").exists(), "a report without volume.h5");

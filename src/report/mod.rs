@@ -9,6 +9,7 @@
 use anyhow::{Context, Result};
 use base64::Engine;
 use rayon::prelude::*;
+use ndarray::Array2;
 use serde_json::{json, Value};
 use std::io::Write;
 use std::path::Path;
@@ -42,10 +43,148 @@ pub struct ReportSummary {
     pub frames_total: usize,
 }
 
+/// The embedded range starts this far below the first embedded frame's
+/// logged noise floor (values below it show as it).
+pub const BASE_BELOW_FLOOR_DB: f64 = 0.0;
+
+/// Frames `frame_step` apart are embedded; 0 chooses the step from
+/// [`AUTO_PIXEL_BUDGET`].
+pub fn frame_step(frame_step: usize, frames: usize, depth: usize, alines: usize) -> usize {
+    if frame_step > 0 {
+        frame_step
+    } else {
+        (frames * depth * alines).div_ceil(AUTO_PIXEL_BUDGET).max(1)
+    }
+}
+
+/// The lowest embedded dB: [`BASE_BELOW_FLOOR_DB`] under the first
+/// embedded frame's logged noise floor, on the [`STEP_DB`] grid (the
+/// image's lowest finite value when no floor is logged).
+pub fn embed_base(first_floor_db: Option<f64>, first_image: &Array2<f32>) -> f64 {
+    let floor = first_floor_db
+        .filter(|f| f.is_finite())
+        .unwrap_or_else(|| first_image.iter().filter(|d| d.is_finite()).fold(f64::INFINITY, |m, &d| m.min(d as f64)) + BASE_BELOW_FLOOR_DB);
+    let floor = if floor.is_finite() { floor } else { 0.0 };
+    // The logged floor has 6 decimals, so (floor − 10)/0.1 is a whole
+    // number of 1e-5 steps: half a step keeps an ulp of JSON parsing from
+    // moving the base to the next grid line.
+    ((floor - BASE_BELOW_FLOOR_DB) / STEP_DB + 5e-6).floor() * STEP_DB
+}
+
+/// One B-scan as the page embeds it.
+pub struct EmbeddedFrame {
+    pub index: usize,
+    /// zlib of the two byte planes, base64.
+    pub data: String,
+    /// Highest step in it.
+    pub max_q: u16,
+    /// Per depth row, the sum of its finite dB values (for the en face slab).
+    pub row_sums: Vec<f64>,
+}
+
+/// Quantises and compresses frame `index` (depth × A-lines, dB) from `base` dB.
+pub fn embed_frame(index: usize, image: &Array2<f32>, base: f64) -> EmbeddedFrame {
+    let q: Vec<u16> = image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect();
+    let max_q = q.iter().copied().max().unwrap_or(0);
+    let row_sums = image.outer_iter().map(|row| row.iter().filter(|d| d.is_finite()).map(|&d| d as f64).sum::<f64>()).collect();
+    EmbeddedFrame { index, data: compress_planes(&q), max_q, row_sums }
+}
+
+/// Embeds a run's frames while the run writes its other outputs, on
+/// threads of its own (one per core; never the rayon pool, whose workers
+/// may be waiting on the writer or, in a batch, on this): push every
+/// stored frame in order, then [`Embedder::finish`].
+pub struct Embedder {
+    step: usize,
+    /// uint16 volumes: frames are embedded as volume.h5 stores them.
+    packed: bool,
+    /// From the first frame pushed (frame 0).
+    base: std::cell::Cell<Option<f64>>,
+    tx: Option<std::sync::mpsc::Sender<(usize, Array2<f32>, f64)>>,
+    workers: Vec<std::thread::JoinHandle<Vec<EmbeddedFrame>>>,
+}
+
+impl Embedder {
+    pub fn new(step: usize, packed: bool) -> Embedder {
+        let (tx, rx) = std::sync::mpsc::channel::<(usize, Array2<f32>, f64)>();
+        let rx = std::sync::Arc::new(std::sync::Mutex::new(rx));
+        let threads = std::thread::available_parallelism().map_or(1, |n| n.get()).min(8);
+        let workers = (0..threads)
+            .map(|_| {
+                let rx = rx.clone();
+                std::thread::spawn(move || {
+                    let mut out = Vec::new();
+                    loop {
+                        // The lock is held only to take one frame.
+                        let next = rx.lock().map(|r| r.recv());
+                        match next {
+                            Ok(Ok((index, image, base))) => out.push(embed_frame(index, &image, base)),
+                            _ => return out,
+                        }
+                    }
+                })
+            })
+            .collect();
+        Embedder { step: step.max(1), packed, base: std::cell::Cell::new(None), tx: Some(tx), workers }
+    }
+
+    /// Stored frame `index` with its logged (rounded) noise floor.
+    pub fn push(&self, index: usize, image: &Array2<f32>, noise_floor_db: f64) {
+        if index % self.step != 0 {
+            return;
+        }
+        let image = if self.packed {
+            crate::io::volume::pack_db(image).mapv(|v| (v as f64 * crate::io::volume::PACKED_DB_STEP + crate::io::volume::PACKED_DB_OFFSET) as f32)
+        } else {
+            image.clone()
+        };
+        let base = match self.base.get() {
+            Some(b) => b,
+            None => {
+                let b = embed_base(Some(noise_floor_db), &image);
+                self.base.set(Some(b));
+                b
+            }
+        };
+        if let Some(tx) = &self.tx {
+            // A closed channel means the workers are gone; finish() reports it.
+            let _ = tx.send((index, image, base));
+        }
+    }
+
+    /// The base and the embedded frames, in order.
+    pub fn finish(mut self) -> Result<Embedded> {
+        drop(self.tx.take());
+        let mut frames = Vec::new();
+        for w in self.workers.drain(..) {
+            frames.extend(w.join().map_err(|_| anyhow::anyhow!("a report thread panicked"))?);
+        }
+        frames.sort_by_key(|f| f.index);
+        Ok(Embedded { step: self.step, base_db: self.base.get().unwrap_or(0.0), frames })
+    }
+}
+
+/// What [`Embedder`] made.
+pub struct Embedded {
+    pub step: usize,
+    pub base_db: f64,
+    pub frames: Vec<EmbeddedFrame>,
+}
+
 /// Writes `dir/report.html` for the output folder `dir` (log.json and
 /// volume.h5 written there). `frame_step` 0 chooses the step from
 /// [`AUTO_PIXEL_BUDGET`].
 pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportSummary> {
+    write_report_from(dir, out, frame_step, None)
+}
+
+/// [`write_report`] with the frames already embedded during the run (the
+/// same bytes as embedding them from volume.h5; only the axes are read).
+pub fn write_report_embedded(dir: &Path, out: &Path, embedded: Embedded) -> Result<ReportSummary> {
+    write_report_from(dir, out, embedded.step, Some(embedded))
+}
+
+fn write_report_from(dir: &Path, out: &Path, requested_step: usize, embedded: Option<Embedded>) -> Result<ReportSummary> {
     let log: Value = serde_json::from_slice(&std::fs::read(dir.join("log.json")).with_context(|| format!("reading {}", dir.join("log.json").display()))?)
         .with_context(|| format!("{}: not a fringeflow log", dir.join("log.json").display()))?;
     let volume_path = dir.join("volume.h5");
@@ -54,21 +193,28 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
     }
     let reader = crate::io::volume::DbReader::open(&volume_path)?;
     let [frames_total, depth, alines] = reader.shape;
-    let step = if frame_step > 0 { frame_step } else { (frames_total * depth * alines).div_ceil(AUTO_PIXEL_BUDGET).max(1) };
-    let v = reader.frames(step)?;
-
-    // The embedded range: from the lowest logged noise floor (values below
-    // it show as it) up, in steps of STEP_DB.
+    let step = frame_step(requested_step, frames_total, depth, alines);
+    let axes = reader.axes()?;
     let records = log["frames"].as_array().cloned().unwrap_or_default();
-    let floor = records.iter().filter_map(|r| r["noise_floor_db"].as_f64()).fold(f64::INFINITY, f64::min);
-    let max = v.images.iter().flat_map(|i| i.iter()).filter(|d| d.is_finite()).fold(f64::NEG_INFINITY, |m, &d| m.max(d as f64));
-    let floor = if floor.is_finite() { floor } else { v.images.iter().flat_map(|i| i.iter()).filter(|d| d.is_finite()).fold(f64::INFINITY, |m, &d| m.min(d as f64)) };
-    let base = (floor / STEP_DB).floor() * STEP_DB;
-    let max_q = (((max - base) / STEP_DB).round().clamp(0.0, 65535.0)) as u16;
-    let data = embed_frames(&v.images, base);
+    let logged_floor = |f: usize| records.iter().find(|r| r["index"].as_u64() == Some(f as u64)).and_then(|r| r["noise_floor_db"].as_f64());
+    let Embedded { base_db: base, frames: embedded, .. } = match embedded {
+        Some(e) => e,
+        None => {
+            let indices: Vec<usize> = (0..frames_total).step_by(step).collect();
+            let images = indices.iter().map(|&f| reader.frame(f)).collect::<Result<Vec<_>>>()?;
+            let base = embed_base(logged_floor(0), &images[0]);
+            let frames = indices.par_iter().zip(images.par_iter()).map(|(&f, image)| embed_frame(f, image, base)).collect();
+            Embedded { step, base_db: base, frames }
+        }
+    };
+    let indices: Vec<usize> = embedded.iter().map(|e| e.index).collect();
+    if indices != (0..frames_total).step_by(step).collect::<Vec<_>>() {
+        anyhow::bail!("the embedded frames {indices:?} are not every {step}-th of {frames_total}");
+    }
+    let max_q = embedded.iter().map(|e| e.max_q).max().unwrap_or(0);
+    let depth_um = &axes.depth_um;
     // Per embedded frame, the levels its PNG used.
-    let levels: Vec<[f64; 2]> = v
-        .indices
+    let levels: Vec<[f64; 2]> = indices
         .iter()
         .map(|&f| {
             let r = records.iter().find(|r| r["index"].as_u64() == Some(f as u64));
@@ -81,30 +227,32 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
     // The en face slab: the logged one, else 60 µm around the depth of
     // the brightest mean profile.
     let slab = match log["en_face"]["depth_um"].as_array() {
-        Some(a) if a.len() == 2 => [a[0].as_f64().unwrap_or(v.depth_um[0]), a[1].as_f64().unwrap_or(v.depth_um[depth - 1])],
+        Some(a) if a.len() == 2 => [a[0].as_f64().unwrap_or(depth_um[0]), a[1].as_f64().unwrap_or(depth_um[depth - 1])],
         _ => {
             let mut mean = vec![0.0f64; depth];
-            for image in &v.images {
-                for (z, row) in image.outer_iter().enumerate() {
-                    mean[z] += row.iter().filter(|d| d.is_finite()).map(|&d| d as f64).sum::<f64>();
+            for e in &embedded {
+                for (m, s) in mean.iter_mut().zip(&e.row_sums) {
+                    *m += s;
                 }
             }
             let skip = 8.min(depth - 1);
             let peak = (skip..depth).max_by(|&a, &b| mean[a].total_cmp(&mean[b])).unwrap_or(0);
-            let z = v.depth_um[peak];
-            [(z - 30.0).max(v.depth_um[0]), (z + 30.0).min(v.depth_um[depth - 1])]
+            let z = depth_um[peak];
+            [(z - 30.0).max(depth_um[0]), (z + 30.0).min(depth_um[depth - 1])]
         }
     };
+    let frames_embedded = embedded.len();
+    let data: Vec<String> = embedded.into_iter().map(|e| e.data).collect();
     let data_json = json!({
         "frames_total": frames_total,
-        "frames_shown": v.indices,
+        "frames_shown": indices,
         "frame_step": step,
         "depth": depth,
         "alines": alines,
-        "first_depth_um": v.depth_um[0],
-        "depth_spacing_um": v.depth_spacing_um,
-        "aline_spacing_um": v.aline_spacing_um,
-        "position_spacing_um": v.position_spacing_um,
+        "first_depth_um": depth_um[0],
+        "depth_spacing_um": axes.depth_spacing_um,
+        "aline_spacing_um": axes.aline_spacing_um,
+        "position_spacing_um": axes.position_spacing_um,
         "base_db": base,
         "step_db": STEP_DB,
         "max_q": max_q,
@@ -137,14 +285,14 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
         .replace("{{SUBTITLE}}", &escape(&subtitle))
         .replace("{{WARNINGS}}", &warnings_html(&log))
         .replace("{{IMAGES}}", &(images_html(dir, &log)? + &plots_html(dir)?))
-        .replace("{{LOG}}", &log_html(&log, &v))
+        .replace("{{LOG}}", &log_html(&log, &axes))
         // JSON inside <script>: "</" would end the element.
         .replace("{{DATA}}", &data_json.to_string().replace("</", "<\\/"));
     write_atomically(out, |tmp| {
         std::fs::write(tmp, page.as_bytes())?;
         Ok(())
     })?;
-    Ok(ReportSummary { bytes: page.len() as u64, frames_embedded: v.indices.len(), frames_total })
+    Ok(ReportSummary { bytes: page.len() as u64, frames_embedded, frames_total })
 }
 
 /// The frames as the page embeds them: 16-bit steps of [`STEP_DB`] from
@@ -154,19 +302,21 @@ pub fn write_report(dir: &Path, out: &Path, frame_step: usize) -> Result<ReportS
 pub fn embed_frames(images: &[ndarray::Array2<f32>], base: f64) -> Vec<String> {
     images
         .par_iter()
-        .map(|image| {
-            let q: Vec<u16> = image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect();
-            let mut planes = Vec::with_capacity(2 * q.len());
-            planes.extend(q.iter().map(|v| (v >> 8) as u8));
-            planes.extend(q.iter().map(|v| (v & 0xff) as u8));
-            // miniz at its fastest level: 479 kB for the sample capture
-            // against 463 kB at level 6, in a third of the time (fdeflate,
-            // quicker still, made 570 kB).
-            let mut z = flate2::write::ZlibEncoder::new(Vec::new(), flate2::Compression::fast());
-            z.write_all(&planes).expect("in memory");
-            base64::engine::general_purpose::STANDARD.encode(z.finish().expect("in memory"))
-        })
+        .map(|image| compress_planes(&image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect::<Vec<u16>>()))
         .collect()
+}
+
+/// The steps as two byte planes (high bytes, then low), zlib, base64.
+fn compress_planes(q: &[u16]) -> String {
+    let mut planes = Vec::with_capacity(2 * q.len());
+    planes.extend(q.iter().map(|v| (v >> 8) as u8));
+    planes.extend(q.iter().map(|v| (v & 0xff) as u8));
+    // miniz at its fastest level: about 475 kB for the sample capture against
+    // 463 kB at level 6, in a third of the time (fdeflate, quicker still,
+    // made 570 kB).
+    let mut z = flate2::write::ZlibEncoder::new(Vec::with_capacity(q.len()), flate2::Compression::fast());
+    z.write_all(&planes).expect("in memory");
+    base64::engine::general_purpose::STANDARD.encode(z.finish().expect("in memory"))
 }
 
 /// HTML text escaping.
@@ -246,7 +396,7 @@ fn table(rows: &[(String, String)]) -> String {
 
 /// The log in words: the capture, the stages with every parameter, the
 /// derived numbers, the frames, the checks, the timing.
-fn log_html(log: &Value, v: &crate::io::volume::DbFrames) -> String {
+fn log_html(log: &Value, v: &crate::io::volume::VolumeAxes) -> String {
     let input = &log["input"];
     let mut s = String::new();
     s += &format!(

@@ -420,6 +420,10 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     let velocity_range = planned.doppler.as_ref().map_or(0.0, |(s, _)| config.doppler.velocity_range_mm_s.unwrap_or(s.aliasing_limit_mm_s));
     let mut writer = Writer::new(config, &staging, volume, datasets, planned.en_face_range, alines, capture.full_scale, velocity_range);
     writer.positions = positions;
+    if config.output.report && config.output.volume {
+        let step = crate::report::frame_step(config.output.report_frame_step, positions, planned.depth_um.len(), alines);
+        writer.report = Some(crate::report::Embedder::new(step, config.output.volume_type == crate::pipeline::config::VolumeType::Uint16));
+    }
     let aline_spacing = config.input.aline_spacing_um.or(capture.scan.aline_spacing_um);
     let depth_spacing = planned.plan.summary.depth_spacing_um;
     writer.position_step_um = capture.scan.stored_frame_spacing_um(config.volume.average);
@@ -488,6 +492,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         outputs.push("wavelength-map.svg".into());
     }
     let report = config.output.report && config.output.volume;
+    let mut report_frames = written.report.take();
     if report {
         outputs.push("report.html".into());
     }
@@ -542,7 +547,9 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     std::fs::write(staging.path("log.json"), json).context("writing log.json")?;
     if report {
         // Drawn from what was just written (log.json, volume.h5, the PNGs).
-        crate::report::write_report(&staging.path(""), &staging.path("report.html"), config.output.report_frame_step).context("writing report.html")?;
+        // The frames were embedded while the run wrote them (no read-back).
+        let embedded = report_frames.take().expect("embedded during the write").finish()?;
+        crate::report::write_report_embedded(&staging.path(""), &staging.path("report.html"), embedded).context("writing report.html")?;
     }
     if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
         return Err(Interrupted.into());

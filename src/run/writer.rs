@@ -50,6 +50,8 @@ pub struct Written {
     /// Per method: en face rows of every position (positions × A-lines).
     pub angiography_en_face: Vec<(AngiographyMethod, Vec<f32>)>,
     pub volume: Option<VolumeWriter>,
+    /// The report's embedded frames, made beside the writing.
+    pub report: Option<crate::report::Embedder>,
 }
 
 pub struct Writer<'a> {
@@ -72,6 +74,8 @@ pub struct Writer<'a> {
     pub bscan_pixel_um: Option<(f64, f64)>,
     /// Slow-axis step between stored frames, µm, when known.
     pub position_step_um: Option<f64>,
+    /// Embeds the frames for report.html as they are written.
+    pub report: Option<crate::report::Embedder>,
     written: Written,
     grey: Vec<u8>,
 }
@@ -103,6 +107,7 @@ impl<'a> Writer<'a> {
             png_base: PngInfo::default(),
             bscan_pixel_um: None,
             position_step_um: None,
+            report: None,
             written: Written {
                 records: Vec::new(),
                 en_face: Vec::new(),
@@ -116,6 +121,7 @@ impl<'a> Writer<'a> {
                 angiography_white: methods.iter().map(|&m| (m, Vec::new())).collect(),
                 angiography_en_face: methods.iter().map(|&m| (m, Vec::new())).collect(),
                 volume: None,
+                report: None,
             },
             grey: Vec::new(),
         }
@@ -197,6 +203,9 @@ impl<'a> Writer<'a> {
                 p.saturated,
                 self.full_scale.unwrap_or(f64::NAN)
             ));
+        }
+        if let Some(e) = &self.report {
+            e.push(position, image, round6(floor));
         }
         self.written.records.push(FrameRecord {
             index: position,
@@ -290,6 +299,7 @@ impl<'a> Writer<'a> {
         }
         self.written.write_seconds += t.elapsed().as_secs_f64();
         self.written.volume = self.volume.take();
+        self.written.report = self.report.take();
         Ok(self.written)
     }
 }
