@@ -29,9 +29,9 @@ deps-test:
 	@$(MAKE) --no-print-directory deps-system APT_PACKAGES="$(APT_PACKAGES) slurm-wlm chromium chromium-driver"
 
 deps-python:
-	@if ! $(PYTHON) -c "import numpy, scipy, h5py, PIL, matplotlib, selenium, tifffile" >/dev/null 2>&1; then \
-	  echo "== installing numpy, scipy, h5py, pillow, matplotlib, selenium, tifffile (pip)"; \
-	  $(PYTHON) -m pip install -q numpy scipy h5py pillow matplotlib selenium tifffile; \
+	@if ! $(PYTHON) -c "import numpy, scipy, h5py, PIL, matplotlib, selenium, tifffile, blake3" >/dev/null 2>&1; then \
+	  echo "== installing numpy, scipy, h5py, pillow, matplotlib, selenium, tifffile, blake3 (pip)"; \
+	  $(PYTHON) -m pip install -q numpy scipy h5py pillow matplotlib selenium tifffile blake3; \
 	fi
 
 build: deps-system

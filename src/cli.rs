@@ -117,7 +117,7 @@ pub enum Command {
         #[arg(long, short, value_name = "DIR")]
         out: PathBuf,
         /// Skip captures whose outputs are complete and were made from the
-        /// same input (SHA-256) with the same pipeline.
+        /// same input (by its hash) with the same pipeline.
         #[arg(long)]
         resume: bool,
         /// Replace outputs in DIR that a different pipeline made (refused otherwise).
@@ -143,7 +143,7 @@ pub enum Command {
         #[arg(long, value_enum, default_value_t = Engine::Fused)]
         engine: Engine,
     },
-    /// Reproduce an output from its log.json alone (input checked by SHA-256).
+    /// Reproduce an output from its log.json alone (input checked by the hash the log names).
     #[command(after_help = concat!(
         "EXAMPLES:\n",
         "  fringeflow rerun out/sample/layered-phantom/log.json --out out/again\n\n",

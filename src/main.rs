@@ -182,7 +182,7 @@ fn dry_run(r: &RunRequest<'_>, config: &PipelineConfig, mine: &[PathBuf], foreig
         let refused = foreign.iter().find(|(d, _)| *d == dir).filter(|_| !r.overwrite);
         let (action, reason) = match (refused, fringeflow::run::would_skip(c, config, r.out, r.resume)) {
             (Some((_, theirs)), _) => ("refuse", Some(format!("holds outputs of pipeline sha256 {theirs} (--overwrite replaces them)"))),
-            (None, Ok(true)) => ("skip", Some("up to date (same input SHA-256 and pipeline)".to_string())),
+            (None, Ok(true)) => ("skip", Some("up to date (same input hash and pipeline)".to_string())),
             (None, Ok(false)) => ("run", None),
             (None, Err(e)) => ("fail", Some(format!("{e:#}").replace('\n', " "))),
         };
@@ -249,9 +249,10 @@ fn rerun(log_path: &Path, out: &Path, json: bool) -> ExitCode {
         Ok(s) => s,
         Err(e) => return fail(1, format!("{e:#}")),
     };
-    match fringeflow::io::hash::input_hash(&input) {
-        Ok(h) if fringeflow::io::hash::same_input(sha, &h) => {}
-        Ok(h) => return fail(1, format!("{}: its hash is {h}, the log recorded {sha}: not the same input", input.display())),
+    // With the algorithm the log names (BLAKE3, or SHA-256).
+    match fringeflow::io::hash::verify(sha, &input) {
+        Ok((true, _)) => {}
+        Ok((false, h)) => return fail(1, format!("{}: its hash is {h}, the log recorded {sha}: not the same input", input.display())),
         Err(e) => return fail(1, format!("{}: {e}", input.display())),
     }
     let name = fringeflow::run::output_name(&input);

@@ -89,6 +89,13 @@ pub struct BenchReport {
     /// The same with `[output] volume_type = "uint16"` (half the volume bytes).
     pub end_to_end_uint16_alines_per_second: Option<f64>,
     pub end_to_end_uint16_over_pipeline: Option<f64>,
+    /// The same with no PNGs and no report (`png = false`, `report =
+    /// false`: a volume-only batch).
+    pub end_to_end_volume_only_alines_per_second: Option<f64>,
+    pub end_to_end_volume_only_over_pipeline: Option<f64>,
+    /// The default outputs with the input hashed by SHA-256 instead of BLAKE3.
+    pub end_to_end_sha256_alines_per_second: Option<f64>,
+    pub end_to_end_sha256_over_pipeline: Option<f64>,
     /// Contrast beyond intensity, in memory on the same frames taken 4 at
     /// a time as repeats of a position (same run as the pipeline figures).
     pub contrast: Vec<ContrastPoint>,
@@ -316,12 +323,17 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         std::fs::remove_dir_all(&out).ok();
         Ok(median(runs))
     };
-    let (end_to_end, end_to_end_uint16) = if opts.end_to_end {
+    let (end_to_end, end_to_end_uint16, volume_only, sha256) = if opts.end_to_end {
         let mut packed = config.clone();
         packed.output.volume_type = crate::pipeline::config::VolumeType::Uint16;
-        (Some(time_run(&config)?), Some(time_run(&packed)?))
+        let mut bare = config.clone();
+        bare.output.png = false;
+        bare.output.report = false;
+        let mut sha = config.clone();
+        sha.output.input_hash = crate::pipeline::config::InputHash::Sha256;
+        (Some(time_run(&config)?), Some(time_run(&packed)?), Some(time_run(&bare)?), Some(time_run(&sha)?))
     } else {
-        (None, None)
+        (None, None, None, None)
     };
 
     let contrast = time_contrast(&config, &capture, &plan, &frames, opts, pipe_rate)?;
@@ -349,6 +361,10 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         end_to_end_over_pipeline: end_to_end.map(|e| e / pipe_rate),
         end_to_end_uint16_alines_per_second: end_to_end_uint16,
         end_to_end_uint16_over_pipeline: end_to_end_uint16.map(|e| e / pipe_rate),
+        end_to_end_volume_only_alines_per_second: volume_only,
+        end_to_end_volume_only_over_pipeline: volume_only.map(|e| e / pipe_rate),
+        end_to_end_sha256_alines_per_second: sha256,
+        end_to_end_sha256_over_pipeline: sha256.map(|e| e / pipe_rate),
     })
 }
 
@@ -492,12 +508,20 @@ impl BenchReport {
             s += &format!("{:<44} {:>14.0}\n", format!("pipeline over {} A-lines", p.alines), p.alines_per_second);
         }
         if let (Some(e), Some(r)) = (self.end_to_end_alines_per_second, self.end_to_end_over_pipeline) {
-            s += &format!("{:<44} {:>14.0}\n", "`run` end to end (read, pipeline, PNG, volume)", e);
+            s += &format!("{:<44} {:>14.0}\n", "`run` end to end (default outputs, BLAKE3)", e);
             s += &format!("{:<44} {:>14.3}\n", "ratio end to end / in-memory pipeline", r);
         }
         if let (Some(e), Some(r)) = (self.end_to_end_uint16_alines_per_second, self.end_to_end_uint16_over_pipeline) {
             s += &format!("{:<44} {:>14.0}\n", "same, uint16 volume (half the bytes)", e);
             s += &format!("{:<44} {:>14.3}\n", "ratio (uint16 volume) / in-memory pipeline", r);
+        }
+        if let (Some(e), Some(r)) = (self.end_to_end_volume_only_alines_per_second, self.end_to_end_volume_only_over_pipeline) {
+            s += &format!("{:<44} {:>14.0}\n", "same, volume only (no PNGs, no report)", e);
+            s += &format!("{:<44} {:>14.3}\n", "ratio (volume only) / in-memory pipeline", r);
+        }
+        if let (Some(e), Some(r)) = (self.end_to_end_sha256_alines_per_second, self.end_to_end_sha256_over_pipeline) {
+            s += &format!("{:<44} {:>14.0}\n", "default outputs, input hashed by SHA-256", e);
+            s += &format!("{:<44} {:>14.3}\n", "ratio (SHA-256) / in-memory pipeline", r);
         }
         for c in &self.contrast {
             s += &format!("{:<44} {:>14.0}\n", c.workload, c.alines_per_second);

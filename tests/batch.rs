@@ -163,6 +163,45 @@ fn rerun_from_log_reproduces_the_outputs() {
     assert!(String::from_utf8_lossy(&o.stderr).contains("not the same input"));
 }
 
+/// The input hash: BLAKE3 by default, equal to the PyPI `blake3` package's
+/// digest of the file; SHA-256 with `[output] input_hash = "sha256"`, equal
+/// to Python's hashlib. A SHA-256 log reruns (verified with SHA-256), and
+/// so does a BLAKE3 one; a changed input is refused by both.
+#[test]
+fn input_hash_is_blake3_or_sha256_and_reruns_verify_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let (cap, _) = simulate_scene(dir.path(), "hashed", &small_scene(300.0, 2, 32, 512));
+    let digest = |algorithm: &str| -> String {
+        let code = format!("import {0}, sys; print({0}.{1}(open(sys.argv[1], 'rb').read()).hexdigest())", if algorithm == "blake3" { "blake3" } else { "hashlib" }, algorithm);
+        let o = Command::new("python3").arg("-c").arg(code).arg(&cap).output().expect("python3 with blake3 (make test installs it)");
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        String::from_utf8_lossy(&o.stdout).trim().to_string()
+    };
+    for (pipeline, algorithm) in [("", "blake3"), ("[output]\ninput_hash = \"sha256\"\n", "sha256")] {
+        let out = dir.path().join(format!("out-{algorithm}"));
+        run_ok(dir.path(), &[&cap], pipeline, &out);
+        let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("hashed/log.json")).unwrap()).unwrap();
+        // BLAKE3: the PyPI blake3 package (the reference implementation's
+        // bindings); SHA-256: Python's hashlib (FIPS 180-4).
+        assert_eq!(log["input_hash"].as_str().unwrap(), format!("{algorithm}:{}", digest(algorithm)));
+        let again = dir.path().join(format!("again-{algorithm}"));
+        let o = fringeflow(&["rerun", s(&out.join("hashed/log.json")), "--out", s(&again)]);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        assert_same_outputs(&out.join("hashed"), &again.join("hashed"));
+    }
+    let copy = std::fs::read(&cap).unwrap();
+    let mut changed = copy.clone();
+    let last = changed.len() - 1;
+    changed[last] ^= 1;
+    std::fs::write(&cap, &changed).unwrap();
+    for algorithm in ["blake3", "sha256"] {
+        let o = fringeflow(&["rerun", s(&dir.path().join(format!("out-{algorithm}/hashed/log.json"))), "--out", s(&dir.path().join(format!("third-{algorithm}")))]);
+        assert_eq!(o.status.code(), Some(1), "{algorithm}");
+        let e = String::from_utf8_lossy(&o.stderr);
+        assert!(e.contains("not the same input") && e.contains(&format!("{algorithm}:")), "{e}");
+    }
+}
+
 /// Runs into a 600 kB tmpfs (needs root, as CI and this machine are): the
 /// captures that do not fit fail with a clear error, nothing partial stays,
 /// and the outputs finished earlier are intact.

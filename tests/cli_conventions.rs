@@ -93,7 +93,7 @@ fn json_output_of_every_command_has_its_documented_fields() {
     let o = ff(d, &["rerun", "out/layered-phantom/log.json", "--out", "again", "--json"]);
     assert!(o.status.success(), "{}", stderr(&o));
     let v = json(&o);
-    assert!(v["input_hash"].as_str().unwrap().starts_with("sha256:"), "{v}");
+    assert!(v["input_hash"].as_str().unwrap().starts_with("blake3:"), "{v}");
     assert_eq!(v["frames"], 2);
 
     let scene = Path::new(env!("CARGO_MANIFEST_DIR")).join("sample-data/bench-mirror.toml");

@@ -130,3 +130,31 @@ fn doppler_and_angiography_images_decode() {
     decode(&["angiography".as_ref(), out.join("flow").as_os_str()]);
     decode(&["axes".as_ref(), out.join("flow").as_os_str()]);
 }
+
+/// `[output] png_compression`: `none` (stored) and `small` write the same
+/// pixels as the default `fast`, as Pillow decodes them; stored files are
+/// the biggest and `small` ones the smallest.
+#[test]
+fn png_compression_changes_size_not_pixels() {
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "layers", SCENE);
+    let mut sizes = Vec::new();
+    for effort in ["fast", "none", "small"] {
+        let out = dir.path().join(effort);
+        run_ok(dir.path(), &[&capture], &format!("[output]\npng_compression = \"{effort}\"\n"), &out);
+        sizes.push(std::fs::metadata(out.join("layers/bscan-0000.png")).unwrap().len());
+    }
+    let code = "import sys, numpy as np\nfrom PIL import Image\na, b = (np.asarray(Image.open(p)) for p in sys.argv[1:3])\nassert a.shape == b.shape and (a == b).all(), 'pixels differ'\nprint('same')";
+    for effort in ["none", "small"] {
+        let o = std::process::Command::new("python3")
+            .arg("-c")
+            .arg(code)
+            .arg(dir.path().join("fast/layers/bscan-0000.png"))
+            .arg(dir.path().join(format!("{effort}/layers/bscan-0000.png")))
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{effort}: {}", String::from_utf8_lossy(&o.stderr));
+    }
+    eprintln!("bscan-0000.png bytes: fast {}, none {}, small {}", sizes[0], sizes[1], sizes[2]);
+    assert!(sizes[1] > sizes[0] && sizes[2] < sizes[0], "{sizes:?}");
+}

@@ -320,6 +320,48 @@ pub struct OutputConfig {
     /// lateral step). Left out of the serialised pipeline when off.
     #[serde(skip_serializing_if = "is_false")]
     pub scaled_png: bool,
+    /// The digest of the input recorded in log.json: `blake3` (the default)
+    /// or `sha256` for records that require it. Left out of the serialised
+    /// pipeline when blake3.
+    #[serde(skip_serializing_if = "InputHash::is_blake3")]
+    pub input_hash: InputHash,
+    /// Deflate effort of the PNGs: `none` (stored: the least CPU, a little
+    /// bigger), `fast` (the default) or `small` (the smallest files,
+    /// slowest). Left out of the serialised pipeline when
+    /// fast. (`png = false` writes no B-scan PNGs at all.)
+    #[serde(skip_serializing_if = "PngCompression::is_fast")]
+    pub png_compression: PngCompression,
+}
+
+/// `[output] input_hash`.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum InputHash {
+    #[default]
+    Blake3,
+    Sha256,
+}
+
+impl InputHash {
+    fn is_blake3(&self) -> bool {
+        *self == InputHash::Blake3
+    }
+}
+
+/// `[output] png_compression`.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum PngCompression {
+    None,
+    #[default]
+    Fast,
+    Small,
+}
+
+impl PngCompression {
+    fn is_fast(&self) -> bool {
+        *self == PngCompression::Fast
+    }
 }
 
 fn is_false(b: &bool) -> bool {
@@ -336,7 +378,7 @@ fn is_zero(n: &usize) -> bool {
 
 impl Default for OutputConfig {
     fn default() -> Self {
-        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false, report: true, report_frame_step: 0, ome_tiff: false, scaled_png: false }
+        OutputConfig { png: true, volume: true, volume_type: VolumeType::Float32, complex: false, report: true, report_frame_step: 0, ome_tiff: false, scaled_png: false, input_hash: InputHash::Blake3, png_compression: PngCompression::Fast }
     }
 }
 

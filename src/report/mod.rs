@@ -130,7 +130,7 @@ impl Embedder {
 
     /// Stored frame `index` with its logged (rounded) noise floor.
     pub fn push(&self, index: usize, image: &Array2<f32>, noise_floor_db: f64) {
-        if index % self.step != 0 {
+        if !index.is_multiple_of(self.step) {
             return;
         }
         let image = if self.packed {

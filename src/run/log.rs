@@ -154,7 +154,7 @@ pub struct ProcessingLog {
     pub format_version: u32,
     pub tool: ToolInfo,
     pub input: InputInfo,
-    /// `sha256:<hex>` of the input file.
+    /// `blake3:<hex>` (or `sha256:<hex>`, as `[output] input_hash` asks) of the input file.
     pub input_hash: String,
     pub pipeline: PipelineConfig,
     pub pipeline_sha256: String,

@@ -111,15 +111,26 @@ pub fn would_skip(input: &Path, config: &PipelineConfig, out_root: &Path, resume
     if !resume {
         return Ok(false);
     }
-    let sha = hash::input_hash(input).with_context(|| format!("hashing {}", input.display()))?;
-    Ok(up_to_date(&out_root.join(&name), &sha, &config.sha256()))
+    let sha = hash::input_hash_with(input, hash_algorithm(config)).with_context(|| format!("hashing {}", input.display()))?;
+    Ok(up_to_date(&out_root.join(&name), input, &sha, &config.sha256()))
 }
 
-fn up_to_date(dir: &Path, sha256: &str, pipeline_sha256: &str) -> bool {
+/// The digest `[output] input_hash` asks for.
+pub fn hash_algorithm(config: &PipelineConfig) -> hash::HashAlgorithm {
+    match config.output.input_hash {
+        crate::pipeline::config::InputHash::Blake3 => hash::HashAlgorithm::Blake3,
+        crate::pipeline::config::InputHash::Sha256 => hash::HashAlgorithm::Sha256,
+    }
+}
+
+/// `now` is the input's hash with the configured algorithm; a log made with
+/// the other one is checked by hashing the input again with it.
+fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str) -> bool {
     let Ok(bytes) = std::fs::read(dir.join("log.json")) else { return false };
     let Ok(log) = serde_json::from_slice::<serde_json::Value>(&bytes) else { return false };
     let recorded = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str()).unwrap_or("");
-    hash::same_input(recorded, sha256)
+    let same = if hash::HashAlgorithm::of(recorded) == hash::HashAlgorithm::of(now) { hash::same_input(recorded, now) } else { hash::verify(recorded, input).is_ok_and(|(same, _)| same) };
+    same
         && log["pipeline_sha256"] == pipeline_sha256
         && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file())))
 }
@@ -174,12 +185,12 @@ fn open(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: &RunContext
         bail!("{problem}");
     }
     crate::io::staging::check_replaceable(&out_root.join(&name))?;
-    let sha_now = if ctx.resume { Some(hash::input_hash(input).with_context(|| format!("hashing {}", input.display()))?) } else { None };
+    let sha_now = if ctx.resume { Some(hash::input_hash_with(input, hash_algorithm(config)).with_context(|| format!("hashing {}", input.display()))?) } else { None };
     let pipeline_sha256 = config.sha256();
     if let Some(p) = ctx.capture_progress {
         p.set_length(capture.frames as u64);
     }
-    if ctx.resume && up_to_date(&out_root.join(&name), sha_now.as_deref().unwrap_or(""), &pipeline_sha256) {
+    if ctx.resume && up_to_date(&out_root.join(&name), input, sha_now.as_deref().unwrap_or(""), &pipeline_sha256) {
         return Ok(Opening::UpToDate(capture.frames, capture.alines));
     }
     let (frames, average) = (capture.frames, config.volume.average);
@@ -406,11 +417,13 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             return Ok(CaptureOutcome { output_dir: out_root.join(output_name(input)), frames, alines, seconds: 0.0, skipped: true, warnings: Vec::new(), background_method: None });
         }
     };
-    // The input's SHA-256 is computed on its own thread while the frames
-    // are processed (unless resume needed it up front).
+    // The input's hash is computed on its own thread while the frames are
+    // processed (unless resume needed it up front); on that thread only,
+    // never the pool, which a batch may have blocked on this capture.
     let hasher = opened.sha_now.is_none().then(|| {
         let p = input.to_path_buf();
-        std::thread::spawn(move || hash::input_hash(&p).with_context(|| format!("hashing {}", p.display())))
+        let algorithm = hash_algorithm(config);
+        std::thread::spawn(move || hash::input_hash_with(&p, algorithm).with_context(|| format!("hashing {}", p.display())))
     });
     let planned = plan(&opened, config)?;
     let staging = Staging::new(out_root, &opened.name)?;
@@ -428,6 +441,11 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     let depth_spacing = planned.plan.summary.depth_spacing_um;
     writer.position_step_um = capture.scan.stored_frame_spacing_um(config.volume.average);
     writer.png_base = png_base_info(&opened.pipeline_sha256, depth_spacing, aline_spacing, writer.position_step_um);
+    writer.png_base.effort = match config.output.png_compression {
+        crate::pipeline::config::PngCompression::None => crate::io::png::Effort::Stored,
+        crate::pipeline::config::PngCompression::Fast => crate::io::png::Effort::Fast,
+        crate::pipeline::config::PngCompression::Small => crate::io::png::Effort::Small,
+    };
     writer.bscan_pixel_um = aline_spacing.map(|a| (a, depth_spacing));
     let en_face_pixel_um = writer.en_face_pixel_um();
     let en_face_base = writer.png_base.clone();
