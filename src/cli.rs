@@ -300,6 +300,11 @@ pub enum Command {
         /// Skip timing the simulator against its scalar reference.
         #[arg(long)]
         no_simulator: bool,
+        /// Kernel variant for the main figures: avx512, avx2 or scalar (as
+        /// FRINGEFLOW_KERNEL; default the best this CPU has). Every variant
+        /// is also timed on its own line.
+        #[arg(long, value_name = "VARIANT")]
+        kernel: Option<String>,
         /// Also write the report as JSON to this file.
         #[arg(long, value_name = "FILE")]
         report: Option<PathBuf>,

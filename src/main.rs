@@ -549,7 +549,14 @@ fn simulate(scene_path: &Path, out: &Path, json: bool, quiet: bool) -> ExitCode 
 }
 
 #[allow(clippy::too_many_arguments)]
-fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: usize, no_scaling: bool, no_end_to_end: bool, no_simulator: bool, report_path: Option<PathBuf>, json: bool, quiet: bool) -> ExitCode {
+fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: usize, no_scaling: bool, no_end_to_end: bool, no_simulator: bool, kernel: Option<String>, report_path: Option<PathBuf>, json: bool, quiet: bool) -> ExitCode {
+    if let Some(k) = &kernel {
+        match fringeflow::pipeline::kernel::Variant::parse(k) {
+            Some(v) if v.supported() => fringeflow::pipeline::kernel::force(Some(v)),
+            Some(v) => return fail(2, format!("--kernel {}: this CPU lacks it (it has {})", v.name(), fringeflow::pipeline::kernel::supported().iter().map(|v| v.name()).collect::<Vec<_>>().join(", "))),
+            None => return fail(2, format!("--kernel {k}: not a kernel variant (avx512, avx2 or scalar)")),
+        }
+    }
     if let Some(c) = &capture {
         if !c.is_file() {
             return fail(2, format!("--capture {}: no such file", c.display()));
@@ -666,6 +673,9 @@ fn main() -> ExitCode {
         Ok(c) => c,
         Err(e) => e.exit(),
     };
+    if let Err(e) = fringeflow::pipeline::kernel::check_env() {
+        return fail(2, e);
+    }
     if let Some(n) = cli.threads {
         if n == 0 {
             return fail(2, "--threads: give a whole number of at least 1");
@@ -724,8 +734,8 @@ fn main() -> ExitCode {
         }
         Command::Simulate { scene, out, json } => simulate(&scene, &out, json, quiet),
         Command::Measure(m) => measure(m),
-        Command::Bench { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, report, json } => {
-            bench(capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, report, json, quiet)
+        Command::Bench { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, kernel, report, json } => {
+            bench(capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, kernel, report, json, quiet)
         }
         Command::Calibrate(c) => calibration_commands::calibrate(c),
         Command::Dispersion(c) => calibration_commands::dispersion(c),

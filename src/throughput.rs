@@ -54,6 +54,14 @@ pub struct Machine {
     pub avx2_fma: bool,
 }
 
+/// The fused pipeline with one kernel variant forced (same run).
+#[derive(Debug, Clone, Serialize)]
+pub struct VariantPoint {
+    pub variant: &'static str,
+    pub alines_per_second: f64,
+    pub over_fft: f64,
+}
+
 #[derive(Debug, Clone, Serialize)]
 pub struct ScalingPoint {
     pub alines: usize,
@@ -72,6 +80,11 @@ pub struct BenchReport {
     pub bare_fft_alines_per_second: f64,
     pub pipeline_alines_per_second: f64,
     pub pipeline_over_fft: f64,
+    /// The variant the figures above ran (the best the CPU has, unless
+    /// forced by `FRINGEFLOW_KERNEL` or `--kernel`).
+    pub kernel: &'static str,
+    /// Every variant this CPU has, forced in turn, same run.
+    pub variants: Vec<VariantPoint>,
     /// The same with the capture's recorded background instead of the
     /// per-frame median (what the default pipeline does when a capture has one).
     pub capture_background_alines_per_second: f64,
@@ -288,6 +301,21 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         median(runs)
     };
 
+    // Every variant this CPU runs, forced in turn, then back to the one
+    // the figures above used.
+    let kernel = fused.variant;
+    let variants: Vec<VariantPoint> = crate::pipeline::kernel::supported()
+        .into_iter()
+        .map(|v| {
+            crate::pipeline::kernel::force(Some(v));
+            let f = FusedPlan::new(&plan);
+            time_pipeline(&f, &frames, alines_per_frame, depth, opts.alines.min(20_000));
+            let rate = median((0..opts.repeats).map(|_| time_pipeline(&f, &frames, alines_per_frame, depth, opts.alines).0).collect());
+            VariantPoint { variant: v.name(), alines_per_second: rate, over_fft: rate / fft_rate }
+        })
+        .collect();
+    crate::pipeline::kernel::force(Some(kernel));
+
     // The plain f64 stage chain on a smaller count.
     let reference_rate = {
         let timer = plan.new_timer();
@@ -351,6 +379,8 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         bare_fft_alines_per_second: fft_rate,
         pipeline_alines_per_second: pipe_rate,
         pipeline_over_fft: pipe_rate / fft_rate,
+        kernel: kernel.name(),
+        variants,
         capture_background_alines_per_second: capture_bg_rate,
         capture_background_over_fft: capture_bg_rate / fft_rate,
         pipeline_parts_seconds: parts,
@@ -499,8 +529,11 @@ impl BenchReport {
         );
         s += &format!("{:<44} {:>14}\n", "", "A-lines/s");
         s += &format!("{:<44} {:>14.0}\n", "bare rustfft forward FFT (f32)", self.bare_fft_alines_per_second);
-        s += &format!("{:<44} {:>14.0}\n", "full pipeline (fused f32 path)", self.pipeline_alines_per_second);
+        s += &format!("{:<44} {:>14.0}\n", format!("full pipeline (fused f32 path, {})", self.kernel), self.pipeline_alines_per_second);
         s += &format!("{:<44} {:>14.3}\n", "ratio pipeline / bare FFT", self.pipeline_over_fft);
+        for v in &self.variants {
+            s += &format!("{:<44} {:>14.0}   ratio {:.3}\n", format!("  forced kernel variant {}", v.variant), v.alines_per_second, v.over_fft);
+        }
         s += &format!("{:<44} {:>14.0}\n", "same, capture background instead of median", self.capture_background_alines_per_second);
         s += &format!("{:<44} {:>14.3}\n", "ratio (capture background) / bare FFT", self.capture_background_over_fft);
         s += &format!("{:<44} {:>14.0}\n", "plain f64 stage chain (reference)", self.reference_alines_per_second);

@@ -7,6 +7,7 @@ use common::*;
 use fringeflow::io::capture::Capture;
 use fringeflow::pipeline::config::PipelineConfig;
 use fringeflow::pipeline::fused::FusedPlan;
+use fringeflow::pipeline::kernel;
 use fringeflow::pipeline::plan::{CaptureGeometry, Plan};
 use ndarray::Array2;
 use rustfft::num_complex::Complex32;
@@ -46,7 +47,7 @@ scatterer_reflectivity = 1e-7
 }
 
 /// Largest |A_fast − A_ref| over the frame divided by the peak of A_ref.
-fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize) -> f64 {
+fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize, variant: kernel::Variant) -> f64 {
     let (raw, _) = capture.read_raw_frame(frame).unwrap();
     let source = capture.background.clone().unwrap_or_else(|| fringeflow::stages::background::mean_spectrum(raw.to_f64().view()));
     let plan = Plan::new(
@@ -65,6 +66,8 @@ fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize) ->
     // Both variants of the fast path: lane order with the lane FFT (on
     // CPUs with AVX-512) and rustfft per A-line (elsewhere).
     let lane = FusedPlan::new(&plan);
+    assert_eq!(lane.variant, variant, "the forced variant is the one planned");
+    assert_eq!(lane.uses_lane_fft(), variant == kernel::Variant::Avx512 && plan.summary.fft_length.is_power_of_two(), "lane FFT only in the AVX-512 variant");
     let uses_lane_fft = lane.uses_lane_fft();
     let mut worst = 0.0f64;
     let mut outputs = Vec::new();
@@ -93,7 +96,7 @@ fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize) ->
     let between = outputs[0].iter().zip(outputs[1].iter()).map(|(&a, &b)| (amp(a) - amp(b)).abs()).fold(0.0, f64::max) / peak;
     eprintln!("  lane against per-line rustfft: {between:.2e}");
     if !uses_lane_fft {
-        eprintln!("  (no AVX-512 here: the lane FFT path was not exercised)");
+        eprintln!("  (the lane FFT path is not exercised in this variant or at this length)");
     }
     worst
 }
@@ -111,19 +114,29 @@ fn fused_path_matches_the_reference_stages() {
         ("shaping, Gaussian window, 2x padding, crop", "[shaping]\nenabled = true\ncentre_nm = 840.0\nfwhm_nm = 45.0\n[window]\nkind = \"gaussian\"\n[fft]\nzero_padding = 2\ncrop_um = [100.0, 1200.0]\n"),
         ("1500 k samples, Tukey", "[k_linearization]\nsamples = 1500\n[window]\nkind = \"tukey\"\n"),
     ];
-    for (path, kind) in [(&u16_capture, "u16"), (&f64_capture, "f64")] {
-        for (name, text) in settings {
-            let config = PipelineConfig::from_str("test", text).unwrap();
-            let capture = Capture::open(path, &config.input).unwrap();
-            if capture.background.is_none() && text.is_empty() {
-                continue; // "auto" falls back to the median, covered above
+    // Every kernel variant this CPU has (an AVX-512 machine also runs the
+    // AVX2 and scalar code), forced in turn.
+    let _only_this_test_forces = FORCING.lock().unwrap();
+    for variant in kernel::supported() {
+        kernel::force(Some(variant));
+        for (path, kind) in [(&u16_capture, "u16"), (&f64_capture, "f64")] {
+            for (name, text) in settings {
+                let config = PipelineConfig::from_str("test", text).unwrap();
+                let capture = Capture::open(path, &config.input).unwrap();
+                if capture.background.is_none() && text.is_empty() {
+                    continue; // "auto" falls back to the median, covered above
+                }
+                let worst = worst_difference(&capture, &config, 1, variant);
+                eprintln!("variant {}: {kind} {name}: max |ΔA|/peak = {worst:.2e}", variant.name());
+                assert!(worst <= 1e-4, "variant {}: {kind} {name}: {worst:e}", variant.name());
             }
-            let worst = worst_difference(&capture, &config, 1);
-            eprintln!("{kind} {name}: max |ΔA|/peak = {worst:.2e}");
-            assert!(worst <= 1e-4, "{kind} {name}: {worst:e}");
         }
     }
+    kernel::force(None);
 }
+
+/// Tests of this file that force a kernel variant take it in turn.
+static FORCING: std::sync::Mutex<()> = std::sync::Mutex::new(());
 
 /// `run` end to end with both engines: the volumes agree within 1e-4 of the
 /// peak amplitude and each log names its engine.
@@ -133,24 +146,31 @@ fn run_with_either_engine_gives_the_same_volume() {
     let (capture, _) = simulate_scene(dir.path(), "cap", &scene("u16", 16));
     let pipeline = dir.path().join("p.toml");
     std::fs::write(&pipeline, "[background]\nmethod = \"median\"\n[dispersion]\na2 = 12.0\n").unwrap();
-    let mut volumes = Vec::new();
-    for engine in ["fused", "reference"] {
-        let out = dir.path().join(engine);
-        let o = std::process::Command::new(bin())
-            .env("HDF5_USE_FILE_LOCKING", "FALSE")
-            .args(["run", capture.to_str().unwrap(), "--pipeline", pipeline.to_str().unwrap(), "--out", out.to_str().unwrap(), "--quiet", "--engine", engine])
-            .output()
-            .unwrap();
+    // The reference engine, then the fast path with every variant this CPU
+    // has forced through FRINGEFLOW_KERNEL; each log names what ran.
+    let run = |engine: &str, variant: Option<kernel::Variant>| {
+        let out = dir.path().join(format!("{engine}-{}", variant.map_or("none", |v| v.name())));
+        let mut command = std::process::Command::new(bin());
+        command.env("HDF5_USE_FILE_LOCKING", "FALSE").args(["run", capture.to_str().unwrap(), "--pipeline", pipeline.to_str().unwrap(), "--out", out.to_str().unwrap(), "--quiet", "--engine", engine]);
+        if let Some(v) = variant {
+            command.env(kernel::ENV, v.name());
+        }
+        let o = command.output().unwrap();
         assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
         let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("cap/log.json")).unwrap()).unwrap();
         assert_eq!(log["engine"], engine);
-        volumes.push(read_volume(&out.join("cap/volume.h5")));
-    }
+        assert_eq!(log["kernel"].as_str(), variant.map(|v| v.name()), "the log names the variant that ran");
+        read_volume(&out.join("cap/volume.h5"))
+    };
+    let reference = run("reference", None);
     let amp = |d: f32| 10f64.powf(d as f64 / 20.0);
-    let peak = volumes[1].db.iter().map(|&d| amp(d)).fold(0.0, f64::max);
-    let worst = volumes[0].db.iter().zip(volumes[1].db.iter()).map(|(&a, &b)| (amp(a) - amp(b)).abs()).fold(0.0, f64::max) / peak;
-    eprintln!("run, fused vs reference engine: max |ΔA|/peak = {worst:.2e}");
-    assert!(worst <= 1e-4, "{worst:e}");
+    let peak = reference.db.iter().map(|&d| amp(d)).fold(0.0, f64::max);
+    for variant in kernel::supported() {
+        let fused = run("fused", Some(variant));
+        let worst = fused.db.iter().zip(reference.db.iter()).map(|(&a, &b)| (amp(a) - amp(b)).abs()).fold(0.0, f64::max) / peak;
+        eprintln!("run, fused ({}) vs reference engine: max |ΔA|/peak = {worst:.2e}", variant.name());
+        assert!(worst <= 1e-4, "{}: {worst:e}", variant.name());
+    }
 }
 
 #[test]

@@ -243,6 +243,8 @@ struct Workspace {
 
 /// The fused plan, built from a reference [`Plan`].
 pub struct FusedPlan {
+    /// The kernel variant this plan runs (see [`super::kernel`]).
+    pub variant: super::kernel::Variant,
     pixels: usize,
     k_samples: usize,
     fft_length: usize,
@@ -320,9 +322,13 @@ impl FusedPlan {
             Some(BackgroundSource::FrameMedian) => Reference::Median,
         };
         let tables = PixelOrderSpline::new(&plan.wavelength_nm, plan.resampling.k_min_per_um, plan.resampling.k_max_per_um, n);
-        let fft = FftPlanner::<f32>::new().plan_fft_forward(s.fft_length);
+        let variant = super::kernel::active();
+        // rustfft picks its AVX kernels itself; the scalar variant asks for
+        // its scalar planner.
+        let fft = if variant >= super::kernel::Variant::Avx2 { FftPlanner::<f32>::new().plan_fft_forward(s.fft_length) } else { rustfft::FftPlannerScalar::<f32>::new().plan_fft_forward(s.fft_length) };
         let lane_fft = if lane_fft_available() { LaneFft::new(s.fft_length) } else { None };
         FusedPlan {
+            variant,
             pixels: s.pixels,
             k_samples: n,
             fft_length: s.fft_length,
@@ -577,7 +583,7 @@ impl FusedPlan {
                 unsafe { self.block_lanes(lane_fft, spectra, reference, sink, ws, timer) };
                 return;
             }
-            if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+            if super::kernel::avx2() {
                 // SAFETY: the CPU supports the features the function is compiled for.
                 unsafe { self.block_avx2(spectra, reference, sink, ws, timer) };
                 return;
@@ -593,7 +599,7 @@ impl FusedPlan {
     fn transpose_u16_in<T: Sample>(&self, spectra: &[T], lines: usize, reference: &[f32], y: &mut [Lane]) -> bool {
         #[cfg(target_arch = "x86_64")]
         {
-            if lines == LANES && std::any::TypeId::of::<T>() == std::any::TypeId::of::<u16>() && std::is_x86_feature_detected!("avx2") {
+            if lines == LANES && std::any::TypeId::of::<T>() == std::any::TypeId::of::<u16>() && super::kernel::avx2() {
                 // SAFETY: T is u16 (same size and alignment), checked above.
                 let samples = unsafe { std::slice::from_raw_parts(spectra.as_ptr().cast::<u16>(), spectra.len()) };
                 let pixels = self.pixels;
@@ -630,7 +636,7 @@ impl FusedPlan {
     fn eval_whole_tiles(&self, y: &[Lane], m: &[Lane], lines: usize, stride: usize, buf: &mut [Complex32]) -> usize {
         #[cfg(target_arch = "x86_64")]
         {
-            if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+            if super::kernel::avx2() {
                 let whole = self.k_samples / 8 * 8;
                 // SAFETY: AVX2 and FMA are present; indices are checked inside.
                 unsafe { avx2::eval_scatter(&self.interpolation().head(whole), y, m, lines, stride, buf) };
@@ -851,7 +857,7 @@ impl FusedPlan {
                 let mut first = 0;
                 #[cfg(target_arch = "x86_64")]
                 {
-                    if lines == LANES && std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+                    if lines == LANES && super::kernel::avx2() {
                         first = depth / 8 * 8;
                         let to_db = avx2::ToDb { log2: &self.log2, power_floor: self.power_floor, db_offset: self.db_offset };
                         // SAFETY: AVX2 and FMA are present; the reads are in
@@ -897,18 +903,18 @@ pub fn simd_path() -> &'static str {
         if lane_fft_available() {
             return "AVX-512 lane FFT (AVX-512F/BW, AVX2, FMA)";
         }
-        if std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma") {
+        if super::kernel::avx2() {
             return "AVX2 + FMA";
         }
     }
-    "portable (no AVX2)"
+    "scalar (portable code, rustfft's scalar FFT)"
 }
 
 /// Whether this CPU runs the lane FFT path (AVX-512F/BW besides AVX2 and FMA).
 fn lane_fft_available() -> bool {
     #[cfg(target_arch = "x86_64")]
     {
-        std::is_x86_feature_detected!("avx512f") && std::is_x86_feature_detected!("avx512bw") && std::is_x86_feature_detected!("avx2") && std::is_x86_feature_detected!("fma")
+        super::kernel::avx512()
     }
     #[cfg(not(target_arch = "x86_64"))]
     false
@@ -1183,7 +1189,7 @@ unsafe impl Sync for ImagePtr {}
 fn transpose_in(rows: &[f32], pixels: usize, stride: usize, reference: &[f32], y: &mut [Lane]) {
     #[cfg(target_arch = "x86_64")]
     {
-        if std::is_x86_feature_detected!("avx2") {
+        if super::kernel::avx2() {
             let whole = pixels / 8 * 8;
             // SAFETY: AVX2 is present; every access is in bounds (checked
             // by the slicing below).
@@ -1209,7 +1215,7 @@ fn transpose_in(rows: &[f32], pixels: usize, stride: usize, reference: &[f32], y
 fn scatter_tile(tile: &[Lane; 8], width: usize, factor: &[Complex32], lines: usize, stride: usize, j0: usize, buf: &mut [Complex32]) {
     #[cfg(target_arch = "x86_64")]
     {
-        if width == 8 && std::is_x86_feature_detected!("avx2") {
+        if width == 8 && super::kernel::avx2() {
             // SAFETY: AVX2 is present; the destination ranges are in bounds
             // (j0 + 8 ≤ k ≤ len, l < lines ≤ LANES, buf holds LANES·len).
             unsafe { avx2::scatter_tile(tile, factor, lines, stride, j0, buf) };
@@ -1557,7 +1563,7 @@ fn near_pass_available() -> bool {
         if NEAR_PASS_DISABLED.with(|d| d.get()) {
             return false;
         }
-        std::is_x86_feature_detected!("avx512f") && std::is_x86_feature_detected!("avx512bw")
+        super::kernel::avx512()
     }
     #[cfg(not(target_arch = "x86_64"))]
     false
@@ -1650,7 +1656,7 @@ fn median_u16_near(data: &[u16], rows: usize, pixels: usize, dst: &mut [f32], hi
 fn median_u16_chunk(data: &[u16], rows: usize, pixels: usize, p0: usize, dst: &mut [f32], hint: &mut [u16], has_hint: bool) {
     #[cfg(target_arch = "x86_64")]
     {
-        if std::is_x86_feature_detected!("avx2") {
+        if super::kernel::avx2() {
             // SAFETY: the CPU supports AVX2.
             unsafe { median_u16_chunk_avx2(data, rows, pixels, p0, dst, hint, has_hint) };
             return;

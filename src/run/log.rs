@@ -160,6 +160,10 @@ pub struct ProcessingLog {
     pub pipeline_sha256: String,
     /// `fused` (f32 fast path) or `reference` (f64 stage chain).
     pub engine: &'static str,
+    /// The fast path's kernel variant (`avx512`, `avx2`, `scalar`; forced
+    /// with `FRINGEFLOW_KERNEL`); absent for the reference engine.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub kernel: Option<&'static str>,
     pub derived: PlanSummary,
     /// The automatic dispersion estimate, when `dispersion.method = "auto"`.
     pub dispersion_estimate: Option<crate::calibration::dispersion::DispersionEstimate>,

@@ -542,6 +542,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         pipeline: config.clone(),
         pipeline_sha256: opened.pipeline_sha256.clone(),
         engine: if ctx.reference_engine { "reference" } else { "fused" },
+        kernel: (!ctx.reference_engine).then(|| crate::pipeline::kernel::active().name()),
         derived: planned.plan.summary.clone(),
         dispersion_estimate: planned.dispersion_estimate.clone(),
         frames: std::mem::take(&mut written.records),

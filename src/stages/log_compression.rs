@@ -109,7 +109,7 @@ pub fn peak_db(db: &[f32]) -> f32 {
 pub fn grey_levels_u8(db: &[f32], black_db: f64, white_db: f64, out: &mut [u8]) {
     #[cfg(target_arch = "x86_64")]
     {
-        if std::is_x86_feature_detected!("avx2") {
+        if crate::pipeline::kernel::avx2() {
             // SAFETY: the CPU supports AVX2.
             unsafe { grey_levels_u8_avx2(db, black_db, white_db, out) };
             return;
