@@ -32,20 +32,11 @@ pub fn save_figure(path: &Path, figure: &impl Figure) -> Result<()> {
         return write_atomically(path, |tmp| Ok(std::fs::write(tmp, svg.as_bytes())?));
     }
     let (width, height) = figure.size();
-    let mut buf = vec![255u8; (width * height * 3) as usize];
-    {
-        let root = BitMapBackend::with_buffer(&mut buf, (width, height)).into_drawing_area();
-        root.fill(&WHITE).map_err(err)?;
-        figure.draw(&root)?;
-        root.present().map_err(err)?;
-    }
-    let info = figure.info();
-    write_atomically(path, |tmp| crate::io::png::write_rgb8(tmp, width as usize, height as usize, &buf, &info))
+    save_plot(path, width, height, &figure.info(), |root| figure.draw(root))
 }
 
 /// Draws a `width` × `height` PNG with `draw` and writes it to `path`
-/// (temp file and rename) carrying `info`: for plots drawn on the bitmap
-/// only.
+/// (temp file and rename) carrying `info`.
 pub fn save_plot<F>(path: &Path, width: u32, height: u32, info: &PngInfo, draw: F) -> Result<()>
 where
     F: FnOnce(&DrawingArea<BitMapBackend<'_>, Shift>) -> Result<()>,

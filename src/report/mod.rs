@@ -84,7 +84,7 @@ pub struct EmbeddedFrame {
 
 /// Quantises and compresses frame `index` (depth × A-lines, dB) from `base` dB.
 pub fn embed_frame(index: usize, image: &Array2<f32>, base: f64) -> EmbeddedFrame {
-    let q: Vec<u16> = image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect();
+    let q = quantise(image, base);
     let max_q = q.iter().copied().max().unwrap_or(0);
     let row_sums = image.outer_iter().map(|row| row.iter().filter(|d| d.is_finite()).map(|&d| d as f64).sum::<f64>()).collect();
     EmbeddedFrame { index, data: compress_planes(&q), max_q, row_sums }
@@ -299,11 +299,16 @@ fn write_report_from(dir: &Path, out: &Path, requested_step: usize, embedded: Op
 /// `base` dB (lower and NaN values as 0), two byte planes (high bytes,
 /// then low bytes: the high plane is nearly constant and compresses to
 /// almost nothing), zlib, base64.
-pub fn embed_frames(images: &[ndarray::Array2<f32>], base: f64) -> Vec<String> {
+pub fn embed_frames(images: &[Array2<f32>], base: f64) -> Vec<String> {
     images
         .par_iter()
-        .map(|image| compress_planes(&image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect::<Vec<u16>>()))
+        .map(|image| compress_planes(&quantise(image, base)))
         .collect()
+}
+
+/// dB as steps of [`STEP_DB`] from `base` (lower and NaN values as 0).
+fn quantise(image: &Array2<f32>, base: f64) -> Vec<u16> {
+    image.iter().map(|&d| if d.is_finite() { ((d as f64 - base) / STEP_DB).round().clamp(0.0, 65535.0) as u16 } else { 0 }).collect()
 }
 
 /// The steps as two byte planes (high bytes, then low), zlib, base64.
