@@ -108,8 +108,8 @@ fn bench_fused(c: &mut Criterion) {
         let timer = fused.new_timer();
         group.bench_function(name, |b| b.iter(|| fused.process_frame_image(input_u16.view(), &mut image, &timer)));
     }
-    let mut hint = Vec::new();
-    group.bench_function("median_background_u16", |b| b.iter(|| u16::median_columns(input_u16.view(), &mut hint)));
+    let mut hint = fringeflow::pipeline::fused::MedianHint::default();
+    group.bench_function("median_background_u16", |b| b.iter(|| u16::median_columns(input_u16.view(), fringeflow::pipeline::kernel::best(), &mut hint)));
     let fft = rustfft::FftPlanner::<f32>::new().plan_fft_forward(PIXELS);
     let source = vec![rustfft::num_complex::Complex32::new(0.5, 0.1); LANES * PIXELS];
     let mut buf = source.clone();

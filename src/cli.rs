@@ -300,9 +300,12 @@ pub enum Command {
         /// Skip timing the simulator against its scalar reference.
         #[arg(long)]
         no_simulator: bool,
+        /// Skip the camera-size table (1024, 2048, 4096 and 2000 pixels, every variant).
+        #[arg(long)]
+        no_sizes: bool,
         /// Kernel variant for the main figures: avx512, avx2 or scalar (as
-        /// FRINGEFLOW_KERNEL; default the best this CPU has). Every variant
-        /// is also timed on its own line.
+        /// FRINGEFLOW_KERNEL; default: the one measured fastest on the plan).
+        /// Every variant is also timed on its own line.
         #[arg(long, value_name = "VARIANT")]
         kernel: Option<String>,
         /// Also write the report as JSON to this file.

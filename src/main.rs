@@ -261,6 +261,13 @@ fn rerun(log_path: &Path, out: &Path, json: bool) -> ExitCode {
         Err(e) => return fail(1, format!("{}: {e:#}", input.display())),
     };
     lock.clean_stale_staging(out, &name);
+    // The kernel variant the log names, where this CPU has it (so the
+    // rerun computes the same bits), unless FRINGEFLOW_KERNEL says otherwise.
+    if fringeflow::pipeline::kernel::forced().is_none() {
+        if let Some(v) = log["kernel"].as_str().and_then(fringeflow::pipeline::kernel::Variant::parse).filter(|v| v.supported()) {
+            fringeflow::pipeline::kernel::force(Some(v));
+        }
+    }
     let ctx = fringeflow::run::RunContext { reference_engine: log["engine"] == "reference", cancel: Some(&stop.any), ..Default::default() };
     let result = fringeflow::run::process_capture(&input, &config, out, ctx);
     drop(lock);
@@ -549,7 +556,7 @@ fn simulate(scene_path: &Path, out: &Path, json: bool, quiet: bool) -> ExitCode 
 }
 
 #[allow(clippy::too_many_arguments)]
-fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: usize, no_scaling: bool, no_end_to_end: bool, no_simulator: bool, kernel: Option<String>, report_path: Option<PathBuf>, json: bool, quiet: bool) -> ExitCode {
+fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: usize, no_scaling: bool, no_end_to_end: bool, no_simulator: bool, no_sizes: bool, kernel: Option<String>, report_path: Option<PathBuf>, json: bool, quiet: bool) -> ExitCode {
     if let Some(k) = &kernel {
         match fringeflow::pipeline::kernel::Variant::parse(k) {
             Some(v) if v.supported() => fringeflow::pipeline::kernel::force(Some(v)),
@@ -571,6 +578,7 @@ fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: us
         end_to_end: !no_end_to_end,
         simulator: !no_simulator,
         progress: !quiet && std::io::stderr().is_terminal(),
+        sizes: !no_sizes,
     };
     let report = match fringeflow::throughput::run_bench(&opts) {
         Ok(r) => r,
@@ -673,7 +681,7 @@ fn main() -> ExitCode {
         Ok(c) => c,
         Err(e) => e.exit(),
     };
-    if let Err(e) = fringeflow::pipeline::kernel::check_env() {
+    if let Err(e) = fringeflow::pipeline::kernel::check_env().and_then(|_| fringeflow::pipeline::fused::tune::check_env()) {
         return fail(2, e);
     }
     if let Some(n) = cli.threads {
@@ -734,8 +742,8 @@ fn main() -> ExitCode {
         }
         Command::Simulate { scene, out, json } => simulate(&scene, &out, json, quiet),
         Command::Measure(m) => measure(m),
-        Command::Bench { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, kernel, report, json } => {
-            bench(capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, kernel, report, json, quiet)
+        Command::Bench { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, no_sizes, kernel, report, json } => {
+            bench(capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, no_sizes, kernel, report, json, quiet)
         }
         Command::Calibrate(c) => calibration_commands::calibrate(c),
         Command::Dispersion(c) => calibration_commands::dispersion(c),

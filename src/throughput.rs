@@ -44,7 +44,15 @@ pub struct BenchOptions {
     pub simulator: bool,
     /// Show a progress bar while the bench capture is simulated.
     pub progress: bool,
+    /// Also time every variant at each camera size of [`SIZES`].
+    pub sizes: bool,
 }
+
+/// Camera sizes timed side by side (pixels per spectrum; 2000 is not a
+/// power of two, so its FFT is rustfft's in every variant).
+pub const SIZES: [usize; 4] = [1024, 2048, 4096, 2000];
+/// A-lines per frame of the synthetic frames of the size table.
+const SIZE_FRAME_ALINES: usize = 1000;
 
 #[derive(Debug, Clone, Serialize)]
 pub struct Machine {
@@ -60,6 +68,22 @@ pub struct VariantPoint {
     pub variant: &'static str,
     pub alines_per_second: f64,
     pub over_fft: f64,
+}
+
+/// One camera size: the bare FFT of its length, the fused pipeline with the
+/// measured choice and with each variant forced, same run.
+#[derive(Debug, Clone, Serialize)]
+pub struct SizePoint {
+    pub pixels: usize,
+    pub fft_length: usize,
+    pub bare_fft_alines_per_second: f64,
+    /// The variant the plan chose by measurement, and its rate.
+    pub chosen: &'static str,
+    pub alines_per_second: f64,
+    pub over_fft: f64,
+    pub variants: Vec<VariantPoint>,
+    /// Where the chosen variant's time goes (thread-seconds per part).
+    pub parts_seconds: serde_json::Map<String, serde_json::Value>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -80,11 +104,15 @@ pub struct BenchReport {
     pub bare_fft_alines_per_second: f64,
     pub pipeline_alines_per_second: f64,
     pub pipeline_over_fft: f64,
-    /// The variant the figures above ran (the best the CPU has, unless
-    /// forced by `FRINGEFLOW_KERNEL` or `--kernel`).
+    /// The variant the figures above ran: the plan's measured choice,
+    /// unless forced by `FRINGEFLOW_KERNEL` or `--kernel`.
     pub kernel: &'static str,
+    /// How it was chosen, with the plan-time measurement's rates.
+    pub kernel_choice: crate::pipeline::fused::tune::Choice,
     /// Every variant this CPU has, forced in turn, same run.
     pub variants: Vec<VariantPoint>,
+    /// Each camera size of [`SIZES`] on synthetic frames, every variant.
+    pub sizes: Vec<SizePoint>,
     /// The same with the capture's recorded background instead of the
     /// per-frame median (what the default pipeline does when a capture has one).
     pub capture_background_alines_per_second: f64,
@@ -301,20 +329,10 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         median(runs)
     };
 
-    // Every variant this CPU runs, forced in turn, then back to the one
-    // the figures above used.
+    // Every variant this CPU runs, forced in turn (same run).
     let kernel = fused.variant;
-    let variants: Vec<VariantPoint> = crate::pipeline::kernel::supported()
-        .into_iter()
-        .map(|v| {
-            crate::pipeline::kernel::force(Some(v));
-            let f = FusedPlan::new(&plan);
-            time_pipeline(&f, &frames, alines_per_frame, depth, opts.alines.min(20_000));
-            let rate = median((0..opts.repeats).map(|_| time_pipeline(&f, &frames, alines_per_frame, depth, opts.alines).0).collect());
-            VariantPoint { variant: v.name(), alines_per_second: rate, over_fft: rate / fft_rate }
-        })
-        .collect();
-    crate::pipeline::kernel::force(Some(kernel));
+    let variants = time_variants(&plan, &frames, alines_per_frame, opts.alines, opts.repeats, fft_rate);
+    let sizes = if opts.sizes { time_sizes(&config, &capture.wavelength_nm, opts)? } else { Vec::new() };
 
     // The plain f64 stage chain on a smaller count.
     let reference_rate = {
@@ -380,7 +398,9 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         pipeline_alines_per_second: pipe_rate,
         pipeline_over_fft: pipe_rate / fft_rate,
         kernel: kernel.name(),
+        kernel_choice: fused.choice.clone(),
         variants,
+        sizes,
         capture_background_alines_per_second: capture_bg_rate,
         capture_background_over_fft: capture_bg_rate / fft_rate,
         pipeline_parts_seconds: parts,
@@ -396,6 +416,96 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
         end_to_end_sha256_alines_per_second: sha256,
         end_to_end_sha256_over_pipeline: sha256.map(|e| e / pipe_rate),
     })
+}
+
+/// The fused pipeline with each variant the CPU runs forced in turn, as
+/// A-lines per second (median of `repeats`) and against `fft_rate`. The
+/// forcing of `bench --kernel` (or none) is restored afterwards.
+fn time_variants(plan: &Plan, frames: &[RawFrame], alines_per_frame: usize, alines: usize, repeats: usize, fft_rate: f64) -> Vec<VariantPoint> {
+    use crate::pipeline::kernel;
+    let before = kernel::forced().filter(|(_, by)| *by != kernel::ENV).map(|(v, _)| v);
+    let depth = plan.summary.depth_pixels;
+    let points = kernel::supported()
+        .into_iter()
+        .map(|v| {
+            kernel::force(Some(v));
+            let f = FusedPlan::new(plan);
+            time_pipeline(&f, frames, alines_per_frame, depth, alines.min(20_000));
+            let rate = median((0..repeats).map(|_| time_pipeline(&f, frames, alines_per_frame, depth, alines).0).collect());
+            VariantPoint { variant: v.name(), alines_per_second: rate, over_fft: rate / fft_rate }
+        })
+        .collect();
+    kernel::force(before);
+    points
+}
+
+/// The wavelength map `map` resampled to `pixels` pixels (linear
+/// interpolation in the pixel coordinate: the same curve, another camera).
+fn map_for_pixels(map: &[f64], pixels: usize) -> Vec<f64> {
+    let n = map.len();
+    (0..pixels)
+        .map(|p| {
+            let x = p as f64 * (n - 1) as f64 / (pixels - 1) as f64;
+            let i = (x.floor() as usize).min(n - 2);
+            let t = x - i as f64;
+            map[i] * (1.0 - t) + map[i + 1] * t
+        })
+        .collect()
+}
+
+/// Synthetic u16 frames of 1000 A-lines at `pixels` pixels: a Gaussian
+/// source spectrum on a dark level, a few reflectors' fringes and noise.
+fn synthetic_frames(pixels: usize, frames: usize) -> Vec<RawFrame> {
+    let mut state = 0x2545_F491_4F6C_DD1Du64;
+    (0..frames)
+        .map(|f| {
+            RawFrame::U16(Array2::from_shape_fn((SIZE_FRAME_ALINES, pixels), |(a, p)| {
+                state ^= state << 13;
+                state ^= state >> 7;
+                state ^= state << 17;
+                let x = p as f64 / pixels as f64;
+                let source = 2400.0 * (-((x - 0.5) / 0.3).powi(2)).exp();
+                let depth = 0.05 * pixels as f64 + ((a + 37 * f) % 200) as f64;
+                let fringe = 0.08 * source * (2.0 * std::f64::consts::PI * depth * x).cos() + 0.03 * source * (2.0 * std::f64::consts::PI * 1.7 * depth * x).cos();
+                (400.0 + source + fringe + (state % 61) as f64) as u16
+            }))
+        })
+        .collect()
+}
+
+/// Every camera size of [`SIZES`]: the bench pipeline planned for that
+/// many pixels (the capture's wavelength curve resampled), timed with its
+/// measured choice and with each variant forced, against the bare FFT of
+/// its length, same run.
+fn time_sizes(config: &PipelineConfig, map: &[f64], opts: &BenchOptions) -> Result<Vec<SizePoint>> {
+    let alines = opts.alines.clamp(SIZE_FRAME_ALINES, 50_000);
+    let repeats = opts.repeats.min(3);
+    let mut out = Vec::new();
+    for pixels in SIZES {
+        let map_n = map_for_pixels(map, pixels);
+        let plan = Plan::new(config, CaptureGeometry { wavelength_nm: &map_n, background: None, source_spectrum: None })?;
+        let frames = synthetic_frames(pixels, 4);
+        let (length, depth) = (plan.summary.fft_length, plan.summary.depth_pixels);
+        let fused = FusedPlan::new(&plan);
+        time_bare_fft(length, alines.min(20_000));
+        time_pipeline(&fused, &frames, SIZE_FRAME_ALINES, depth, alines.min(20_000));
+        let (mut fft_runs, mut pipe_runs) = (Vec::new(), Vec::new());
+        let mut parts = serde_json::Map::new();
+        for r in 0..repeats {
+            fft_runs.push(time_bare_fft(length, alines));
+            let (rate, timer) = time_pipeline(&fused, &frames, SIZE_FRAME_ALINES, depth, alines);
+            pipe_runs.push(rate);
+            if r == 0 {
+                for (name, s) in crate::pipeline::fused::FusedTimer::PARTS.iter().zip(timer.seconds()) {
+                    parts.insert(name.to_string(), serde_json::json!(s));
+                }
+            }
+        }
+        let (fft_rate, rate) = (median(fft_runs), median(pipe_runs));
+        let variants = time_variants(&plan, &frames, SIZE_FRAME_ALINES, alines, repeats, fft_rate);
+        out.push(SizePoint { pixels, fft_length: length, bare_fft_alines_per_second: fft_rate, chosen: fused.variant.name(), alines_per_second: rate, over_fft: rate / fft_rate, variants, parts_seconds: parts });
+    }
+    Ok(out)
 }
 
 /// Contrast workloads in memory: each frame reconstructed with its complex
@@ -534,6 +644,7 @@ impl BenchReport {
         for v in &self.variants {
             s += &format!("{:<44} {:>14.0}   ratio {:.3}\n", format!("  forced kernel variant {}", v.variant), v.alines_per_second, v.over_fft);
         }
+        s += &format!("  kernel variant chosen at plan time: {} ({})\n", self.kernel, self.kernel_choice.source);
         s += &format!("{:<44} {:>14.0}\n", "same, capture background instead of median", self.capture_background_alines_per_second);
         s += &format!("{:<44} {:>14.3}\n", "ratio (capture background) / bare FFT", self.capture_background_over_fft);
         s += &format!("{:<44} {:>14.0}\n", "plain f64 stage chain (reference)", self.reference_alines_per_second);
@@ -555,6 +666,23 @@ impl BenchReport {
         if let (Some(e), Some(r)) = (self.end_to_end_sha256_alines_per_second, self.end_to_end_sha256_over_pipeline) {
             s += &format!("{:<44} {:>14.0}\n", "default outputs, input hashed by SHA-256", e);
             s += &format!("{:<44} {:>14.3}\n", "ratio (SHA-256) / in-memory pipeline", r);
+        }
+        if !self.sizes.is_empty() {
+            s += "\ncamera sizes (synthetic u16 frames of 1000 A-lines, same pipeline), ratio to the bare FFT of each length:\n";
+            s += &format!("  {:<8} {:<6} {:>12} {:>14}", "pixels", "FFT", "bare FFT/s", "chosen");
+            for v in &self.sizes[0].variants {
+                s += &format!(" {:>8}", v.variant);
+            }
+            s += "   thread-s: background / resample / fft / log\n";
+            for p in &self.sizes {
+                s += &format!("  {:<8} {:<6} {:>12.0} {:>7} {:>6.3}", p.pixels, p.fft_length, p.bare_fft_alines_per_second, p.chosen, p.over_fft);
+                for v in &p.variants {
+                    s += &format!(" {:>8.3}", v.over_fft);
+                }
+                let part = |k: &str| p.parts_seconds.get(k).and_then(|v| v.as_f64()).unwrap_or(0.0);
+                s += &format!("   {:.3} / {:.3} / {:.3} / {:.3}\n", part("background"), part("resample_disperse_window"), part("fft"), part("magnitude_log"));
+            }
+            s += "\n";
         }
         for c in &self.contrast {
             s += &format!("{:<44} {:>14.0}\n", c.workload, c.alines_per_second);

@@ -5,8 +5,10 @@
 //! scalar FFT). By default the best the CPU has; the environment variable
 //! `FRINGEFLOW_KERNEL` (`avx512`, `avx2`, `scalar`) forces a lower one, so
 //! that one machine can run and test every variant it supports, and
-//! `fringeflow bench` times each of them with [`force`]. Every variant
-//! must match the f64 reference stages within the fast path's tolerance.
+//! `fringeflow bench` times each of them with [`force`]. When nothing is
+//! forced, each fused plan times the variants on its own shape and runs the
+//! fastest (`fused::tune`). Every variant must match the f64 reference
+//! stages within the fast path's tolerance.
 
 use std::sync::atomic::{AtomicU8, Ordering};
 use std::sync::OnceLock;
@@ -14,7 +16,7 @@ use std::sync::OnceLock;
 /// The environment variable that forces a variant.
 pub const ENV: &str = "FRINGEFLOW_KERNEL";
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, serde::Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, serde::Serialize, serde::Deserialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Variant {
     Scalar,
@@ -97,7 +99,23 @@ pub fn force(variant: Option<Variant>) {
     FORCED.store(variant.map_or(0, |v| 1 + v.min(best()) as u8), Ordering::SeqCst);
 }
 
-/// The variant the fast path runs now.
+/// The variant forced by [`force`] or by `FRINGEFLOW_KERNEL`, if any, and
+/// by which.
+pub fn forced() -> Option<(Variant, &'static str)> {
+    match FORCED.load(Ordering::Relaxed) {
+        1 => Some((Variant::Scalar, "forced in this process")),
+        2 => Some((Variant::Avx2, "forced in this process")),
+        3 => Some((Variant::Avx512, "forced in this process")),
+        _ => match from_env() {
+            Ok(Some(v)) => Some((*v, ENV)),
+            _ => None,
+        },
+    }
+}
+
+/// The variant the fast path runs when none is measured: the forced one,
+/// else the best the CPU has. (A plan's own choice is in its `variant`;
+/// see `fused::tune`.)
 pub fn active() -> Variant {
     match FORCED.load(Ordering::Relaxed) {
         1 => Variant::Scalar,

@@ -5,5 +5,4 @@ pub mod config;
 pub mod defaults;
 pub mod fused;
 pub mod kernel;
-pub mod lane_fft;
 pub mod plan;

@@ -23,6 +23,8 @@ pub struct Computed {
     pub written: Written,
     pub read_seconds: f64,
     pub stage_seconds: serde_json::Map<String, serde_json::Value>,
+    /// The fast path's variant and how it was chosen (None: reference engine).
+    pub kernel: Option<(crate::pipeline::kernel::Variant, crate::pipeline::fused::tune::Choice)>,
 }
 
 pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer: Writer<'_>, ctx: &RunContext<'_>) -> Result<Computed> {
@@ -175,5 +177,6 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
             stage_seconds.insert(stage.to_string(), serde_json::json!(s));
         }
     }
-    Ok(Computed { written, read_seconds: read_s, stage_seconds })
+    let kernel = fused.as_ref().map(|f| (f.variant, f.choice.clone()));
+    Ok(Computed { written, read_seconds: read_s, stage_seconds, kernel })
 }

@@ -146,6 +146,11 @@ pub struct Timing {
     pub threads: usize,
     /// Peak resident memory of the process so far (VmHWM), MB.
     pub peak_resident_mb: Option<f64>,
+    /// How the fast path's kernel variant was chosen (forced, measured on
+    /// this plan's shape, or cached from an earlier measurement), with the
+    /// measured rates; absent for the reference engine.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub kernel_choice: Option<crate::pipeline::fused::tune::Choice>,
 }
 
 /// Contents of log.json.
@@ -160,8 +165,9 @@ pub struct ProcessingLog {
     pub pipeline_sha256: String,
     /// `fused` (f32 fast path) or `reference` (f64 stage chain).
     pub engine: &'static str,
-    /// The fast path's kernel variant (`avx512`, `avx2`, `scalar`; forced
-    /// with `FRINGEFLOW_KERNEL`); absent for the reference engine.
+    /// The fast path's kernel variant that ran (`avx512`, `avx2`, `scalar`):
+    /// the fastest on this plan by measurement, or forced with
+    /// `FRINGEFLOW_KERNEL`; absent for the reference engine.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub kernel: Option<&'static str>,
     pub derived: PlanSummary,

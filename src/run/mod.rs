@@ -542,7 +542,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         pipeline: config.clone(),
         pipeline_sha256: opened.pipeline_sha256.clone(),
         engine: if ctx.reference_engine { "reference" } else { "fused" },
-        kernel: (!ctx.reference_engine).then(|| crate::pipeline::kernel::active().name()),
+        kernel: computed.kernel.as_ref().map(|(v, _)| v.name()),
         derived: planned.plan.summary.clone(),
         dispersion_estimate: planned.dispersion_estimate.clone(),
         frames: std::mem::take(&mut written.records),
@@ -560,6 +560,7 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             alines_per_second: (frames * alines) as f64 / total,
             threads: rayon::current_num_threads(),
             peak_resident_mb: peak_resident_mb(),
+            kernel_choice: computed.kernel.map(|(_, c)| c),
         },
     };
     let json = serde_json::to_vec_pretty(&log).context("serialising log")?;
