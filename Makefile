@@ -48,8 +48,10 @@ demo: build
 	@echo "flow: out/demo/flow-phantom/bscan-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
 	@echo "pages: out/demo/layered-phantom/report.html, out/demo/flow-phantom/report.html and out/demo/index.html"
 
+# The tests keep the measured kernel choices (pipeline/fused/tune.rs) in
+# target/, not in the user's cache folder.
 test: deps-test deps-python build
-	$(CARGO) test --locked -- --test-threads=2
+	FRINGEFLOW_CACHE_DIR=$(CURDIR)/target/kernel-cache $(CARGO) test --locked -- --test-threads=2
 	@$(MAKE) --no-print-directory python-test
 
 # The Python package (python/, PyO3 + maturin): built and installed with
@@ -66,7 +68,7 @@ python: deps-system deps-python $(PY_STAMP)
 
 python-test: python
 	@$(PYTHON) -c "import pytest" >/dev/null 2>&1 || $(PYTHON) -m pip install -q pytest
-	FRINGEFLOW_BIN=$(CURDIR)/$(BIN) HDF5_USE_FILE_LOCKING=FALSE $(PYTHON) -m pytest -q -p no:cacheprovider --import-mode=importlib python/tests
+	FRINGEFLOW_CACHE_DIR=$(CURDIR)/target/kernel-cache FRINGEFLOW_BIN=$(CURDIR)/$(BIN) HDF5_USE_FILE_LOCKING=FALSE $(PYTHON) -m pytest -q -p no:cacheprovider --import-mode=importlib python/tests
 	$(PYTHON) examples/bscan_figure.py sample-data/layered-phantom.h5 out/examples/bscan.png
 
 # Rewrite the sample capture from its scene (deterministic: same bytes).

@@ -218,6 +218,114 @@ fn bench_report_runs_on_a_small_capture() {
     let parts = r["pipeline_parts_seconds"].as_object().unwrap();
     assert_eq!(parts.len(), 4);
     assert!(parts.values().all(|v| v.as_f64().unwrap() >= 0.0));
+    // The plan's measured choice, and the camera-size table: every size,
+    // its FFT length (2000 is not a power of two and stays 2000), every variant.
+    assert!(r["kernel_choice"]["source"].is_string());
+    let sizes = r["sizes"].as_array().unwrap();
+    assert_eq!(sizes.iter().map(|p| p["pixels"].as_u64().unwrap()).collect::<Vec<_>>(), [1024, 2048, 4096, 2000]);
+    for p in sizes {
+        assert_eq!(p["fft_length"], p["pixels"]);
+        assert_eq!(p["variants"].as_array().unwrap().len(), kernel::supported().len());
+        assert!(p["over_fft"].as_f64().is_some_and(|v| v > 0.0 && v.is_finite()));
+    }
     // The end-to-end runs leave nothing behind in the work directory.
     assert!(!dir.path().join("work/end-to-end").exists());
+}
+
+/// The measured choice of kernel variant (`fused::tune`): with nothing
+/// forced, `run` times every variant on the plan, runs the fastest (never
+/// slower than the slowest by its own measurement), logs how it chose, and
+/// caches the choice per CPU and plan shape; a cached entry is obeyed;
+/// `FRINGEFLOW_TUNING=off` measures nothing and writes no file; a bad value
+/// is refused; `rerun` runs the variant the log names and gives the same bits.
+#[test]
+fn kernel_variant_is_measured_cached_logged_and_rerun() {
+    let dir = tempfile::tempdir().unwrap();
+    let (capture, _) = simulate_scene(dir.path(), "cap", &scene("u16", 16));
+    let cache = dir.path().join("cache");
+    let cache_file = cache.join(fringeflow::pipeline::fused::tune::CACHE_FILE);
+    let run = |name: &str, envs: &[(&str, &str)], cache_dir: &std::path::Path| {
+        let out = dir.path().join(name);
+        let mut command = std::process::Command::new(bin());
+        command.env("HDF5_USE_FILE_LOCKING", "FALSE").env_remove(kernel::ENV).env_remove("FRINGEFLOW_TUNING").env("FRINGEFLOW_CACHE_DIR", cache_dir);
+        command.args(["run", capture.to_str().unwrap(), "--out", out.to_str().unwrap(), "--quiet"]);
+        for (k, v) in envs {
+            command.env(k, v);
+        }
+        let o = command.output().unwrap();
+        (o, out)
+    };
+    let log_of = |out: &std::path::Path| -> serde_json::Value { serde_json::from_slice(&std::fs::read(out.join("cap/log.json")).unwrap()).unwrap() };
+    let names: Vec<&str> = kernel::supported().iter().map(|v| v.name()).collect();
+
+    // 1. Measured: the rates of every variant, the fastest (within the 5 %
+    //    margin) chosen, and the cache file written with that choice.
+    let (o, out1) = run("first", &[], &cache);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let log1 = log_of(&out1);
+    let chosen = log1["kernel"].as_str().unwrap().to_string();
+    let choice = &log1["timing"]["kernel_choice"];
+    eprintln!("measured choice: {chosen}: {choice}");
+    if names.len() == 1 {
+        assert_eq!(choice["source"], "only variant");
+        return;
+    }
+    assert_eq!(choice["source"], "measured");
+    let rates = choice["alines_per_second"].as_object().unwrap();
+    assert_eq!(rates.len(), names.len(), "every variant timed");
+    let rate = |v: &str| rates[v].as_f64().unwrap();
+    let slowest = names.iter().map(|v| rate(v)).fold(f64::INFINITY, f64::min);
+    let fastest = names.iter().map(|v| rate(v)).fold(0.0, f64::max);
+    assert!(rate(&chosen) >= slowest, "the chosen variant is never slower than the slowest");
+    assert!(rate(&chosen) * fringeflow::pipeline::fused::tune::MARGIN >= fastest, "the chosen variant is the fastest within the margin");
+    let key = choice["key"].as_str().unwrap().to_string();
+    let cached: serde_json::Value = serde_json::from_slice(&std::fs::read(&cache_file).expect("cache file written")).unwrap();
+    assert_eq!(cached["choices"][&key]["variant"], chosen.as_str());
+
+    // 2. Cached: the same variant, without timing again.
+    let (o, out2) = run("second", &[], &cache);
+    assert!(o.status.success());
+    let log2 = log_of(&out2);
+    assert_eq!(log2["kernel"], chosen.as_str());
+    assert_eq!(log2["timing"]["kernel_choice"]["source"], "cached");
+
+    // 3. An edited cache entry is obeyed: it names the scalar variant.
+    let mut edited = cached.clone();
+    edited["choices"][&key]["variant"] = serde_json::json!("scalar");
+    std::fs::write(&cache_file, serde_json::to_vec(&edited).unwrap()).unwrap();
+    let (o, out3) = run("third", &[], &cache);
+    assert!(o.status.success());
+    let log3 = log_of(&out3);
+    assert_eq!(log3["kernel"], "scalar", "the cached choice decides");
+
+    // 4. Tuning off: the best variant by CPU flags, nothing timed, no file.
+    let empty = dir.path().join("no-cache");
+    let (o, out4) = run("off", &[("FRINGEFLOW_TUNING", "off")], &empty);
+    assert!(o.status.success());
+    let log4 = log_of(&out4);
+    assert_eq!(log4["kernel"], kernel::best().name());
+    assert_eq!(log4["timing"]["kernel_choice"]["source"], "tuning off");
+    assert!(!empty.exists(), "FRINGEFLOW_TUNING=off writes no cache");
+
+    // 5. A bad value: exit 2, one line naming the variable, no output.
+    let (o, out5) = run("bad", &[("FRINGEFLOW_TUNING", "sometimes")], &cache);
+    assert_eq!(o.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("FRINGEFLOW_TUNING") && err.trim().lines().count() == 1, "{err}");
+    assert!(!out5.join("cap").exists());
+
+    // 6. rerun of the scalar run, with a cache that would now pick another
+    //    variant: the log's variant runs again, and the volume is the same bits.
+    std::fs::write(&cache_file, serde_json::to_vec(&cached).unwrap()).unwrap();
+    let rerun_out = dir.path().join("rerun");
+    let o = std::process::Command::new(bin())
+        .env("HDF5_USE_FILE_LOCKING", "FALSE")
+        .env_remove(kernel::ENV)
+        .env("FRINGEFLOW_CACHE_DIR", &cache)
+        .args(["rerun", out3.join("cap/log.json").to_str().unwrap(), "--out", rerun_out.to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert_eq!(log_of(&rerun_out)["kernel"], "scalar");
+    assert_eq!(read_volume(&rerun_out.join("cap/volume.h5")).db, read_volume(&out3.join("cap/volume.h5")).db, "rerun reproduces the bits");
 }
