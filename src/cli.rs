@@ -605,11 +605,12 @@ pub enum PipelineCommand {
 /// The full version text: version, commit, build profile, SIMD path.
 pub fn long_version() -> String {
     format!(
-        "{}\ncommit {}\nprofile {}\nSIMD path {}",
+        "{}\ncommit {}\nprofile {}\nSIMD path {}\nkernel variants {} (each plan runs the fastest by measurement; see FRINGEFLOW_KERNEL, FRINGEFLOW_TUNING)",
         env!("CARGO_PKG_VERSION"),
         env!("FRINGEFLOW_COMMIT"),
         if cfg!(debug_assertions) { "debug" } else { "release" },
-        fringeflow::pipeline::fused::simd_path()
+        fringeflow::pipeline::fused::simd_path(),
+        fringeflow::pipeline::kernel::supported().iter().rev().map(|v| v.name()).collect::<Vec<_>>().join(", ")
     )
 }
 

@@ -12,7 +12,7 @@ use hdf5::types::TypeDescriptor;
 use std::fmt::Write as _;
 use std::path::Path;
 
-use crate::io::capture::{check_wavelength_map, open_hdf5, Capture};
+use crate::io::capture::{check_wavelength_map, open_hdf5};
 use crate::pipeline::config::InputConfig;
 
 /// Statistics of one dataset.
@@ -67,27 +67,6 @@ fn is_numeric_name(dtype: &str) -> bool {
 
 fn is_numeric(d: &TypeDescriptor) -> bool {
     matches!(d, TypeDescriptor::Unsigned(_) | TypeDescriptor::Integer(_) | TypeDescriptor::Float(_))
-}
-
-/// Every dataset below `group`; members that cannot be opened become problems.
-pub(crate) fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hdf5::Dataset)>, problems: &mut Vec<String>) {
-    let names = match group.member_names() {
-        Ok(n) => n,
-        Err(e) => {
-            problems.push(format!("{}: its members cannot be listed ({})", if prefix.is_empty() { "/" } else { prefix }, first_line(&e.to_string())));
-            return;
-        }
-    };
-    for name in names {
-        let path = format!("{prefix}/{name}");
-        if let Ok(ds) = group.dataset(&name) {
-            out.push((path, ds));
-        } else if let Ok(g) = group.group(&name) {
-            collect_datasets(&g, &path, out, problems);
-        } else {
-            problems.push(format!("{path}: cannot be opened (damaged, or a link to something missing)"));
-        }
-    }
 }
 
 fn full_scale_json<S: serde::Serializer>(v: &Option<(u64, f64)>, s: S) -> Result<S::Ok, S::Error> {
@@ -158,7 +137,7 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
     let file = open_hdf5(path)?;
     let mut sets = Vec::new();
     let mut problems = Vec::new();
-    collect_datasets(&file, "", &mut sets, &mut problems);
+    crate::io::h5::collect_datasets(&file, "", &mut sets, &mut problems);
     let mut datasets = Vec::new();
     for (name, ds) in &sets {
         let st = match stats(name, ds) {
@@ -191,7 +170,7 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
         }
         datasets.push(st);
     }
-    if let Err(e) = Capture::open(path, input) {
+    if let Err(e) = crate::run::open_capture(path, input) {
         let msg = e.to_string();
         if !problems.iter().any(|p| p == &msg) {
             problems.push(msg);

@@ -29,6 +29,7 @@ pub mod pipeline;
 pub mod render;
 pub mod report;
 pub mod run;
+pub mod settings;
 pub mod simulate;
 pub mod stages;
 pub mod throughput;

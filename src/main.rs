@@ -33,7 +33,7 @@ pub(crate) fn fail(code: u8, message: impl std::fmt::Display) -> ExitCode {
 
 pub(crate) fn load_pipeline(path: Option<&Path>, overrides: &[String]) -> Result<PipelineConfig, ExitCode> {
     let config = match path {
-        Some(p) => PipelineConfig::from_file_with(p, overrides).map_err(|e| fail(2, e))?,
+        Some(p) => fringeflow::run::read_pipeline(p, overrides).map_err(|e| fail(2, e))?,
         None if !overrides.is_empty() => PipelineConfig::from_overrides(overrides).map_err(|e| fail(2, e))?,
         None => PipelineConfig::default(),
     };

@@ -296,7 +296,7 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
     }
     let path = bench_capture(opts)?;
     let config = PipelineConfig::from_str("pipelines/throughput.toml", PIPELINE).map_err(|e| anyhow::anyhow!("{e}"))?;
-    let capture = Capture::open(&path, &config.input)?;
+    let capture = crate::run::open_capture(&path, &config.input)?;
     let frames = load_frames(&capture)?;
     let plan = Plan::new(&config, CaptureGeometry { wavelength_nm: &capture.wavelength_nm, background: capture.background.as_deref(), source_spectrum: None })?;
     let fused = FusedPlan::new(&plan);

@@ -122,7 +122,7 @@ fn fused_path_matches_the_reference_stages() {
         for (path, kind) in [(&u16_capture, "u16"), (&f64_capture, "f64")] {
             for (name, text) in settings {
                 let config = PipelineConfig::from_str("test", text).unwrap();
-                let capture = Capture::open(path, &config.input).unwrap();
+                let capture = fringeflow::run::open_capture(path, &config.input).unwrap();
                 if capture.background.is_none() && text.is_empty() {
                     continue; // "auto" falls back to the median, covered above
                 }

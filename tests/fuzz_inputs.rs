@@ -183,7 +183,7 @@ proptest! {
         let dir = tempfile::tempdir().unwrap();
         let path = dir.path().join("fuzz.h5");
         write(&path, &spec);
-        match Capture::open(&path, &InputConfig::default()) {
+        match fringeflow::run::open_capture(&path, &InputConfig::default()) {
             Ok(c) => {
                 // Accepted: consistent with what was written.
                 prop_assert!(matches!(spec.shape.len(), 2 | 3));
@@ -219,7 +219,7 @@ fn generated_captures_are_often_valid() {
     for _ in 0..400 {
         let spec = capture_spec().new_tree(&mut runner).unwrap().current();
         write(&path, &spec);
-        if Capture::open(&path, &InputConfig::default()).is_ok() {
+        if fringeflow::run::open_capture(&path, &InputConfig::default()).is_ok() {
             accepted += 1;
         }
     }

@@ -61,7 +61,7 @@ impl Pipeline {
     /// Reads a pipeline file (TOML).
     #[staticmethod]
     fn from_file(py: Python<'_>, path: PathBuf) -> PyResult<Self> {
-        PipelineConfig::from_file(&path).map(|config| Pipeline { config }).map_err(|e| pipeline_error(py, e))
+        fringeflow::run::read_pipeline(&path, &[]).map(|config| Pipeline { config }).map_err(|e| pipeline_error(py, e))
     }
 
     /// Parses pipeline text (TOML); `name` appears in error messages.
@@ -122,7 +122,7 @@ impl Capture {
     #[pyo3(signature = (path, pipeline = None))]
     fn new(py: Python<'_>, path: PathBuf, pipeline: Option<&Pipeline>) -> PyResult<Self> {
         let input = pipeline.map(|p| p.config.input.clone()).unwrap_or_default();
-        let opened = py.detach(|| CoreCapture::open(&path, &input));
+        let opened = py.detach(|| fringeflow::run::open_capture(&path, &input));
         opened.map(|inner| Capture { inner }).map_err(|e| capture_error(py, &path, e))
     }
 

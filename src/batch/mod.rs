@@ -251,7 +251,7 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
     let overall = show_bars.then(|| {
         let total: u64 = captures
             .iter()
-            .map(|c| crate::io::capture::Capture::open(c, &config.input).map(|c| c.frames as u64).unwrap_or(0))
+            .map(|c| crate::run::open_capture(c, &config.input).map(|c| c.frames as u64).unwrap_or(0))
             .sum();
         let bar = multi.add(ProgressBar::new(total));
         bar.set_style(ProgressStyle::with_template("{bar:40} {pos}/{len} frames, {elapsed} elapsed, about {eta} left").unwrap());

@@ -250,7 +250,7 @@ pub fn search_frame(config: &PipelineConfig, frames: usize) -> Result<usize> {
 /// source spectrum from the background, else that frame's mean spectrum
 /// when shaping needs it.
 pub fn estimate_file(path: &std::path::Path, config: &PipelineConfig, frame: Option<usize>) -> Result<DispersionEstimate> {
-    let capture = Capture::open(path, &config.input)?;
+    let capture = crate::run::open_capture(path, &config.input)?;
     let frame = match frame {
         Some(f) if f >= capture.frames => bail!("frame {f} does not exist (the capture has {} frames)", capture.frames),
         Some(f) => f,

@@ -20,7 +20,6 @@ use std::path::{Path, PathBuf};
 
 use super::dispersion::{brightest_lines, entropy, FringeSet};
 use crate::analysis;
-use crate::io::capture::Capture;
 use crate::io::hash;
 use crate::io::staging::write_atomically;
 use crate::physics;
@@ -132,7 +131,7 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
     if settings.len() > MAX_SETTINGS {
         bail!("{} settings, more than {MAX_SETTINGS}", settings.len());
     }
-    let capture = Capture::open(capture_path, &config.input)?;
+    let capture = crate::run::open_capture(capture_path, &config.input)?;
     if frame >= capture.frames {
         bail!("frame {frame} does not exist (the capture has {} frames)", capture.frames);
     }

@@ -20,7 +20,6 @@ use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
 
 use crate::analysis::polyfit;
-use crate::io::capture::Capture;
 use crate::io::hash;
 use crate::physics::{self, DispersionEquivalent};
 use crate::pipeline::config::PipelineConfig;
@@ -194,7 +193,7 @@ pub fn mirror_spectrum(path: &Path, config: &PipelineConfig, frame: usize) -> Re
     let mut input = config.input.clone();
     input.calibration = None;
     input.wavelength_poly_nm = Some(vec![800.0, 1e-3]);
-    let capture = Capture::open(path, &input)?;
+    let capture = crate::run::open_capture(path, &input)?;
     if frame >= capture.frames {
         bail!("frame {frame} does not exist (the capture has {} frames)", capture.frames);
     }
@@ -409,7 +408,7 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
 /// (its own wavelength dataset, or the pipeline's polynomial or calibration
 /// file), when it has one.
 pub fn nominal_map(path: &Path, config: &PipelineConfig) -> Option<Vec<f64>> {
-    Capture::open(path, &config.input).ok().map(|c| c.wavelength_nm.clone())
+    crate::run::open_capture(path, &config.input).ok().map(|c| c.wavelength_nm.clone())
 }
 
 /// Converts coefficients of a polynomial in t = (p − m)/m into coefficients

@@ -12,7 +12,49 @@ use ndarray::{Array2, ArrayD, Axis, Ix2};
 use serde::Serialize;
 use std::path::{Path, PathBuf};
 
-use crate::pipeline::config::{AxisName, InputConfig};
+/// A named axis of the fringe dataset.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum AxisName {
+    Frame,
+    Aline,
+    Pixel,
+}
+
+/// Where a capture keeps what it holds, and a wavelength map given from
+/// outside the file: plain data (the pipeline's `[input]` settings become
+/// this in `run::open`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CaptureLayout {
+    /// Dataset path of the fringes.
+    pub fringes: String,
+    /// Dataset path of the per-pixel wavelength map (nm).
+    pub wavelength: String,
+    /// Dataset path of the background spectra (optional in the file).
+    pub background: String,
+    /// Axis order of the fringes; None: by rank (frame, aline, pixel or
+    /// aline, pixel).
+    pub axes: Option<Vec<AxisName>>,
+    /// A wavelength map used instead of the dataset, and where it came from.
+    pub given_map: Option<GivenMap>,
+}
+
+/// A wavelength map from outside the capture (a polynomial evaluated, or a
+/// calibration file read, by the caller).
+#[derive(Debug, Clone, PartialEq)]
+pub enum GivenMap {
+    /// Coefficients c0, c1, … of λ(p) = c0 + c1·p + … (nm), evaluated here
+    /// once the pixel count is known.
+    Polynomial(Vec<f64>),
+    /// Per-pixel wavelengths (nm) from a calibration file, its path and hash.
+    Calibration { wavelength_nm: Vec<f64>, path: String, file_hash: String },
+}
+
+impl Default for CaptureLayout {
+    fn default() -> Self {
+        CaptureLayout { fringes: "/fringes".into(), wavelength: "/wavelength_nm".into(), background: "/background".into(), axes: None, given_map: None }
+    }
+}
 
 /// Sample types a fringe dataset may have (also what the simulator writes).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
@@ -249,7 +291,7 @@ fn frame_chunk_cache(ds: &Dataset, axes: &[AxisName]) -> Option<(usize, usize)> 
 /// for a "dataset not found" error.
 fn dataset_hint(file: &hdf5::File) -> String {
     let mut sets = Vec::new();
-    crate::inspect::collect_datasets(file, "", &mut sets, &mut Vec::new());
+    super::h5::collect_datasets(file, "", &mut sets, &mut Vec::new());
     let multi: Vec<_> = sets.iter().filter(|(_, d)| matches!(d.ndim(), 2 | 3)).collect();
     let candidates: Vec<String> = multi.iter().map(|(n, d)| format!("{n} {:?}", d.shape())).collect();
     // The likeliest fringes: the largest of them (a background is a few lines).
@@ -337,8 +379,8 @@ pub fn check_wavelength_map(map: &[f64], pixels: usize, source: &str) -> Result<
 }
 
 impl Capture {
-    /// Opens and validates a capture according to the pipeline's input settings.
-    pub fn open(path: &Path, input: &InputConfig) -> Result<Self> {
+    /// Opens and validates a capture laid out as `input` says.
+    pub fn open(path: &Path, input: &CaptureLayout) -> Result<Self> {
         let file = open_hdf5(path)?;
         let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)))?;
         let shape = fringes.shape();
@@ -388,24 +430,20 @@ impl Capture {
             )
         })?;
 
-        let (wavelength_nm, wavelength_source) = match (&input.wavelength_poly_nm, &input.calibration) {
-            (_, Some(cal_path)) => {
-                let (cal, sha256) = crate::calibration::wavelength::WavelengthCalibration::load(Path::new(cal_path))?;
-                if cal.wavelength_nm.len() != pixels {
-                    bail!(
-                        "calibration file {cal_path} has {} pixels but the fringes have {pixels} pixels",
-                        cal.wavelength_nm.len()
-                    );
+        let (wavelength_nm, wavelength_source) = match &input.given_map {
+            Some(GivenMap::Calibration { wavelength_nm, path: cal_path, file_hash }) => {
+                if wavelength_nm.len() != pixels {
+                    bail!("calibration file {cal_path} has {} pixels but the fringes have {pixels} pixels", wavelength_nm.len());
                 }
-                (cal.wavelength_nm, WavelengthSource::Calibration { path: cal_path.clone(), file_hash: format!("sha256:{sha256}") })
+                (wavelength_nm.clone(), WavelengthSource::Calibration { path: cal_path.clone(), file_hash: file_hash.clone() })
             }
-            (Some(c), None) => {
+            Some(GivenMap::Polynomial(c)) => {
                 let map = (0..pixels)
                     .map(|p| c.iter().rev().fold(0.0, |acc, &ci| acc * p as f64 + ci))
                     .collect::<Vec<_>>();
                 (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
             }
-            (None, None) => {
+            None => {
                 let ds = open_dataset(&file, &input.wavelength).ok_or_else(|| {
                     anyhow!(
                         "dataset '{}' not found (give the map in the capture or as input.wavelength_poly_nm)",
@@ -456,7 +494,8 @@ impl Capture {
                 if rows.iter().any(|v| !v.is_finite()) {
                     bail!("background '{}' contains NaN or infinite values", input.background);
                 }
-                Some(crate::stages::background::mean_spectrum(rows.view()))
+                // The mean over the recorded spectra, per pixel.
+                rows.mean_axis(Axis(0)).map(|m| m.to_vec())
             }
         };
 

@@ -101,3 +101,24 @@ pub fn label_dimensions(data: &hdf5::Dataset, labels: &[&str]) -> Result<()> {
     }
     Ok(())
 }
+
+/// Every dataset below `group`; members that cannot be opened become problems.
+pub fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String, hdf5::Dataset)>, problems: &mut Vec<String>) {
+    let names = match group.member_names() {
+        Ok(n) => n,
+        Err(e) => {
+            problems.push(format!("{}: its members cannot be listed ({})", if prefix.is_empty() { "/" } else { prefix }, e.to_string().lines().next().unwrap_or("").trim()));
+            return;
+        }
+    };
+    for name in names {
+        let path = format!("{prefix}/{name}");
+        if let Ok(ds) = group.dataset(&name) {
+            out.push((path, ds));
+        } else if let Ok(g) = group.group(&name) {
+            collect_datasets(&g, &path, out, problems);
+        } else {
+            problems.push(format!("{path}: cannot be opened (damaged, or a link to something missing)"));
+        }
+    }
+}

@@ -17,7 +17,13 @@ use ndarray::Array2;
 use std::path::Path;
 
 use super::h5::{attach_scales, concise, create_file, label_dimensions, make_scale, write_1d, write_attr, write_attr_str};
-use crate::pipeline::config::VolumeType;
+/// The stored type of volume.h5's dB values.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum VolumeType {
+    Float32,
+    /// dB = stored · scale_factor + add_offset (CF packing attributes).
+    Uint16,
+}
 
 /// uint16 volumes: dB = stored · PACKED_DB_STEP + PACKED_DB_OFFSET. The
 /// offset is the dB of the amplitude floor (nothing is lower), the step

@@ -16,7 +16,6 @@ use std::path::Path;
 
 use super::spectrum::{self, SourceSpectrum};
 use crate::analysis;
-use crate::io::capture::Capture;
 use crate::pipeline::config::PipelineConfig;
 use crate::pipeline::plan::{CaptureGeometry, Plan};
 
@@ -70,7 +69,7 @@ fn mean_spectrum(frame: &Array2<f64>) -> Vec<f64> {
 
 /// Measures the PSF of the mirror in `frame` of `path`.
 pub fn measure(path: &Path, config: &PipelineConfig, frame: usize, group_index: f64) -> Result<MirrorMeasurement> {
-    let capture = Capture::open(path, &config.input)?;
+    let capture = crate::run::open_capture(path, &config.input)?;
     if frame >= capture.frames {
         bail!("frame {frame} requested but the capture has {} frames", capture.frames);
     }

@@ -8,7 +8,7 @@
 use serde::{Deserialize, Deserializer, Serialize};
 use std::path::Path;
 
-use crate::io::toml_file::{self, de_finite, de_non_negative, de_positive, de_unit_interval, de_usize_in, ConfigError};
+use crate::settings::{self as toml_file, de_finite, de_non_negative, de_positive, de_unit_interval, de_usize_in, ConfigError};
 use crate::stages::k_linearization::Interpolation;
 use crate::stages::log_compression::GreyMapping;
 use crate::stages::window::WindowKind;
@@ -704,21 +704,14 @@ impl PipelineConfig {
 }
 
 impl PipelineConfig {
-    /// Reads a pipeline file and checks the settings that involve several keys.
-    pub fn from_file(path: &Path) -> Result<Self, ConfigError> {
-        Self::from_file_with(path, &[])
-    }
-
-    /// The same with `section.key=value` overrides applied to the file's
-    /// text before parsing (the command line's `--set`).
-    pub fn from_file_with(path: &Path, overrides: &[String]) -> Result<Self, ConfigError> {
-        let kind = toml_file::sniff(path);
-        if matches!(kind, toml_file::FileKind::Hdf5 | toml_file::FileKind::Scene | toml_file::FileKind::Log) {
-            let hint = toml_file::kind_hint(kind).unwrap_or_default();
-            return Err(ConfigError { file: path.display().to_string(), line: None, message: format!("not a pipeline file: {hint}") });
-        }
-        let (file, original) = toml_file::read_text(path)?;
-        let text = toml_file::apply_overrides(&file, &original, overrides)?;
+    /// Parses the text `original` of the pipeline file at `path` (read by
+    /// the caller: see `run::open::read_pipeline`) with `section.key=value`
+    /// overrides applied before parsing (the command line's `--set`), and
+    /// checks the settings that involve several keys. A relative
+    /// calibration path is taken from the file's directory.
+    pub fn from_file_text(path: &Path, original: &str, overrides: &[String]) -> Result<Self, ConfigError> {
+        let file = path.display().to_string();
+        let text = toml_file::apply_overrides(&file, original, overrides)?;
         let mut config: PipelineConfig = toml_file::parse(&file, &text)?;
         config.check(&path.display().to_string(), &text)?;
         config.deprecations = toml_file::deprecated_names(&path.display().to_string(), &text, PIPELINE_RENAMES);
@@ -891,7 +884,8 @@ impl PipelineConfig {
     /// same hash processed with the same settings.
     pub fn sha256(&self) -> String {
         let json = serde_json::to_vec(self).expect("pipeline serialises");
-        crate::io::hash::sha256_hex(&json)
+        use sha2::Digest;
+        sha2::Sha256::digest(&json).iter().map(|b| format!("{b:02x}")).collect()
     }
 }
 

@@ -6,7 +6,8 @@ use serde::Serialize;
 use crate::contrast::doppler::DopplerScale;
 use crate::contrast::position::FrameShift;
 use crate::io::capture::{SampleType, ScanAttributes, WavelengthSource};
-use crate::pipeline::config::{AngiographyMethod, AxisName, DopplerPairs, PipelineConfig, Projection};
+use crate::io::capture::AxisName;
+use crate::pipeline::config::{AngiographyMethod, DopplerPairs, PipelineConfig, Projection};
 use crate::pipeline::plan::PlanSummary;
 
 #[derive(Debug, Serialize)]

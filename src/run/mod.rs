@@ -10,6 +10,8 @@
 
 mod compute;
 pub mod log;
+pub mod open;
+mod plan;
 pub mod writer;
 
 use anyhow::{bail, Context, Result};
@@ -20,16 +22,16 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Instant;
 
-use crate::contrast::doppler::DopplerScale;
 use crate::io::capture::Capture;
 use crate::io::hash;
 use crate::io::staging::Staging;
 use crate::io::volume::{VolumeAttributes, VolumeWriter};
-use crate::pipeline::config::{BackgroundMethod, DopplerPairs, PipelineConfig};
-use crate::pipeline::fused::FusedPlan;
-use crate::pipeline::plan::{CaptureGeometry, Plan};
+use crate::pipeline::config::PipelineConfig;
 use crate::stages::log_compression::{grey_levels, grey_levels_u8};
 use log::*;
+pub use open::{open_capture, read_pipeline};
+use plan::{plan, Planned};
+use open::{open, Opened, Opening};
 pub use writer::bscan_png_name;
 use writer::{ContrastDatasets, Writer};
 
@@ -98,7 +100,7 @@ pub fn recorded_pipeline(dir: &Path) -> Option<String> {
 /// `--resume` would skip it as up to date, Ok(false) when it would be
 /// processed, Err when it would fail before processing (the reason).
 pub fn would_skip(input: &Path, config: &PipelineConfig, out_root: &Path, resume: bool) -> Result<bool> {
-    let capture = Capture::open(input, &config.input)?;
+    let capture = crate::run::open_capture(input, &config.input)?;
     let name = output_name(input);
     if let Some(problem) = crate::io::staging::output_name_problem(&name) {
         bail!("{problem}");
@@ -125,7 +127,7 @@ pub fn hash_algorithm(config: &PipelineConfig) -> hash::HashAlgorithm {
 
 /// `now` is the input's hash with the configured algorithm; a log made with
 /// the other one is checked by hashing the input again with it.
-fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str) -> bool {
+pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str) -> bool {
     let Ok(bytes) = std::fs::read(dir.join("log.json")) else { return false };
     let Ok(log) = serde_json::from_slice::<serde_json::Value>(&bytes) else { return false };
     let recorded = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str()).unwrap_or("");
@@ -160,157 +162,6 @@ pub fn grey8(db: &[f32], black: f64, white: f64, bytes: &mut Vec<u8>) {
     grey_levels_u8(db, black, white, bytes);
 }
 
-/// Phase 1: the opened, checked capture and what is known before planning.
-struct Opened {
-    capture: Capture,
-    name: String,
-    pipeline_sha256: String,
-    /// The input's SHA-256 when it was needed up front (resume).
-    sha_now: Option<String>,
-    positions: usize,
-}
-
-/// What opening found.
-enum Opening {
-    Ready(Box<Opened>),
-    /// `resume` found the outputs up to date: (frames, A-lines).
-    UpToDate(usize, usize),
-}
-
-/// Opens and checks the capture against the pipeline.
-fn open(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: &RunContext<'_>) -> Result<Opening> {
-    let capture = Capture::open(input, &config.input)?;
-    let name = output_name(input);
-    if let Some(problem) = crate::io::staging::output_name_problem(&name) {
-        bail!("{problem}");
-    }
-    crate::io::staging::check_replaceable(&out_root.join(&name))?;
-    let sha_now = if ctx.resume { Some(hash::input_hash_with(input, hash_algorithm(config)).with_context(|| format!("hashing {}", input.display()))?) } else { None };
-    let pipeline_sha256 = config.sha256();
-    if let Some(p) = ctx.capture_progress {
-        p.set_length(capture.frames as u64);
-    }
-    if ctx.resume && up_to_date(&out_root.join(&name), input, sha_now.as_deref().unwrap_or(""), &pipeline_sha256) {
-        return Ok(Opening::UpToDate(capture.frames, capture.alines));
-    }
-    let (frames, average) = (capture.frames, config.volume.average);
-    if frames % average != 0 {
-        bail!("the capture has {frames} frames, not a multiple of volume.average = {average} (repeated B-scans per position)");
-    }
-    if config.angiography.enabled() && average < 2 {
-        bail!(
-            "angiography needs N ≥ 2 repeated B-scans per position: set volume.average to the repeats per position (the capture has {frames} frame{})",
-            if frames == 1 { "" } else { "s" }
-        );
-    }
-    if config.doppler.enabled && config.doppler.between == DopplerPairs::Repeats && average < 2 {
-        bail!("doppler.between = \"repeats\" needs repeated B-scans per position: set volume.average (now 1)");
-    }
-    Ok(Opening::Ready(Box::new(Opened { positions: frames / average, capture, name, pipeline_sha256, sha_now })))
-}
-
-/// Phase 2: the plan and everything derived from it.
-struct Planned {
-    plan: Plan,
-    dispersion_estimate: Option<crate::calibration::dispersion::DispersionEstimate>,
-    depth_um: Vec<f64>,
-    en_face_range: (usize, usize),
-    /// The sub-band plans of split-spectrum angiography.
-    sub_bands: Vec<FusedPlan>,
-    doppler: Option<(DopplerScale, String)>,
-    warnings: Vec<String>,
-}
-
-fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> {
-    let capture = &opened.capture;
-    // Shaping measures the source envelope: the background, else frame 0's mean spectrum.
-    let source_spectrum = match (&capture.background, config.shaping.enabled) {
-        (Some(b), _) => Some(b.clone()),
-        (None, true) => {
-            let mut first = Array2::<f64>::zeros(capture.frame_shape());
-            capture.read_frame(0, &mut first)?;
-            Some(crate::stages::background::mean_spectrum(first.view()))
-        }
-        (None, false) => None,
-    };
-    let (resolved, dispersion_estimate) = crate::calibration::resolve_dispersion(capture, config, source_spectrum.as_deref())?;
-    let plan = Plan::new(
-        &resolved,
-        CaptureGeometry { wavelength_nm: &capture.wavelength_nm, background: capture.background.as_deref(), source_spectrum: source_spectrum.as_deref() },
-    )?;
-    let depth = plan.summary.depth_pixels;
-    let depth_um: Vec<f64> = (0..depth).map(|i| plan.depth_um(i)).collect();
-    let en_face_range = match config.volume.en_face_depth_um {
-        Some([a, b]) => {
-            let r = (depth_um.iter().position(|&z| z >= a).unwrap_or(depth), depth_um.iter().position(|&z| z >= b).unwrap_or(depth));
-            if r.0 >= r.1 {
-                bail!("volume.en_face_depth_um [{a}, {b}] holds no depth pixel of this capture ({:.1}–{:.1} µm)", depth_um[0], depth_um[depth - 1]);
-            }
-            r
-        }
-        None => (0, depth),
-    };
-    if let Some([a, b]) = config.angiography.en_face_depth_um {
-        if !config.angiography.en_face_from_surface && !depth_um.iter().any(|&z| z >= a && z < b) {
-            bail!("angiography.en_face_depth_um [{a}, {b}] holds no depth pixel of this capture ({:.1}–{:.1} µm)", depth_um[0], depth_um[depth - 1]);
-        }
-    }
-    let mut warnings = Vec::new();
-    if config.background.method == BackgroundMethod::Auto && capture.background.is_none() {
-        warnings.push(format!("capture has no '{}' dataset: background estimated as the median over each frame's A-lines", config.input.background));
-    }
-    let sub_bands = if config.angiography.methods.contains(&crate::pipeline::config::AngiographyMethod::SplitSpectrum) {
-        let shaping = plan.shaping_gain();
-        crate::contrast::angiography::sub_band_windows(plan.summary.k_samples, config.angiography.split_bands, config.angiography.split_band_fwhm)
-            .into_iter()
-            .map(|w| {
-                let gain: Vec<f64> = w.iter().zip(&shaping).map(|(a, b)| a * b).collect();
-                let scale = 2.0 / w.iter().sum::<f64>();
-                FusedPlan::with_spectral_gain(&plan, &gain, scale)
-            })
-            .collect()
-    } else {
-        Vec::new()
-    };
-    let doppler = if config.doppler.enabled {
-        let d = &config.doppler;
-        let (period, source) = match d.between {
-            DopplerPairs::Alines => match (d.aline_period_us, capture.scan.aline_period_us) {
-                (Some(t), _) => (t, "pipeline key doppler.aline_period_us".to_string()),
-                (None, Some(t)) => (t, "capture attribute aline_period_us".to_string()),
-                (None, None) => bail!(
-                    "Doppler needs the A-line period: the fringes '{}' have no aline_period_us attribute; set doppler.aline_period_us (µs) in the pipeline",
-                    capture.fringes_path
-                ),
-            },
-            DopplerPairs::Repeats => match (d.frame_period_us, capture.scan.frame_period_us) {
-                (Some(t), _) => (t, "pipeline key doppler.frame_period_us".to_string()),
-                (None, Some(t)) => (t, "capture attribute frame_period_us".to_string()),
-                (None, None) => bail!(
-                    "Doppler between repeats needs the B-scan period: the fringes '{}' have no frame_period_us attribute; set doppler.frame_period_us (µs) in the pipeline",
-                    capture.fringes_path
-                ),
-            },
-        };
-        Some((DopplerScale::new(plan.summary.band_centre_wavelength_nm, d.group_index, period), source))
-    } else {
-        None
-    };
-    let need = memory_estimate(capture, config, depth);
-    if let Some(available) = available_memory_bytes() {
-        if need > available {
-            bail!(
-                "this capture and pipeline need about {:.1} GB of memory ({} A-lines × {depth} depth pixels per B-scan, {} held per position), the machine has {:.1} GB available: lower volume.average, fft.zero_padding or crop the depth (fft.crop_um)",
-                need as f64 / 1e9,
-                capture.alines,
-                config.volume.average,
-                available as f64 / 1e9
-            );
-        }
-    }
-    Ok(Planned { plan, dispersion_estimate, depth_um, en_face_range, sub_bands, doppler, warnings })
-}
-
 /// Bytes one capture's reconstruction holds at its peak: the frames in
 /// flight between reader, pipeline and writer, one position's repeats
 /// with their complex profiles, amplitudes and sub-bands, the contrast
@@ -327,7 +178,7 @@ pub fn memory_estimate(capture: &Capture, config: &PipelineConfig, depth: usize)
 }
 
 /// MemAvailable of /proc/meminfo, bytes.
-fn available_memory_bytes() -> Option<u64> {
+pub(super) fn available_memory_bytes() -> Option<u64> {
     let text = std::fs::read_to_string("/proc/meminfo").ok()?;
     let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
     Some(line.split_whitespace().nth(1)?.parse::<u64>().ok()? * 1024)
@@ -351,7 +202,10 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
             first_depth_um: planned.depth_um[0],
             pipeline_sha256: &opened.pipeline_sha256,
             frames_averaged: config.volume.average,
-            volume_type: config.output.volume_type,
+            volume_type: match config.output.volume_type {
+                crate::pipeline::config::VolumeType::Float32 => crate::io::volume::VolumeType::Float32,
+                crate::pipeline::config::VolumeType::Uint16 => crate::io::volume::VolumeType::Uint16,
+            },
             aline_spacing_um: config.input.aline_spacing_um.or(opened.capture.scan.aline_spacing_um),
             position_spacing_um: opened.capture.scan.stored_frame_spacing_um(config.volume.average),
         },
@@ -405,7 +259,11 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
 const PHASE_CONVENTION: &str = "phase of a reflector at optical depth z is 2·k_centre·z: it grows with depth; motion away from the probe raises it, towards the probe lowers it";
 const DOPPLER_SIGN: &str = "positive: motion away from the probe (towards larger depth)";
 
-/// Reconstructs `input` with `config` into `<out_root>/<stem>/`.
+/// Reconstructs `input` with `config` into `<out_root>/<stem>/`, phase by
+/// phase: open and check ([`open`]), plan ([`plan`]), compute and write
+/// ([`compute`] with the [`Writer`] of [`start_writer`]), the outputs made
+/// after the last frame ([`finish_outputs`]), then log.json, the report and
+/// the commit of the staged folder ([`write_log`]).
 pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: RunContext<'_>) -> Result<CaptureOutcome> {
     let started = Instant::now();
     let opened = match open(input, config, out_root, &ctx)? {
@@ -427,11 +285,26 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     });
     let planned = plan(&opened, config)?;
     let staging = Staging::new(out_root, &opened.name)?;
-    let (volume, datasets) = create_volume(&opened, &planned, config, &staging)?;
+    let (writer, en_face_png) = start_writer(&opened, &planned, config, &staging)?;
+    let computed = compute::run(&opened.capture, config, &planned, writer, &ctx)?;
+    let finished = finish_outputs(&opened, &planned, config, &staging, computed, en_face_png, hasher)?;
+    write_log(input, &opened, &planned, config, staging, finished, &ctx, started)
+}
+
+/// The grey mapping's PNG settings of the en face image (made after the
+/// last frame).
+struct EnFacePng {
+    info: crate::io::png::PngInfo,
+}
+
+/// Phase 3 setup: the staged volume.h5 and the writer of every frame's
+/// outputs (PNGs, volume, the report's embedded frames).
+fn start_writer<'a>(opened: &Opened, planned: &Planned, config: &'a PipelineConfig, staging: &'a Staging) -> Result<(Writer<'a>, EnFacePng)> {
+    let (volume, datasets) = create_volume(opened, planned, config, staging)?;
     let capture = &opened.capture;
-    let (frames, alines, positions) = (capture.frames, capture.alines, opened.positions);
+    let (alines, positions) = (capture.alines, opened.positions);
     let velocity_range = planned.doppler.as_ref().map_or(0.0, |(s, _)| config.doppler.velocity_range_mm_s.unwrap_or(s.aliasing_limit_mm_s));
-    let mut writer = Writer::new(config, &staging, volume, datasets, planned.en_face_range, alines, capture.full_scale, velocity_range);
+    let mut writer = Writer::new(config, staging, volume, datasets, planned.en_face_range, alines, capture.full_scale, velocity_range);
     writer.positions = positions;
     if config.output.report && config.output.volume {
         let step = crate::report::frame_step(config.output.report_frame_step, positions, planned.depth_um.len(), alines);
@@ -447,13 +320,41 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         crate::pipeline::config::PngCompression::Small => crate::io::png::Effort::Small,
     };
     writer.bscan_pixel_um = aline_spacing.map(|a| (a, depth_spacing));
-    let en_face_pixel_um = writer.en_face_pixel_um();
-    let en_face_base = writer.png_base.clone();
-    let computed = compute::run(capture, config, &planned, writer, &ctx)?;
+    let mut info = writer.png_base.clone();
+    info.pixel_um = writer.en_face_pixel_um();
+    Ok((writer, EnFacePng { info }))
+}
+
+/// What the run made, ready for the log.
+struct Finished {
+    computed_read_seconds: f64,
+    stage_seconds: serde_json::Map<String, serde_json::Value>,
+    kernel: Option<(crate::pipeline::kernel::Variant, crate::pipeline::fused::tune::Choice)>,
+    written: writer::Written,
+    outputs: Vec<String>,
+    en_face: Option<EnFaceRecord>,
+    input_hash: String,
+    warnings: Vec<String>,
+    write_seconds: f64,
+}
+
+/// Phase 4: the outputs made after the last frame (the en face image, the
+/// volume's closing attributes with the input hash, the OME-TIFF, the
+/// calibration figure) and the list of every output.
+fn finish_outputs(
+    opened: &Opened,
+    planned: &Planned,
+    config: &PipelineConfig,
+    staging: &Staging,
+    computed: compute::Computed,
+    en_face_png: EnFacePng,
+    hasher: Option<std::thread::JoinHandle<Result<String>>>,
+) -> Result<Finished> {
+    let capture = &opened.capture;
+    let (alines, positions) = (capture.alines, opened.positions);
     let mut written = computed.written;
     let mut warnings = planned.warnings.clone();
     warnings.extend(std::mem::take(&mut written.warnings));
-
     let t = Instant::now();
     let lc = &config.log_compression;
     let max_grey = if lc.bit_depth == 8 { 255.0 } else { 65535.0 };
@@ -468,12 +369,12 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         let pick = |q: f64| sorted[((sorted.len() - 1) as f64 * q).round() as usize] as f64;
         let (black, white) = (pick(0.01), pick(0.995).max(pick(0.01) + 1e-3));
         if config.output.png {
-            let mut info = en_face_base
+            let info = en_face_png
+                .info
                 .with("Description", format!("en face {} projection, A-lines across, positions down: grey linear in dB", format!("{:?}", config.volume.en_face_projection).to_lowercase()))
                 .with("black_db", format!("{black:.3}"))
                 .with("white_db", format!("{white:.3}"))
                 .with("grey_levels", format!("0 at black_db, {max_grey} at white_db"));
-            info.pixel_um = en_face_pixel_um;
             crate::io::png::write_grey(&staging.path(name), alines, positions, &grey_levels(en_face, black, white, max_grey), lc.bit_depth, &info)?;
             outputs.push(name.into());
         }
@@ -484,17 +385,17 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         }
         en_face_record = Some(EnFaceRecord { depth_um: slab, projection: config.volume.en_face_projection, black_db: black, white_db: white });
     }
-    let sha256 = match (&opened.sha_now, hasher) {
+    let input_hash = match (&opened.sha_now, hasher) {
         (Some(s), _) => s.clone(),
         (None, Some(h)) => h.join().map_err(|_| anyhow::anyhow!("the hashing thread panicked"))??,
         (None, None) => unreachable!("hashed up front or on a thread"),
     };
     if let Some(v) = volume {
-        v.finish(&sha256)?;
+        v.finish(&input_hash)?;
         outputs.push("volume.h5".into());
     }
     if config.output.ome_tiff {
-        write_ome_tiff(&staging, &opened)?;
+        write_ome_tiff(staging, opened)?;
         outputs.push("volume.ome.tif".into());
     }
     if let crate::io::capture::WavelengthSource::Calibration { path, .. } = &capture.wavelength_source {
@@ -509,16 +410,35 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
         crate::measure::plot::save_figure(&staging.path("wavelength-map.svg"), &figure).context("writing wavelength-map.svg")?;
         outputs.push("wavelength-map.svg".into());
     }
-    let report = config.output.report && config.output.volume;
-    let mut report_frames = written.report.take();
-    if report {
+    if config.output.report && config.output.volume {
         outputs.push("report.html".into());
     }
     outputs.push("log.json".into());
-    let write_s = written.write_seconds + t.elapsed().as_secs_f64();
+    let write_seconds = written.write_seconds + t.elapsed().as_secs_f64();
+    Ok(Finished {
+        computed_read_seconds: computed.read_seconds,
+        stage_seconds: computed.stage_seconds,
+        kernel: computed.kernel,
+        written,
+        outputs,
+        en_face: en_face_record,
+        input_hash,
+        warnings,
+        write_seconds,
+    })
+}
 
+/// Phase 5: log.json (everything needed to reproduce the outputs), the
+/// report drawn from what was written, and the commit of the staged folder.
+#[allow(clippy::too_many_arguments)]
+fn write_log(input: &Path, opened: &Opened, planned: &Planned, config: &PipelineConfig, staging: Staging, finished: Finished, ctx: &RunContext<'_>, started: Instant) -> Result<CaptureOutcome> {
+    let capture = &opened.capture;
+    let (frames, alines) = (capture.frames, capture.alines);
+    let Finished { computed_read_seconds, stage_seconds, kernel, mut written, outputs, en_face, input_hash, warnings, write_seconds } = finished;
+    let report = config.output.report && config.output.volume;
+    let mut report_frames = written.report.take();
     let background_method = serde_json::to_value(planned.plan.summary.background_method).ok().and_then(|v| v.as_str().map(String::from));
-    let contrast = contrast_record(config, &planned, &mut written);
+    let contrast = contrast_record(config, planned, &mut written);
     let total = started.elapsed().as_secs_f64();
     let log = ProcessingLog {
         format_version: LOG_FORMAT_VERSION,
@@ -538,29 +458,29 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
             has_background: capture.background.is_some(),
             scan: capture.scan.clone(),
         },
-        input_hash: sha256,
+        input_hash,
         pipeline: config.clone(),
         pipeline_sha256: opened.pipeline_sha256.clone(),
         engine: if ctx.reference_engine { "reference" } else { "fused" },
-        kernel: computed.kernel.as_ref().map(|(v, _)| v.name()),
+        kernel: kernel.as_ref().map(|(v, _)| v.name()),
         derived: planned.plan.summary.clone(),
         dispersion_estimate: planned.dispersion_estimate.clone(),
         frames: std::mem::take(&mut written.records),
         averaging: written.averaging.take(),
-        en_face: en_face_record,
+        en_face,
         contrast,
         outputs,
         warnings: warnings.clone(),
         timing: Timing {
             note: "the only section that differs between identical runs",
-            read_seconds: computed.read_seconds,
-            stage_thread_seconds: computed.stage_seconds,
-            write_seconds: write_s,
+            read_seconds: computed_read_seconds,
+            stage_thread_seconds: stage_seconds,
+            write_seconds,
             total_seconds: total,
             alines_per_second: (frames * alines) as f64 / total,
             threads: rayon::current_num_threads(),
             peak_resident_mb: peak_resident_mb(),
-            kernel_choice: computed.kernel.map(|(_, c)| c),
+            kernel_choice: kernel.map(|(_, c)| c),
         },
     };
     let json = serde_json::to_vec_pretty(&log).context("serialising log")?;
