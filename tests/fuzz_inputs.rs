@@ -4,7 +4,6 @@
 //! panic; errors are one line; what is accepted is consistent.
 //! `make fuzz` runs many more cases (PROPTEST_CASES).
 
-use fringeflow::io::capture::Capture;
 use fringeflow::pipeline::config::{InputConfig, PipelineConfig};
 use proptest::prelude::*;
 
