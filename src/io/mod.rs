@@ -2,6 +2,7 @@
 //! volumes, staging of outputs, hashes.
 
 pub mod capture;
+pub mod capture_layout;
 pub mod h5;
 pub mod hash;
 pub mod ome_tiff;
