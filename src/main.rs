@@ -40,6 +40,11 @@ pub(crate) fn load_pipeline(path: Option<&Path>, overrides: &[String]) -> Result
     for notice in &config.deprecations {
         fringeflow::output::warn(notice);
     }
+    // A named calibration file is loaded and checked once, up front: a bad
+    // one is a settings error, not a failure of every capture.
+    if let Some(cal) = &config.input.calibration {
+        fringeflow::calibration::wavelength::WavelengthCalibration::load(Path::new(cal)).map_err(|e| fail(2, format!("input.calibration: {e:#}")))?;
+    }
     Ok(config)
 }
 
@@ -255,6 +260,19 @@ fn rerun(log_path: &Path, out: &Path, json: bool) -> ExitCode {
         Ok((false, h)) => return fail(1, format!("{}: its hash is {h}, the log recorded {sha}: not the same input", input.display())),
         Err(e) => return fail(1, format!("{}: {e}", input.display())),
     }
+    // The wavelength calibration file must be the one the log recorded: its
+    // path is in the pipeline (and its hash), its content only here.
+    if let (Some(path), Some(recorded_cal)) = (log["input"]["wavelength_map"]["path"].as_str(), log["input"]["wavelength_map"]["file_hash"].as_str()) {
+        match std::fs::read(path) {
+            Ok(bytes) => {
+                let now = format!("sha256:{}", fringeflow::io::hash::sha256_hex(&bytes));
+                if now != recorded_cal {
+                    return fail(1, format!("calibration file {path}: its hash is {now}, the log recorded {recorded_cal}: the wavelength map changed since the run, so a rerun would not reproduce it"));
+                }
+            }
+            Err(e) => return fail(1, format!("calibration file {path}: {e}")),
+        }
+    }
     let name = fringeflow::run::output_name(&input);
     let lock = match fringeflow::batch::lock::OutputLock::acquire(out, &name) {
         Ok(l) => l,
@@ -385,12 +403,21 @@ fn slurm_script(list: &Path, pipeline: &Path, out: &Path, tasks: usize, cpus: us
 
 fn report(dirs: &[PathBuf], frame_step: Option<usize>, json: bool) -> ExitCode {
     let mut written = Vec::new();
-    for dir in dirs {
+    // `report out/all/*` also names the batch's own files beside the
+    // capture folders (batch.json, index.html): those are passed over.
+    let (folders, files): (Vec<&PathBuf>, Vec<&PathBuf>) = dirs.iter().partition(|d| d.is_dir() || !d.exists());
+    for f in &files {
+        fringeflow::output::note(&format!("skipping {}: a file, not an output folder", f.display()));
+    }
+    if folders.is_empty() {
+        return fail(2, "no output folder among the arguments (give the capture folders a run wrote, e.g. out/all/*)");
+    }
+    for dir in &folders {
         if !dir.join("log.json").is_file() {
             return fail(2, format!("{}: not an output folder of `run` (no log.json)", dir.display()));
         }
     }
-    for dir in dirs {
+    for dir in folders {
         // The folder's own pipeline decides the frame step unless given.
         let step = frame_step.unwrap_or_else(|| {
             std::fs::read(dir.join("log.json"))

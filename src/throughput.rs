@@ -544,7 +544,8 @@ fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Plan, frames: 
         } else {
             Vec::new()
         };
-        let scale = config.doppler.enabled.then(|| DopplerScale::new(plan.summary.band_centre_wavelength_nm, config.doppler.group_index, 20.0));
+        let centre = plan.summary.band_centre_wavelength_nm;
+        let scale = config.doppler.enabled.then(|| DopplerScale::new(centre, config.doppler.group_index, 20.0, centre, "band centre (bench)"));
         let timer = fused.new_timer();
         let mut runs = Vec::new();
         for _ in 0..opts.repeats.min(3) {

@@ -142,7 +142,7 @@ def doppler_bulk(outdir, truth_h5):
     far = ~binary_dilation(~np.isnan(t), structure=np.ones((1, 61, 17), bool))
     static = far & ~np.isnan(v)
     sc = s["scale"]
-    phase = v[static] * 4 * np.pi * sc["group_index"] * sc["period_us"] / sc["band_centre_wavelength_nm"]
+    phase = v[static] * 4 * np.pi * sc["group_index"] * sc["period_us"] / sc["wavelength_nm"]
     removed = np.mean([np.mean(b) for b in s["bulk_phase_rad"]])
     print(f"measured: bulk phase removed {removed:+.4f} rad per A-line pair; static tissue residual mean {phase.mean():+.4f} rad (sd {phase.std():.3f}, {static.sum()} pixels)")
     if abs(phase.mean()) >= 0.05:
@@ -279,6 +279,190 @@ def angiography(outdir, truth_h5, truth_json):
         fail("disagrees with the NumPy computation")
 
 
+def _windows(n_out, k, n, lo):
+    """Inclusive-exclusive ranges of k elements from lo[i], shifted inwards
+    to fit in n (all of n when k > n): the kernel rule of docs/contrast.md."""
+    lo = np.asarray(lo)
+    hi = np.minimum(lo + k, n)
+    lo = np.minimum(np.maximum(hi - k, 0), lo)
+    return lo, hi
+
+
+def kasai_numpy(c, kd, ka, bulk=None):
+    """Kasai velocity phase (rad) of one position's repeats c (R, depth,
+    A-lines), pairs of neighbouring A-lines, as documented: the value on
+    A-line a sums the ka pairs (m, m+1) from m = a - ka//2, the depth
+    kernel the kd pixels from d - (kd-1)//2, every repeat's pairs together;
+    `bulk` (R, pairs) is removed from each pair first. Returns the phase
+    and the kernel-mean power."""
+    c = c.astype(np.complex128)
+    R, depth, alines = c.shape
+    p = c[:, :, 1:] * np.conj(c[:, :, :-1])
+    if bulk is not None:
+        p = p * np.exp(-1j * bulk)[:, None, :]
+    w = 0.5 * (np.abs(c[:, :, 1:]) ** 2 + np.abs(c[:, :, :-1]) ** 2)
+    p, w = p.sum(0), w.sum(0)
+    slots = alines - 1
+    d0, d1 = _windows(depth, kd, depth, np.maximum(np.arange(depth) - (kd - 1) // 2, 0))
+    s0, s1 = _windows(alines, ka, slots, np.maximum(np.arange(alines) - ka // 2, 0))
+    def box(x):
+        cd = np.concatenate([np.zeros((1, slots), x.dtype), np.cumsum(x, axis=0)])
+        xd = cd[d1] - cd[d0]
+        cs = np.concatenate([np.zeros((depth, 1), x.dtype), np.cumsum(xd, axis=1)], axis=1)
+        return cs[:, s1] - cs[:, s0]
+    n = (d1 - d0)[:, None] * (s1 - s0)[None, :] * R
+    return np.angle(box(p)), box(w) / n
+
+
+def position_inputs(outdir):
+    log = load_log(outdir)
+    d = log["contrast"]["doppler"]
+    per = log["pipeline"]["volume"]["average"]
+    cfg = log["pipeline"]["doppler"]
+    return log, d, per, cfg
+
+
+def doppler_numpy(outdir):
+    """fringeflow's velocity (bulk correction off) against the NumPy Kasai
+    above on the run's own complex64 output: within 1e-5 of the aliasing
+    limit on every pixel fringeflow did not mask."""
+    log, d, per, cfg = position_inputs(outdir)
+    if cfg["bulk_correction"]:
+        fail("run with doppler.bulk_correction = false")
+    sc = d["scale"]
+    c = complex_profile(outdir)
+    with h5py.File(f"{outdir}/volume.h5", "r") as f:
+        v = f["doppler_velocity_mm_s"][...]
+    k = sc["wavelength_nm"] / (4 * np.pi * sc["group_index"] * sc["period_us"])
+    worst, compared = 0.0, 0
+    for pos in range(v.shape[0]):
+        phase, _ = kasai_numpy(c[pos * per:(pos + 1) * per], cfg["kernel_depth_px"], cfg["kernel_alines"])
+        ok = ~np.isnan(v[pos])
+        diff = np.abs(v[pos][ok] - k * phase[ok])
+        # A phase of ±π may land on either side.
+        diff = np.minimum(diff, np.abs(diff - 2 * np.pi * k))
+        worst = max(worst, diff.max() / sc["aliasing_limit_mm_s"])
+        compared += ok.sum()
+    # The same with the window one A-line later (the old placement) must not agree.
+    phase_late, _ = kasai_numpy(c[0:per][:, :, 1:], cfg["kernel_depth_px"], cfg["kernel_alines"])
+    ok = ~np.isnan(v[0][:, :-1])
+    late = np.abs(v[0][:, :-1][ok] - k * phase_late[ok]).max() / sc["aliasing_limit_mm_s"]
+    print(f"measured: velocity vs NumPy Kasai on {compared} unmasked pixels: worst difference {worst:.2e} of the aliasing limit; "
+          f"against a window one A-line later {late:.2e}")
+    if worst > 1e-5:
+        fail(f"differs from the NumPy Kasai by {worst:.2e} of the aliasing limit")
+    if late < 1e-3:
+        fail("a window one A-line later agrees as well: the check cannot tell the placement")
+
+
+def static_only_bulk(c, truth_static, min_weight, pool):
+    """Bulk phase per (repeat, pair): arg of the sum of P over the bright
+    pixels that the simulator's truth calls static, pooled over `pool` pairs
+    centred on each (clipped at the ends)."""
+    p = c[:, :, 1:].astype(np.complex128) * np.conj(c[:, :, :-1].astype(np.complex128))
+    static = truth_static[:, 1:] & truth_static[:, :-1]
+    keep = (np.abs(p) >= min_weight) & static[None]
+    per_pair = np.where(keep, p, 0).sum(axis=1)  # (R, pairs)
+    half = pool // 2
+    cs = np.concatenate([np.zeros((p.shape[0], 1), complex), np.cumsum(per_pair, axis=1)], axis=1)
+    idx = np.arange(per_pair.shape[1])
+    lo, hi = np.maximum(idx - half, 0), np.minimum(idx + half + 1, per_pair.shape[1])
+    return np.angle(cs[:, hi] - cs[:, lo])
+
+
+def _peak(v, t, vp):
+    m = ~np.isnan(t) & ~np.isnan(v)
+    u = 1 - t[m] / vp
+    meas = v[m]
+    idx = np.clip((u * 10).astype(int), 0, 9)
+    xb = np.array([u[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    yb = np.array([meas[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    design = np.vstack([np.ones_like(xb), xb]).T
+    inner = xb < 0.5
+    return np.linalg.lstsq(design[inner], yb[inner], rcond=None)[0][0]
+
+
+def bulk_static(outdir, truth_h5, truth_json, tolerance):
+    """The bulk correction fringeflow applied against one voted by the
+    static tissue alone (the simulator's truth: pixels outside every
+    vessel), the same pool and threshold, recomputed with NumPy on the
+    run's complex output: the vessel's recovered peak with each, and with
+    no correction, must agree within `tolerance` (a fraction of the truth
+    peak) between fringeflow's and the static-only one."""
+    tolerance = float(tolerance)
+    log, d, per, cfg = position_inputs(outdir)
+    sc = d["scale"]
+    c = complex_profile(outdir)
+    with h5py.File(f"{outdir}/volume.h5", "r") as f:
+        v = f["doppler_velocity_mm_s"][...]
+    t = h5py.File(truth_h5, "r")["axial_velocity_mm_s"][...]
+    vp = json.load(open(truth_json))["scan"]["vessels"][0]["peak_axial_velocity_mm_s"]
+    depth = v.shape[1]
+    t = t[:, :depth]
+    k = sc["wavelength_nm"] / (4 * np.pi * sc["group_index"] * sc["period_us"])
+    static_v = np.full(v.shape, np.nan)
+    none_v = np.full(v.shape, np.nan)
+    for pos in range(v.shape[0]):
+        cp = c[pos * per:(pos + 1) * per]
+        floor_power = 10 ** (log["frames"][pos]["noise_floor_db"] / 10)
+        min_weight = floor_power * 10 ** (cfg["threshold_db"] / 10)
+        bulk = static_only_bulk(cp, np.isnan(t[pos]), min_weight, cfg["bulk_pool_pairs"])
+        ok = ~np.isnan(v[pos])
+        ph, _ = kasai_numpy(cp, cfg["kernel_depth_px"], cfg["kernel_alines"], bulk)
+        static_v[pos][ok] = k * ph[ok]
+        ph, _ = kasai_numpy(cp, cfg["kernel_depth_px"], cfg["kernel_alines"])
+        none_v[pos][ok] = k * ph[ok]
+    ours, static, none = _peak(v, t, vp), _peak(static_v, t, vp), _peak(none_v, t, vp)
+    gap = abs(ours - static) / abs(vp)
+    print(f"measured: vessel peak (truth {vp:+.4f} mm/s): fringeflow's bulk correction {ours:+.4f}, static-only vote {static:+.4f}, "
+          f"no correction {none:+.4f}; fringeflow vs static-only {100 * gap:.2f} % of the peak "
+          f"(correction moves the peak {100 * (ours / none - 1):+.2f} %, static-only {100 * (static / none - 1):+.2f} %)")
+    if gap > tolerance:
+        fail(f"bulk correction differs from the static-only vote by {100 * gap:.2f} % of the peak")
+
+
+def doppler_wavelength(outdir, centre_nm, fwhm_nm):
+    """λ0 of the velocity scale against the power-weighted centroid of the
+    simulated source (Gaussian in k, centre and FWHM as given) on the run's
+    wavenumber grid times its Hann window, k = sum k F^2 / sum F^2: within 0.1 %."""
+    centre_nm, fwhm_nm = float(centre_nm), float(fwhm_nm)
+    log = load_log(outdir)
+    der = log["derived"]
+    k = np.linspace(der["k_min_per_um"], der["k_max_per_um"], der["k_samples"])
+    k0 = 2 * np.pi / (centre_nm * 1e-3)
+    dk = 2 * np.pi * fwhm_nm * 1e-3 / (centre_nm * 1e-3) ** 2
+    f = np.exp(-4 * np.log(2) * ((k - k0) / dk) ** 2) * np.hanning(len(k))
+    kbar = (k * f ** 2).sum() / (f ** 2).sum()
+    want = 2 * np.pi / kbar * 1e3
+    sc = log["contrast"]["doppler"]["scale"]
+    got = sc["wavelength_nm"]
+    middle = sc["band_centre_wavelength_nm"]
+    print(f"measured: lambda0 used {got:.3f} nm, power-weighted centroid {want:.3f} nm ({100 * (got / want - 1):+.3f} %); band middle {middle:.3f} nm ({100 * (middle / want - 1):+.3f} %)")
+    if abs(got / want - 1) > 1e-3:
+        fail(f"lambda0 {got:.3f} nm is {100 * (got / want - 1):+.3f} % off the centroid")
+    if abs(middle / want - 1) < 3e-3:
+        fail("the source is not off the band's middle: the check cannot tell them apart")
+
+
+def phase_slope(near_dir, far_dir, step_um):
+    """A mirror moved by step_um towards the probe: the amplitude-weighted
+    phase change summed over the point-spread function (a Kasai sum over
+    depth, all A-lines) is -2*k*step; k must be 2*pi/lambda0 of the run's
+    Doppler scale within 0.1 %."""
+    step_um = float(step_um)
+    far, near = complex_profile(far_dir)[0].astype(np.complex128), complex_profile(near_dir)[0].astype(np.complex128)
+    amp = np.abs(far).mean(axis=1)
+    pk = int(np.argmax(amp[5:])) + 5
+    sl = slice(max(pk - 12, 0), pk + 13)
+    dphi = np.angle((near[sl] * np.conj(far[sl])).sum())
+    k_meas = -dphi / (2 * step_um)
+    lam = 2 * np.pi / k_meas * 1e3
+    got = load_log(far_dir)["contrast"]["doppler"]["scale"]["wavelength_nm"]
+    print(f"measured: phase change {dphi:+.5f} rad for {step_um} um: effective wavelength {lam:.3f} nm; lambda0 logged {got:.3f} nm ({100 * (got / lam - 1):+.3f} %)")
+    if abs(got / lam - 1) > 1e-3:
+        fail(f"lambda0 {got:.3f} nm is {100 * (got / lam - 1):+.3f} % off the measured {lam:.3f} nm")
+
+
 if __name__ == "__main__":
     checks = {
         "phase-convention": phase_convention,
@@ -288,5 +472,9 @@ if __name__ == "__main__":
         "registration": registration,
         "averaging": averaging,
         "angiography": angiography,
+        "doppler-numpy": doppler_numpy,
+        "bulk-static": bulk_static,
+        "doppler-wavelength": doppler_wavelength,
+        "phase-slope": phase_slope,
     }
     checks[sys.argv[1]](*sys.argv[2:])

@@ -121,3 +121,36 @@ fn uint16_volume_holds_the_float32_db_to_within_half_a_step() {
     let pixels = |d: &std::path::Path| image::open(d.join("layered-phantom/bscan-0000.png")).unwrap().into_bytes();
     assert_eq!(pixels(&a), pixels(&b));
 }
+
+/// A column-major 3-D dataset, (pixels, A-lines, frames) as MATLAB or
+/// Fortran writes it: the error's hint names the full reversal, and
+/// following it reconstructs the same volume as the standard layout.
+#[test]
+fn transposed_3d_hint_names_the_order_that_works() {
+    let dir = tempfile::tempdir().unwrap();
+    let scene = mirror_scene(400.0, "").replace("frames = 1", "frames = 3").replace("alines = 4", "alines = 24");
+    let (capture, _) = simulate_scene(dir.path(), "standard", &scene);
+    let f = hdf5::File::open(&capture).unwrap();
+    let data = f.dataset("fringes").unwrap().read::<f64, ndarray::Ix3>().unwrap();
+    let background = f.dataset("background").unwrap().read_2d::<f64>().unwrap();
+    let wl = f.dataset("wavelength_nm").unwrap().read_raw::<f64>().unwrap();
+    drop(f);
+    let reversed = dir.path().join("reversed.h5");
+    {
+        let g = fringeflow::io::h5::create_file(&reversed).unwrap();
+        g.new_dataset_builder().with_data(&data.reversed_axes().as_standard_layout().into_owned()).create("fringes").unwrap();
+        g.new_dataset_builder().with_data(&background).create("background").unwrap();
+        fringeflow::io::h5::write_1d(&g, "wavelength_nm", &wl).unwrap();
+    }
+    let o = run(dir.path(), &[&reversed], "", &dir.path().join("plain"));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(1), "{err}");
+    let hint = "axes = [\"pixel\", \"aline\", \"frame\"]";
+    assert!(err.contains(hint), "{err}");
+    let (a, b) = (dir.path().join("a"), dir.path().join("b"));
+    run_ok(dir.path(), &[&capture], "", &a);
+    run_ok(dir.path(), &[&reversed], &format!("[input]\n{hint}\n"), &b);
+    let (va, vb) = (read_volume(&a.join("standard/volume.h5")), read_volume(&b.join("reversed/volume.h5")));
+    assert_eq!(va.db.dim(), (3, va.db.dim().1, 24));
+    assert_eq!(va.db, vb.db, "following the hint must give the standard layout's volume");
+}

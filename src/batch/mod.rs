@@ -213,7 +213,7 @@ fn process_one(input: &Path, config: &PipelineConfig, out: &Path, ctx: RunContex
             for w in &o.warnings {
                 crate::output::warn(&format!("{input}: {w}"));
             }
-            let detail = (!o.skipped).then(|| {
+            let detail = o.skipped.is_none().then(|| {
                 format!(
                     "{} frames × {} A-lines, {:.0} A-lines/s, background {}",
                     o.frames,
@@ -223,8 +223,14 @@ fn process_one(input: &Path, config: &PipelineConfig, out: &Path, ctx: RunContex
                 )
             });
             let r = record(
-                if o.skipped { Status::Skipped } else { Status::Done },
-                o.skipped.then(|| "up to date (same input SHA-256 and pipeline)".to_string()),
+                if o.skipped.is_some() { Status::Skipped } else { Status::Done },
+                o.skipped.map(|digest| {
+                    let name = match digest {
+                        crate::io::hash::HashAlgorithm::Blake3 => "BLAKE3",
+                        crate::io::hash::HashAlgorithm::Sha256 => "SHA-256",
+                    };
+                    format!("up to date (same input {name} digest, pipeline and calibration)")
+                }),
                 Some(o.output_dir.display().to_string()),
                 o.warnings.len(),
             );

@@ -255,6 +255,21 @@ pub fn check_hints(mirrors: usize, hints: &ScaleHints, degree: usize) -> Result<
     if mirrors == 1 && hints.depths_um.is_none() {
         bail!("one mirror capture needs its depth (--depths-um) and the centre wavelength");
     }
+    // The same plausible range of wavelengths that `run` holds a map to.
+    let [min_nm, max_nm] = crate::io::capture::PLAUSIBLE_WAVELENGTH_NM;
+    let half = hints.span_nm.unwrap_or(0.0) / 2.0;
+    let (lo, hi) = match hints.centre_nm {
+        Some(c) => (c - half, c + half),
+        None => (min_nm, min_nm + 2.0 * half),
+    };
+    if lo < min_nm || hi > max_nm {
+        let what = match (hints.centre_nm, hints.span_nm) {
+            (Some(c), Some(s)) => format!("--centre-nm {c} --span-nm {s} give {lo}–{hi} nm"),
+            (Some(c), None) => format!("--centre-nm {c}"),
+            _ => format!("--span-nm {}", 2.0 * half),
+        };
+        bail!("{what}: outside the plausible {min_nm}–{max_nm} nm of an optical wavelength ({}); give the values in nm", crate::io::capture::unit_hint(lo.max(f64::MIN_POSITIVE), hi));
+    }
 
     Ok(())
 }
@@ -366,6 +381,7 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
     let coeff_t = polyfit(&ts, &ls, degree);
     let eval_t = |t: f64| coeff_t.iter().rev().fold(0.0, |acc, c| acc * t + c);
     let fitted: Vec<f64> = (0..pixels).map(|p| eval_t(t_of(p as f64))).collect();
+    crate::io::capture::check_wavelength_map(&fitted, pixels, "calibrated from these mirrors")?;
     let rms = (used.iter().map(|&p| (measured_nm[p] - fitted[p]).powi(2)).sum::<f64>() / used.len() as f64).sqrt();
     let polynomial_nm = to_pixel_powers(&coeff_t, mid);
 

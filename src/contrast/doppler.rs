@@ -20,13 +20,21 @@ use rayon::prelude::*;
 use rustfft::num_complex::{Complex32, Complex64};
 
 use super::fft2::transposed;
-use super::phase::{fast_atan2, pooled_bulk_phases, PhaseHistogram};
+use super::phase::{fast_atan2, static_bulk_phases, BulkVote};
 use crate::pipeline::config::{DopplerConfig, DopplerPairs};
 
 /// Velocity scale and limits of a Doppler measurement.
 #[derive(Debug, Clone, Copy, serde::Serialize)]
 pub struct DopplerScale {
-    /// λ0 of v = λ0·Δφ/(4π·n·T): the band's centre wavelength, nm.
+    /// λ0 of v = λ0·Δφ/(4π·n·T), nm: 2π over the power-weighted mean
+    /// wavenumber of the spectrum that reaches the FFT (the source spectrum
+    /// on the wavenumber grid × shaping × window), where a reflector's phase
+    /// advances (FIELD-NOTES; see `wavelength_source`).
+    pub wavelength_nm: f64,
+    /// What λ0 was computed from.
+    pub wavelength_source: &'static str,
+    /// The middle of the resampled band, λ of (k_min + k_max)/2, nm: for
+    /// reference only (format 2 used it as λ0).
     pub band_centre_wavelength_nm: f64,
     pub group_index: f64,
     /// T, µs.
@@ -36,15 +44,15 @@ pub struct DopplerScale {
 }
 
 impl DopplerScale {
-    pub fn new(band_centre_wavelength_nm: f64, group_index: f64, period_us: f64) -> Self {
+    pub fn new(wavelength_nm: f64, group_index: f64, period_us: f64, band_centre_wavelength_nm: f64, wavelength_source: &'static str) -> Self {
         // λ in nm over T in µs is mm/s.
-        let limit = band_centre_wavelength_nm / (4.0 * group_index * period_us);
-        DopplerScale { band_centre_wavelength_nm, group_index, period_us, aliasing_limit_mm_s: limit }
+        let limit = wavelength_nm / (4.0 * group_index * period_us);
+        DopplerScale { wavelength_nm, wavelength_source, band_centre_wavelength_nm, group_index, period_us, aliasing_limit_mm_s: limit }
     }
 
     /// Velocity in mm/s of a phase step in rad.
     pub fn velocity_mm_s(&self, phase_step: f64) -> f64 {
-        self.band_centre_wavelength_nm * phase_step / (4.0 * std::f64::consts::PI * self.group_index * self.period_us)
+        self.wavelength_nm * phase_step / (4.0 * std::f64::consts::PI * self.group_index * self.period_us)
     }
 }
 
@@ -65,6 +73,8 @@ pub struct KasaiSums {
     bulk_min_weight: f32,
     /// Pairs pooled for each pair's bulk estimate.
     bulk_pool: usize,
+    /// Bright pixels and those left out of the bulk vote as flow.
+    pub vote: BulkVote,
 }
 
 impl KasaiSums {
@@ -85,21 +95,25 @@ impl KasaiSums {
             bulk_correction: config.bulk_correction,
             bulk_min_weight: threshold as f32,
             bulk_pool: config.bulk_pool_pairs,
+            vote: BulkVote::default(),
         }
     }
 
-    /// Adds pairs: slot s pairs line `first(s)` (earlier) with `second(s)`
-    /// (later), lines being rows (A-lines × depth) of the given images.
+    /// Adds pairs: slot s pairs line `s` of `earlier` with line
+    /// `s + offset` of `later`, lines being rows (A-lines × depth).
     fn add_pairs(&mut self, earlier: &Array2<Complex32>, later: &Array2<Complex32>, offset: usize) {
-        let min_weight = self.bulk_min_weight;
-        let slots = self.products.nrows();
-        let pair = |slot: usize| {
-            let (x, y) = (earlier.row(slot), later.row(slot + offset));
-            x.into_iter().zip(y).map(|(a, b)| b * a.conj())
-        };
+        let (slots, depth) = self.products.dim();
+        let mut products = Array2::<Complex32>::zeros((slots, depth));
+        products.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(slot, mut row)| {
+            for ((p, a), b) in row.iter_mut().zip(earlier.row(slot)).zip(later.row(slot + offset)) {
+                *p = b * a.conj();
+            }
+        });
         let bulks = if self.bulk_correction {
-            let histograms: Vec<PhaseHistogram> = (0..slots).into_par_iter().map(|s| PhaseHistogram::of(pair(s), min_weight)).collect();
-            pooled_bulk_phases(&histograms, self.bulk_pool)
+            let (bulks, vote) = static_bulk_phases(&products, self.bulk_min_weight, self.bulk_pool);
+            self.vote.bright += vote.bright;
+            self.vote.flow += vote.flow;
+            bulks
         } else {
             vec![0.0; slots]
         };
@@ -111,9 +125,8 @@ impl KasaiSums {
             .for_each(|(slot, (mut sum, mut power))| {
                 let undo = Complex64::from_polar(1.0, -bulks[slot]);
                 let (x, y) = (earlier.row(slot), later.row(slot + offset));
-                for ((s, w), (a, b)) in sum.iter_mut().zip(power.iter_mut()).zip(x.iter().zip(y.iter())) {
-                    let v = b * a.conj();
-                    *s += Complex64::new(v.re as f64, v.im as f64) * undo;
+                for (((s, w), p), (a, b)) in sum.iter_mut().zip(power.iter_mut()).zip(products.row(slot)).zip(x.iter().zip(y.iter())) {
+                    *s += Complex64::new(p.re as f64, p.im as f64) * undo;
                     *w += 0.5 * (a.norm_sqr() as f64 + b.norm_sqr() as f64);
                 }
             });
@@ -142,51 +155,75 @@ impl KasaiSums {
     /// The velocity image (depth × A-lines, mm/s, NaN where masked): box
     /// sums over the kernel, arg, scale. `threshold_power` is the power a
     /// pixel's kernel mean needs (noise floor + threshold).
+    ///
+    /// Where a value belongs (see [`slot_window`]): between A-lines, the
+    /// value on A-line a sums the `kernel_alines` pairs (m, m+1) with m from
+    /// a − ⌊k/2⌋ (shifted inwards at the edges), so an even k is centred on
+    /// a and an odd k half an A-line after it; between repeats, the k
+    /// A-lines from a − ⌊(k−1)/2⌋. Depth: the `kernel_depth_px` pixels from
+    /// d − ⌊(k−1)/2⌋.
     pub fn velocity(&self, config: &DopplerConfig, scale: &DopplerScale, threshold_power: f64, alines: usize) -> Array2<f32> {
         let (slots, depth) = self.products.dim();
         if self.count == 0 {
             return Array2::from_elem((depth, alines), f32::NAN);
         }
-        // Kernel: along depth within a slot row, across slots between rows.
         let (kd, ka) = (config.kernel_depth_px, config.kernel_alines);
-        let sums = box_sum(&self.products, ka, kd);
-        let power = box_sum(&self.power, ka, kd);
+        let rows = |a: usize| slot_window(self.pairs, a, ka, slots);
+        let sums = box_sum(&self.products, alines, rows, kd);
+        let power = box_sum(&self.power, alines, rows, kd);
         let k = scale.velocity_mm_s(1.0) as f32;
-        let mut by_slot = Array2::<f32>::zeros((slots, depth));
-        by_slot.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(s, mut row)| {
-            let (s0, s1) = window(s, ka, slots);
+        let mut by_aline = Array2::<f32>::zeros((alines, depth));
+        by_aline.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(a, mut row)| {
+            let (s0, s1) = rows(a);
             for (d, v) in row.iter_mut().enumerate() {
                 let (d0, d1) = window(d, kd, depth);
                 let n = ((d1 - d0) * (s1 - s0) * self.count) as f64;
-                *v = if power[[s, d]] / n < threshold_power {
+                *v = if power[[a, d]] / n < threshold_power {
                     f32::NAN
                 } else {
-                    let c = sums[[s, d]];
+                    let c = sums[[a, d]];
                     k * fast_atan2(c.im as f32, c.re as f32)
                 };
             }
         });
-        // Slot a is between A-lines a and a+1; the last A-line takes the last pair.
-        let image = transposed(&by_slot);
-        Array2::from_shape_fn((depth, alines), |(d, a)| image[[d, a.min(slots - 1)]])
+        transposed(&by_aline)
     }
 }
 
-/// Inclusive-exclusive range of a centred kernel of `k` around `i` within `n`.
-fn window(i: usize, k: usize, n: usize) -> (usize, usize) {
-    let lo = i.saturating_sub((k - 1) / 2);
+/// The pair slots summed for the value on A-line `a` (inclusive-exclusive),
+/// `k` of them, shifted inwards at the edges. Slot m of A-line pairs sits
+/// between A-lines m and m+1 (at m + ½), so the slots from a − ⌊k/2⌋ are
+/// centred on a for even k and on a + ½ for odd k; a repeat slot is the
+/// A-line itself, centred as a depth kernel is.
+pub fn slot_window(pairs: DopplerPairs, a: usize, k: usize, slots: usize) -> (usize, usize) {
+    match pairs {
+        DopplerPairs::Alines => clipped(a.saturating_sub(k / 2), k, slots),
+        DopplerPairs::Repeats => window(a, k, slots),
+    }
+}
+
+/// `k` elements from `lo`, shifted inwards to fit in `n` (all of `n` when k > n).
+fn clipped(lo: usize, k: usize, n: usize) -> (usize, usize) {
     let hi = (lo + k).min(n);
     (hi.saturating_sub(k).min(lo), hi)
 }
 
-/// Σ over the centred kernel (kr rows × kc columns, clipped at the edges)
-/// of each element: running sums along each row, then sums of kr rows.
-fn box_sum<T>(a: &Array2<T>, kr: usize, kc: usize) -> Array2<T>
+/// Inclusive-exclusive range of a centred kernel of `k` around `i` within
+/// `n`: from i − ⌊(k−1)/2⌋ (an even kernel reaches half a pixel further
+/// down than up).
+fn window(i: usize, k: usize, n: usize) -> (usize, usize) {
+    clipped(i.saturating_sub((k - 1) / 2), k, n)
+}
+
+/// Row r of the result: Σ over the rows `rows(r)` of `a` and the centred
+/// kernel of `kc` columns (clipped at the edges): running sums along each
+/// row, then sums of the chosen rows.
+fn box_sum<T>(a: &Array2<T>, out_rows: usize, rows: impl Fn(usize) -> (usize, usize) + Sync, kc: usize) -> Array2<T>
 where
     T: Copy + Default + std::ops::Add<Output = T> + std::ops::Sub<Output = T> + Send + Sync,
 {
-    let (rows, cols) = a.dim();
-    let mut along = Array2::<T>::from_elem((rows, cols), T::default());
+    let cols = a.ncols();
+    let mut along = Array2::<T>::from_elem(a.dim(), T::default());
     along.axis_iter_mut(Axis(0)).into_par_iter().zip(a.axis_iter(Axis(0))).for_each(|(mut out, row)| {
         let mut prefix = Vec::with_capacity(cols + 1);
         prefix.push(T::default());
@@ -199,9 +236,9 @@ where
             *o = prefix[c1] - prefix[c0];
         }
     });
-    let mut out = Array2::<T>::from_elem((rows, cols), T::default());
+    let mut out = Array2::<T>::from_elem((out_rows, cols), T::default());
     out.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(r, mut o)| {
-        let (r0, r1) = window(r, kr, rows);
+        let (r0, r1) = rows(r);
         for rr in r0..r1 {
             for (x, &v) in o.iter_mut().zip(along.row(rr).iter()) {
                 *x = *x + v;
@@ -230,7 +267,7 @@ mod tests {
     #[test]
     fn box_sum_matches_direct_sums() {
         let a = Array2::from_shape_fn((7, 9), |(i, j)| (i * 10 + j) as f64);
-        let s = box_sum(&a, 3, 4);
+        let s = box_sum(&a, 7, |i| window(i, 3, 7), 4);
         for i in 0..7 {
             for j in 0..9 {
                 let (r0, r1) = window(i, 3, 7);
@@ -242,6 +279,30 @@ mod tests {
     }
 
     #[test]
+    fn a_velocity_belongs_to_the_centre_of_its_pairs() {
+        // Phase step of pair (m, m+1) = c·(m + ½): a velocity growing along
+        // the B-scan, so the value on A-line a is c·(centre of its window).
+        let (depth, alines, c) = (6, 40, 0.01f32);
+        let frame = Array2::from_shape_fn((depth, alines), |(_, a)| Complex32::from_polar(5.0, 0.5 * c * (a * a) as f32));
+        for (ka, centre_offset) in [(4usize, 0.0f32), (2, 0.0), (3, 0.5), (1, 0.5)] {
+            let config = DopplerConfig { enabled: true, bulk_correction: false, kernel_alines: ka, ..Default::default() };
+            let mut sums = KasaiSums::new(&config, depth, alines, 1.0);
+            sums.add_frame(frame.view());
+            let scale = DopplerScale::new(840.0, 1.38, 20.0, 840.0, "test");
+            let v = sums.velocity(&config, &scale, 1.0, alines);
+            for a in ka..alines - ka {
+                let want = scale.velocity_mm_s((c * (a as f32 + centre_offset)) as f64) as f32;
+                assert!((v[[2, a]] - want).abs() < 1e-4, "k {ka}, A-line {a}: {} vs {want}", v[[2, a]]);
+            }
+        }
+        // Windows: inside, k pairs; at the edges shifted inwards.
+        assert_eq!(slot_window(DopplerPairs::Alines, 10, 4, 39), (8, 12));
+        assert_eq!(slot_window(DopplerPairs::Alines, 0, 4, 39), (0, 4));
+        assert_eq!(slot_window(DopplerPairs::Alines, 39, 4, 39), (35, 39));
+        assert_eq!(slot_window(DopplerPairs::Repeats, 10, 3, 40), (9, 12));
+    }
+
+    #[test]
     fn a_uniform_phase_step_gives_its_velocity() {
         // Every A-line advances by 0.5 rad: v = λ0·0.5/(4π·n·T).
         let (depth, alines) = (20, 12);
@@ -249,7 +310,7 @@ mod tests {
         let config = DopplerConfig { enabled: true, bulk_correction: false, ..Default::default() };
         let mut sums = KasaiSums::new(&config, depth, alines, 1.0);
         sums.add_frame(frame.view());
-        let scale = DopplerScale::new(840.0, 1.38, 20.0);
+        let scale = DopplerScale::new(840.0, 1.38, 20.0, 840.0, "test");
         let v = sums.velocity(&config, &scale, 1.0, alines);
         let want = scale.velocity_mm_s(0.5) as f32;
         assert!(v.iter().all(|&x| (x - want).abs() < 1e-4 * want), "{v:?} vs {want}");

@@ -46,11 +46,23 @@ pub fn modulus_into(c: &Array2<Complex32>, out: &mut Array2<f32>) {
     ndarray::Zip::from(out).and(c).par_for_each(|o, v| *o = v.norm_sqr().sqrt());
 }
 
-/// The shift applied to one B-scan (repeat and position registration
-/// together) and how its registration went.
+/// What registration measured and applied for one B-scan (repeat and
+/// position registration together), and how it went. Convention (also in
+/// log.json as `contrast.registration_convention`): the displacement is
+/// where this B-scan's content sits relative to the reference (the
+/// position's first repeat, and with position registration the first
+/// position), in pixels: axial positive = deeper (away from the probe),
+/// lateral positive = towards higher A-line index. The correction applied
+/// moves the content by the opposite amount, so it is −displacement.
 #[derive(Debug, Clone, Serialize)]
 pub struct FrameShift {
     pub frame: usize,
+    pub displacement_axial_px: f64,
+    pub displacement_lateral_px: f64,
+    pub correction_axial_px: f64,
+    pub correction_lateral_px: f64,
+    /// Format 2's names of the displacement (the same values), kept for
+    /// one format version.
     pub axial_px: f64,
     pub lateral_px: f64,
     /// Phase-correlation peak of the repeat registration (None for the
@@ -80,6 +92,8 @@ pub struct PositionOutput {
     pub doppler: Option<Array2<f32>>,
     /// Mean bulk phase removed per pair set, rad.
     pub doppler_bulk_phase: Vec<f64>,
+    /// Bright pixels of the bulk vote and those left out as flow.
+    pub doppler_vote: super::phase::BulkVote,
     /// Per method: flow image (NaN where masked) and its en face row.
     pub angiography: Vec<(AngiographyMethod, Array2<f32>, Vec<f32>)>,
     pub warnings: Vec<String>,
@@ -118,7 +132,18 @@ impl<'a> PositionProcessor<'a> {
         // Registration: shifts per repeat, then applied.
         let mut shifts: Vec<FrameShift> = frames
             .iter()
-            .map(|f| FrameShift { frame: f.index, axial_px: 0.0, lateral_px: 0.0, repeat_peak: None, position_peak: None, registered: true })
+            .map(|f| FrameShift {
+                frame: f.index,
+                displacement_axial_px: 0.0,
+                displacement_lateral_px: 0.0,
+                correction_axial_px: 0.0,
+                correction_lateral_px: 0.0,
+                axial_px: 0.0,
+                lateral_px: 0.0,
+                repeat_peak: None,
+                position_peak: None,
+                registered: true,
+            })
             .collect();
         let mut applied = vec![Shift::NONE; n];
         if let Some(reg) = &self.registrar {
@@ -161,8 +186,10 @@ impl<'a> PositionProcessor<'a> {
             }
             for (r, f) in frames.iter_mut().enumerate() {
                 let s = applied[r];
-                shifts[r].axial_px = round6(s.axial_px);
-                shifts[r].lateral_px = round6(s.lateral_px);
+                let (axial, lateral) = (round6(s.axial_px), round6(s.lateral_px));
+                let record = &mut shifts[r];
+                (record.displacement_axial_px, record.displacement_lateral_px, record.axial_px, record.lateral_px) = (axial, lateral, axial, lateral);
+                (record.correction_axial_px, record.correction_lateral_px) = (-axial + 0.0, -lateral + 0.0);
                 if s.axial_px != 0.0 || s.lateral_px != 0.0 {
                     reg.apply(f.complex.as_mut().expect("complex"), s);
                     for band in f.sub_bands.iter_mut() {
@@ -241,7 +268,7 @@ impl<'a> PositionProcessor<'a> {
                     }
                 }
                 let threshold = floor_power * 10f64.powf(cfg.doppler.threshold_db / 10.0);
-                Some((sums.velocity(&cfg.doppler, scale, threshold, alines), sums.bulk_phases.iter().map(|&p| round6(p)).collect()))
+                Some((sums.velocity(&cfg.doppler, scale, threshold, alines), sums.bulk_phases.iter().map(|&p| round6(p)).collect(), sums.vote))
             }
             _ => None,
         };
@@ -279,9 +306,9 @@ impl<'a> PositionProcessor<'a> {
 
         let saturated = frames.iter().map(|f| f.saturated).sum();
         let input_frames = [frames[0].index, frames[n - 1].index];
-        let (doppler, doppler_bulk_phase) = match doppler {
-            Some((v, b)) => (Some(v), b),
-            None => (None, Vec::new()),
+        let (doppler, doppler_bulk_phase, doppler_vote) = match doppler {
+            Some((v, b, vote)) => (Some(v), b, vote),
+            None => (None, Vec::new(), Default::default()),
         };
         Ok(PositionOutput {
             position,
@@ -293,6 +320,7 @@ impl<'a> PositionProcessor<'a> {
             shifts: if self.registrar.is_some() { shifts } else { Vec::new() },
             doppler,
             doppler_bulk_phase,
+            doppler_vote,
             angiography: angio,
             warnings,
         })

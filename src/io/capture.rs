@@ -267,20 +267,27 @@ fn dataset_hint(file: &hdf5::File) -> String {
 
 /// A suggestion of `input.axes` when the fringe dataset looks transposed:
 /// the spectra seem to run along another axis (the longest one, or the one
-/// as long as the wavelength map).
+/// as long as the wavelength map). For 3-D data the other two axes keep
+/// the order labs write them in: spectra first means a column-major
+/// (MATLAB, Fortran) array of (pixel, A-line, frame), the full reversal of
+/// (frame, A-line, pixel); spectra in the middle means one (pixel × A-line)
+/// image per frame. The alternative order is named too.
 fn transposed_hint(shape: &[usize], axes: &[AxisName], map_len: Option<usize>) -> String {
     let pixel_axis = match map_len {
         Some(n) => shape.iter().position(|&s| s == n),
         None => shape.iter().enumerate().max_by_key(|(_, s)| **s).map(|(i, _)| i),
     };
     let Some(p) = pixel_axis.filter(|&p| axes.get(p) != Some(&AxisName::Pixel)) else { return String::new() };
-    let mut order: Vec<&str> = match shape.len() {
-        3 => vec!["frame", "aline"],
-        _ => vec!["aline"],
+    let list = |order: &[&str]| order.iter().map(|a| format!("\"{a}\"")).collect::<Vec<_>>().join(", ");
+    let (likely, other): (Vec<&str>, Option<Vec<&str>>) = match (shape.len(), p) {
+        (3, 0) => (vec!["pixel", "aline", "frame"], Some(vec!["pixel", "frame", "aline"])),
+        (3, 1) => (vec!["frame", "pixel", "aline"], Some(vec!["aline", "pixel", "frame"])),
+        (3, _) => (vec!["frame", "aline", "pixel"], Some(vec!["aline", "frame", "pixel"])),
+        (_, 0) => (vec!["pixel", "aline"], None),
+        _ => (vec!["aline", "pixel"], None),
     };
-    order.insert(p.min(order.len()), "pixel");
-    let list = order.iter().map(|a| format!("\"{a}\"")).collect::<Vec<_>>().join(", ");
-    format!("; the layout {shape:?} looks transposed (spectra along axis {p}): set `axes = [{list}]` in the pipeline's [input] section")
+    let alternative = other.map_or_else(String::new, |o| format!(" (or `axes = [{}]` if the other two axes are the other way round)", list(&o)));
+    format!("; the layout {shape:?} looks transposed (spectra along axis {p}): set `axes = [{}]` in the pipeline's [input] section{alternative}", list(&likely))
 }
 
 fn open_dataset(file: &hdf5::File, name: &str) -> Option<Dataset> {
@@ -302,7 +309,7 @@ fn read_f64(ds: &Dataset) -> Result<ArrayD<f64>> {
 pub const PLAUSIBLE_WAVELENGTH_NM: [f64; 2] = [200.0, 20_000.0];
 
 /// What a map outside the plausible range probably is.
-fn unit_hint(lo: f64, hi: f64) -> String {
+pub fn unit_hint(lo: f64, hi: f64) -> String {
     let fits = |scale: f64| lo * scale >= PLAUSIBLE_WAVELENGTH_NM[0] && hi * scale <= PLAUSIBLE_WAVELENGTH_NM[1];
     for (scale, unit) in [(1e9, "metres"), (1e3, "micrometres"), (1e7, "centimetres"), (0.1, "ångström")] {
         if fits(scale) {

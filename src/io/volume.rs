@@ -39,6 +39,50 @@ pub struct VolumeWriter {
     axes: Axes,
 }
 
+/// An attribute's value: text, or a number (stored as a float64 scalar,
+/// so readers get a number, not a string to parse).
+#[derive(Debug, Clone)]
+pub enum Attr {
+    Text(String),
+    Number(f64),
+}
+
+impl From<&str> for Attr {
+    fn from(v: &str) -> Self {
+        Attr::Text(v.to_string())
+    }
+}
+
+impl From<String> for Attr {
+    fn from(v: String) -> Self {
+        Attr::Text(v)
+    }
+}
+
+impl From<f64> for Attr {
+    fn from(v: f64) -> Self {
+        Attr::Number(v)
+    }
+}
+
+fn write_attrs(ds: &Dataset, attrs: &[(&str, Attr)]) -> Result<()> {
+    for (k, v) in attrs {
+        match v {
+            Attr::Text(t) => write_attr_str(ds, k, t)?,
+            Attr::Number(x) => write_attr(ds, k, *x)?,
+        }
+    }
+    Ok(())
+}
+
+/// The dimension labels an `axes` attribute names (comma-separated), or
+/// `default` when there is none or it has another length.
+fn axis_labels<'a, const N: usize>(attrs: &'a [(&str, Attr)], default: [&'a str; N]) -> [&'a str; N] {
+    let Some((_, Attr::Text(axes))) = attrs.iter().find(|(k, _)| *k == "axes") else { return default };
+    let names: Vec<&str> = axes.split(',').map(str::trim).collect();
+    names.try_into().unwrap_or(default)
+}
+
 /// The dimension scales: depth, and per lateral and slow axis the index
 /// and, when the step is known, the distance.
 struct Axes {
@@ -51,18 +95,19 @@ struct Axes {
 
 impl Axes {
     /// Attaches the scales of (frame, depth, A-line) to a stack of `frames`
-    /// images (the frame axis only when the lengths agree).
-    fn attach_stack(&self, ds: &Dataset, frames: usize, count: usize) -> Result<()> {
+    /// images (the frame axis only when the lengths agree), labelled
+    /// `labels` (as its `axes` attribute names them).
+    fn attach_stack(&self, ds: &Dataset, frames: usize, count: usize, labels: [&str; 3]) -> Result<()> {
         let same = count == frames;
-        label_dimensions(ds, &["frame", "depth", "aline"])?;
+        label_dimensions(ds, &labels)?;
         attach_scales(ds, &[same.then_some(&self.frame), Some(&self.depth), Some(&self.aline)])?;
         attach_scales(ds, &[same.then_some(self.position_um.as_ref()).flatten(), None, self.aline_um.as_ref()])
     }
 
     /// Attaches (frame, A-line) scales to an en face image.
-    fn attach_en_face(&self, ds: &Dataset, frames: usize, rows: usize) -> Result<()> {
+    fn attach_en_face(&self, ds: &Dataset, frames: usize, rows: usize, labels: [&str; 2]) -> Result<()> {
         let same = rows == frames;
-        label_dimensions(ds, &["frame", "aline"])?;
+        label_dimensions(ds, &labels)?;
         attach_scales(ds, &[same.then_some(&self.frame), Some(&self.aline)])?;
         attach_scales(ds, &[same.then_some(self.position_um.as_ref()).flatten(), self.aline_um.as_ref()])
     }
@@ -127,7 +172,7 @@ impl VolumeWriter {
         let aline_um = distance("aline_um", "lateral position", attrs.aline_spacing_um, alines)?;
         let position_um = distance("position_um", "slow-axis position", attrs.position_spacing_um, frames)?;
         let axes = Axes { depth: depth_axis, aline, frame, aline_um, position_um };
-        axes.attach_stack(&volume, frames, frames)?;
+        axes.attach_stack(&volume, frames, frames, ["frame", "depth", "aline"])?;
         Ok(VolumeWriter { file, volume, volume_type: attrs.volume_type, frames, axes })
     }
 
@@ -146,7 +191,7 @@ impl VolumeWriter {
         let ds = self.file.new_dataset_builder().with_data(&image).create("en_face_db").map_err(concise).context("writing /en_face_db")?;
         write_attr_str(&ds, "axes", "frame,aline")?;
         write_attr_str(&ds, "units", "dB")?;
-        self.axes.attach_en_face(&ds, self.frames, positions)?;
+        self.axes.attach_en_face(&ds, self.frames, positions, ["frame", "aline"])?;
         write_attr(&ds, "first_depth_um", depth_range_um[0])?;
         write_attr(&ds, "last_depth_um", depth_range_um[1])?;
         Ok(())
@@ -155,7 +200,9 @@ impl VolumeWriter {
     /// Creates a further stack `name` of `count` images of depth × A-lines
     /// (one chunk per image) with string attributes; write it with
     /// [`write_stack_image`].
-    pub fn add_stack<T: hdf5::H5Type>(&self, name: &str, count: usize, depth: usize, alines: usize, attrs: &[(&str, String)]) -> Result<Dataset> {
+    /// A stack of `count` images (depth × A-lines) with attributes; an
+    /// `axes` attribute ("position,depth,aline") also labels the dimensions.
+    pub fn add_stack<T: hdf5::H5Type>(&self, name: &str, count: usize, depth: usize, alines: usize, attrs: &[(&str, Attr)]) -> Result<Dataset> {
         let ds = self
             .file
             .new_dataset::<T>()
@@ -164,21 +211,20 @@ impl VolumeWriter {
             .create(name)
             .map_err(concise)
             .with_context(|| format!("creating /{name}"))?;
-        for (k, v) in attrs {
-            write_attr_str(&ds, k, v)?;
-        }
-        self.axes.attach_stack(&ds, self.frames, count)?;
+        write_attrs(&ds, attrs)?;
+        let [a, b, c] = axis_labels(attrs, ["frame", "depth", "aline"]);
+        self.axes.attach_stack(&ds, self.frames, count, [a, b, c])?;
         Ok(ds)
     }
 
-    /// Writes a 2-D dataset (rows × columns) with string attributes.
-    pub fn write_2d(&self, name: &str, values: &[f32], rows: usize, cols: usize, attrs: &[(&str, String)]) -> Result<()> {
+    /// Writes a 2-D dataset (rows × columns) with attributes; an `axes`
+    /// attribute also labels the dimensions.
+    pub fn write_2d(&self, name: &str, values: &[f32], rows: usize, cols: usize, attrs: &[(&str, Attr)]) -> Result<()> {
         let image = ndarray::ArrayView2::from_shape((rows, cols), values)?;
         let ds = self.file.new_dataset_builder().with_data(&image).create(name).map_err(concise).with_context(|| format!("writing /{name}"))?;
-        for (k, v) in attrs {
-            write_attr_str(&ds, k, v)?;
-        }
-        self.axes.attach_en_face(&ds, self.frames, rows)?;
+        write_attrs(&ds, attrs)?;
+        let [a, b] = axis_labels(attrs, ["frame", "aline"]);
+        self.axes.attach_en_face(&ds, self.frames, rows, [a, b])?;
         Ok(())
     }
 

@@ -257,6 +257,35 @@ impl Plan {
         line.field[..n].iter().map(|v| v.re).collect()
     }
 
+    /// The power-weighted mean wavenumber (rad/µm) of the spectrum that
+    /// reaches the FFT: F = `source_counts` (per pixel, the source spectrum
+    /// as the camera records it, its 1st-percentile dark level removed)
+    /// resampled onto the uniform wavenumber grid, times shaping and window;
+    /// k̄ = Σk·F²/ΣF². By Parseval, the |A|²-weighted rate at which the
+    /// phase of a depth profile's samples advances with a reflector's
+    /// displacement, summed over its point-spread function (as a Kasai sum
+    /// over depth does), is 2·k̄ (FIELD-NOTES, "Which λ0"). None when no
+    /// light is left.
+    pub fn mean_wavenumber_per_um(&self, source_counts: &[f64]) -> Option<f64> {
+        let s = &self.summary;
+        if source_counts.len() != s.pixels {
+            return None;
+        }
+        let (envelope, _) = crate::measure::spectrum::remove_baseline(source_counts);
+        let mut line = self.new_aline();
+        self.resampling.resample(&envelope, &mut line.work, &mut line.work2, &mut line.field);
+        let n = s.k_samples;
+        let (mut sum, mut moment) = (0.0, 0.0);
+        for (j, (v, g)) in line.field[..n].iter().zip(self.spectral_gain()).enumerate() {
+            let k = s.k_min_per_um + (s.k_max_per_um - s.k_min_per_um) * j as f64 / (n - 1) as f64;
+            let f = v.re.max(0.0) * g;
+            let w = f * f;
+            sum += w;
+            moment += w * k;
+        }
+        (sum > 0.0 && moment.is_finite()).then(|| moment / sum)
+    }
+
     /// Per-sample real gain of spectral shaping alone (1 where it is off).
     pub fn shaping_gain(&self) -> Vec<f64> {
         let mut line = self.new_aline();

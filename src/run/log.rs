@@ -37,8 +37,10 @@ pub struct InputInfo {
     pub scan: ScanAttributes,
 }
 
-/// The version of log.json's layout (1: before it was recorded).
-pub const LOG_FORMAT_VERSION: u32 = 2;
+/// The version of log.json's layout (1: before it was recorded; 3: Doppler λ0
+/// is the power-weighted centroid, registration names displacement and
+/// correction; see docs/json-reference.md).
+pub const LOG_FORMAT_VERSION: u32 = 3;
 
 #[derive(Debug, Serialize)]
 pub struct FrameRecord {
@@ -86,9 +88,12 @@ pub struct EnFaceRecord {
 pub struct ContrastRecord {
     #[serde(skip_serializing_if = "Option::is_none")]
     pub complex_output: Option<ComplexRecord>,
-    /// Every B-scan's applied shift and its registration peaks.
+    /// Every B-scan's measured displacement, the correction applied and its
+    /// registration peaks.
     #[serde(skip_serializing_if = "Vec::is_empty")]
     pub registration: Vec<FrameShift>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub registration_convention: Option<&'static str>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub doppler: Option<DopplerRecord>,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -114,8 +119,22 @@ pub struct DopplerRecord {
     pub velocity_range_mm_s: f64,
     pub sign: &'static str,
     /// Per position: the mean bulk-motion phase removed per frame (A-line
-    /// pairs) or per repeat pair, rad.
+    /// pairs) or per repeat pair, rad (the circular mean of the pairs').
     pub bulk_phase_rad: Vec<Vec<f64>>,
+    /// How the bulk phase was voted, when bulk correction is on.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bulk_vote: Option<BulkVoteRecord>,
+    /// Which A-line (or pixel) a velocity belongs to.
+    pub placement: &'static str,
+}
+
+#[derive(Debug, Serialize)]
+pub struct BulkVoteRecord {
+    pub method: &'static str,
+    /// Pixels above the threshold over all pairs, and of those the ones
+    /// marked as flow and left out of the vote.
+    pub bright_pixels: usize,
+    pub flow_pixels_left_out: usize,
 }
 
 #[derive(Debug, Serialize)]
@@ -130,6 +149,9 @@ pub struct AngiographyRecord {
     /// Per method and position: the value shown white in its PNG (the
     /// 99.5th percentile of the unmasked values; black is 0).
     pub white: Vec<(AngiographyMethod, Vec<f64>)>,
+    /// How speckle variance is normalised, when it ran.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub speckle_variance_normalisation: Option<&'static str>,
     pub en_face_depth_um: Option<[f64; 2]>,
     pub en_face_from_surface: bool,
     pub en_face_projection: Projection,

@@ -26,7 +26,7 @@ use crate::io::capture::Capture;
 use crate::io::hash;
 use crate::io::staging::Staging;
 use crate::io::volume::{VolumeAttributes, VolumeWriter};
-use crate::pipeline::config::PipelineConfig;
+use crate::pipeline::config::{DopplerPairs, PipelineConfig};
 use crate::stages::log_compression::{grey_levels, grey_levels_u8};
 use log::*;
 pub use open::{open_capture, read_pipeline};
@@ -42,8 +42,9 @@ pub struct CaptureOutcome {
     pub frames: usize,
     pub alines: usize,
     pub seconds: f64,
-    /// Skipped by `resume`: the existing outputs are up to date.
-    pub skipped: bool,
+    /// Skipped by `resume`: the existing outputs are up to date, as the
+    /// input digest named here showed.
+    pub skipped: Option<hash::HashAlgorithm>,
     /// The warnings log.json records.
     pub warnings: Vec<String>,
     /// The background method the plan chose (`auto` resolved), when processed.
@@ -114,7 +115,7 @@ pub fn would_skip(input: &Path, config: &PipelineConfig, out_root: &Path, resume
         return Ok(false);
     }
     let sha = hash::input_hash_with(input, hash_algorithm(config)).with_context(|| format!("hashing {}", input.display()))?;
-    Ok(up_to_date(&out_root.join(&name), input, &sha, &config.sha256()))
+    Ok(up_to_date(&out_root.join(&name), input, &sha, &config.sha256(), &capture.wavelength_source).is_some())
 }
 
 /// The digest `[output] input_hash` asks for.
@@ -126,15 +127,25 @@ pub fn hash_algorithm(config: &PipelineConfig) -> hash::HashAlgorithm {
 }
 
 /// `now` is the input's hash with the configured algorithm; a log made with
-/// the other one is checked by hashing the input again with it.
-pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str) -> bool {
-    let Ok(bytes) = std::fs::read(dir.join("log.json")) else { return false };
-    let Ok(log) = serde_json::from_slice::<serde_json::Value>(&bytes) else { return false };
+/// the other one is checked by hashing the input again with it. Up to date
+/// also means the same wavelength map: the same calibration file content
+/// (its digest, which the pipeline hash, naming only the path, does not
+/// cover). Returns the digest that decided (the log's), when up to date.
+pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str, map: &crate::io::capture::WavelengthSource) -> Option<hash::HashAlgorithm> {
+    let bytes = std::fs::read(dir.join("log.json")).ok()?;
+    let log = serde_json::from_slice::<serde_json::Value>(&bytes).ok()?;
     let recorded = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str()).unwrap_or("");
     let same = if hash::HashAlgorithm::of(recorded) == hash::HashAlgorithm::of(now) { hash::same_input(recorded, now) } else { hash::verify(recorded, input).is_ok_and(|(same, _)| same) };
-    same
+    let same_map = match map {
+        crate::io::capture::WavelengthSource::Calibration { file_hash, .. } => log["input"]["wavelength_map"]["file_hash"].as_str() == Some(file_hash.as_str()),
+        _ => true,
+    };
+    (same
+        && same_map
         && log["pipeline_sha256"] == pipeline_sha256
-        && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file())))
+        && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file()))))
+    .then(|| hash::HashAlgorithm::of(recorded))
+    .flatten()
 }
 
 /// (rows × cols) → (cols × rows), in parallel over bands of 32 output rows.
@@ -220,7 +231,8 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
             &[
                 ("axes", "frame,depth,aline".into()),
                 ("units", "detector counts (|A| is the amplitude of /volume_db)".into()),
-                ("phase_convention", format!("{PHASE_CONVENTION} (k_centre = {k_centre:.9} rad/µm)")),
+                ("phase_convention", format!("{PHASE_CONVENTION} (k_centre = {k_centre:.9} rad/µm)").into()),
+                ("k_centre_per_um", k_centre.into()),
             ],
         )?)
     } else {
@@ -236,7 +248,13 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
                 ("axes", "position,depth,aline".into()),
                 ("units", "mm/s".into()),
                 ("sign", DOPPLER_SIGN.into()),
-                ("aliasing_limit_mm_s", format!("{:.6}", scale.aliasing_limit_mm_s)),
+                ("aliasing_limit_mm_s", scale.aliasing_limit_mm_s.into()),
+                ("wavelength_nm", scale.wavelength_nm.into()),
+                ("placement", match config.doppler.between {
+                    DopplerPairs::Alines => DOPPLER_PLACEMENT_ALINES,
+                    DopplerPairs::Repeats => DOPPLER_PLACEMENT_REPEATS,
+                }
+                .into()),
                 ("masked", "NaN below the intensity threshold".into()),
             ],
         )?),
@@ -249,7 +267,11 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
             opened.positions,
             depth,
             alines,
-            &[("axes", "position,depth,aline".into()), ("masked", "NaN below the noise-bias threshold or in registration's wrapped margin".into())],
+            &[
+                ("axes", "position,depth,aline".into()),
+                ("masked", "NaN below the noise-bias threshold or in registration's wrapped margin".into()),
+                ("normalisation", if m == crate::pipeline::config::AngiographyMethod::SpeckleVariance { SPECKLE_VARIANCE_NORMALISATION } else { "see log.json contrast.angiography" }.into()),
+            ],
         )?;
         angiography.push((m, ds));
     }
@@ -258,6 +280,11 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
 
 const PHASE_CONVENTION: &str = "phase of a reflector at optical depth z is 2·k_centre·z: it grows with depth; motion away from the probe raises it, towards the probe lowers it";
 const DOPPLER_SIGN: &str = "positive: motion away from the probe (towards larger depth)";
+const REGISTRATION_CONVENTION: &str = "displacement_*: where the B-scan's content sits relative to the reference (the position's first repeat; with registration.positions, the first position), pixels: axial positive = deeper (away from the probe), lateral positive = towards higher A-line index; correction_* = −displacement, the shift applied; axial_px and lateral_px are format 2's names of the displacement";
+const SPECKLE_VARIANCE_NORMALISATION: &str = "1/N: the population variance over the N repeats (Σ(x − mean)²/N), of 10·log10 intensity (scale = \"db\", dB²), or of intensity divided by the squared mean intensity (scale = \"linear\")";
+const BULK_VOTE_METHOD: &str = "per pair, arg of ΣA₂·conj(A₁) over the bright pixels of the pooled pairs that a phase test leaves as static: a pixel whose local (5 pairs × 5 depth pixels) residual phase step stands more than 3 robust standard deviations from the static median is flow, widened by 3 pairs and 3 depth pixels";
+const DOPPLER_PLACEMENT_ALINES: &str = "the value on A-line a sums the kernel_alines pairs (m, m+1) from m = a − ⌊kernel_alines/2⌋ (shifted inwards at the B-scan's edges): centred on a for an even kernel, half an A-line after a for an odd one; depth pixel d sums the kernel_depth_px pixels from d − ⌊(kernel_depth_px−1)/2⌋";
+const DOPPLER_PLACEMENT_REPEATS: &str = "the value on A-line a sums the kernel_alines A-lines from a − ⌊(kernel_alines−1)/2⌋ (shifted inwards at the edges) over the consecutive repeat pairs of the position; depth pixel d sums the kernel_depth_px pixels from d − ⌊(kernel_depth_px−1)/2⌋";
 
 /// Reconstructs `input` with `config` into `<out_root>/<stem>/`, phase by
 /// phase: open and check ([`open`]), plan ([`plan`]), compute and write
@@ -268,11 +295,19 @@ pub fn process_capture(input: &Path, config: &PipelineConfig, out_root: &Path, c
     let started = Instant::now();
     let opened = match open(input, config, out_root, &ctx)? {
         Opening::Ready(o) => o,
-        Opening::UpToDate(frames, alines) => {
+        Opening::UpToDate(frames, alines, digest) => {
             if let Some(p) = ctx.progress {
                 p.inc(frames as u64);
             }
-            return Ok(CaptureOutcome { output_dir: out_root.join(output_name(input)), frames, alines, seconds: 0.0, skipped: true, warnings: Vec::new(), background_method: None });
+            return Ok(CaptureOutcome {
+                output_dir: out_root.join(output_name(input)),
+                frames,
+                alines,
+                seconds: 0.0,
+                skipped: Some(digest),
+                warnings: Vec::new(),
+                background_method: None,
+            });
         }
     };
     // The input's hash is computed on its own thread while the frames are
@@ -495,7 +530,7 @@ fn write_log(input: &Path, opened: &Opened, planned: &Planned, config: &Pipeline
         return Err(Interrupted.into());
     }
     let output_dir = staging.commit()?;
-    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: false, warnings, background_method })
+    Ok(CaptureOutcome { output_dir, frames, alines, seconds: total, skipped: None, warnings, background_method })
 }
 
 /// volume.ome.tif from the staged volume.h5, one frame at a time.
@@ -533,6 +568,7 @@ fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut wri
             k_centre_per_um: 0.5 * (s.k_min_per_um + s.k_max_per_um),
             phase_convention: PHASE_CONVENTION,
         }),
+        registration_convention: (!written.shifts.is_empty()).then_some(REGISTRATION_CONVENTION),
         registration: std::mem::take(&mut written.shifts),
         doppler: planned.doppler.as_ref().map(|(scale, source)| DopplerRecord {
             between: config.doppler.between,
@@ -541,6 +577,15 @@ fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut wri
             velocity_range_mm_s: config.doppler.velocity_range_mm_s.unwrap_or(scale.aliasing_limit_mm_s),
             sign: DOPPLER_SIGN,
             bulk_phase_rad: std::mem::take(&mut written.doppler_bulk),
+            bulk_vote: config.doppler.bulk_correction.then(|| BulkVoteRecord {
+                method: BULK_VOTE_METHOD,
+                bright_pixels: written.doppler_vote.bright,
+                flow_pixels_left_out: written.doppler_vote.flow,
+            }),
+            placement: match config.doppler.between {
+                DopplerPairs::Alines => DOPPLER_PLACEMENT_ALINES,
+                DopplerPairs::Repeats => DOPPLER_PLACEMENT_REPEATS,
+            },
         }),
         angiography: a.enabled().then(|| AngiographyRecord {
             methods: a.methods.clone(),
@@ -549,6 +594,7 @@ fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut wri
             noise_bias_note: "static pixels decorrelate through noise (D ≈ 1/(2·SNR)); pure noise reads like fully decorrelated speckle (D = 1 − π/4 ≈ 0.215), so pixels below the structure's noise floor + threshold are masked",
             noise_floor_db: std::mem::take(&mut written.angiography_floor_db),
             white: std::mem::take(&mut written.angiography_white),
+            speckle_variance_normalisation: a.methods.contains(&crate::pipeline::config::AngiographyMethod::SpeckleVariance).then_some(SPECKLE_VARIANCE_NORMALISATION),
             en_face_depth_um: a.en_face_depth_um,
             en_face_from_surface: a.en_face_from_surface,
             en_face_projection: a.en_face_projection,

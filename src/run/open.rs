@@ -69,8 +69,9 @@ pub(super) struct Opened {
 /// What opening found.
 pub(super) enum Opening {
     Ready(Box<Opened>),
-    /// `resume` found the outputs up to date: (frames, A-lines).
-    UpToDate(usize, usize),
+    /// `resume` found the outputs up to date: (frames, A-lines, the input
+    /// digest that showed it).
+    UpToDate(usize, usize, crate::io::hash::HashAlgorithm),
 }
 
 /// Opens and checks the capture against the pipeline.
@@ -86,8 +87,10 @@ pub(super) fn open(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: 
     if let Some(p) = ctx.capture_progress {
         p.set_length(capture.frames as u64);
     }
-    if ctx.resume && up_to_date(&out_root.join(&name), input, sha_now.as_deref().unwrap_or(""), &pipeline_sha256) {
-        return Ok(Opening::UpToDate(capture.frames, capture.alines));
+    if ctx.resume {
+        if let Some(digest) = up_to_date(&out_root.join(&name), input, sha_now.as_deref().unwrap_or(""), &pipeline_sha256, &capture.wavelength_source) {
+            return Ok(Opening::UpToDate(capture.frames, capture.alines, digest));
+        }
     }
     let (frames, average) = (capture.frames, config.volume.average);
     if frames % average != 0 {

@@ -28,8 +28,9 @@ pub(super) struct Planned {
 
 pub(super) fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> {
     let capture = &opened.capture;
-    // Shaping measures the source envelope: the background, else frame 0's mean spectrum.
-    let source_spectrum = match (&capture.background, config.shaping.enabled) {
+    // Shaping and Doppler's λ0 measure the source envelope: the background,
+    // else frame 0's mean spectrum.
+    let source_spectrum = match (&capture.background, config.shaping.enabled || config.doppler.enabled) {
         (Some(b), _) => Some(b.clone()),
         (None, true) => {
             let mut first = Array2::<f64>::zeros(capture.frame_shape());
@@ -97,7 +98,17 @@ pub(super) fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> 
                 ),
             },
         };
-        Some((DopplerScale::new(plan.summary.band_centre_wavelength_nm, d.group_index, period), source))
+        let centre = plan.summary.band_centre_wavelength_nm;
+        let measured = source_spectrum.as_deref().and_then(|s| plan.mean_wavenumber_per_um(s)).map(crate::physics::wavelength_nm);
+        let (wavelength, wavelength_source) = match (measured, capture.background.is_some()) {
+            (Some(w), true) => (w, "power-weighted mean wavenumber of the background spectrum × shaping × window"),
+            (Some(w), false) => (w, "power-weighted mean wavenumber of frame 0's mean spectrum × shaping × window"),
+            (None, _) => {
+                warnings.push("Doppler: the source spectrum has no light above its dark level; λ0 is the band's centre".to_string());
+                (centre, "the band's centre (no measurable source spectrum)")
+            }
+        };
+        Some((DopplerScale::new(wavelength, d.group_index, period, centre, wavelength_source), source))
     } else {
         None
     };

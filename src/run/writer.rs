@@ -45,6 +45,7 @@ pub struct Written {
     pub averaging: Option<AveragingRecord>,
     pub shifts: Vec<FrameShift>,
     pub doppler_bulk: Vec<Vec<f64>>,
+    pub doppler_vote: crate::contrast::phase::BulkVote,
     pub angiography_floor_db: Vec<f64>,
     pub angiography_white: Vec<(AngiographyMethod, Vec<f64>)>,
     /// Per method: en face rows of every position (positions × A-lines).
@@ -117,6 +118,7 @@ impl<'a> Writer<'a> {
                 averaging: None,
                 shifts: Vec::new(),
                 doppler_bulk: Vec::new(),
+                doppler_vote: Default::default(),
                 angiography_floor_db: Vec::new(),
                 angiography_white: methods.iter().map(|&m| (m, Vec::new())).collect(),
                 angiography_en_face: methods.iter().map(|&m| (m, Vec::new())).collect(),
@@ -233,6 +235,8 @@ impl<'a> Writer<'a> {
                 write_stack_image(ds, position, v)?;
             }
             self.written.doppler_bulk.push(p.doppler_bulk_phase);
+            self.written.doppler_vote.bright += p.doppler_vote.bright;
+            self.written.doppler_vote.flow += p.doppler_vote.flow;
             if cfg.output.png {
                 let name = format!("doppler-{position:0w$}.png", w = index_digits(self.positions));
                 let rgb = crate::render::signed_with_colour_bar(v.view(), self.velocity_range_mm_s, "mm/s")?;
@@ -285,7 +289,7 @@ impl<'a> Writer<'a> {
         for (method, rows) in &self.written.angiography_en_face {
             let name = format!("angiography_{}_en_face", method.name());
             if let Some(v) = &self.volume {
-                let attrs = [("axes", "position,aline".to_string()), ("description", format!("en face projection of /angiography_{} over the slab in log.json", method.name()))];
+                let attrs = [("axes", "position,aline".into()), ("description", format!("en face projection of /angiography_{} over the slab in log.json", method.name()).into())];
                 v.write_2d(&name, rows, positions, self.alines, &attrs)?;
             }
             if self.config.output.png {
