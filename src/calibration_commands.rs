@@ -30,7 +30,7 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
         Err(e) => return fail(1, format!("{e:#}")),
     };
     let written = write_atomically(&out, |tmp| {
-        std::fs::write(tmp, serde_json::to_vec_pretty(&cal)?)?;
+        std::fs::write(tmp, fringeflow::json_doc::pretty(fringeflow::json_doc::CALIBRATION, &cal))?;
         Ok(())
     });
     if let Err(e) = written {
@@ -43,7 +43,7 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
         }
     }
     if json {
-        outln!("{}", serde_json::to_string_pretty(&cal).unwrap());
+        outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::CALIBRATION, &cal));
         return ExitCode::SUCCESS;
     }
     let n = cal.pixels;
@@ -91,7 +91,7 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 Err(e) => return fail(1, format!("{}: {e:#}", path.display())),
             };
             if json {
-                outln!("{}", serde_json::to_string_pretty(&e).unwrap());
+                outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::DISPERSION_ESTIMATE, &e));
             } else {
                 outln!("a2 {:.3} rad, a3 {:.3} rad (frame {}, {} A-lines, {} evaluations, {:.2} s)", e.a2_rad, e.a3_rad, e.frame, e.alines_used, e.evaluations, e.seconds);
                 outln!("entropy {:.4} (uncorrected {:.4}); peak {:.1} dB over the noise floor", e.entropy, e.entropy_uncorrected, e.peak_over_floor_db);
@@ -119,7 +119,7 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 Err(e) => return fail(1, format!("{}: {e:#}", capture.display())),
             };
             if json {
-                outln!("{}", serde_json::to_string_pretty(&report).unwrap());
+                outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::DISPERSION_SWEEP, &report));
                 return ExitCode::SUCCESS;
             }
             outln!("{:>10} {:>10} {:>10} {:>9} {:>9}", "a2 rad", "a3 rad", "entropy", "FWHM µm", "peak dB");

@@ -22,6 +22,7 @@ pub mod design;
 pub mod errors;
 pub mod inspect;
 pub mod io;
+pub mod json_doc;
 pub mod measure;
 pub mod output;
 pub mod physics;

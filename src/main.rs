@@ -187,13 +187,13 @@ fn dry_run(r: &RunRequest<'_>, config: &PipelineConfig, mine: &[PathBuf], foreig
         let refused = foreign.iter().find(|(d, _)| *d == dir).filter(|_| !r.overwrite);
         let (action, reason) = match (refused, fringeflow::run::would_skip(c, config, r.out, r.resume)) {
             (Some((_, theirs)), _) => ("refuse", Some(format!("holds outputs of pipeline sha256 {theirs} (--overwrite replaces them)"))),
-            (None, Ok(true)) => ("skip", Some("up to date (same input hash and pipeline)".to_string())),
+            (None, Ok(true)) => ("skip", Some("up to date (same input digest, pipeline and calibration)".to_string())),
             (None, Ok(false)) => ("run", None),
             (None, Err(e)) => ("fail", Some(format!("{e:#}").replace('\n', " "))),
         };
         *counts.entry(action).or_default() += 1;
         if r.json {
-            outln!("{}", serde_json::json!({ "kind": "dry_run", "input": c.display().to_string(), "action": action, "output": dir.display().to_string(), "reason": reason }));
+            outln!("{}", fringeflow::json_doc::line(fringeflow::json_doc::RUN_LINE, &serde_json::json!({ "kind": "dry_run", "input": c.display().to_string(), "action": action, "output": dir.display().to_string(), "reason": reason })));
         } else {
             outln!("{action:<7} {} → {}{}", c.display(), dir.display(), reason.map(|m| format!(": {m}")).unwrap_or_default());
         }
@@ -202,7 +202,7 @@ fn dry_run(r: &RunRequest<'_>, config: &PipelineConfig, mine: &[PathBuf], foreig
     if r.json {
         outln!(
             "{}",
-            serde_json::json!({ "kind": "dry_run_summary", "run": get("run"), "skip": get("skip"), "refuse": get("refuse"), "fail": get("fail"), "shard": format!("{}/{}", shard.index, shard.count), "inputs_total": total })
+            fringeflow::json_doc::line(fringeflow::json_doc::RUN_LINE, &serde_json::json!({ "kind": "dry_run_summary", "run": get("run"), "skip": get("skip"), "refuse": get("refuse"), "fail": get("fail"), "shard": format!("{}/{}", shard.index, shard.count), "inputs_total": total }))
         );
     } else {
         let shard_note = if shard.is_whole() { String::new() } else { format!(" (shard {}/{} of {total} captures)", shard.index, shard.count) };
@@ -300,7 +300,7 @@ fn rerun(log_path: &Path, out: &Path, json: bool) -> ExitCode {
             if json {
                 outln!(
                     "{}",
-                    serde_json::json!({
+                    fringeflow::json_doc::line(fringeflow::json_doc::RERUN, &serde_json::json!({
                         "input": input.display().to_string(),
                         "input_hash": sha,
                         "pipeline_sha256": recorded,
@@ -309,7 +309,7 @@ fn rerun(log_path: &Path, out: &Path, json: bool) -> ExitCode {
                         "alines": o.alines,
                         "seconds": o.seconds,
                         "warnings": o.warnings,
-                    })
+                    }))
                 );
             } else {
                 fringeflow::output::note(&format!("reproduced {} → {}", input.display(), o.output_dir.display()));
@@ -329,7 +329,7 @@ fn summarize(dir: &Path, json_out: bool) -> ExitCode {
         Err(e) => return fail(1, format!("{e:#}")),
     };
     let path = dir.join("summary.json");
-    let json = serde_json::to_vec_pretty(&serde_json::json!({ "report": report, "problems": problems })).unwrap();
+    let json = fringeflow::json_doc::pretty(fringeflow::json_doc::SUMMARY, &serde_json::json!({ "report": report, "problems": problems })).into_bytes();
     if let Err(e) = fringeflow::io::staging::write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &json)?)) {
         return fail(1, format!("{e:#}"));
     }
@@ -337,7 +337,7 @@ fn summarize(dir: &Path, json_out: bool) -> ExitCode {
         return fail(1, format!("{}: {e:#}", dir.join("index.html").display()));
     }
     if json_out {
-        outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "summary": path.display().to_string(), "report": report, "problems": problems })).unwrap());
+        outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::SUMMARY, &serde_json::json!({ "summary": path.display().to_string(), "report": report, "problems": problems })));
     } else {
         out!("{}", report.render());
     }
@@ -438,7 +438,7 @@ fn report(dirs: &[PathBuf], frame_step: Option<usize>, json: bool) -> ExitCode {
         }
     }
     if json {
-        outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "reports": written })).unwrap());
+        outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::REPORT, &serde_json::json!({ "reports": written })));
     }
     ExitCode::SUCCESS
 }
@@ -464,7 +464,7 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 errln!("fringeflow: warning: {w}");
             }
             if json {
-                outln!("{}", serde_json::to_string_pretty(&m).unwrap());
+                outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::PSF, &m));
             } else {
                 outln!("mirror {} frame {}: peak at {:.2} µm, {:.1} dB", m.capture, m.frame, m.peak_depth_um, m.peak_db);
                 outln!("source spectrum: centre {:.2} nm, FWHM {:.2} nm → limit l_c {:.3} µm", m.source.centre_nm, m.source.fwhm_nm, m.source.coherence_length_um);
@@ -502,7 +502,7 @@ fn measure(command: MeasureCommand) -> ExitCode {
                 errln!("fringeflow: warning: {w}");
             }
             if json {
-                outln!("{}", serde_json::to_string_pretty(&report).unwrap());
+                outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::ROLLOFF, &report));
             } else {
                 outln!("{:>12} {:>10} {:>10} {:>10}  capture", "depth µm", "peak dB", "SNR dB", "FWHM µm");
                 for p in &report.points {
@@ -563,7 +563,7 @@ fn simulate(scene_path: &Path, out: &Path, json: bool, quiet: bool) -> ExitCode 
             if json {
                 outln!(
                     "{}",
-                    serde_json::json!({
+                    fringeflow::json_doc::line(fringeflow::json_doc::SIMULATE, &serde_json::json!({
                         "scene": scene_path.display().to_string(),
                         "capture": out.display().to_string(),
                         "truth": truth.display().to_string(),
@@ -571,7 +571,7 @@ fn simulate(scene_path: &Path, out: &Path, json: bool, quiet: bool) -> ExitCode 
                         "alines": scene.alines,
                         "pixels": scene.spectrometer.pixels,
                         "seconds": started.elapsed().as_secs_f64(),
-                    })
+                    }))
                 );
             } else if !quiet {
                 errln!("wrote {} and {} ({:.1} s)", out.display(), truth.display(), started.elapsed().as_secs_f64());
@@ -612,7 +612,7 @@ fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: us
         Err(e) => return fail(1, format!("{e:#}")),
     };
     if json {
-        outln!("{}", serde_json::to_string_pretty(&report).unwrap());
+        outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::BENCH, &report));
     } else {
         out!("{}", report.render());
     }
@@ -648,7 +648,7 @@ fn pipeline_command(command: PipelineCommand) -> ExitCode {
                 Err(code) => return code,
             };
             if json {
-                outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "pipeline": config, "pipeline_sha256": config.sha256() })).unwrap());
+                outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::PIPELINE, &serde_json::json!({ "pipeline": config, "pipeline_sha256": config.sha256() })));
             } else {
                 let title = format!(
                     "Resolved pipeline{}{} (sha256 {}): every key with the value `run` uses.",
@@ -793,7 +793,7 @@ fn main() -> ExitCode {
                 resolution_nm: resolution_nm.unwrap_or(span / pixels as f64),
             });
             if json {
-                outln!("{}", serde_json::to_string_pretty(&report).unwrap());
+                outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::DESIGN, &report));
             } else {
                 out!("{}", report.render());
             }
@@ -807,7 +807,7 @@ fn main() -> ExitCode {
             match fringeflow::inspect::inspect(&capture, &config.input) {
                 Ok(report) => {
                     if json {
-                        outln!("{}", serde_json::to_string_pretty(&serde_json::json!({ "capture": capture.display().to_string(), "inspection": report })).unwrap());
+                        outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::INSPECT, &serde_json::json!({ "capture": capture.display().to_string(), "inspection": report })));
                     } else {
                         out!("{}", report.render(&capture));
                     }

@@ -299,7 +299,7 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
                 if let Ok(serde_json::Value::Object(fields)) = serde_json::to_value(&record) {
                     line.extend(fields);
                 }
-                crate::output::println(&serde_json::Value::Object(line).to_string());
+                crate::output::println(&crate::json_doc::line(crate::json_doc::RUN_LINE, &serde_json::Value::Object(line)));
             }
             if let Some(b) = own {
                 b.finish_and_clear();

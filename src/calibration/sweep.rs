@@ -260,7 +260,7 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
         Ok(())
     })?;
     write_atomically(&out.join("sweep.json"), |tmp| {
-        std::fs::write(tmp, serde_json::to_vec_pretty(&report)?)?;
+        std::fs::write(tmp, crate::json_doc::pretty(crate::json_doc::DISPERSION_SWEEP, &report))?;
         Ok(())
     })?;
     metric_plot(&out.join("metric.png"), &report, a2.len() > 1, physics::dispersion_equivalent(1.0, k_min, k_max))?;

@@ -75,6 +75,9 @@ pub struct ScaleHints {
 #[derive(Debug, Clone, Serialize, Deserialize)]
 pub struct MirrorInput {
     pub path: PathBuf,
+    /// `blake3:<hex>` or `sha256:<hex>`; calibration files of version 1
+    /// named it `sha256` (a bare SHA-256 hex digest) and still load.
+    #[serde(alias = "sha256")]
     pub input_hash: String,
     /// Fringe frequency, cycles over the spectrum.
     pub fringe_cycles: f64,
@@ -264,7 +267,7 @@ pub fn check_hints(mirrors: usize, hints: &ScaleHints, degree: usize) -> Result<
     };
     if lo < min_nm || hi > max_nm {
         let what = match (hints.centre_nm, hints.span_nm) {
-            (Some(c), Some(s)) => format!("--centre-nm {c} --span-nm {s} give {lo}–{hi} nm"),
+            (Some(c), Some(s)) => format!("--centre-nm {c} --span-nm {s} give {lo:.4}–{hi:.4} nm"),
             (Some(c), None) => format!("--centre-nm {c}"),
             _ => format!("--span-nm {}", 2.0 * half),
         };
@@ -407,7 +410,7 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
 
     Ok(WavelengthCalibration {
         format: FORMAT.into(),
-        version: 1,
+        version: crate::json_doc::CALIBRATION.version,
         pixels,
         wavelength_nm: fitted,
         polynomial_nm,
