@@ -263,6 +263,8 @@ struct Reconstructor {
     timer: FusedTimer,
     aline_period_us: Option<f64>,
     frame_period_us: Option<f64>,
+    /// λ0 of the Doppler scale and what it came from (as `run` logs it).
+    doppler_wavelength: (f64, &'static str),
     summary_json: String,
     estimate_json: Option<String>,
 }
@@ -291,10 +293,10 @@ impl Reconstructor {
     fn new(py: Python<'_>, pipeline: Option<&Pipeline>, capture: Option<&Capture>, wavelength_nm: Option<Vec<f64>>, background: Option<Vec<f64>>) -> PyResult<Self> {
         let config = pipeline.map(|p| p.config.clone()).unwrap_or_default();
         let built = py.detach(|| -> anyhow::Result<_> {
-            let (wl, bg, scan, resolved, estimate) = match (capture, wavelength_nm) {
+            let (wl, bg, scan, resolved, estimate, source, from_background) = match (capture, wavelength_nm) {
                 (Some(c), None) => {
                     let c = &c.inner;
-                    let source = match (&c.background, config.shaping.enabled) {
+                    let source = match (&c.background, config.shaping.enabled || config.doppler.enabled) {
                         (Some(b), _) => Some(b.clone()),
                         (None, true) => {
                             let mut first = Array2::<f64>::zeros(c.frame_shape());
@@ -304,14 +306,15 @@ impl Reconstructor {
                         (None, false) => None,
                     };
                     let (resolved, estimate) = fringeflow::calibration::resolve_dispersion(c, &config, source.as_deref())?;
-                    (c.wavelength_nm.clone(), c.background.clone(), c.scan.clone(), resolved, estimate)
+                    (c.wavelength_nm.clone(), c.background.clone(), c.scan.clone(), resolved, estimate, source, c.background.is_some())
                 }
                 (None, Some(wl)) => {
                     fringeflow::io::capture::check_wavelength_map(&wl, wl.len(), "wavelength_nm")?;
                     if config.dispersion.method == fringeflow::pipeline::config::DispersionMethod::Auto {
                         anyhow::bail!("dispersion.method = \"auto\" needs a capture to estimate from: give capture=");
                     }
-                    (wl, background, Default::default(), config.clone(), None)
+                    let source = background.clone();
+                    (wl, background, Default::default(), config.clone(), None, source, true)
                 }
                 (Some(_), Some(_)) => anyhow::bail!("give a capture or a wavelength map, not both"),
                 (None, None) => anyhow::bail!("give a capture, or a wavelength map (nm per pixel)"),
@@ -319,13 +322,13 @@ impl Reconstructor {
             if let Some(b) = &bg {
                 anyhow::ensure!(b.len() == wl.len(), "the background has {} values for {} pixels", b.len(), wl.len());
             }
-            let source = bg.clone();
             let plan = Plan::new(&resolved, CaptureGeometry { wavelength_nm: &wl, background: bg.as_deref(), source_spectrum: source.as_deref() })?;
             let fused = FusedPlan::new(&plan);
             let sub_bands = sub_band_plans(&plan, &resolved);
-            Ok((resolved, plan, fused, sub_bands, scan, estimate))
+            let doppler_wavelength = DopplerScale::wavelength_for(&plan, source.as_deref(), from_background);
+            Ok((resolved, plan, fused, sub_bands, scan, estimate, doppler_wavelength))
         });
-        let (config, plan, fused, sub_bands, scan, estimate) = built.map_err(|e| pipeline_error(py, format!("{e:#}")))?;
+        let (config, plan, fused, sub_bands, scan, estimate, doppler_wavelength) = built.map_err(|e| pipeline_error(py, format!("{e:#}")))?;
         let summary_json = json_of(&plan.summary);
         Ok(Reconstructor {
             aline_period_us: config.doppler.aline_period_us.or(scan.aline_period_us),
@@ -334,6 +337,7 @@ impl Reconstructor {
             plan,
             fused,
             sub_bands,
+            doppler_wavelength,
             timer: FusedTimer::default(),
             summary_json,
             estimate_json: estimate.map(|e| json_of(&e)),
@@ -432,7 +436,8 @@ impl Reconstructor {
             let Some(t) = period else {
                 return Err(pipeline_error(py, "Doppler needs the A-line period: set doppler.aline_period_us (µs) in the pipeline, or plan from a capture that records it"));
             };
-            Some(DopplerScale::new(self.plan.summary.band_centre_wavelength_nm, cfg.doppler.group_index, t))
+            let (wavelength, source) = self.doppler_wavelength;
+            Some(DopplerScale::new(wavelength, cfg.doppler.group_index, t, self.plan.summary.band_centre_wavelength_nm, source))
         } else {
             None
         };

@@ -50,6 +50,17 @@ impl DopplerScale {
         DopplerScale { wavelength_nm, wavelength_source, band_centre_wavelength_nm, group_index, period_us, aliasing_limit_mm_s: limit }
     }
 
+    /// λ0 for `plan` from the source spectrum (per pixel: the background
+    /// when `from_background`, else a frame's mean spectrum), with what it
+    /// came from; the band's centre when there is no usable spectrum.
+    pub fn wavelength_for(plan: &crate::pipeline::plan::Plan, source_spectrum: Option<&[f64]>, from_background: bool) -> (f64, &'static str) {
+        match (source_spectrum.and_then(|s| plan.mean_wavenumber_per_um(s)), from_background) {
+            (Some(k), true) => (crate::physics::wavelength_nm(k), "power-weighted mean wavenumber of the background spectrum × shaping × window"),
+            (Some(k), false) => (crate::physics::wavelength_nm(k), "power-weighted mean wavenumber of frame 0's mean spectrum × shaping × window"),
+            (None, _) => (plan.summary.band_centre_wavelength_nm, "the band's centre (no measurable source spectrum)"),
+        }
+    }
+
     /// Velocity in mm/s of a phase step in rad.
     pub fn velocity_mm_s(&self, phase_step: f64) -> f64 {
         self.wavelength_nm * phase_step / (4.0 * std::f64::consts::PI * self.group_index * self.period_us)

@@ -99,15 +99,10 @@ pub(super) fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> 
             },
         };
         let centre = plan.summary.band_centre_wavelength_nm;
-        let measured = source_spectrum.as_deref().and_then(|s| plan.mean_wavenumber_per_um(s)).map(crate::physics::wavelength_nm);
-        let (wavelength, wavelength_source) = match (measured, capture.background.is_some()) {
-            (Some(w), true) => (w, "power-weighted mean wavenumber of the background spectrum × shaping × window"),
-            (Some(w), false) => (w, "power-weighted mean wavenumber of frame 0's mean spectrum × shaping × window"),
-            (None, _) => {
-                warnings.push("Doppler: the source spectrum has no light above its dark level; λ0 is the band's centre".to_string());
-                (centre, "the band's centre (no measurable source spectrum)")
-            }
-        };
+        let (wavelength, wavelength_source) = DopplerScale::wavelength_for(&plan, source_spectrum.as_deref(), capture.background.is_some());
+        if wavelength == centre {
+            warnings.push("Doppler: the source spectrum has no light above its dark level; λ0 is the band's centre".to_string());
+        }
         Some((DopplerScale::new(wavelength, d.group_index, period, centre, wavelength_source), source))
     } else {
         None
