@@ -188,3 +188,33 @@ print(f"ok aliasing limit {lim:.4f} mm/s, labels {labels}")
     let o = Command::new("python3").arg("-c").arg(script).arg(d.join("out/t/volume.h5")).output().unwrap();
     assert!(o.status.success(), "{}{}", String::from_utf8_lossy(&o.stdout), String::from_utf8_lossy(&o.stderr));
 }
+
+/// Resume and rerun notice an edited calibration file: the pipeline names
+/// only its path, so its digest is part of "up to date".
+#[test]
+fn resume_and_rerun_notice_an_edited_calibration() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    for (name, z) in [("m1", 300.0), ("m2", 600.0)] {
+        simulate_scene(d, name, &mirror_scene(z, ""));
+    }
+    let ff = |args: &[&str]| Command::new(bin()).args(args).current_dir(d).output().unwrap();
+    assert!(ff(&["calibrate", "wavelength", "m1.h5", "m2.h5", "--centre-nm", "840", "--span-nm", "150", "--out", "cal.json"]).status.success());
+    std::fs::write(d.join("p.toml"), "[input]\ncalibration = \"cal.json\"\n").unwrap();
+    assert!(ff(&["run", "m1.h5", "-p", "p.toml", "--out", "o", "--quiet"]).status.success());
+    let text = |o: &std::process::Output| format!("{}{}", String::from_utf8_lossy(&o.stdout), String::from_utf8_lossy(&o.stderr));
+    let o = ff(&["run", "m1.h5", "-p", "p.toml", "--out", "o", "--resume"]);
+    assert!(text(&o).contains("1 skipped"), "{}", text(&o));
+    // Shift the map by 0.5 nm: same path, other content.
+    let mut cal: serde_json::Value = serde_json::from_slice(&std::fs::read(d.join("cal.json")).unwrap()).unwrap();
+    for w in cal["wavelength_nm"].as_array_mut().unwrap() {
+        *w = (w.as_f64().unwrap() + 0.5).into();
+    }
+    let edit = serde_json::to_vec(&cal).unwrap();
+    std::fs::write(d.join("cal.json"), &edit).unwrap();
+    let o = ff(&["rerun", "o/m1/log.json", "--out", "again"]);
+    assert_eq!(o.status.code(), Some(1), "{}", text(&o));
+    assert!(text(&o).contains("the wavelength map changed since the run"), "{}", text(&o));
+    let o = ff(&["run", "m1.h5", "-p", "p.toml", "--out", "o", "--resume"]);
+    assert!(text(&o).contains("1 done, 0 skipped"), "{}", text(&o));
+}
