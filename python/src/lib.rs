@@ -577,7 +577,7 @@ fn simulate(py: Python<'_>, scene_text: &str, out: PathBuf, name: &str) -> PyRes
 fn measure_psf(py: Python<'_>, path: PathBuf, pipeline: Option<&Pipeline>, frame: usize, group_index: f64) -> PyResult<String> {
     let config = pipeline.map(|p| p.config.clone()).unwrap_or_default();
     let m = py.detach(|| fringeflow::measure::mirror::measure(&path, &config, frame, group_index));
-    m.map(|m| json_of(&m)).map_err(|e| capture_error(py, &path, e))
+    m.map(|m| fringeflow::json_doc::line(fringeflow::json_doc::PSF, &m)).map_err(|e| capture_error(py, &path, e))
 }
 
 /// `fringeflow measure rolloff`: JSON text.
@@ -589,7 +589,7 @@ fn measure_rolloff(py: Python<'_>, paths: Vec<PathBuf>, pipeline: Option<&Pipeli
     }
     let config = pipeline.map(|p| p.config.clone()).unwrap_or_default();
     let r = py.detach(|| fringeflow::measure::rolloff::measure_rolloff(&paths, &config, attenuation_db));
-    r.map(|(r, _)| json_of(&r)).map_err(|e| raise(py, "CaptureError", format!("{e:#}")))
+    r.map(|(r, _)| fringeflow::json_doc::line(fringeflow::json_doc::ROLLOFF, &r)).map_err(|e| raise(py, "CaptureError", format!("{e:#}")))
 }
 
 /// `fringeflow design`: JSON text.
@@ -600,7 +600,7 @@ fn design(py: Python<'_>, centre_nm: f64, fwhm_nm: f64, span_nm: f64, pixels: us
     if values.iter().any(|v| !(v.is_finite() && *v > 0.0)) || pixels < 2 {
         return Err(raise(py, "ArrayError", "design: wavelengths, span, group index and resolution must be positive numbers, and pixels at least 2".into()));
     }
-    Ok(json_of(&fringeflow::design::design(fringeflow::design::DesignInput {
+    Ok(fringeflow::json_doc::line(fringeflow::json_doc::DESIGN, &fringeflow::design::design(fringeflow::design::DesignInput {
         centre_nm,
         source_fwhm_nm: fwhm_nm,
         span_nm,
@@ -618,7 +618,7 @@ fn calibrate_wavelength(py: Python<'_>, paths: Vec<PathBuf>, centre_nm: Option<f
     let config = pipeline.map(|p| p.config.clone()).unwrap_or_default();
     let hints = fringeflow::calibration::wavelength::ScaleHints { centre_nm, span_nm, depths_um, decreasing };
     let c = py.detach(|| fringeflow::calibration::wavelength::calibrate_files(&paths, &config, frame, &hints, degree));
-    c.map(|c| json_of(&c)).map_err(|e| raise(py, "CaptureError", format!("{e:#}")))
+    c.map(|c| fringeflow::json_doc::line(fringeflow::json_doc::CALIBRATION, &c)).map_err(|e| raise(py, "CaptureError", format!("{e:#}")))
 }
 
 /// `fringeflow dispersion estimate`: JSON text.
@@ -627,7 +627,7 @@ fn calibrate_wavelength(py: Python<'_>, paths: Vec<PathBuf>, centre_nm: Option<f
 fn estimate_dispersion(py: Python<'_>, path: PathBuf, pipeline: Option<&Pipeline>, frame: Option<usize>) -> PyResult<String> {
     let config = pipeline.map(|p| p.config.clone()).unwrap_or_default();
     let e = py.detach(|| fringeflow::calibration::dispersion::estimate_file(&path, &config, frame));
-    e.map(|e| json_of(&e)).map_err(|e| capture_error(py, &path, e))
+    e.map(|e| fringeflow::json_doc::line(fringeflow::json_doc::DISPERSION_ESTIMATE, &e)).map_err(|e| capture_error(py, &path, e))
 }
 
 /// The library's version.
