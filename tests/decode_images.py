@@ -337,8 +337,12 @@ def check_axes(outdir):
         for n in stacks:
             ds = v[n]
             labels = [d.label for d in ds.dims]
-            if labels != ["frame", "depth", "aline"]:
-                fail(f"/{n}: dimension labels {labels}")
+            # Labelled as the dataset's `axes` attribute names its axes
+            # (per-position contrast stacks: position, depth, aline).
+            axes = ds.attrs.get("axes", "frame,depth,aline")
+            want = (axes.decode() if isinstance(axes, bytes) else axes).split(",")
+            if labels != want or want[1:] != ["depth", "aline"]:
+                fail(f"/{n}: dimension labels {labels}, axes attribute {want}")
             depth_scales = {s.name: s for s in ds.dims[1].values()}
             if "/depth_um" not in depth_scales:
                 fail(f"/{n}: /depth_um not attached to its depth dimension")
