@@ -368,8 +368,10 @@ def check_axes(outdir):
                         fail(f"/{n}: slow-axis scale missing or not {frame_step[1]} um steps")
             print(f"ok /{n}: dims {labels} with scales {[list(d.keys()) for d in ds.dims]}")
         for n in [n for n in v if v[n].ndim == 2]:
-            if [d.label for d in v[n].dims] != ["frame", "aline"] or "/aline_index" not in [s.name for s in v[n].dims[1].values()]:
-                fail(f"/{n}: en face dimensions not labelled or scaled")
+            axes = v[n].attrs.get("axes", "frame,aline")
+            want = (axes.decode() if isinstance(axes, bytes) else axes).split(",")
+            if [d.label for d in v[n].dims] != want or want[1] != "aline" or "/aline_index" not in [s.name for s in v[n].dims[1].values()]:
+                fail(f"/{n}: en face dimensions not labelled as its axes attribute {want} or not scaled")
             print(f"ok /{n}: en face dims labelled")
 
 
