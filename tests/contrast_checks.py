@@ -88,6 +88,18 @@ def phase_noise(depth_um, *outdirs):
             fail(f"at {peak_over_noise_sd_db:.1f} dB the phase noise is {sd / theory:.3f} of sqrt(2/SNR)")
 
 
+def profile_bins(v, t, vp):
+    """Measured velocity v against the truth field t (same shape, NaN
+    outside vessels) in ten bins of r^2/R^2 = 1 - t/vp: bin centres and means."""
+    m = ~np.isnan(t) & ~np.isnan(v)
+    u = 1 - t[m] / vp
+    meas = v[m]
+    idx = np.clip((u * 10).astype(int), 0, 9)
+    xb = np.array([u[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    yb = np.array([meas[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    return xb, yb
+
+
 def vessel_profile(outdir, truth_h5, truth_json):
     """Doppler of a simulated vessel against the Poiseuille truth: bins of
     r^2/R^2 (from the truth field), a line fit v = v0 + b*r^2/R^2."""
@@ -96,13 +108,7 @@ def vessel_profile(outdir, truth_h5, truth_json):
     t = h5py.File(truth_h5, "r")["axial_velocity_mm_s"][...]
     vp = json.load(open(truth_json))["scan"]["vessels"][0]["peak_axial_velocity_mm_s"]
     d = min(v.shape[1], t.shape[1])
-    v, t = v[:, :d], t[:, :d]
-    m = ~np.isnan(t) & ~np.isnan(v)
-    u = 1 - t[m] / vp
-    meas = v[m]
-    idx = np.clip((u * 10).astype(int), 0, 9)
-    xb = np.array([u[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
-    yb = np.array([meas[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    xb, yb = profile_bins(v[:, :d], t[:, :d], vp)
     design = np.vstack([np.ones_like(xb), xb]).T
     coef = np.linalg.lstsq(design, yb, rcond=None)[0]
     pred = design @ coef
@@ -371,12 +377,9 @@ def static_only_bulk(c, truth_static, min_weight, pool):
 
 
 def _peak(v, t, vp):
-    m = ~np.isnan(t) & ~np.isnan(v)
-    u = 1 - t[m] / vp
-    meas = v[m]
-    idx = np.clip((u * 10).astype(int), 0, 9)
-    xb = np.array([u[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
-    yb = np.array([meas[idx == b].mean() for b in range(10) if (idx == b).sum() > 5])
+    """The vessel's peak as doppler_vessel takes it: the intercept of a
+    line fit over the inner half of r^2/R^2."""
+    xb, yb = profile_bins(v, t, vp)
     design = np.vstack([np.ones_like(xb), xb]).T
     inner = xb < 0.5
     return np.linalg.lstsq(design[inner], yb[inner], rcond=None)[0][0]

@@ -6,6 +6,16 @@ mod common;
 use common::*;
 use std::process::Command;
 
+/// A simulated capture's fringes (frames, A-lines, pixels), background
+/// and wavelength map.
+fn read_capture(path: &std::path::Path) -> (ndarray::Array3<f64>, ndarray::Array2<f64>, Vec<f64>) {
+    let f = hdf5::File::open(path).unwrap();
+    let data = f.dataset("fringes").unwrap().read::<f64, ndarray::Ix3>().unwrap();
+    let background = f.dataset("background").unwrap().read_2d::<f64>().unwrap();
+    let wl = f.dataset("wavelength_nm").unwrap().read_raw::<f64>().unwrap();
+    (data, background, wl)
+}
+
 #[test]
 fn transposed_layout_with_polynomial_map_matches_default_layout() {
     let dir = tempfile::tempdir().unwrap();
@@ -14,11 +24,7 @@ fn transposed_layout_with_polynomial_map_matches_default_layout() {
     let (capture, _) = simulate_scene(dir.path(), "standard", &scene);
 
     // Same spectra stored as (pixels, alines) under /acq/raw, no map dataset.
-    let f = hdf5::File::open(&capture).unwrap();
-    let data = f.dataset("fringes").unwrap().read::<f64, ndarray::Ix3>().unwrap();
-    let background = f.dataset("background").unwrap().read_2d::<f64>().unwrap();
-    let wl = f.dataset("wavelength_nm").unwrap().read_raw::<f64>().unwrap();
-    drop(f);
+    let (data, background, wl) = read_capture(&capture);
     let custom = dir.path().join("custom.h5");
     {
         let g = fringeflow::io::h5::create_file(&custom).unwrap();
@@ -130,11 +136,7 @@ fn transposed_3d_hint_names_the_order_that_works() {
     let dir = tempfile::tempdir().unwrap();
     let scene = mirror_scene(400.0, "").replace("frames = 1", "frames = 3").replace("alines = 4", "alines = 24");
     let (capture, _) = simulate_scene(dir.path(), "standard", &scene);
-    let f = hdf5::File::open(&capture).unwrap();
-    let data = f.dataset("fringes").unwrap().read::<f64, ndarray::Ix3>().unwrap();
-    let background = f.dataset("background").unwrap().read_2d::<f64>().unwrap();
-    let wl = f.dataset("wavelength_nm").unwrap().read_raw::<f64>().unwrap();
-    drop(f);
+    let (data, background, wl) = read_capture(&capture);
     let reversed = dir.path().join("reversed.h5");
     {
         let g = fringeflow::io::h5::create_file(&reversed).unwrap();

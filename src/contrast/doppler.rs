@@ -19,6 +19,7 @@ use ndarray::{Array2, ArrayView2, Axis};
 use rayon::prelude::*;
 use rustfft::num_complex::{Complex32, Complex64};
 
+use super::box_sum::box_sum;
 use super::fft2::transposed;
 use super::phase::{fast_atan2, static_bulk_phases, BulkVote};
 use crate::pipeline::config::{DopplerConfig, DopplerPairs};
@@ -180,8 +181,9 @@ impl KasaiSums {
         }
         let (kd, ka) = (config.kernel_depth_px, config.kernel_alines);
         let rows = |a: usize| slot_window(self.pairs, a, ka, slots);
-        let sums = box_sum(&self.products, alines, rows, kd);
-        let power = box_sum(&self.power, alines, rows, kd);
+        let cols = |d: usize| window(d, kd, depth);
+        let sums = box_sum(&self.products, alines, rows, cols);
+        let power = box_sum(&self.power, alines, rows, cols);
         let k = scale.velocity_mm_s(1.0) as f32;
         let mut by_aline = Array2::<f32>::zeros((alines, depth));
         by_aline.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(a, mut row)| {
@@ -226,39 +228,6 @@ fn window(i: usize, k: usize, n: usize) -> (usize, usize) {
     clipped(i.saturating_sub((k - 1) / 2), k, n)
 }
 
-/// Row r of the result: Σ over the rows `rows(r)` of `a` and the centred
-/// kernel of `kc` columns (clipped at the edges): running sums along each
-/// row, then sums of the chosen rows.
-fn box_sum<T>(a: &Array2<T>, out_rows: usize, rows: impl Fn(usize) -> (usize, usize) + Sync, kc: usize) -> Array2<T>
-where
-    T: Copy + Default + std::ops::Add<Output = T> + std::ops::Sub<Output = T> + Send + Sync,
-{
-    let cols = a.ncols();
-    let mut along = Array2::<T>::from_elem(a.dim(), T::default());
-    along.axis_iter_mut(Axis(0)).into_par_iter().zip(a.axis_iter(Axis(0))).for_each(|(mut out, row)| {
-        let mut prefix = Vec::with_capacity(cols + 1);
-        prefix.push(T::default());
-        for &v in row.iter() {
-            let last = *prefix.last().expect("non-empty");
-            prefix.push(last + v);
-        }
-        for (c, o) in out.iter_mut().enumerate() {
-            let (c0, c1) = window(c, kc, cols);
-            *o = prefix[c1] - prefix[c0];
-        }
-    });
-    let mut out = Array2::<T>::from_elem((out_rows, cols), T::default());
-    out.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(r, mut o)| {
-        let (r0, r1) = rows(r);
-        for rr in r0..r1 {
-            for (x, &v) in o.iter_mut().zip(along.row(rr).iter()) {
-                *x = *x + v;
-            }
-        }
-    });
-    out
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -271,20 +240,6 @@ mod tests {
                     let (lo, hi) = window(i, k, n);
                     assert!(hi <= n && hi - lo == k && lo <= i && i < hi, "i {i} k {k} n {n}: {lo}..{hi}");
                 }
-            }
-        }
-    }
-
-    #[test]
-    fn box_sum_matches_direct_sums() {
-        let a = Array2::from_shape_fn((7, 9), |(i, j)| (i * 10 + j) as f64);
-        let s = box_sum(&a, 7, |i| window(i, 3, 7), 4);
-        for i in 0..7 {
-            for j in 0..9 {
-                let (r0, r1) = window(i, 3, 7);
-                let (c0, c1) = window(j, 4, 9);
-                let direct: f64 = (r0..r1).flat_map(|r| (c0..c1).map(move |c| (r * 10 + c) as f64)).sum();
-                assert_eq!(s[[i, j]], direct);
             }
         }
     }

@@ -6,10 +6,11 @@
 //! Layout: [`registration`] (upsampled phase correlation), [`doppler`]
 //! (Kasai estimator), [`angiography`] (decorrelation, split-spectrum,
 //! speckle variance, complex difference), [`phase`] (bulk-motion phase),
-//! [`fft2`] (2-D FFTs), [`position`] (one position's repeats through all
+//! [`box_sum`] (neighbourhood sums), [`fft2`] (2-D FFTs), [`position`] (one position's repeats through all
 //! of them, as `run` uses it).
 
 pub mod angiography;
+pub mod box_sum;
 pub mod doppler;
 pub mod fft2;
 pub mod phase;

@@ -39,6 +39,8 @@ use rayon::prelude::*;
 use rustfft::num_complex::{Complex32, Complex64};
 use std::f64::consts::PI;
 
+use super::box_sum::{box_sum, clipped_around};
+
 const BINS: usize = 64;
 /// Half-width of the window around the mode that the final mean uses, rad.
 const WINDOW: f64 = PI / 8.0;
@@ -255,28 +257,7 @@ where
     T: Copy + Default + std::ops::Add<Output = T> + std::ops::Sub<Output = T> + Send + Sync,
 {
     let (rows, cols) = a.dim();
-    let (hs, hd) = (ks / 2, kd / 2);
-    let mut along = Array2::<T>::from_elem((rows, cols), T::default());
-    along.axis_iter_mut(Axis(0)).into_par_iter().zip(a.axis_iter(Axis(0))).for_each(|(mut out, row)| {
-        let mut prefix = Vec::with_capacity(cols + 1);
-        prefix.push(T::default());
-        for &v in row.iter() {
-            let last = *prefix.last().expect("non-empty");
-            prefix.push(last + v);
-        }
-        for (c, o) in out.iter_mut().enumerate() {
-            *o = prefix[(c + hd + 1).min(cols)] - prefix[c.saturating_sub(hd)];
-        }
-    });
-    let mut out = Array2::<T>::from_elem((rows, cols), T::default());
-    out.axis_iter_mut(Axis(0)).into_par_iter().enumerate().for_each(|(r, mut o)| {
-        for rr in r.saturating_sub(hs)..(r + hs + 1).min(rows) {
-            for (x, &v) in o.iter_mut().zip(along.row(rr).iter()) {
-                *x = *x + v;
-            }
-        }
-    });
-    out
+    box_sum(a, rows, |r| clipped_around(r, ks / 2, rows), |c| clipped_around(c, kd / 2, cols))
 }
 
 /// `mask` widened by `ms` rows and `md` columns each way.
