@@ -711,6 +711,16 @@ fn main() -> ExitCode {
     if let Err(e) = fringeflow::pipeline::kernel::check_env().and_then(|_| fringeflow::pipeline::fused::tune::check_env()) {
         return fail(2, e);
     }
+    // Threads beyond 4 per logical CPU only add switching and memory (each
+    // worker holds its own buffers): refused, as is the same in RAYON_NUM_THREADS.
+    let cpus = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let most = 4 * cpus;
+    let from_env = std::env::var("RAYON_NUM_THREADS").ok().and_then(|v| v.trim().parse::<usize>().ok());
+    for (what, n) in [("--threads", cli.threads), ("RAYON_NUM_THREADS", from_env)] {
+        if let Some(n) = n.filter(|&n| n > most) {
+            return fail(2, format!("{what} {n}: at most {most} (4 per logical CPU; this machine has {cpus})"));
+        }
+    }
     if let Some(n) = cli.threads {
         if n == 0 {
             return fail(2, "--threads: give a whole number of at least 1");

@@ -285,3 +285,21 @@ fn progress_json_is_one_event_per_line() {
     assert_eq!(events[3]["done"], 2);
     assert_eq!(events[5]["counts"]["done"], 1);
 }
+
+/// `-j` is capped at 4 threads per logical CPU (more only adds switching):
+/// `-j 100000` and the same in RAYON_NUM_THREADS are one-line settings errors.
+#[test]
+fn thread_counts_out_of_range_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let cpus = std::thread::available_parallelism().map_or(1, |n| n.get());
+    let design = ["design", "--centre-nm", "840", "--fwhm-nm", "50", "--span-nm", "150", "--pixels", "2048"];
+    let o = ff(dir.path(), &[&["-j", "100000"][..], &design].concat());
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains(&format!("--threads 100000: at most {}", 4 * cpus)), "{}", stderr(&o));
+    assert!(o.stdout.is_empty());
+    let o = Command::new(bin()).args(design).env("RAYON_NUM_THREADS", "100000").output().unwrap();
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("RAYON_NUM_THREADS 100000"), "{}", stderr(&o));
+    let top = (4 * cpus).to_string();
+    assert!(ff(dir.path(), &[&["-j", top.as_str()][..], &design].concat()).status.success());
+}

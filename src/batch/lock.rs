@@ -122,7 +122,9 @@ fn attempt(path: &Path, me: &Holder) -> Result<Attempt> {
     }
     if let Some(holder) = read_holder(&mut file) {
         let fresh = heartbeat_age(&ours) < LEASE;
-        let live_elsewhere = !holder.same_boot(me) && fresh;
+        // A record of this host from an earlier boot died with that boot,
+        // however fresh its heartbeat looks: only another host's can be live.
+        let live_elsewhere = holder.host != me.host && fresh;
         let live_here_without_os_lock = !os_lock && holder.same_boot(me) && holder.pid != me.pid && fresh;
         if live_elsewhere || live_here_without_os_lock {
             return Ok(Attempt::Held(holder.describe()));
@@ -248,5 +250,10 @@ mod tests {
         let old = SystemTime::now() - LEASE - Duration::from_secs(5);
         File::options().write(true).open(&path).unwrap().set_modified(old).unwrap();
         drop(OutputLock::acquire(dir.path(), "y").unwrap());
+        // This host, an earlier boot, a heartbeat of just now: stale at once.
+        let mut earlier = Holder::this_process();
+        earlier.boot_id = "an-earlier-boot".into();
+        std::fs::write(&path, serde_json::to_string(&earlier).unwrap()).unwrap();
+        drop(OutputLock::acquire(dir.path(), "y").expect("a record of an earlier boot of this host is taken over at once"));
     }
 }
