@@ -303,3 +303,18 @@ fn thread_counts_out_of_range_are_refused() {
     let top = (4 * cpus).to_string();
     assert!(ff(dir.path(), &[&["-j", top.as_str()][..], &design].concat()).status.success());
 }
+
+/// A large file that is not HDF5 is refused without being read whole: a
+/// 2 GB (sparse) file under a 600 MB address-space limit gets the one-line
+/// "not an HDF5 file" error from `inspect` and `run`, not an abort.
+#[test]
+fn a_large_non_hdf5_file_is_refused_within_bounded_memory() {
+    let dir = tempfile::tempdir().unwrap();
+    let big = dir.path().join("big.bin");
+    std::fs::File::create(&big).unwrap().set_len(2 << 30).unwrap();
+    for cmd in ["inspect big.bin", "run big.bin --out out --quiet"] {
+        let o = Command::new("sh").arg("-c").arg(format!("ulimit -v 600000; exec {} {cmd}", bin())).current_dir(dir.path()).output().unwrap();
+        assert_eq!(o.status.code(), Some(1), "{cmd}: {}", stderr(&o));
+        assert!(stderr(&o).contains("not an HDF5 file (no HDF5 signature)"), "{cmd}: {}", stderr(&o));
+    }
+}

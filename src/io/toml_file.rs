@@ -20,11 +20,25 @@ pub enum FileKind {
     Other,
 }
 
-/// Looks at the first bytes (and for text, the top-level keys).
+/// The most `sniff` reads: pipelines, scenes and logs are far smaller, so
+/// a larger file (or a device that never ends) is only looked at for its
+/// signature.
+const SNIFF_LIMIT: u64 = 16 << 20;
+
+/// Looks at the first bytes (and for text up to [`SNIFF_LIMIT`], the
+/// top-level keys); memory stays bounded whatever the file.
 pub fn sniff(path: &Path) -> FileKind {
-    let Ok(bytes) = std::fs::read(path) else { return FileKind::Other };
+    use std::io::Read;
+    let Ok(file) = std::fs::File::open(path) else { return FileKind::Other };
+    let mut bytes = Vec::new();
+    if file.take(SNIFF_LIMIT + 1).read_to_end(&mut bytes).is_err() {
+        return FileKind::Other;
+    }
     if bytes.starts_with(b"\x89HDF\r\n\x1a\n") {
         return FileKind::Hdf5;
+    }
+    if bytes.len() as u64 > SNIFF_LIMIT {
+        return FileKind::Other;
     }
     let Ok(text) = std::str::from_utf8(&bytes) else { return FileKind::Other };
     if text.trim_start().starts_with('{') {
