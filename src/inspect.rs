@@ -36,31 +36,6 @@ pub struct Inspection {
     pub problems: Vec<String>,
 }
 
-fn dtype_name(d: &TypeDescriptor) -> String {
-    use hdf5::types::{FloatSize, IntSize};
-    let size = |s: &IntSize| *s as usize * 8;
-    match d {
-        TypeDescriptor::Unsigned(s) => format!("u{}", size(s)),
-        TypeDescriptor::Integer(s) => format!("i{}", size(s)),
-        TypeDescriptor::Float(FloatSize::U4) => "f32".into(),
-        TypeDescriptor::Float(FloatSize::U8) => "f64".into(),
-        TypeDescriptor::Boolean => "boolean".into(),
-        TypeDescriptor::Enum(_) => "enumeration".into(),
-        TypeDescriptor::Compound(c) => {
-            let names: Vec<&str> = c.fields.iter().map(|f| f.name.as_str()).collect();
-            if names == ["r", "i"] {
-                "complex".into()
-            } else {
-                format!("compound of {} fields", names.len())
-            }
-        }
-        TypeDescriptor::FixedArray(_, n) => format!("array of {n}"),
-        TypeDescriptor::FixedAscii(_) | TypeDescriptor::FixedUnicode(_) | TypeDescriptor::VarLenAscii | TypeDescriptor::VarLenUnicode => "text".into(),
-        TypeDescriptor::VarLenArray(_) => "variable-length array".into(),
-        TypeDescriptor::Reference(_) => "reference".into(),
-    }
-}
-
 fn is_numeric_name(dtype: &str) -> bool {
     matches!(dtype.as_bytes().first(), Some(b'u' | b'i' | b'f')) && dtype.len() <= 3
 }
@@ -89,7 +64,7 @@ fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
     let mut st = DatasetStats {
         name: name.to_string(),
         shape: shape.clone(),
-        dtype: dtype_name(&descriptor),
+        dtype: crate::io::h5::type_in_words(&descriptor),
         min: f64::INFINITY,
         max: f64::NEG_INFINITY,
         non_finite: 0,
@@ -152,6 +127,9 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
         }
         if st.non_finite > 0 {
             problems.push(format!("{name}: {} NaN or infinite values", st.non_finite));
+        }
+        if name == &input.fringes && is_numeric_name(&st.dtype) && st.min == st.max {
+            problems.push(format!("{name}: every sample is {}: no fringes (an empty capture, or the camera recorded nothing)", st.min));
         }
         if let Some((n, fs)) = st.at_full_scale {
             if n > 0 {

@@ -156,3 +156,39 @@ fn transposed_3d_hint_names_the_order_that_works() {
     assert_eq!(va.db.dim(), (3, va.db.dim().1, 24));
     assert_eq!(va.db, vb.db, "following the hint must give the standard layout's volume");
 }
+
+/// Types in words and an all-zero capture: fringes of a compound type are
+/// refused naming the type as "compound of 2 fields" (no Rust debug text),
+/// and `inspect` of a capture whose every sample is 0 reports it.
+#[test]
+fn compound_types_in_words_and_an_all_zero_capture_is_a_problem() {
+    #[derive(hdf5::H5Type, Clone, Copy)]
+    #[repr(C)]
+    struct Pair {
+        a: u16,
+        b: f32,
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let wl: Vec<f64> = (0..64).map(|i| 800.0 + i as f64).collect();
+    let compound = dir.path().join("compound.h5");
+    {
+        let f = fringeflow::io::h5::create_file(&compound).unwrap();
+        let data = ndarray::Array2::from_elem((8, 64), Pair { a: 1, b: 2.0 });
+        f.new_dataset_builder().with_data(&data).create("fringes").unwrap();
+        fringeflow::io::h5::write_1d(&f, "wavelength_nm", &wl).unwrap();
+    }
+    let o = run(dir.path(), &[&compound], "", &dir.path().join("out"));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(1), "{err}");
+    assert!(err.contains("holds compound of 2 fields") && !err.contains("Compound"), "{err}");
+    let zero = dir.path().join("zero.h5");
+    {
+        let f = fringeflow::io::h5::create_file(&zero).unwrap();
+        f.new_dataset_builder().with_data(&ndarray::Array2::<u16>::zeros((8, 64))).create("fringes").unwrap();
+        fringeflow::io::h5::write_1d(&f, "wavelength_nm", &wl).unwrap();
+    }
+    let o = Command::new(bin()).arg("inspect").arg(&zero).output().unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert_ne!(o.status.code(), Some(0), "{text}");
+    assert!(text.contains("every sample is 0") && !text.contains("problems: none"), "{text}");
+}

@@ -390,8 +390,9 @@ impl Capture {
         let descriptor = fringes.dtype().and_then(|t| t.to_descriptor()).context("reading the fringe datatype")?;
         let sample_type = SampleType::from_descriptor(&descriptor).ok_or_else(|| {
             anyhow!(
-                "dataset '{}' has type {descriptor:?}; supported: u8, u16, i16, u32, f32, f64",
-                input.fringes
+                "dataset '{}' holds {}; supported sample types: u8, u16, i16, u32, f32, f64",
+                input.fringes,
+                super::h5::type_in_words(&descriptor)
             )
         })?;
 

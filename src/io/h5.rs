@@ -122,3 +122,31 @@ pub fn collect_datasets(group: &hdf5::Group, prefix: &str, out: &mut Vec<(String
         }
     }
 }
+
+/// An HDF5 datatype in words: `u16`, `f32`, `complex`, `compound of 3
+/// fields`, `text`… (for messages and `inspect`).
+pub fn type_in_words(d: &hdf5::types::TypeDescriptor) -> String {
+    use hdf5::types::TypeDescriptor;
+    use hdf5::types::{FloatSize, IntSize};
+    let size = |s: &IntSize| *s as usize * 8;
+    match d {
+        TypeDescriptor::Unsigned(s) => format!("u{}", size(s)),
+        TypeDescriptor::Integer(s) => format!("i{}", size(s)),
+        TypeDescriptor::Float(FloatSize::U4) => "f32".into(),
+        TypeDescriptor::Float(FloatSize::U8) => "f64".into(),
+        TypeDescriptor::Boolean => "boolean".into(),
+        TypeDescriptor::Enum(_) => "enumeration".into(),
+        TypeDescriptor::Compound(c) => {
+            let names: Vec<&str> = c.fields.iter().map(|f| f.name.as_str()).collect();
+            if names == ["r", "i"] {
+                "complex".into()
+            } else {
+                format!("compound of {} fields", names.len())
+            }
+        }
+        TypeDescriptor::FixedArray(_, n) => format!("array of {n}"),
+        TypeDescriptor::FixedAscii(_) | TypeDescriptor::FixedUnicode(_) | TypeDescriptor::VarLenAscii | TypeDescriptor::VarLenUnicode => "text".into(),
+        TypeDescriptor::VarLenArray(_) => "variable-length array".into(),
+        TypeDescriptor::Reference(_) => "reference".into(),
+    }
+}
