@@ -113,12 +113,13 @@ fn run(r: RunRequest<'_>) -> ExitCode {
         }
         errln!("{} of {} captures in this shard; {} threads", mine.len(), all.len(), rayon::current_num_threads());
     }
-    // Outputs another pipeline made are not replaced without --overwrite.
+    // Outputs another pipeline, or another capture of the same name, made
+    // are not replaced without --overwrite.
     let foreign: Vec<(PathBuf, String)> = mine
         .iter()
         .filter_map(|c| {
             let dir = r.out.join(fringeflow::run::output_name(c));
-            fringeflow::run::recorded_pipeline(&dir).filter(|h| *h != pipeline_sha).map(|h| (dir, h))
+            fringeflow::run::foreign_owner(&dir, c, &pipeline_sha).map(|why| (dir, why))
         })
         .collect();
     if r.dry_run {
@@ -126,10 +127,11 @@ fn run(r: RunRequest<'_>) -> ExitCode {
     }
     if let (false, Some((dir, theirs))) = (r.overwrite, foreign.first()) {
         let more = if foreign.len() > 1 { format!(" (and {} more)", foreign.len() - 1) } else { String::new() };
+        let capture = mine.iter().find(|c| r.out.join(fringeflow::run::output_name(c)) == *dir).map_or(String::new(), |c| format!("{} ", c.display()));
         return fail(
             2,
             format!(
-                "{} holds outputs of pipeline sha256 {theirs}{more}, this run's is sha256 {pipeline_sha}: refusing to replace them; pass --overwrite, or choose another --out",
+                "{} holds {theirs}{more}; this run would write {capture}there with pipeline sha256 {pipeline_sha}: refusing to replace them; pass --overwrite, or choose another --out",
                 dir.display()
             ),
         );
@@ -186,7 +188,7 @@ fn dry_run(r: &RunRequest<'_>, config: &PipelineConfig, mine: &[PathBuf], foreig
         let dir = r.out.join(fringeflow::run::output_name(c));
         let refused = foreign.iter().find(|(d, _)| *d == dir).filter(|_| !r.overwrite);
         let (action, reason) = match (refused, fringeflow::run::would_skip(c, config, r.out, r.resume)) {
-            (Some((_, theirs)), _) => ("refuse", Some(format!("holds outputs of pipeline sha256 {theirs} (--overwrite replaces them)"))),
+            (Some((_, theirs)), _) => ("refuse", Some(format!("holds {theirs} (--overwrite replaces them)"))),
             (None, Ok(true)) => ("skip", Some("up to date (same input digest, pipeline and calibration)".to_string())),
             (None, Ok(false)) => ("run", None),
             (None, Err(e)) => ("fail", Some(format!("{e:#}").replace('\n', " "))),
@@ -274,6 +276,10 @@ fn rerun(log_path: &Path, out: &Path, json: bool) -> ExitCode {
         }
     }
     let name = fringeflow::run::output_name(&input);
+    // As `run`: outputs of another pipeline or capture are not replaced.
+    if let Some(theirs) = fringeflow::run::foreign_owner(&out.join(&name), &input, recorded) {
+        return fail(2, format!("{} holds {theirs}; the log's pipeline is sha256 {recorded}: refusing to replace them; choose another --out", out.join(&name).display()));
+    }
     let lock = match fringeflow::batch::lock::OutputLock::acquire(out, &name) {
         Ok(l) => l,
         Err(e) => return fail(1, format!("{}: {e:#}", input.display())),

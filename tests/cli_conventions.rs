@@ -318,3 +318,36 @@ fn a_large_non_hdf5_file_is_refused_within_bounded_memory() {
         assert!(stderr(&o).contains("not an HDF5 file (no HDF5 signature)"), "{cmd}: {}", stderr(&o));
     }
 }
+
+/// A different capture with the same stem (a/x.h5, then b/x.h5 into one
+/// --out) does not replace the first one's outputs, even with --resume:
+/// exit 2 naming both; --overwrite replaces. `rerun` into a folder holding
+/// another pipeline's outputs refuses the same way.
+#[test]
+fn same_stem_and_rerun_never_replace_silently() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    for sub in ["a", "b"] {
+        std::fs::create_dir(d.join(sub)).unwrap();
+        std::fs::copy(sample(), d.join(sub).join("x.h5")).unwrap();
+    }
+    assert!(ff(d, &["run", "a/x.h5", "--out", "out", "--quiet"]).status.success());
+    let before = std::fs::read(d.join("out/x/log.json")).unwrap();
+    for extra in [&[][..], &["--resume"][..]] {
+        let o = ff(d, &[&["run", "b/x.h5", "--out", "out", "--quiet"][..], extra].concat());
+        let e = stderr(&o);
+        assert_eq!(o.status.code(), Some(2), "{e}");
+        assert!(e.contains("another capture with the same name") && e.contains("a/x.h5") && e.contains("b/x.h5"), "{e}");
+        assert_eq!(std::fs::read(d.join("out/x/log.json")).unwrap(), before, "outputs replaced");
+    }
+    // The same capture resumes as before.
+    assert!(ff(d, &["run", "a/x.h5", "--out", "out", "--resume", "--quiet"]).status.success());
+    // rerun of another pipeline's log into that folder.
+    assert!(ff(d, &["run", "a/x.h5", "--out", "other", "--set", "window.kind=hamming", "--quiet"]).status.success());
+    let o = ff(d, &["rerun", "other/x/log.json", "--out", "out"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(stderr(&o).contains("holds outputs of pipeline sha256"), "{}", stderr(&o));
+    assert_eq!(std::fs::read(d.join("out/x/log.json")).unwrap(), before, "rerun replaced outputs");
+    // --overwrite lets b/x.h5 replace them.
+    assert!(ff(d, &["run", "b/x.h5", "--out", "out", "--overwrite", "--quiet"]).status.success());
+}

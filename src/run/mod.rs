@@ -97,6 +97,28 @@ pub fn recorded_pipeline(dir: &Path) -> Option<String> {
     log["pipeline_sha256"].as_str().map(String::from)
 }
 
+/// Why the output folder `dir` is not `input`'s to replace under this
+/// pipeline, when its log.json records another pipeline or another
+/// capture (one with the same stem elsewhere); None when it is (or holds
+/// no log).
+pub fn foreign_owner(dir: &Path, input: &Path, pipeline_sha256: &str) -> Option<String> {
+    let bytes = std::fs::read(dir.join("log.json")).ok()?;
+    let log = serde_json::from_slice::<serde_json::Value>(&bytes).ok()?;
+    if let Some(recorded) = log["input"]["absolute_path"].as_str() {
+        let same = |a: &Path, b: &Path| match (std::fs::canonicalize(a), std::fs::canonicalize(b)) {
+            (Ok(x), Ok(y)) => x == y,
+            _ => std::path::absolute(a).ok() == std::path::absolute(b).ok(),
+        };
+        if !same(Path::new(recorded), input) {
+            return Some(format!("outputs of another capture with the same name, {recorded}"));
+        }
+    }
+    match log["pipeline_sha256"].as_str() {
+        Some(h) if h != pipeline_sha256 => Some(format!("outputs of pipeline sha256 {h}")),
+        _ => None,
+    }
+}
+
 /// What `run` would do with `input` (for `--dry-run`): Ok(true) when
 /// `--resume` would skip it as up to date, Ok(false) when it would be
 /// processed, Err when it would fail before processing (the reason).
