@@ -83,6 +83,9 @@ fn run(r: RunRequest<'_>) -> ExitCode {
     if let Err(code) = check_out_dir(r.out) {
         return code;
     }
+    if let Some(problem) = batch::foreign_batch_files(r.out) {
+        return fail(2, problem);
+    }
     let all = match inputs::expand(r.captures, r.list) {
         Ok(a) => a,
         Err(e) => return fail(2, format!("{e:#}")),
@@ -330,6 +333,9 @@ fn summarize(dir: &Path, json_out: bool) -> ExitCode {
     if !dir.is_dir() {
         return fail(2, format!("{}: not a folder (give the --out folder of a run)", dir.display()));
     }
+    if let Some(problem) = fringeflow::batch::foreign_batch_files(dir) {
+        return fail(2, problem);
+    }
     let (report, problems) = match fringeflow::batch::merge_reports(dir) {
         Ok(r) => r,
         Err(e) => return fail(1, format!("{e:#}")),
@@ -339,8 +345,8 @@ fn summarize(dir: &Path, json_out: bool) -> ExitCode {
     if let Err(e) = fringeflow::io::staging::write_atomically(&path, |tmp| Ok(std::fs::write(tmp, &json)?)) {
         return fail(1, format!("{e:#}"));
     }
-    if let Err(e) = serde_json::to_value(&report).map_err(anyhow::Error::from).and_then(|v| fringeflow::report::write_index(dir, &v)) {
-        return fail(1, format!("{}: {e:#}", dir.join("index.html").display()));
+    if let Err(e) = fringeflow::batch::write_folder_index(dir, &report) {
+        return fail(1, format!("{e:#}"));
     }
     if json_out {
         outln!("{}", fringeflow::json_doc::pretty(fringeflow::json_doc::SUMMARY, &serde_json::json!({ "summary": path.display().to_string(), "report": report, "problems": problems })));

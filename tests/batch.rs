@@ -357,3 +357,50 @@ fn sigterm_stops_cleanly_with_143() {
     assert_complete(&out);
     assert_no_partials(&out);
 }
+
+/// A run's records are this run's (the sequence): after `run good
+/// bad`, `run good --resume` reports 1 skipped and exits 0, its batch.json
+/// holds only good.h5; a run with another pipeline counts only its own
+/// capture while the folder's index.html lists the earlier folder as
+/// `earlier` with its pipeline, and one whose input is gone as `stale`,
+/// uncounted. A user's own index.html in --out is refused, untouched.
+#[test]
+fn a_runs_records_are_its_own_and_the_index_lists_the_folder() {
+    let dir = tempfile::tempdir().unwrap();
+    let good = simulate_scene(dir.path(), "good", &small_scene(250.0, 1, 8, 256)).0;
+    let other = simulate_scene(dir.path(), "other", &small_scene(300.0, 1, 8, 256)).0;
+    let bad = dir.path().join("bad.h5");
+    std::fs::write(&bad, b"not a capture").unwrap();
+    let out = dir.path().join("X");
+    assert_eq!(fringeflow(&["run", s(&good), s(&bad), "--out", s(&out), "--quiet"]).status.code(), Some(1));
+    let o = fringeflow(&["run", s(&good), "--out", s(&out), "--resume"]);
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(o.status.code(), Some(0), "{stdout}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(stdout.contains("0 done, 1 skipped, 0 failed"), "{stdout}");
+    let batch: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("batch.json")).unwrap()).unwrap();
+    assert_eq!(batch["captures"].as_array().unwrap().len(), 1, "{batch}");
+    assert_eq!(batch["counts"]["failed"], 0);
+    // Another pipeline, another capture: counted alone, the first listed as earlier.
+    let o = fringeflow(&["run", s(&other), "--out", s(&out), "--set", "window.kind=hamming", "--quiet"]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let statuses = |page: &str| -> Vec<String> { page.split("data-status=\"").skip(1).map(|r| r.split('"').next().unwrap().to_string()).collect() };
+    let page = std::fs::read_to_string(out.join("index.html")).unwrap();
+    assert_eq!(statuses(&page), ["done", "earlier"], "{page}");
+    let first_pipeline = serde_json::from_slice::<serde_json::Value>(&std::fs::read(out.join("good/log.json")).unwrap()).unwrap()["pipeline_sha256"].as_str().unwrap().to_string();
+    assert!(page.contains(&first_pipeline) && page.contains("1 output folder(s) of earlier runs"), "{page}");
+    // Its input gone: stale, still not counted.
+    std::fs::remove_file(&good).unwrap();
+    assert!(fringeflow(&["run", s(&other), "--out", s(&out), "--set", "window.kind=hamming", "--resume", "--quiet"]).status.success());
+    let page = std::fs::read_to_string(out.join("index.html")).unwrap();
+    assert_eq!(statuses(&page), ["skipped", "stale"], "{page}");
+    assert!(page.contains("is gone"), "{page}");
+    // A user's own index.html is never overwritten.
+    let mine = dir.path().join("mine");
+    std::fs::create_dir(&mine).unwrap();
+    std::fs::write(mine.join("index.html"), "<html>my notes</html>").unwrap();
+    let o = fringeflow(&["run", s(&other), "--out", s(&mine)]);
+    assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("not written by fringeflow"));
+    assert_eq!(std::fs::read_to_string(mine.join("index.html")).unwrap(), "<html>my notes</html>");
+    assert!(!mine.join("other").exists());
+}

@@ -340,18 +340,17 @@ pub fn run_batch(captures: &[PathBuf], config: &PipelineConfig, out: &Path, opts
         interrupted: stop.stopped().map(|(name, _)| name.to_string()),
     };
     let path = out.join(report_name(opts.shard));
-    let report = write_merged_report(&path, report)?;
+    let report = write_report(&path, report)?;
     if opts.progress_json {
         progress_event("end", serde_json::json!({ "counts": report.counts, "summary": path.display().to_string(), "interrupted": report.interrupted }));
     }
     Ok(report)
 }
 
-/// Writes the batch summary, merged with the one already there (another
-/// run into the same directory) under the summary's own lock: a capture
-/// this run processed replaces its old record, one it found held by
-/// another run keeps that run's record. Returns what was written.
-fn write_merged_report(path: &Path, mut report: BatchReport) -> Result<BatchReport> {
+/// Writes this run's summary (its own inputs only: what it printed and
+/// what its exit status says) under the summary's own lock, then the
+/// folder's page ([`write_folder_index`]). Returns what was written.
+fn write_report(path: &Path, report: BatchReport) -> Result<BatchReport> {
     let dir = path.parent().unwrap_or(Path::new("."));
     let lock_name = path.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
     // Another run may hold the summary's lock briefly: wait for it.
@@ -363,28 +362,79 @@ fn write_merged_report(path: &Path, mut report: BatchReport) -> Result<BatchRepo
             Err(e) => return Err(e),
         }
     };
-    if let Some(old) = std::fs::read(path).ok().and_then(|b| serde_json::from_slice::<BatchReport>(&b).ok()) {
-        if old.pipeline_sha256 == report.pipeline_sha256 {
-            let mut by_input: std::collections::BTreeMap<String, CaptureRecord> = old.captures.into_iter().map(|r| (r.input.clone(), r)).collect();
-            for r in std::mem::take(&mut report.captures) {
-                let keep_old = matches!(r.status, Status::Held | Status::NotRun) && by_input.contains_key(&r.input);
-                if !keep_old {
-                    by_input.insert(r.input.clone(), r);
-                }
-            }
-            report.captures = by_input.into_values().collect();
-            report.counts = Counts::tally(&report.captures);
-            report.inputs_total = report.inputs_total.max(old.inputs_total);
-        }
-    }
     let json = serde_json::to_vec_pretty(&report)?;
     write_atomically(path, |tmp| Ok(std::fs::write(tmp, &json)?)).with_context(|| format!("writing {}", path.display()))?;
-    // The batch's page, from what was just written (under the same lock).
-    // A shard's summary covers its captures only; `summarize` writes the
-    // page of the merged batch.
-    let value = serde_json::to_value(&report)?;
-    crate::report::write_index(dir, &value).with_context(|| format!("writing {}", dir.join("index.html").display()))?;
+    write_folder_index(dir, &report)?;
     Ok(report)
+}
+
+/// The batch folder's page: the records of `report` (this run, or the
+/// merged shards), then every other output folder in `dir` with a
+/// log.json, as made by an earlier run (`earlier`, naming its pipeline) or
+/// `stale` when its input is gone or changed since it was processed. Only
+/// the report's records are counted.
+pub fn write_folder_index(dir: &Path, report: &BatchReport) -> Result<()> {
+    let mut value = serde_json::to_value(report)?;
+    let ours: std::collections::BTreeSet<String> =
+        report.captures.iter().filter_map(|r| r.output.as_deref().and_then(|o| Path::new(o).file_name()).map(|n| n.to_string_lossy().into_owned())).collect();
+    let mut folders: Vec<_> = std::fs::read_dir(dir).map(|rd| rd.flatten().map(|e| e.path()).filter(|p| p.join("log.json").is_file()).collect()).unwrap_or_default();
+    folders.sort();
+    let (mut earlier, mut stale) = (0usize, 0usize);
+    let rows = value["captures"].as_array_mut().expect("captures");
+    for folder in folders {
+        let name = folder.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default();
+        if name.starts_with('.') || ours.contains(&name) {
+            continue;
+        }
+        let Some(log) = std::fs::read(folder.join("log.json")).ok().and_then(|b| serde_json::from_slice::<serde_json::Value>(&b).ok()) else { continue };
+        let input = log["input"]["absolute_path"].as_str().or(log["input"]["path"].as_str()).unwrap_or("?").to_string();
+        let pipeline = log["pipeline_sha256"].as_str().unwrap_or("?");
+        let logged = std::fs::metadata(folder.join("log.json")).and_then(|m| m.modified()).ok();
+        let (status, reason) = match std::fs::metadata(&input) {
+            Err(_) => ("stale", format!("its input {input} is gone; made with pipeline sha256 {pipeline}")),
+            Ok(m) if m.modified().ok().zip(logged).is_some_and(|(changed, made)| changed > made) => ("stale", format!("its input changed since it was processed; made with pipeline sha256 {pipeline}")),
+            Ok(_) => ("earlier", format!("made by an earlier run with pipeline sha256 {pipeline}")),
+        };
+        if status == "stale" {
+            stale += 1;
+        } else {
+            earlier += 1;
+        }
+        rows.push(serde_json::json!({
+            "input": input,
+            "status": status,
+            "reason": reason,
+            "output": folder.display().to_string(),
+            "seconds": 0.0,
+            "warnings": log["warnings"].as_array().map_or(0, |w| w.len()),
+        }));
+    }
+    value["folder_note"] = serde_json::json!(format!("The counts are this run's; the folder also holds {earlier} output folder(s) of earlier runs and {stale} stale one(s), listed below and not counted."));
+    crate::report::write_index(dir, &value).with_context(|| format!("writing {}", dir.join("index.html").display()))
+}
+
+/// The batch-level files fringeflow writes into `--out` (index.html,
+/// batch*.json, summary.json): where one exists that fringeflow did not
+/// write, the error naming it (nothing of the user's is overwritten).
+pub fn foreign_batch_files(dir: &Path) -> Option<String> {
+    let entries = std::fs::read_dir(dir).ok()?;
+    for e in entries.flatten() {
+        let (path, name) = (e.path(), e.file_name().to_string_lossy().into_owned());
+        let ours = if name == "index.html" {
+            let mark: &[u8] = b"<meta name=\"generator\" content=\"fringeflow";
+            std::fs::read(&path).is_ok_and(|b| b[..b.len().min(4096)].windows(mark.len()).any(|w| w == mark))
+        } else if name == "summary.json" {
+            std::fs::read(&path).ok().and_then(|b| serde_json::from_slice::<serde_json::Value>(&b).ok()).is_some_and(|v| v.get("report").and_then(|r| r.get("captures")).is_some())
+        } else if name.starts_with("batch") && name.ends_with(".json") {
+            std::fs::read(&path).ok().and_then(|b| serde_json::from_slice::<BatchReport>(&b).ok()).is_some()
+        } else {
+            continue;
+        };
+        if !ours {
+            return Some(format!("{} was not written by fringeflow: refusing to overwrite it; move it, or choose another --out", path.display()));
+        }
+    }
+    None
 }
 
 impl BatchReport {

@@ -65,7 +65,7 @@ pub fn write_index(dir: &Path, summary: &Value) -> Result<()> {
         total_s,
         summary["pipeline_sha256"].as_str().unwrap_or("?"),
         summary["interrupted"].as_str().map(|s| format!("; stopped by {s}")).unwrap_or_default()
-    );
+    ) + &summary["folder_note"].as_str().map(|n| format!(". {n}")).unwrap_or_default();
     let name = dir.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "batch".into());
     let page = format!(
         r##"<!DOCTYPE html>
