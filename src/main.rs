@@ -139,6 +139,11 @@ fn run(r: RunRequest<'_>) -> ExitCode {
             ),
         );
     }
+    // Runs with another pipeline may not write into this folder at once.
+    let _claim = match batch::lock::PipelineClaim::acquire(r.out, &pipeline_sha) {
+        Ok(c) => c,
+        Err(e) => return fail(2, format!("{e:#}")),
+    };
     let stop = match batch::StopSignals::install(true) {
         Ok(s) => s,
         Err(e) => return fail(1, format!("{e:#}")),

@@ -455,3 +455,39 @@ fn a_closed_or_full_stdout_is_not_a_panic() {
     let o = child.wait_with_output().unwrap();
     assert!(!String::from_utf8_lossy(&o.stderr).contains("panicked"), "{}", String::from_utf8_lossy(&o.stderr));
 }
+
+/// Two live runs with different pipelines never interleave in one folder:
+/// while the first runs, the second exits 2 naming both pipeline hashes
+/// and writes nothing; the first finishes; nothing is left behind. Runs
+/// with the same pipeline still share the folder (see concurrent_runs_split_the_work).
+#[test]
+fn a_run_with_another_pipeline_waits_its_turn() {
+    let dir = tempfile::tempdir().unwrap();
+    let caps = captures(dir.path(), 4, 6, 64);
+    let slow = dir.path().join("slow.toml");
+    std::fs::write(&slow, "[fft]\nzero_padding = 16\n").unwrap();
+    let out = dir.path().join("out");
+    let mut args: Vec<String> = vec!["run".into(), "-p".into(), slow.display().to_string(), "--out".into(), out.display().to_string(), "--quiet".into()];
+    args.extend(caps.iter().map(|c| c.display().to_string()));
+    let first = Command::new(bin()).args(&args).env("HDF5_USE_FILE_LOCKING", "FALSE").stdout(Stdio::piped()).stderr(Stdio::piped()).spawn().unwrap();
+    let t0 = std::time::Instant::now();
+    while !out.join(".pipeline.lock").exists() {
+        assert!(t0.elapsed() < Duration::from_secs(30), "the first run never claimed the folder");
+        std::thread::sleep(Duration::from_millis(2));
+    }
+    let second = Command::new(bin()).args(["run", caps[0].to_str().unwrap(), "--out", out.to_str().unwrap()]).env("HDF5_USE_FILE_LOCKING", "FALSE").output().unwrap();
+    let first = first.wait_with_output().unwrap();
+    let err = String::from_utf8_lossy(&second.stderr);
+    if first.status.success() && err.is_empty() && second.status.success() {
+        panic!("the first run ended before the second started: nothing was tested");
+    }
+    assert_eq!(second.status.code(), Some(2), "{err}");
+    assert!(err.contains("another live run is writing into") && err.matches("sha256 ").count() == 2, "{err}");
+    assert!(first.status.success(), "{}", String::from_utf8_lossy(&first.stderr));
+    let slow_sha = serde_json::from_slice::<serde_json::Value>(&std::fs::read(out.join("batch.json")).unwrap()).unwrap()["pipeline_sha256"].as_str().unwrap().to_string();
+    for c in &caps {
+        let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join(c.file_stem().unwrap()).join("log.json")).unwrap()).unwrap();
+        assert_eq!(log["pipeline_sha256"], slow_sha.as_str(), "a folder of the other pipeline");
+    }
+    assert_clean(&out);
+}

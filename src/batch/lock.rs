@@ -214,6 +214,75 @@ impl Drop for OutputLock {
     }
 }
 
+/// A run's claim on its output directory for one pipeline: runs with the
+/// same pipeline share `<out>/.pipeline.lock` (a shared OS lock, held for
+/// the whole run), a run with another pipeline is refused while any of
+/// them is live, so two pipelines never interleave their outputs in one
+/// folder. The file records the pipeline hash of the runs holding it; the
+/// last run to leave removes it.
+pub struct PipelineClaim {
+    file: Option<File>,
+    path: PathBuf,
+}
+
+impl PipelineClaim {
+    pub fn acquire(out_root: &Path, pipeline_sha256: &str) -> Result<PipelineClaim> {
+        std::fs::create_dir_all(out_root).with_context(|| format!("creating {}", out_root.display()))?;
+        let path = out_root.join(".pipeline.lock");
+        for _ in 0..20 {
+            let mut file = OpenOptions::new().read(true).write(true).create(true).truncate(false).open(&path).with_context(|| format!("opening {}", path.display()))?;
+            match file.try_lock() {
+                // No live run: the folder is ours to claim for this pipeline.
+                Ok(()) => {
+                    file.set_len(0)?;
+                    file.seek(std::io::SeekFrom::Start(0))?;
+                    file.write_all(pipeline_sha256.as_bytes())?;
+                    file.flush()?;
+                    file.unlock()?;
+                }
+                Err(TryLockError::WouldBlock) => {}
+                // A filesystem without OS locks: no claim is possible; the
+                // per-capture locks still keep runs off each other's captures.
+                Err(TryLockError::Error(_)) => return Ok(PipelineClaim { file: None, path }),
+            }
+            // Share it; another pipeline may have claimed it in between, so
+            // the record is read again once shared.
+            file.lock_shared().with_context(|| format!("locking {}", path.display()))?;
+            // The path must still name this file (the last run removes it).
+            let (ours, now) = (file.metadata()?, std::fs::metadata(&path));
+            if !now.is_ok_and(|m| m.ino() == ours.ino() && m.dev() == ours.dev()) {
+                continue;
+            }
+            let mut theirs = String::new();
+            file.seek(std::io::SeekFrom::Start(0))?;
+            file.read_to_string(&mut theirs)?;
+            let theirs = theirs.trim();
+            if theirs != pipeline_sha256 {
+                anyhow::bail!(
+                    "another live run is writing into {} with pipeline sha256 {theirs} (this run's is sha256 {pipeline_sha256}): runs with different pipelines cannot share an output folder at once; wait for it, or choose another --out",
+                    out_root.display()
+                );
+            }
+            // A second signal's cleanup removes it (that run exits at once).
+            crate::io::staging::register(&path);
+            return Ok(PipelineClaim { file: Some(file), path });
+        }
+        anyhow::bail!("{}: could not be claimed (it kept changing)", path.display())
+    }
+}
+
+impl Drop for PipelineClaim {
+    fn drop(&mut self) {
+        // The last holder (the exclusive lock is to be had) removes the file.
+        if let Some(file) = self.file.take() {
+            crate::io::staging::unregister(&self.path);
+            if file.try_lock().is_ok() {
+                std::fs::remove_file(&self.path).ok();
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
