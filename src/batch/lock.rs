@@ -103,7 +103,19 @@ fn heartbeat_age(meta: &std::fs::Metadata) -> Duration {
 }
 
 fn attempt(path: &Path, me: &Holder) -> Result<Attempt> {
-    let mut file = OpenOptions::new().read(true).write(true).create(true).truncate(false).open(path).with_context(|| format!("opening lock {}", path.display()))?;
+    let open = || OpenOptions::new().read(true).write(true).create(true).truncate(false).open(path);
+    // A lock file this process creates is registered as it is created, so
+    // a stop's cleanup never misses it (nor finds one being created).
+    let created = !path.exists();
+    let file = if created { crate::io::staging::create_registered(path, open) } else { open() }.with_context(|| format!("opening lock {}", path.display()))?;
+    let result = attempt_on(file, path, me);
+    if created && !matches!(result, Ok(Attempt::Taken(_))) {
+        crate::io::staging::unregister(path);
+    }
+    result
+}
+
+fn attempt_on(mut file: File, path: &Path, me: &Holder) -> Result<Attempt> {
     let os_lock = match file.try_lock() {
         Ok(()) => true,
         Err(TryLockError::WouldBlock) => {

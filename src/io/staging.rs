@@ -42,13 +42,37 @@ pub fn in_flight() -> Vec<PathBuf> {
     IN_FLIGHT.lock().unwrap_or_else(|e| e.into_inner()).iter().cloned().collect()
 }
 
+/// Set once a stop's cleanup has begun: nothing new is created after it.
+static STOPPING: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// Creates `p` with `create` and registers it in one step with respect to
+/// a stop: once [`remove_in_flight`] has begun, nothing is created (an
+/// `Interrupted` error), so no writer can leave a path behind the cleanup.
+pub fn create_registered<T>(p: &Path, create: impl FnOnce() -> std::io::Result<T>) -> std::io::Result<T> {
+    let mut set = IN_FLIGHT.lock().unwrap_or_else(|e| e.into_inner());
+    if STOPPING.load(std::sync::atomic::Ordering::SeqCst) {
+        return Err(std::io::Error::new(std::io::ErrorKind::Interrupted, "stopping on a signal"));
+    }
+    let made = create()?;
+    set.insert(p.to_path_buf());
+    Ok(made)
+}
+
 /// Removes every in-flight path (for a process about to exit on a signal).
+/// Writers are stopped first: from now on nothing new is created
+/// ([`create_registered`]), and each staging folder is renamed away before
+/// it is removed, so a writer still working creates nothing under its
+/// name (a file opened by path in it fails).
 pub fn remove_in_flight() {
-    for p in in_flight() {
+    let set = IN_FLIGHT.lock().unwrap_or_else(|e| e.into_inner());
+    STOPPING.store(true, std::sync::atomic::Ordering::SeqCst);
+    for p in set.iter() {
         if p.is_dir() {
-            std::fs::remove_dir_all(&p).ok();
+            let aside = p.with_file_name(format!("{}.removing", p.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_default()));
+            let gone = if std::fs::rename(p, &aside).is_ok() { &aside } else { p };
+            std::fs::remove_dir_all(gone).ok();
         } else {
-            std::fs::remove_file(&p).ok();
+            std::fs::remove_file(p).ok();
         }
     }
 }
@@ -77,12 +101,16 @@ pub fn write_atomically<F>(path: &Path, write: F) -> Result<()>
 where
     F: FnOnce(&Path) -> Result<()>,
 {
-    // A missing parent folder is created (as `run` creates its --out).
-    if let Some(parent) = path.parent().filter(|p| !p.as_os_str().is_empty() && !p.exists()) {
-        std::fs::create_dir_all(parent).with_context(|| format!("creating {}", parent.display()))?;
-    }
     let tmp = temp_sibling(path);
-    register(&tmp);
+    // A missing parent folder is created (as `run` creates its --out), and
+    // the temporary file, both only while no stop is under way.
+    create_registered(&tmp, || {
+        if let Some(parent) = path.parent().filter(|p| !p.as_os_str().is_empty() && !p.exists()) {
+            std::fs::create_dir_all(parent)?;
+        }
+        std::fs::File::create(&tmp).map(drop)
+    })
+    .with_context(|| format!("creating {}", tmp.display()))?;
     let result = write(&tmp).and_then(|()| std::fs::rename(&tmp, path).with_context(|| format!("renaming into {}", path.display())));
     if result.is_err() {
         let _ = std::fs::remove_file(&tmp);
@@ -150,8 +178,7 @@ impl Staging {
         if dir.exists() {
             std::fs::remove_dir_all(&dir).ok();
         }
-        std::fs::create_dir(&dir).with_context(|| format!("creating {}", dir.display()))?;
-        register(&dir);
+        create_registered(&dir, || std::fs::create_dir(&dir)).with_context(|| format!("creating {}", dir.display()))?;
         let staging = Staging { dir, final_dir, committed: false };
         let record = serde_json::json!({
             "made_by": concat!("fringeflow ", env!("CARGO_PKG_VERSION")),
