@@ -27,7 +27,15 @@ pub struct DatasetStats {
     /// (samples at or above full scale, the full scale) for integer fringes.
     #[serde(serialize_with = "full_scale_json")]
     pub at_full_scale: Option<(u64, f64)>,
+    /// Values the statistics were taken from, when fewer than the dataset
+    /// holds (evenly spaced blocks along its first axis; none read when
+    /// one row alone is larger than the budget).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub sampled_values: Option<u64>,
 }
+
+/// The most values `inspect` reads of one dataset for its statistics.
+const SAMPLE_BUDGET: usize = 1 << 24;
 
 /// The result of inspecting a capture.
 #[derive(Debug, Clone, serde::Serialize)]
@@ -58,7 +66,7 @@ fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
     let descriptor = match ds.dtype().and_then(|t| t.to_descriptor()) {
         Ok(d) => d,
         Err(_) => {
-            return Ok(DatasetStats { name: name.to_string(), shape, dtype: "a type fringeflow cannot describe".into(), min: f64::INFINITY, max: f64::NEG_INFINITY, non_finite: 0, at_full_scale: None })
+            return Ok(DatasetStats { name: name.to_string(), shape, dtype: "a type fringeflow cannot describe".into(), min: f64::INFINITY, max: f64::NEG_INFINITY, non_finite: 0, at_full_scale: None, sampled_values: None })
         }
     };
     let mut st = DatasetStats {
@@ -69,6 +77,7 @@ fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
         max: f64::NEG_INFINITY,
         non_finite: 0,
         at_full_scale: None,
+        sampled_values: None,
     };
     if !is_numeric(&descriptor) {
         return Ok(st);
@@ -91,8 +100,14 @@ fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
     } else {
         let row: usize = shape[1..].iter().product::<usize>().max(1);
         let step = ((1usize << 21) / row).max(1);
-        let mut start = 0;
-        while start < shape[0] {
+        // Blocks of `step` rows; beyond the budget, evenly spaced ones.
+        let blocks = shape[0].div_ceil(step);
+        let budget = if row > SAMPLE_BUDGET { 0 } else { (SAMPLE_BUDGET / (step * row)).max(1) };
+        let chosen: Vec<usize> = if blocks <= budget { (0..blocks).collect() } else { (0..budget).map(|i| i * blocks / budget).collect() };
+        if chosen.len() < blocks {
+            st.sampled_values = Some(chosen.iter().map(|&b| ((b * step + step).min(shape[0]) - b * step) * row).sum::<usize>() as u64);
+        }
+        for start in chosen.into_iter().map(|b| b * step) {
             let end = (start + step).min(shape[0]);
             let part = ds.read_slice::<f64, _, ndarray::IxDyn>(hdf5::Hyperslab::from(
                 std::iter::once(hdf5::SliceOrIndex::SliceCount { start, step: 1, count: end - start, block: 1 })
@@ -100,7 +115,6 @@ fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
                     .collect::<Vec<_>>(),
             ))?;
             part.iter().for_each(|&v| visit(v));
-            start = end;
         }
     }
     st.at_full_scale = full_scale.map(|fs| (saturated, fs));
@@ -129,7 +143,8 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
             problems.push(format!("{name}: {} NaN or infinite values", st.non_finite));
         }
         if name == &input.fringes && is_numeric_name(&st.dtype) && st.min == st.max {
-            problems.push(format!("{name}: every sample is {}: no fringes (an empty capture, or the camera recorded nothing)", st.min));
+            let which = if st.sampled_values.is_some() { "every sampled value" } else { "every sample" };
+            problems.push(format!("{name}: {which} is {}: no fringes (an empty capture, or the camera recorded nothing)", st.min));
         }
         if let Some((n, fs)) = st.at_full_scale {
             if n > 0 {
@@ -137,7 +152,7 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
             }
         }
         if name == &input.wavelength && st.shape.len() == 1 && is_numeric_name(&st.dtype) {
-            match ds.read_raw::<f64>() {
+            match crate::io::memory::check_fits(&format!("dataset '{name}'"), ds.size() as u64, 8).and_then(|()| Ok(ds.read_raw::<f64>()?)) {
                 Ok(map) => {
                     if let Err(e) = check_wavelength_map(&map, map.len(), &format!("'{name}'")) {
                         problems.push(e.to_string());
@@ -149,7 +164,7 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
         datasets.push(st);
     }
     if let Err(e) = crate::run::open_capture(path, input) {
-        let msg = e.to_string();
+        let msg = format!("{e:#}");
         if !problems.iter().any(|p| p == &msg) {
             problems.push(msg);
         }
@@ -170,6 +185,9 @@ impl Inspection {
             }
             if let Some((n, fs)) = d.at_full_scale {
                 let _ = write!(s, " full scale {} ({} saturated)", fmt_num(fs), n);
+            }
+            if let Some(n) = d.sampled_values {
+                let _ = write!(s, " (statistics of {n} sampled values)");
             }
             let _ = writeln!(s);
         }

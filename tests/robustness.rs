@@ -532,3 +532,42 @@ fn a_double_signal_repeated_leaves_nothing_behind() {
         }
     }
 }
+
+/// Sizes a file declares are checked against memory before anything is
+/// allocated: small files (chunked, nothing written) declaring one frame of
+/// 10¹² values, a background of 2·10¹⁰ and a wavelength map of 10¹⁰ are each
+/// refused by `run` and `inspect` with a one-line error giving the figures,
+/// under a 4 GB address-space limit (an allocation would abort), and
+/// `inspect` finishes, sampling its statistics.
+#[test]
+fn declared_sizes_are_checked_before_allocating() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let wl: Vec<f64> = (0..2048).map(|i| 800.0 + 0.05 * i as f64).collect();
+    let write = |name: &str, frame: (usize, usize, usize), background: Option<(usize, usize)>, map_len: Option<usize>| {
+        let f = fringeflow::io::h5::create_file(&d.join(name)).unwrap();
+        f.new_dataset::<u16>().chunk((1, 1, frame.2.min(2048))).shape(frame).create("fringes").unwrap();
+        match map_len {
+            Some(n) => drop(f.new_dataset::<f64>().chunk(4096).shape(n).create("wavelength_nm").unwrap()),
+            None => drop(fringeflow::io::h5::write_1d(&f, "wavelength_nm", &wl).unwrap()),
+        }
+        if let Some(b) = background {
+            f.new_dataset::<u16>().chunk((1, 2048)).shape(b).create("background").unwrap();
+        }
+    };
+    write("frame.h5", (1, 1_000_000, 1_000_000), None, Some(1_000_000));
+    write("background.h5", (2, 64, 2048), Some((10_000_000, 2048)), None);
+    write("map.h5", (2, 64, 2048), None, Some(10_000_000_000));
+    for (file, expect) in [("frame.h5", "one frame of dataset '/fringes'"), ("background.h5", "dataset '/background' declares 20480000000 values"), ("map.h5", "dataset '/wavelength_nm' declares 10000000000 values")] {
+        for cmd in [format!("run {file} --out out --quiet"), format!("inspect {file}")] {
+            let t = Instant::now();
+            let o = Command::new("sh").arg("-c").arg(format!("ulimit -v 4000000; exec {} {cmd}", bin())).current_dir(d).env("HDF5_USE_FILE_LOCKING", "FALSE").output().unwrap();
+            let all = text(&o);
+            assert_eq!(o.status.code(), Some(1), "{cmd}: {all}");
+            assert!(all.contains(expect) && all.contains("GB of memory available"), "{cmd}: {all}");
+            assert!(t.elapsed() < Duration::from_secs(60), "{cmd} took {:?}", t.elapsed());
+        }
+    }
+    assert!(!d.join("out/frame").exists() && !d.join("out/background").exists());
+    assert_clean(&d.join("out"));
+}

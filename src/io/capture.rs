@@ -298,8 +298,10 @@ fn open_dataset(file: &hdf5::File, name: &str) -> Option<Dataset> {
     }
 }
 
-/// Reads a numeric dataset as f64 (any numeric type; HDF5 converts).
+/// Reads a numeric dataset as f64 (any numeric type; HDF5 converts),
+/// once its declared size is known to fit in memory.
 fn read_f64(ds: &Dataset) -> Result<ArrayD<f64>> {
+    super::memory::check_fits(&format!("dataset '{}'", ds.name()), ds.size() as u64, 8)?;
     Ok(ds.read_dyn::<f64>()?)
 }
 
@@ -375,6 +377,8 @@ impl Capture {
         if pixels < 16 {
             bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16{}", input.fringes, transposed_hint(&shape, &axes, None));
         }
+        // One frame is read whole (as f64 on the reference path).
+        super::memory::check_fits(&format!("one frame of dataset '{}' ({alines} A-lines × {pixels} pixels)", input.fringes), alines as u64 * pixels as u64, 8)?;
         // Captures stored in chunks of several frames: reopen with a chunk
         // cache that holds a frame's chunks.
         let (file, fringes) = match frame_chunk_cache(&fringes, &axes) {

@@ -210,12 +210,6 @@ pub fn memory_estimate(capture: &Capture, config: &PipelineConfig, depth: usize)
     3 * raw + n * per_repeat + working + 3 * outputs + px * 8
 }
 
-/// MemAvailable of /proc/meminfo, bytes.
-pub(super) fn available_memory_bytes() -> Option<u64> {
-    let text = std::fs::read_to_string("/proc/meminfo").ok()?;
-    let line = text.lines().find(|l| l.starts_with("MemAvailable:"))?;
-    Some(line.split_whitespace().nth(1)?.parse::<u64>().ok()? * 1024)
-}
 
 /// Phase 3a: volume.h5 with every dataset the pipeline asks for.
 fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, staging: &Staging) -> Result<(Option<VolumeWriter>, ContrastDatasets)> {

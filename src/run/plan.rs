@@ -8,7 +8,8 @@ use anyhow::{bail, Result};
 use ndarray::Array2;
 
 use super::open::Opened;
-use super::{available_memory_bytes, memory_estimate};
+use super::memory_estimate;
+use crate::io::memory::available_bytes as available_memory_bytes;
 use crate::contrast::doppler::DopplerScale;
 use crate::pipeline::config::{BackgroundMethod, DopplerPairs, PipelineConfig};
 use crate::pipeline::fused::FusedPlan;
