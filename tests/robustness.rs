@@ -30,6 +30,27 @@ fn assert_clean(out: &Path) {
     }
 }
 
+/// Starts `fringeflow <args> <captures…>` with its output piped.
+fn spawn_run(args: &[&str], caps: &[PathBuf]) -> std::process::Child {
+    Command::new(bin())
+        .env("HDF5_USE_FILE_LOCKING", "FALSE")
+        .args(args)
+        .args(caps.iter().map(|c| s(c)))
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap()
+}
+
+/// Waits until a run has a staging folder in `out` (it is writing).
+fn wait_for_staging(out: &Path) {
+    let t0 = Instant::now();
+    while !std::fs::read_dir(out).map(|rd| rd.flatten().any(|e| e.file_name().to_string_lossy().contains(".partial-"))).unwrap_or(false) {
+        assert!(t0.elapsed() < Duration::from_secs(60), "nothing started in {}", out.display());
+        std::thread::sleep(Duration::from_millis(1));
+    }
+}
+
 fn captures(dir: &Path, n: usize, frames: usize, alines: usize) -> Vec<PathBuf> {
     (0..n).map(|i| simulate_scene(dir, &format!("c{i:02}"), &small_scene(150.0 + 37.0 * i as f64, frames, alines, 1024)).0).collect()
 }
@@ -121,19 +142,8 @@ fn a_run_in_another_pid_namespace_never_takes_a_live_lock() {
     let slow = dir.path().join("slow.toml");
     std::fs::write(&slow, "[fft]\nzero_padding = 16\n").unwrap();
     let out = dir.path().join("out");
-    let first = Command::new(bin())
-        .env("HDF5_USE_FILE_LOCKING", "FALSE")
-        .args(["run", "--resume", "--pipeline", s(&slow), "--out", s(&out)])
-        .args(caps.iter().map(|c| s(c)))
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    let t0 = Instant::now();
-    while !std::fs::read_dir(&out).map(|rd| rd.flatten().any(|e| e.file_name().to_string_lossy().contains(".partial-"))).unwrap_or(false) {
-        assert!(t0.elapsed() < Duration::from_secs(60), "nothing started");
-        std::thread::sleep(Duration::from_millis(5));
-    }
+    let first = spawn_run(&["run", "--resume", "--pipeline", s(&slow), "--out", s(&out)], &caps);
+    wait_for_staging(&out);
     let second = Command::new("unshare")
         .args(["--pid", "--fork", "--mount-proc"])
         .arg(bin())
@@ -160,19 +170,8 @@ fn signal_run(sig: &str, code: i32, twice: bool) {
     let slow = dir.path().join("slow.toml");
     std::fs::write(&slow, "[fft]\nzero_padding = 16\n").unwrap();
     let out = dir.path().join("out");
-    let child = Command::new(bin())
-        .env("HDF5_USE_FILE_LOCKING", "FALSE")
-        .args(["run", "--pipeline", s(&slow), "--out", s(&out)])
-        .args(caps.iter().map(|c| s(c)))
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .unwrap();
-    let t0 = Instant::now();
-    while !std::fs::read_dir(&out).map(|rd| rd.flatten().any(|e| e.file_name().to_string_lossy().contains(".partial-"))).unwrap_or(false) {
-        assert!(t0.elapsed() < Duration::from_secs(60), "nothing started");
-        std::thread::sleep(Duration::from_millis(2));
-    }
+    let child = spawn_run(&["run", "--pipeline", s(&slow), "--out", s(&out)], &caps);
+    wait_for_staging(&out);
     let kill = |s: &str| Command::new("kill").arg(format!("-{s}")).arg(child.id().to_string()).status().unwrap();
     kill(sig);
     if twice {
@@ -505,19 +504,8 @@ fn a_double_signal_repeated_leaves_nothing_behind() {
     let caps: Vec<PathBuf> = (0..4).map(|i| simulate_scene(dir.path(), &format!("d{i}"), &small_scene(200.0 + 40.0 * i as f64, 80, 32, 512)).0).collect();
     for trial in 0..40u64 {
         let out = dir.path().join(format!("out{trial}"));
-        let child = Command::new(bin())
-            .env("HDF5_USE_FILE_LOCKING", "FALSE")
-            .args(["run", "--quiet", "--out", s(&out)])
-            .args(caps.iter().map(|c| s(c)))
-            .stdout(Stdio::piped())
-            .stderr(Stdio::piped())
-            .spawn()
-            .unwrap();
-        let t0 = Instant::now();
-        while !std::fs::read_dir(&out).map(|rd| rd.flatten().any(|e| e.file_name().to_string_lossy().contains(".partial-"))).unwrap_or(false) {
-            assert!(t0.elapsed() < Duration::from_secs(60), "trial {trial}: nothing started");
-            std::thread::sleep(Duration::from_millis(1));
-        }
+        let child = spawn_run(&["run", "--quiet", "--out", s(&out)], &caps);
+        wait_for_staging(&out);
         std::thread::sleep(Duration::from_millis(trial % 5 * 10));
         let kill = || Command::new("kill").arg("-INT").arg(child.id().to_string()).status().unwrap();
         kill();
