@@ -21,6 +21,7 @@ pub mod contrast;
 pub mod design;
 pub mod errors;
 pub mod inspect;
+pub mod interrupt;
 pub mod io;
 pub mod json_doc;
 pub mod measure;

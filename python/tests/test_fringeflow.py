@@ -257,3 +257,55 @@ def test_rolloff_and_wavelength_calibration_agree_with_the_cli_json(tmp_path):
     c_cli = json.loads(cli("calibrate", "wavelength", *caps, "--centre-nm", "838.0", "--span-nm", "150", "--out", tmp_path / "cal.json", "--json").stdout)
     c = ff.calibrate_wavelength(caps, centre_nm=838.0, span_nm=150)
     assert c["wavelength_nm"] == c_cli["wavelength_nm"] and c["fit_residual_rms_nm"] == c_cli["fit_residual_rms_nm"]
+
+
+def test_declared_sizes_larger_than_memory_raise_instead_of_killing_python(tmp_path):
+    """Small files (chunked, nothing written) declaring a background of
+    2·10¹⁰ values, a wavelength map of 10¹⁰, one frame of 10¹² and a
+    5·10⁷-pixel plan: each raises CaptureError or PipelineError with the
+    figures in an interpreter limited to 4 GB of address space, where an
+    allocation would abort it. Run in a child interpreter so that a crash
+    fails this test instead of ending pytest."""
+    import h5py
+
+    wl = 800 + 0.05 * np.arange(2048)
+    with h5py.File(tmp_path / "background.h5", "w") as f:
+        f.create_dataset("fringes", shape=(2, 64, 2048), dtype="u2", chunks=(1, 64, 2048))
+        f["wavelength_nm"] = wl
+        f.create_dataset("background", shape=(10_000_000, 2048), dtype="u2", chunks=(1, 2048))
+    with h5py.File(tmp_path / "map.h5", "w") as f:
+        f.create_dataset("fringes", shape=(2, 64, 2048), dtype="u2", chunks=(1, 64, 2048))
+        f.create_dataset("wavelength_nm", shape=(10_000_000_000,), dtype="f8", chunks=(4096,))
+    with h5py.File(tmp_path / "frame.h5", "w") as f:
+        f.create_dataset("fringes", shape=(1, 1_000_000, 1_000_000), dtype="u2", chunks=(1, 1, 4096))
+        f.create_dataset("wavelength_nm", shape=(1_000_000,), dtype="f8", chunks=(4096,))
+    n = 50_000_000
+    with h5py.File(tmp_path / "wide.h5", "w") as f:
+        f.create_dataset("fringes", shape=(1, 2, n), dtype="u2", chunks=(1, 1, 1 << 20))
+        f["wavelength_nm"] = 800 + (100.0 / n) * np.arange(n)
+    script = f"""
+import resource, sys
+resource.setrlimit(resource.RLIMIT_AS, (4_000_000_000, 4_000_000_000))
+import fringeflow as ff
+d = {str(tmp_path)!r}
+for name, make in [
+    ("background", lambda: ff.Capture(d + "/background.h5")),
+    ("map", lambda: ff.Capture(d + "/map.h5")),
+    ("frame", lambda: ff.Capture(d + "/frame.h5").frame(0)),
+    ("wide", lambda: ff.Reconstructor(capture=ff.Capture(d + "/wide.h5"))),
+]:
+    try:
+        make()
+        print(name, "NO ERROR")
+    except ff.FringeflowError as e:
+        print(name, type(e).__name__, str(e).replace(chr(10), " "))
+"""
+    o = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, env=ENV, timeout=300)
+    assert o.returncode == 0, o.stderr
+    lines = dict(l.split(" ", 1) for l in o.stdout.splitlines())
+    assert lines["background"].startswith("CaptureError") and "20480000000 values" in lines["background"], o.stdout
+    assert lines["map"].startswith("CaptureError") and "10000000000 values" in lines["map"], o.stdout
+    assert lines["frame"].startswith("CaptureError") and "one frame of dataset" in lines["frame"], o.stdout
+    assert lines["wide"].startswith("PipelineError") and "FFT of 50000000" in lines["wide"], o.stdout
+    for name in ("background", "map", "frame", "wide"):
+        assert "GB of memory" in lines[name] and "available" in lines[name], lines[name]

@@ -139,6 +139,7 @@ impl StopSignals {
                 for sig in signals.forever() {
                     let first = flag.compare_exchange(0, sig, Ordering::SeqCst, Ordering::SeqCst).is_ok();
                     any.store(true, Ordering::SeqCst);
+                    crate::interrupt::request();
                     if !graceful || !first {
                         crate::io::staging::remove_in_flight();
                         std::process::exit(128 + sig);

@@ -88,9 +88,21 @@ pub struct Plan {
     pub summary: PlanSummary,
 }
 
-impl Plan {
-    pub fn new(config: &PipelineConfig, capture: CaptureGeometry<'_>) -> Result<Self> {
-        let pixels = capture.wavelength_nm.len();
+/// The sizes a pipeline gives a capture's spectra, found from the settings
+/// and the wavelength map alone, before any table is built: uniform
+/// wavenumber samples, FFT length and the kept depth bins.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct DepthGeometry {
+    pub k_samples: usize,
+    pub fft_length: usize,
+    pub depth_spacing_um: f64,
+    pub first_depth_bin: usize,
+    pub depth_pixels: usize,
+}
+
+impl DepthGeometry {
+    pub fn of(config: &PipelineConfig, wavelength_nm: &[f64]) -> Result<Self> {
+        let pixels = wavelength_nm.len();
         let k_samples = match config.k_linearization.samples {
             0 => pixels,
             n => n,
@@ -98,6 +110,56 @@ impl Plan {
         if k_samples < 16 {
             bail!("k_linearization.samples = {k_samples}: need 0 (as many as pixels) or at least 16");
         }
+        let Some(fft_length) = k_samples.checked_mul(config.fft.zero_padding) else {
+            bail!("{k_samples} wavenumber samples × fft.zero_padding {} is more than any FFT can hold", config.fft.zero_padding);
+        };
+        let (k_min, k_max) = wavelength_nm
+            .iter()
+            .map(|&l| physics::wavenumber_per_um(l))
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), k| (a.min(k), b.max(k)));
+        let depth_spacing_um = physics::depth_spacing_um(k_max - k_min, k_samples, fft_length);
+        let positive = fft_length / 2;
+        let (first, end) = match (config.fft.crop_um, config.fft.crop_px) {
+            (Some([a, b]), _) => ((a / depth_spacing_um).round() as usize, (b / depth_spacing_um).round() as usize),
+            (_, Some([a, b])) => (a, b),
+            _ => (0, positive),
+        };
+        let deepest = positive as f64 * depth_spacing_um;
+        let key = if config.fft.crop_um.is_some() { "fft.crop_um" } else { "fft.crop_px" };
+        if end > positive {
+            bail!(
+                "{key} ends beyond this capture's depth range: it reaches pixel {end} ({:.1} µm), the range is pixels 0–{positive} (0–{deepest:.1} µm in air)",
+                end as f64 * depth_spacing_um
+            );
+        }
+        if first >= end {
+            bail!("{key} keeps no depth pixel: the range is pixels 0–{positive} (0–{deepest:.1} µm in air)");
+        }
+        Ok(DepthGeometry { k_samples, fft_length, depth_spacing_um, first_depth_bin: first, depth_pixels: end - first })
+    }
+
+    /// Bytes the plan's tables take at most, generously: the resampling
+    /// tables (f64 and index per sample, both engines), dispersion, window
+    /// and shaping per sample, the FFT's twiddles and scratch, and one
+    /// worker's A-line buffers per thread.
+    pub fn table_bytes(&self, pixels: usize) -> u64 {
+        let threads = rayon::current_num_threads() as u64;
+        let k = self.k_samples as u64;
+        let n = self.fft_length as u64;
+        let p = pixels as u64;
+        k * 160 + p * 120 + n * 16 * 4 + threads * BLOCK as u64 * (p * 8 + n * 16 * 2 + self.depth_pixels as u64 * 12)
+    }
+}
+
+impl Plan {
+    pub fn new(config: &PipelineConfig, capture: CaptureGeometry<'_>) -> Result<Self> {
+        let pixels = capture.wavelength_nm.len();
+        let geometry = DepthGeometry::of(config, capture.wavelength_nm)?;
+        crate::io::memory::check_bytes_fit(
+            &format!("the processing plan ({} wavenumber samples, FFT of {})", geometry.k_samples, geometry.fft_length),
+            geometry.table_bytes(pixels),
+        )?;
+        let k_samples = geometry.k_samples;
         let mut stages: Vec<Box<dyn Stage>> = Vec::new();
 
         let method = match (config.background.method, capture.background) {
@@ -142,25 +204,9 @@ impl Plan {
             stages.push(Box::new(Window { coefficients }));
         }
 
-        let fft_length = k_samples * config.fft.zero_padding;
+        let fft_length = geometry.fft_length;
         let depth_spacing_um = physics::depth_spacing_um(k_span, k_samples, fft_length);
-        let positive = fft_length / 2;
-        let (first, end) = match (config.fft.crop_um, config.fft.crop_px) {
-            (Some([a, b]), _) => ((a / depth_spacing_um).round() as usize, (b / depth_spacing_um).round() as usize),
-            (_, Some([a, b])) => (a, b),
-            _ => (0, positive),
-        };
-        let deepest = positive as f64 * depth_spacing_um;
-        let key = if config.fft.crop_um.is_some() { "fft.crop_um" } else { "fft.crop_px" };
-        if end > positive {
-            bail!(
-                "{key} ends beyond this capture's depth range: it reaches pixel {end} ({:.1} µm), the range is pixels 0–{positive} (0–{deepest:.1} µm in air)",
-                end as f64 * depth_spacing_um
-            );
-        }
-        if first >= end {
-            bail!("{key} keeps no depth pixel: the range is pixels 0–{positive} (0–{deepest:.1} µm in air)");
-        }
+        let (first, end) = (geometry.first_depth_bin, geometry.first_depth_bin + geometry.depth_pixels);
         let fft = Fft::new(fft_length, first, end - first, window_sum);
         let fft_scratch_len = fft.scratch_length();
         stages.push(Box::new(fft));
@@ -373,6 +419,9 @@ impl Plan {
             .for_each_init(
                 || (0..BLOCK).map(|_| self.new_aline()).collect::<Vec<_>>(),
                 |lines, ((spectra, out), complex)| {
+                    if crate::interrupt::requested() {
+                        return; // the frame in flight is discarded
+                    }
                     let n = spectra.len() / pixels;
                     for (line, spectrum) in lines.iter_mut().zip(spectra.chunks_exact(pixels)) {
                         line.spectrum.copy_from_slice(spectrum);

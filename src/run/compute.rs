@@ -58,11 +58,19 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
         });
         let (out_tx, out_rx) = std::sync::mpsc::sync_channel::<PositionOutput>(2);
         let (free_tx, free_rx) = std::sync::mpsc::channel::<Array2<f32>>();
+        let stopped = move || cancel.is_some_and(|c| c.load(Ordering::Relaxed));
         let writer_thread = scope.spawn(move || -> Result<Written> {
             let mut writer = writer;
+            // On a stop, what is queued is dropped unwritten.
             for p in out_rx {
+                if stopped() {
+                    return Err(Interrupted.into());
+                }
                 let image = writer.write(p)?;
                 let _ = free_tx.send(image);
+            }
+            if stopped() {
+                return Err(Interrupted.into());
             }
             writer.finish(positions)
         });
@@ -138,6 +146,11 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
             }
             let sub_bands = sub_band_buffers;
             drop(raw);
+            // A frame cut short by a stop is never passed on.
+            if stopped() {
+                result = Err(Interrupted.into());
+                break;
+            }
             for p in [ctx.progress, ctx.capture_progress].into_iter().flatten() {
                 p.inc(1);
             }

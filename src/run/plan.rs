@@ -13,7 +13,7 @@ use crate::io::memory::available_bytes as available_memory_bytes;
 use crate::contrast::doppler::DopplerScale;
 use crate::pipeline::config::{BackgroundMethod, DopplerPairs, PipelineConfig};
 use crate::pipeline::fused::FusedPlan;
-use crate::pipeline::plan::{CaptureGeometry, Plan};
+use crate::pipeline::plan::{CaptureGeometry, DepthGeometry, Plan};
 
 /// Phase 2: the plan and everything derived from it.
 pub(super) struct Planned {
@@ -29,6 +29,10 @@ pub(super) struct Planned {
 
 pub(super) fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> {
     let capture = &opened.capture;
+    // Memory first, from sizes alone: nothing is allocated for a plan that
+    // cannot fit.
+    let geometry = DepthGeometry::of(config, &capture.wavelength_nm)?;
+    check_memory(capture, config, &geometry)?;
     // Shaping and Doppler's λ0 measure the source envelope: the background,
     // else frame 0's mean spectrum.
     let source_spectrum = match (&capture.background, config.shaping.enabled || config.doppler.enabled) {
@@ -108,18 +112,29 @@ pub(super) fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> 
     } else {
         None
     };
-    let need = memory_estimate(capture, config, depth);
+    Ok(Planned { plan, dispersion_estimate, depth_um, en_face_range, sub_bands, doppler, warnings })
+}
+
+
+/// Refuses a capture and pipeline whose reconstruction needs more memory
+/// than the machine has available: the frames and images in flight
+/// ([`memory_estimate`]) and the plan's tables, one set per split-spectrum
+/// band besides the main one.
+fn check_memory(capture: &crate::io::capture::Capture, config: &PipelineConfig, geometry: &DepthGeometry) -> Result<()> {
+    let depth = geometry.depth_pixels;
+    let bands = if config.angiography.methods.contains(&crate::pipeline::config::AngiographyMethod::SplitSpectrum) { config.angiography.split_bands as u64 } else { 0 };
+    let need = memory_estimate(capture, config, depth).saturating_add(geometry.table_bytes(capture.pixels).saturating_mul(1 + bands));
     if let Some(available) = available_memory_bytes() {
         if need > available {
             bail!(
-                "this capture and pipeline need about {:.1} GB of memory ({} A-lines × {depth} depth pixels per B-scan, {} held per position), the machine has {:.1} GB available: lower volume.average, fft.zero_padding or crop the depth (fft.crop_um)",
+                "this capture and pipeline need about {:.1} GB of memory ({} A-lines × {depth} depth pixels per B-scan, FFT of {}, {} held per position), {:.1} GB of memory is available to this process: lower volume.average, fft.zero_padding or crop the depth (fft.crop_um)",
                 need as f64 / 1e9,
                 capture.alines,
+                geometry.fft_length,
                 config.volume.average,
                 available as f64 / 1e9
             );
         }
     }
-    Ok(Planned { plan, dispersion_estimate, depth_um, en_face_range, sub_bands, doppler, warnings })
+    Ok(())
 }
-

@@ -44,6 +44,9 @@ pub fn median_spectrum(rows: ArrayView2<'_, f64>) -> Vec<f64> {
         .map_init(
             || Vec::with_capacity(n),
             |column, p| {
+                if crate::interrupt::requested() {
+                    return f64::NAN; // the frame in flight is discarded
+                }
                 column.clear();
                 column.extend(rows.column(p).iter().copied());
                 median_in_place(column)

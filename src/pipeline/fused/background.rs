@@ -11,9 +11,8 @@
 use ndarray::ArrayView2;
 use rayon::prelude::*;
 
-use super::{to_f32, FusedPlan, Sample};
+use super::{FusedPlan, Sample};
 use crate::pipeline::kernel::Variant;
-use crate::stages::background::median_spectrum;
 
 /// Reference spectrum per frame.
 #[derive(Debug, Clone)]
@@ -42,11 +41,32 @@ impl FusedPlan {
             }
             Reference::Median => match T::median_columns(frame, self.variant, &mut self.median_hint.lock().unwrap_or_else(|e| e.into_inner())) {
                 Some(m) => m,
-                None => to_f32(&median_spectrum(frame.mapv(|v| v.to_f32() as f64).view())),
+                None => median_by_column(frame),
             },
         };
         by_pixel
     }
+}
+
+/// Median over rows of each column (NumPy's convention), column by column
+/// from the frame as stored: no f64 copy of the frame is made, and a stop
+/// is noticed between columns.
+fn median_by_column<T: Sample>(frame: ArrayView2<'_, T>) -> Vec<f32> {
+    let rows = frame.nrows();
+    (0..frame.ncols())
+        .into_par_iter()
+        .map_init(
+            || Vec::with_capacity(rows),
+            |column: &mut Vec<f64>, p| {
+                if rows == 0 || crate::interrupt::requested() {
+                    return 0.0; // no rows; or the frame in flight is discarded
+                }
+                column.clear();
+                column.extend(frame.column(p).iter().map(|v| v.to_f32() as f64));
+                crate::stages::background::median_in_place(column) as f32
+            },
+        )
+        .collect()
 }
 
 /// The state the median search carries from frame to frame: last frame's
@@ -361,6 +381,9 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
     }
     // Narrow until every bracket holds at most SPLITS values.
     while lo.iter().zip(hi.iter()).any(|(a, b)| (b - a) as usize >= SPLITS) {
+        if crate::interrupt::requested() {
+            return; // the frame in flight is discarded
+        }
         for q in 0..w {
             let (a, span) = (lo[q] as u32, (hi[q] - lo[q]) as u32);
             for (i, ti) in t.iter_mut().enumerate() {
@@ -493,6 +516,7 @@ mod avx512 {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::stages::background::median_spectrum;
     use ndarray::Array2;
 
     #[test]

@@ -31,6 +31,9 @@ pub(super) fn plan_fft(variant: Variant, length: usize) -> Arc<dyn Fft<f32>> {
 impl FusedPlan {
     /// One block of ≤ LANES A-lines into `sink`.
     pub(super) fn block<T: Sample>(&self, spectra: &[T], reference: &[f32], sink: Sink<'_>, ws: &mut Workspace, timer: &FusedTimer) {
+        if crate::interrupt::requested() {
+            return; // the frame in flight is discarded
+        }
         #[cfg(target_arch = "x86_64")]
         {
             if let Some(lane_fft) = &self.lane_fft {
