@@ -38,7 +38,7 @@ pub fn calibrate(command: CalibrateCommand) -> ExitCode {
     }
     if let Some(p) = &plot {
         let nominal = wavelength::nominal_map(&mirrors[0], &config);
-        if let Err(e) = fringeflow::measure::plot::wavelength_map(p, &cal, nominal.as_deref(), &config.sha256()) {
+        if let Err(e) = fringeflow::plot::wavelength_map(p, &cal, nominal.as_deref(), &config.sha256()) {
             return fail(1, format!("{}: {e:#}", p.display()));
         }
     }
@@ -114,7 +114,7 @@ pub fn dispersion(command: DispersionCommand) -> ExitCode {
                 (Ok(a), Ok(b)) => (a, b),
                 (Err(e), _) | (_, Err(e)) => return fail(2, e),
             };
-            let report = match sweep::sweep(&capture, &config, frame, &a2, &a3, &out) {
+            let report = match sweep::sweep(&capture, &config, frame, &a2, &a3).and_then(|s| fringeflow::report::sweep::write(&out, s)) {
                 Ok(r) => r,
                 Err(e) => return fail(1, format!("{}: {e:#}", capture.display())),
             };

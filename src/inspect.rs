@@ -152,7 +152,7 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
             }
         }
         if name == &input.wavelength && st.shape.len() == 1 && is_numeric_name(&st.dtype) {
-            match crate::io::memory::check_fits(&format!("dataset '{name}'"), ds.size() as u64, 8).and_then(|()| Ok(ds.read_raw::<f64>()?)) {
+            match crate::memory::check_fits(&format!("dataset '{name}'"), ds.size() as u64, 8).and_then(|()| Ok(ds.read_raw::<f64>()?)) {
                 Ok(map) => {
                     if let Err(e) = check_wavelength_map(&map, map.len(), &format!("'{name}'")) {
                         problems.push(e.to_string());

@@ -1,37 +1,40 @@
-//! fringeflow: spectral-domain OCT reconstruction on the CPU.
+//! fringeflow: spectral-domain OCT reconstruction on the CPU — the top of
+//! the workspace. Research tool, not a diagnostic device.
 //!
-//! Raw spectra (one per A-line) read from HDF5 go through staged processors
-//! (background subtraction, k-linearization, numerical dispersion
-//! compensation, windowing, FFT, log compression) into B-scan images, a
-//! float32 dB volume and a JSON processing log that is enough to reproduce
-//! them. A simulator writes captures of invented scenes with their ground
-//! truth. Research tool, not a diagnostic device.
+//! Raw spectra (one per A-line) go through staged processors (background
+//! subtraction, k-linearization, numerical dispersion compensation,
+//! windowing, FFT, log compression) into B-scan images, a float32 dB
+//! volume and a JSON processing log that is enough to reproduce them.
 //!
-//! Layout: `stages/` one module per stage behind [`stages::Stage`] (the
-//! plain f64 reference implementation); `pipeline/` the settings file, the
-//! planner and the fused f32 fast path built from a plan (`pipeline::fused`);
-//! `io/` everything that touches files; `simulate/` the simulator; `run` one
-//! capture end to end; `calibration/` wavelength map and dispersion from the
-//! data; `measure/` system characterisation; `throughput` the bench report.
+//! This crate holds what joins the layers for a user: [`run`] (one capture
+//! in phases: open → plan → compute → write → log), [`batch`] (many
+//! captures: shards, locks, resume, signals), [`inspect`], [`bench`], and
+//! the binary's commands. The layers below are crates of their own, a
+//! dependency only pointing down, and are re-exported here under their
+//! module names for the tests, the benches and the Python binding:
+//!
+//! | crate | re-exported as |
+//! |---|---|
+//! | fringeflow-base | [`settings`], [`interrupt`], [`memory`] |
+//! | fringeflow-io | [`io`], [`json_doc`] |
+//! | fringeflow-core | [`physics`], [`analysis`], [`stages`], [`pipeline`] |
+//! | fringeflow-contrast | [`contrast`] |
+//! | fringeflow-simulate | [`simulate`] |
+//! | fringeflow-measure | [`calibration`], [`measure`], [`design`], [`open`] |
+//! | fringeflow-report | [`render`], [`report`], [`plot`] |
 
-pub mod analysis;
 pub mod batch;
-pub mod calibration;
-pub mod contrast;
-pub mod design;
+pub mod bench;
 pub mod errors;
 pub mod inspect;
-pub mod interrupt;
-pub mod io;
-pub mod json_doc;
-pub mod measure;
 pub mod output;
-pub mod physics;
-pub mod pipeline;
-pub mod render;
-pub mod report;
 pub mod run;
-pub mod settings;
-pub mod simulate;
-pub mod stages;
-pub mod throughput;
+
+pub use fringeflow_base::{interrupt, memory, settings};
+pub use fringeflow_contrast as contrast;
+pub use fringeflow_core::{analysis, physics, pipeline, stages};
+pub use fringeflow_io as io;
+pub use fringeflow_io::json_doc;
+pub use fringeflow_measure::{calibration, design, measure, open};
+pub use fringeflow_report::{plot, render, report};
+pub use fringeflow_simulate as simulate;

@@ -461,7 +461,8 @@ fn report(dirs: &[PathBuf], frame_step: Option<usize>, json: bool) -> ExitCode {
 }
 
 fn measure(command: MeasureCommand) -> ExitCode {
-    use fringeflow::measure::{mirror, plot, rolloff};
+    use fringeflow::measure::{mirror, rolloff};
+    use fringeflow::plot;
     match command {
         MeasureCommand::Psf { mirror: path, pipeline, overrides, frame, group_index, plot: plot_path, json } => {
             let config = match load_pipeline(pipeline.as_deref(), &overrides) {
@@ -613,7 +614,7 @@ fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: us
             return fail(2, format!("--capture {}: no such file", c.display()));
         }
     }
-    let opts = fringeflow::throughput::BenchOptions {
+    let opts = fringeflow::bench::BenchOptions {
         capture,
         work_dir,
         alines,
@@ -624,7 +625,7 @@ fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: us
         progress: !quiet && std::io::stderr().is_terminal(),
         sizes: !no_sizes,
     };
-    let report = match fringeflow::throughput::run_bench(&opts) {
+    let report = match fringeflow::bench::run_bench(&opts) {
         Ok(r) => r,
         Err(e) => return fail(1, format!("{e:#}")),
     };

@@ -4,6 +4,7 @@
 
 mod common;
 use common::*;
+use fringeflow::open::samples;
 use fringeflow::io::capture::Capture;
 use fringeflow::pipeline::config::PipelineConfig;
 use fringeflow::pipeline::fused::FusedPlan;
@@ -73,16 +74,16 @@ fn worst_difference(capture: &Capture, config: &PipelineConfig, frame: usize, va
     let mut outputs = Vec::new();
     for fused in [lane, FusedPlan::new(&plan).without_lane_fft()] {
         let mut fast = Array2::<f32>::zeros((capture.alines, depth));
-        fused.process_raw(&raw, &mut fast, &fused.new_timer());
+        fused.process_raw(samples(&raw), &mut fast, &fused.new_timer());
         // The image path (what `run` uses) must equal the row path transposed.
         let mut image = Array2::<f32>::zeros((depth, capture.alines));
-        fused.process_raw_image(&raw, &mut image, &fused.new_timer());
+        fused.process_raw_image(samples(&raw), &mut image, &fused.new_timer());
         assert_eq!(image.t(), fast.view(), "image path differs from the row path (lane FFT: {})", fused.uses_lane_fft());
         // With the complex depth profile alongside: the same dB bits, and
         // the complex values within 1e-4 of the peak of the reference's.
         let mut image2 = Array2::<f32>::zeros((depth, capture.alines));
         let mut complex = Array2::<Complex32>::zeros((depth, capture.alines));
-        fused.process_raw_image_complex(&raw, &mut image2, &mut complex, &fused.new_timer());
+        fused.process_raw_image_complex(samples(&raw), &mut image2, &mut complex, &fused.new_timer());
         assert_eq!(image2, image, "dB image changes when the complex profile is written too");
         let wc = reference_complex.iter().zip(complex.t().iter()).map(|(r, f)| (r - f).norm() as f64).fold(0.0, f64::max) / peak;
         eprintln!("  lane FFT {}: complex max |ΔA|/peak {wc:.2e}", fused.uses_lane_fft());

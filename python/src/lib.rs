@@ -15,6 +15,7 @@ use fringeflow::contrast::doppler::DopplerScale;
 use fringeflow::contrast::position::{PositionProcessor, RepeatFrame};
 use fringeflow::io::capture::{Capture as CoreCapture, RawFrame};
 use fringeflow::pipeline::config::PipelineConfig;
+use fringeflow::open::samples;
 use fringeflow::pipeline::fused::{Extra, FusedPlan, FusedTimer};
 use fringeflow::pipeline::plan::{CaptureGeometry, Plan};
 
@@ -453,7 +454,7 @@ impl Reconstructor {
                 None => {
                     // The amplitude from the same pass (the raw-frame path takes it).
                     let raw = to_raw(input);
-                    py.detach(|| fused.process_raw_image_with(&raw, &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, timer));
+                    py.detach(|| fused.process_raw_image_with(samples(&raw), &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, timer));
                 }
             }
             let mut sub_bands = Vec::new();
@@ -462,7 +463,7 @@ impl Reconstructor {
                 for sp in &self.sub_bands {
                     let mut scratch = Array2::<f32>::zeros((depth, alines));
                     let mut band = Array2::<f32>::zeros((depth, alines));
-                    py.detach(|| sp.process_raw_image_with(&raw, &mut scratch, Extra { complex: None, amplitude: Some(&mut band) }, timer));
+                    py.detach(|| sp.process_raw_image_with(samples(&raw), &mut scratch, Extra { complex: None, amplitude: Some(&mut band) }, timer));
                     sub_bands.push(band);
                 }
             }
@@ -497,7 +498,7 @@ impl Reconstructor {
             let t = std::time::Instant::now();
             for _ in 0..repeats {
                 for r in &raws {
-                    fused.process_raw_image(r, &mut image, timer);
+                    fused.process_raw_image(samples(r), &mut image, timer);
                 }
             }
             (repeats * raws.len() * alines) as f64 / t.elapsed().as_secs_f64()

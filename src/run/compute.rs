@@ -14,6 +14,7 @@ use std::time::Instant;
 
 use super::writer::{Writer, Written};
 use super::{transpose, Interrupted, Planned, RunContext};
+use crate::open::samples;
 use crate::contrast::position::{PositionOutput, PositionProcessor, RepeatFrame};
 use crate::io::capture::{Capture, RawFrame};
 use crate::pipeline::config::PipelineConfig;
@@ -117,9 +118,9 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
                 amplitude = Array2::zeros((depth, alines));
             }
             match (&fused, complex.as_mut()) {
-                (Some(fp), Some(c)) => fp.process_raw_image_staged(&raw, &mut db, Extra { complex: Some(c), amplitude: None }, &fused_timer),
-                (Some(fp), None) if needs_amplitude => fp.process_raw_image_staged(&raw, &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, &fused_timer),
-                (Some(fp), None) => fp.process_raw_image(&raw, &mut db, &fused_timer),
+                (Some(fp), Some(c)) => fp.process_raw_image_staged(samples(&raw), &mut db, Extra { complex: Some(c), amplitude: None }, &fused_timer),
+                (Some(fp), None) if needs_amplitude => fp.process_raw_image_staged(samples(&raw), &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, &fused_timer),
+                (Some(fp), None) => fp.process_raw_image(samples(&raw), &mut db, &fused_timer),
                 (None, c) => {
                     let mut rows = Array2::<f32>::zeros((alines, depth));
                     match c {
@@ -142,7 +143,7 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
                 sub_band_db = Array2::zeros((depth, alines));
             }
             for (sp, band) in planned.sub_bands.iter().zip(sub_band_buffers.iter_mut()) {
-                sp.process_raw_image_with(&raw, &mut sub_band_db, Extra { complex: None, amplitude: Some(band) }, &fused_timer);
+                sp.process_raw_image_with(samples(&raw), &mut sub_band_db, Extra { complex: None, amplitude: Some(band) }, &fused_timer);
             }
             let sub_bands = sub_band_buffers;
             drop(raw);

@@ -248,7 +248,7 @@ pub fn output_bytes(config: &PipelineConfig, frames: usize, positions: usize, al
 fn check_output_space(opened: &Opened, planned: &Planned, config: &PipelineConfig, out_root: &Path) -> Result<()> {
     let (frames, alines) = (opened.capture.frames, opened.capture.alines);
     let bytes = output_bytes(config, frames, opened.positions, alines, planned.depth_um.len());
-    crate::io::memory::check_space(&format!("the outputs of this capture ({} positions of {alines} A-lines × {} depth pixels)", opened.positions, planned.depth_um.len()), bytes, out_root)
+    crate::memory::check_space(&format!("the outputs of this capture ({} positions of {alines} A-lines × {} depth pixels)", opened.positions, planned.depth_um.len()), bytes, out_root)
 }
 
 /// Phase 3a: volume.h5 with every dataset the pipeline asks for.
@@ -493,13 +493,13 @@ fn finish_outputs(
     if let crate::io::capture::WavelengthSource::Calibration { path, .. } = &capture.wavelength_source {
         // The calibration in use, beside the images and in the report.
         let (cal, _) = crate::calibration::wavelength::WavelengthCalibration::load(std::path::Path::new(path))?;
-        let figure = crate::measure::plot::WavelengthMapFigure {
+        let figure = crate::plot::WavelengthMapFigure {
             cal: &cal,
             nominal: capture.dataset_wavelength_nm.as_deref(),
             nominal_name: "the capture's own wavelength dataset",
             pipeline_sha256: &opened.pipeline_sha256,
         };
-        crate::measure::plot::save_figure(&staging.path("wavelength-map.svg"), &figure).context("writing wavelength-map.svg")?;
+        crate::plot::save_figure(&staging.path("wavelength-map.svg"), &figure).context("writing wavelength-map.svg")?;
         outputs.push("wavelength-map.svg".into());
     }
     if config.output.report && config.output.volume {

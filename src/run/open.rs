@@ -1,60 +1,15 @@
-//! Phase 1 of a run, open and check: the pipeline file read and parsed
-//! (io reads the text, `pipeline::config` parses it), the pipeline's
-//! `[input]` settings turned into io's plain [`CaptureLayout`] (the
-//! wavelength polynomial, or the calibration file loaded by `calibration`),
-//! and the capture opened and checked against the pipeline.
+//! Phase 1 of a run, open and check: the capture opened as the pipeline's
+//! `[input]` describes it (`fringeflow_measure::open`), checked against the
+//! pipeline, and the resume question answered.
 
 use anyhow::{bail, Context, Result};
 use std::path::Path;
 
 use super::{hash_algorithm, output_name, up_to_date, RunContext};
-use crate::io::capture::{AxisName, Capture, CaptureLayout, GivenMap};
+use crate::io::capture::Capture;
 use crate::io::hash;
-use crate::io::toml_file::{self, ConfigError, FileKind};
-use crate::pipeline::config::{self, DopplerPairs, InputConfig, PipelineConfig};
-
-/// Reads the pipeline file at `path` and parses it with `section.key=value`
-/// overrides (`--set`); a capture, scene or log given instead is named.
-pub fn read_pipeline(path: &Path, overrides: &[String]) -> Result<PipelineConfig, ConfigError> {
-    let kind = toml_file::sniff(path);
-    if matches!(kind, FileKind::Hdf5 | FileKind::Scene | FileKind::Log) {
-        let hint = toml_file::kind_hint(kind).unwrap_or_default();
-        return Err(ConfigError { file: path.display().to_string(), line: None, message: format!("not a pipeline file: {hint}") });
-    }
-    let (_, text) = toml_file::read_text(path)?;
-    PipelineConfig::from_file_text(path, &text, overrides)
-}
-
-/// The capture layout the pipeline's `[input]` settings describe; loads
-/// the wavelength calibration file when one is named.
-pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
-    let given_map = match (&input.calibration, &input.wavelength_poly_nm) {
-        (Some(path), _) => {
-            let (cal, sha256) = crate::calibration::wavelength::WavelengthCalibration::load(Path::new(path))?;
-            Some(GivenMap::Calibration { wavelength_nm: cal.wavelength_nm, path: path.clone(), file_hash: format!("sha256:{sha256}") })
-        }
-        (None, Some(c)) => Some(GivenMap::Polynomial(c.clone())),
-        (None, None) => None,
-    };
-    let axis = |a: &config::AxisName| match a {
-        config::AxisName::Frame => AxisName::Frame,
-        config::AxisName::Aline => AxisName::Aline,
-        config::AxisName::Pixel => AxisName::Pixel,
-    };
-    Ok(CaptureLayout {
-        fringes: input.fringes.clone(),
-        wavelength: input.wavelength.clone(),
-        background: input.background.clone(),
-        axes: input.axes.as_ref().map(|a| a.iter().map(axis).collect()),
-        given_map,
-    })
-}
-
-/// Opens and checks the capture at `path` as the pipeline's `[input]`
-/// settings describe it.
-pub fn open_capture(path: &Path, input: &InputConfig) -> Result<Capture> {
-    Capture::open(path, &capture_layout(input)?)
-}
+use crate::pipeline::config::{DopplerPairs, PipelineConfig};
+pub use fringeflow_measure::open::{capture_layout, open_capture, read_pipeline};
 
 /// Phase 1: the opened, checked capture and what is known before planning.
 pub(super) struct Opened {

@@ -9,7 +9,7 @@ use ndarray::Array2;
 
 use super::open::Opened;
 use super::memory_estimate;
-use crate::io::memory::available_bytes as available_memory_bytes;
+use crate::memory::available_bytes as available_memory_bytes;
 use crate::contrast::doppler::DopplerScale;
 use crate::pipeline::config::{BackgroundMethod, DopplerPairs, PipelineConfig};
 use crate::pipeline::fused::FusedPlan;

@@ -1,0 +1,602 @@
+//! Reading captures: the HDF5 fringe dataset, the wavelength map and the
+//! background spectra, with every check a capture must pass before any
+//! processing starts (see docs/capture-format.md).
+//!
+//! Frames are read one at a time as hyperslabs; the whole dataset is never
+//! loaded. The file is opened read-only. Not for: writing (see `volume`).
+
+use anyhow::{anyhow, bail, Context, Result};
+use hdf5::types::{FloatSize, IntSize, TypeDescriptor};
+use hdf5::{Dataset, Hyperslab, SliceOrIndex};
+use ndarray::{Array2, ArrayD, Axis, Ix2};
+use serde::Serialize;
+use std::path::{Path, PathBuf};
+
+pub use super::capture_layout::{AxisName, CaptureLayout, GivenMap};
+
+/// Sample types a fringe dataset may have (also what the simulator writes).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SampleType {
+    U8,
+    U16,
+    I16,
+    U32,
+    F32,
+    F64,
+}
+
+impl SampleType {
+    fn from_descriptor(d: &TypeDescriptor) -> Option<Self> {
+        Some(match d {
+            TypeDescriptor::Unsigned(IntSize::U1) => SampleType::U8,
+            TypeDescriptor::Unsigned(IntSize::U2) => SampleType::U16,
+            TypeDescriptor::Integer(IntSize::U2) => SampleType::I16,
+            TypeDescriptor::Unsigned(IntSize::U4) => SampleType::U32,
+            TypeDescriptor::Float(FloatSize::U4) => SampleType::F32,
+            TypeDescriptor::Float(FloatSize::U8) => SampleType::F64,
+            _ => return None,
+        })
+    }
+
+    /// Largest value an integer type can hold (its saturation level).
+    pub fn integer_max(self) -> Option<f64> {
+        match self {
+            SampleType::U8 => Some(u8::MAX as f64),
+            SampleType::U16 => Some(u16::MAX as f64),
+            SampleType::I16 => Some(i16::MAX as f64),
+            SampleType::U32 => Some(u32::MAX as f64),
+            SampleType::F32 | SampleType::F64 => None,
+        }
+    }
+
+    pub fn is_float(self) -> bool {
+        matches!(self, SampleType::F32 | SampleType::F64)
+    }
+}
+
+/// Where the wavelength map came from.
+#[derive(Debug, Clone, Serialize)]
+#[serde(rename_all = "snake_case", tag = "kind")]
+pub enum WavelengthSource {
+    Dataset { path: String },
+    Polynomial { coefficients_nm: Vec<f64> },
+    Calibration { path: String, file_hash: String },
+}
+
+/// One frame of spectra (A-lines × pixels, standard layout) in the type it
+/// is stored in.
+#[derive(Debug, Clone)]
+pub enum RawFrame {
+    U8(Array2<u8>),
+    U16(Array2<u16>),
+    I16(Array2<i16>),
+    U32(Array2<u32>),
+    F32(Array2<f32>),
+    F64(Array2<f64>),
+}
+
+impl RawFrame {
+    /// The frame as f64 (for the reference path).
+    pub fn to_f64(&self) -> Array2<f64> {
+        match self {
+            RawFrame::U8(a) => a.mapv(|v| v as f64),
+            RawFrame::U16(a) => a.mapv(|v| v as f64),
+            RawFrame::I16(a) => a.mapv(|v| v as f64),
+            RawFrame::U32(a) => a.mapv(|v| v as f64),
+            RawFrame::F32(a) => a.mapv(|v| v as f64),
+            RawFrame::F64(a) => a.clone(),
+        }
+    }
+}
+
+/// An opened, validated capture.
+pub struct Capture {
+    pub path: PathBuf,
+    file: hdf5::File,
+    fringes: Dataset,
+    /// Dataset path of the fringes.
+    pub fringes_path: String,
+    /// Stored shape of the fringe dataset.
+    pub shape: Vec<usize>,
+    /// Axis order of the stored dataset.
+    pub axes: Vec<AxisName>,
+    pub sample_type: SampleType,
+    pub frames: usize,
+    pub alines: usize,
+    pub pixels: usize,
+    /// Per-pixel wavelength, nm.
+    pub wavelength_nm: Vec<f64>,
+    pub wavelength_source: WavelengthSource,
+    /// The capture's own wavelength dataset when the map in use comes from
+    /// elsewhere (a calibration file or the pipeline's polynomial), for
+    /// plots of the change.
+    pub dataset_wavelength_nm: Option<Vec<f64>>,
+    /// Mean of the background spectra, when the capture has them.
+    pub background: Option<Vec<f64>>,
+    /// Detector full scale (attribute `full_scale` of the fringes, else the
+    /// integer type's maximum); samples at or above it count as saturated.
+    pub full_scale: Option<f64>,
+    /// Scan timing and geometry from attributes of the fringe dataset, when
+    /// the capture records them.
+    pub scan: ScanAttributes,
+}
+
+/// Optional attributes of the fringe dataset that describe the scan.
+#[derive(Debug, Clone, Default, PartialEq, serde::Serialize)]
+pub struct ScanAttributes {
+    /// `aline_period_us`: time from one A-line to the next.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub aline_period_us: Option<f64>,
+    /// `frame_period_us`: time from one B-scan to the next.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub frame_period_us: Option<f64>,
+    /// `aline_spacing_um`: lateral step between A-lines.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub aline_spacing_um: Option<f64>,
+    /// `frame_spacing_um`: step between slow-axis positions.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub frame_spacing_um: Option<f64>,
+    /// `repeats_per_position`: B-scans recorded at each slow-axis position.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub repeats_per_position: Option<f64>,
+}
+
+impl ScanAttributes {
+    pub fn is_empty(&self) -> bool {
+        *self == ScanAttributes::default()
+    }
+
+    /// Slow-axis step between stored frames that each average `average`
+    /// input frames (µm), when the frames form a uniform axis: the repeats
+    /// at one position must be averaged together.
+    pub fn stored_frame_spacing_um(&self, average: usize) -> Option<f64> {
+        let spacing = self.frame_spacing_um?;
+        let repeats = self.repeats_per_position.unwrap_or(1.0).round().max(1.0) as usize;
+        average.is_multiple_of(repeats).then(|| spacing * (average / repeats) as f64)
+    }
+}
+
+/// A positive finite numeric attribute; absent → None; present but not a
+/// positive number → an error naming it.
+fn positive_attr(ds: &Dataset, name: &str) -> Result<Option<f64>> {
+    match ds.attr(name) {
+        Err(_) => Ok(None),
+        Ok(a) => {
+            let v = a.read_scalar::<f64>().with_context(|| format!("reading attribute {name}"))?;
+            if v.is_finite() && v > 0.0 {
+                Ok(Some(v))
+            } else {
+                bail!("attribute {name} of the fringes is {v}; it must be a positive number")
+            }
+        }
+    }
+}
+
+impl std::fmt::Debug for Capture {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Capture").field("path", &self.path).field("shape", &self.shape).finish()
+    }
+}
+
+/// Opens an HDF5 file read-only with a clear message for the usual failures.
+pub fn open_hdf5(path: &Path) -> Result<hdf5::File> {
+    open_hdf5_with(path, None)
+}
+
+/// The same with a raw-data chunk cache of (bytes, slots) for its datasets.
+fn open_hdf5_with(path: &Path, chunk_cache: Option<(usize, usize)>) -> Result<hdf5::File> {
+    let meta = std::fs::metadata(path).map_err(|e| match e.kind() {
+        std::io::ErrorKind::NotFound => anyhow!("no such file"),
+        _ => anyhow!("cannot read: {e}"),
+    })?;
+    if meta.is_dir() {
+        bail!("is a directory, not a capture file");
+    }
+    let opened = match chunk_cache {
+        None => hdf5::File::open(path),
+        Some((bytes, slots)) => hdf5::File::with_options().with_fapl(|p| p.chunk_cache(slots, bytes, 1.0)).open(path),
+    };
+    opened.map_err(|e| {
+        let detail = e.to_string();
+        if detail.contains("signature not found") {
+            match crate::toml_file::kind_hint(crate::toml_file::sniff(path)) {
+                Some(hint) => anyhow!("not an HDF5 file (no HDF5 signature): {hint}"),
+                None => anyhow!("not an HDF5 file (no HDF5 signature)"),
+            }
+        } else if detail.contains("truncated file") {
+            anyhow!("truncated HDF5 file ({} bytes on disk, fewer than its header records)", meta.len())
+        } else if detail.contains("superblock") || detail.contains("bad object header") || detail.contains("unable to load") || detail.contains("checksum") {
+            anyhow!("not a valid HDF5 file (damaged superblock or header): {}", concise_detail(&detail))
+        } else if detail.contains("Resource temporarily unavailable") || detail.contains("unable to lock file") {
+            anyhow!("HDF5 file is locked by another program (set HDF5_USE_FILE_LOCKING=FALSE to read it anyway)")
+        } else {
+            anyhow!("cannot open as HDF5: {}", concise_detail(&detail))
+        }
+    })
+}
+
+/// The first line of an HDF5 error message.
+fn concise_detail(detail: &str) -> String {
+    detail.lines().next().unwrap_or(detail).trim().to_string()
+}
+
+/// The raw-data chunk cache that reading one frame at a time needs: every
+/// chunk that holds part of a frame stays cached until the frames it spans
+/// are read (HDF5's default of 1 MiB holds less than one chunk of most
+/// captures stored in chunks of several frames, so each frame re-reads, and
+/// re-decompresses, whole chunks). None when the default suffices.
+fn frame_chunk_cache(ds: &Dataset, axes: &[AxisName]) -> Option<(usize, usize)> {
+    let chunk = ds.chunk()?;
+    let shape = ds.shape();
+    let element = ds.dtype().ok()?.size();
+    let frame_axis = axes.iter().position(|&a| a == AxisName::Frame)?;
+    if chunk.get(frame_axis).copied().unwrap_or(1) <= 1 {
+        return None;
+    }
+    let chunk_bytes: usize = chunk.iter().product::<usize>() * element;
+    let per_frame: usize = shape.iter().zip(&chunk).enumerate().filter(|(i, _)| *i != frame_axis).map(|(_, (n, c))| n.div_ceil(*c)).product();
+    let bytes = chunk_bytes.saturating_mul(per_frame).saturating_add(chunk_bytes);
+    if bytes <= 1 << 20 {
+        return None;
+    }
+    // At most 4 GiB; slots a prime well above the chunk count (HDF5's advice).
+    let bytes = bytes.min(4 << 30);
+    let slots = [10_007usize, 100_003, 1_000_003].into_iter().find(|&p| p >= 100 * per_frame.max(1)).unwrap_or(1_000_003);
+    Some((bytes, slots))
+}
+/// The capture's 2-D and 3-D datasets and the key that names the fringes,
+/// for a "dataset not found" error.
+fn dataset_hint(file: &hdf5::File) -> String {
+    let mut sets = Vec::new();
+    super::h5::collect_datasets(file, "", &mut sets, &mut Vec::new());
+    let multi: Vec<_> = sets.iter().filter(|(_, d)| matches!(d.ndim(), 2 | 3)).collect();
+    let candidates: Vec<String> = multi.iter().map(|(n, d)| format!("{n} {:?}", d.shape())).collect();
+    // The likeliest fringes: the largest of them (a background is a few lines).
+    let largest = multi.iter().max_by_key(|(_, d)| d.shape().iter().product::<usize>()).map(|(n, _)| n.clone());
+    match largest {
+        None => "the capture has no 2-D or 3-D dataset (fringes are (A-lines, pixels) or (frames, A-lines, pixels))".to_string(),
+        Some(name) => {
+            format!(
+                "the capture's 2-D/3-D datasets: {}; name the fringes with `fringes = \"{name}\"` in the pipeline's [input] section (or --set input.fringes={name})",
+                candidates.join(", ")
+            )
+        }
+    }
+}
+
+/// A suggestion of `input.axes` when the fringe dataset looks transposed:
+/// the spectra seem to run along another axis (the longest one, or the one
+/// as long as the wavelength map). For 3-D data the other two axes keep
+/// the order labs write them in: spectra first means a column-major
+/// (MATLAB, Fortran) array of (pixel, A-line, frame), the full reversal of
+/// (frame, A-line, pixel); spectra in the middle means one (pixel × A-line)
+/// image per frame. The alternative order is named too.
+fn transposed_hint(shape: &[usize], axes: &[AxisName], map_len: Option<usize>) -> String {
+    let pixel_axis = match map_len {
+        Some(n) => shape.iter().position(|&s| s == n),
+        None => shape.iter().enumerate().max_by_key(|(_, s)| **s).map(|(i, _)| i),
+    };
+    let Some(p) = pixel_axis.filter(|&p| axes.get(p) != Some(&AxisName::Pixel)) else { return String::new() };
+    let list = |order: &[&str]| order.iter().map(|a| format!("\"{a}\"")).collect::<Vec<_>>().join(", ");
+    let (likely, other): (Vec<&str>, Option<Vec<&str>>) = match (shape.len(), p) {
+        (3, 0) => (vec!["pixel", "aline", "frame"], Some(vec!["pixel", "frame", "aline"])),
+        (3, 1) => (vec!["frame", "pixel", "aline"], Some(vec!["aline", "pixel", "frame"])),
+        (3, _) => (vec!["frame", "aline", "pixel"], Some(vec!["aline", "frame", "pixel"])),
+        (_, 0) => (vec!["pixel", "aline"], None),
+        _ => (vec!["aline", "pixel"], None),
+    };
+    let alternative = other.map_or_else(String::new, |o| format!(" (or `axes = [{}]` if the other two axes are the other way round)", list(&o)));
+    format!("; the layout {shape:?} looks transposed (spectra along axis {p}): set `axes = [{}]` in the pipeline's [input] section{alternative}", list(&likely))
+}
+
+fn open_dataset(file: &hdf5::File, name: &str) -> Option<Dataset> {
+    if file.link_exists(name.trim_start_matches('/')) || file.link_exists(name) {
+        file.dataset(name).ok()
+    } else {
+        None
+    }
+}
+
+/// Reads a numeric dataset as f64 (any numeric type; HDF5 converts),
+/// once its declared size is known to fit in memory.
+fn read_f64(ds: &Dataset) -> Result<ArrayD<f64>> {
+    super::memory::check_fits(&format!("dataset '{}'", ds.name()), ds.size() as u64, 8)?;
+    Ok(ds.read_dyn::<f64>()?)
+}
+
+/// Wavelengths a spectrometer for OCT can plausibly record, nm: from the
+/// near ultraviolet to the mid infrared (a bound of our own, wide enough
+/// for every OCT band in use, 400–1700 nm being common practice).
+pub const PLAUSIBLE_WAVELENGTH_NM: [f64; 2] = [200.0, 20_000.0];
+
+/// What a map outside the plausible range probably is.
+pub fn unit_hint(lo: f64, hi: f64) -> String {
+    let fits = |scale: f64| lo * scale >= PLAUSIBLE_WAVELENGTH_NM[0] && hi * scale <= PLAUSIBLE_WAVELENGTH_NM[1];
+    for (scale, unit) in [(1e9, "metres"), (1e3, "micrometres"), (1e7, "centimetres"), (0.1, "ångström")] {
+        if fits(scale) {
+            return format!("it looks like {unit} (× {scale:e} gives {:.1}–{:.1} nm); the map must be in nm", lo * scale, hi * scale);
+        }
+    }
+    "no unit makes it a plausible optical wavelength".into()
+}
+
+/// Checks a wavelength map: length, at least two values, finite,
+/// strictly monotonic, and within [`PLAUSIBLE_WAVELENGTH_NM`].
+pub fn check_wavelength_map(map: &[f64], pixels: usize, source: &str) -> Result<()> {
+    if map.len() != pixels {
+        bail!("wavelength map {source} has {} values but the fringes have {pixels} pixels", map.len());
+    }
+    if map.len() < 2 {
+        bail!("wavelength map {source} has {} value(s); it needs one per pixel, at least 2", map.len());
+    }
+    if let Some(p) = map.iter().position(|v| !v.is_finite() || *v <= 0.0) {
+        bail!("wavelength map {source} has a non-positive or non-finite value at pixel {p}");
+    }
+    let (lo, hi) = map.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let [min_nm, max_nm] = PLAUSIBLE_WAVELENGTH_NM;
+    if lo < min_nm || hi > max_nm {
+        bail!("wavelength map {source} spans {lo:.6e}–{hi:.6e}, outside {min_nm}–{max_nm} nm: {}", unit_hint(lo, hi));
+    }
+    let increasing = map[1] > map[0];
+    if let Some(p) = map.windows(2).position(|w| if increasing { w[1] <= w[0] } else { w[1] >= w[0] }) {
+        bail!("wavelength map {source} is not monotonic (at pixel {})", p + 1);
+    }
+    Ok(())
+}
+
+impl Capture {
+    /// Opens and validates a capture laid out as `input` says.
+    pub fn open(path: &Path, input: &CaptureLayout) -> Result<Self> {
+        let file = open_hdf5(path)?;
+        let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)))?;
+        let shape = fringes.shape();
+        let axes = match &input.axes {
+            Some(a) => a.clone(),
+            None => match shape.len() {
+                3 => vec![AxisName::Frame, AxisName::Aline, AxisName::Pixel],
+                2 => vec![AxisName::Aline, AxisName::Pixel],
+                r => bail!("dataset '{}' has rank {r}, expected 2 (alines, pixels) or 3 (frames, alines, pixels)", input.fringes),
+            },
+        };
+        if axes.len() != shape.len() {
+            bail!(
+                "dataset '{}' has rank {} but the pipeline's input.axes names {} axes",
+                input.fringes,
+                shape.len(),
+                axes.len()
+            );
+        }
+        let dim = |a: AxisName| axes.iter().position(|&x| x == a).map(|i| shape[i]);
+        let frames = dim(AxisName::Frame).unwrap_or(1);
+        let alines = dim(AxisName::Aline).unwrap_or(0);
+        let pixels = dim(AxisName::Pixel).unwrap_or(0);
+        if frames == 0 || alines == 0 {
+            bail!("dataset '{}' is empty (shape {:?})", input.fringes, shape);
+        }
+        if pixels < 16 {
+            bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16{}", input.fringes, transposed_hint(&shape, &axes, None));
+        }
+        // One frame is read whole (as f64 on the reference path).
+        super::memory::check_fits(&format!("one frame of dataset '{}' ({alines} A-lines × {pixels} pixels)", input.fringes), alines as u64 * pixels as u64, 8)?;
+        // Captures stored in chunks of several frames: reopen with a chunk
+        // cache that holds a frame's chunks.
+        let (file, fringes) = match frame_chunk_cache(&fringes, &axes) {
+            Some(cache) => {
+                // Closed first: HDF5 would reuse the open file, with its cache.
+                drop((fringes, file));
+                let file = open_hdf5_with(path, Some(cache))?;
+                let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found", input.fringes))?;
+                (file, fringes)
+            }
+            None => (file, fringes),
+        };
+        let descriptor = fringes.dtype().and_then(|t| t.to_descriptor()).context("reading the fringe datatype")?;
+        let sample_type = SampleType::from_descriptor(&descriptor).ok_or_else(|| {
+            anyhow!(
+                "dataset '{}' holds {}; supported sample types: u8, u16, i16, u32, f32, f64",
+                input.fringes,
+                super::h5::type_in_words(&descriptor)
+            )
+        })?;
+
+        let (wavelength_nm, wavelength_source) = match &input.given_map {
+            Some(GivenMap::Calibration { wavelength_nm, path: cal_path, file_hash }) => {
+                if wavelength_nm.len() != pixels {
+                    bail!("calibration file {cal_path} has {} pixels but the fringes have {pixels} pixels", wavelength_nm.len());
+                }
+                (wavelength_nm.clone(), WavelengthSource::Calibration { path: cal_path.clone(), file_hash: file_hash.clone() })
+            }
+            Some(GivenMap::Polynomial(c)) => {
+                let map = (0..pixels)
+                    .map(|p| c.iter().rev().fold(0.0, |acc, &ci| acc * p as f64 + ci))
+                    .collect::<Vec<_>>();
+                (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
+            }
+            None => {
+                let ds = open_dataset(&file, &input.wavelength).ok_or_else(|| {
+                    anyhow!(
+                        "dataset '{}' not found (give the map in the capture or as input.wavelength_poly_nm)",
+                        input.wavelength
+                    )
+                })?;
+                let map = read_f64(&ds).with_context(|| format!("reading '{}'", input.wavelength))?;
+                if map.ndim() != 1 {
+                    bail!("wavelength map '{}' has rank {}, expected 1", input.wavelength, map.ndim());
+                }
+                (map.iter().copied().collect(), WavelengthSource::Dataset { path: input.wavelength.clone() })
+            }
+        };
+        let source_name = match &wavelength_source {
+            WavelengthSource::Dataset { path } => format!("'{path}'"),
+            WavelengthSource::Polynomial { .. } => "input.wavelength_poly_nm".to_string(),
+            WavelengthSource::Calibration { path, .. } => format!("from calibration {path}"),
+        };
+        if wavelength_nm.len() != pixels && shape.contains(&wavelength_nm.len()) {
+            bail!(
+                "wavelength map {source_name} has {} values but the fringes have {pixels} pixels{}",
+                wavelength_nm.len(),
+                transposed_hint(&shape, &axes, Some(wavelength_nm.len()))
+            );
+        }
+        check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
+        let dataset_wavelength_nm = match wavelength_source {
+            WavelengthSource::Dataset { .. } => None,
+            _ => open_dataset(&file, &input.wavelength).and_then(|ds| read_f64(&ds).ok()).filter(|m| m.ndim() == 1 && m.len() == pixels).map(|m| m.iter().copied().collect()),
+        };
+
+        let background = match open_dataset(&file, &input.background) {
+            None => None,
+            Some(ds) => {
+                let b = read_f64(&ds).with_context(|| format!("reading '{}'", input.background))?;
+                let rows: Array2<f64> = match b.ndim() {
+                    1 => b.into_dimensionality::<ndarray::Ix1>()?.insert_axis(Axis(0)),
+                    2 => b.into_dimensionality::<Ix2>()?,
+                    r => bail!("background '{}' has rank {r}, expected 1 or 2", input.background),
+                };
+                if rows.ncols() != pixels || rows.nrows() == 0 {
+                    bail!(
+                        "background '{}' has shape {:?}, expected ({pixels},) or (n, {pixels})",
+                        input.background,
+                        rows.shape()
+                    );
+                }
+                if rows.iter().any(|v| !v.is_finite()) {
+                    bail!("background '{}' contains NaN or infinite values", input.background);
+                }
+                // The mean over the recorded spectra, per pixel.
+                rows.mean_axis(Axis(0)).map(|m| m.to_vec())
+            }
+        };
+
+        let full_scale = match fringes.attr("full_scale") {
+            Ok(a) => {
+                let v = a.read_scalar::<f64>().context("reading attribute full_scale")?;
+                if !(v.is_finite() && v > 0.0) {
+                    bail!("attribute full_scale of '{}' is {v}; a detector's full scale must be a positive number of counts", input.fringes);
+                }
+                Some(v)
+            }
+            Err(_) => sample_type.integer_max(),
+        };
+
+        let scan = ScanAttributes {
+            aline_period_us: positive_attr(&fringes, "aline_period_us")?,
+            frame_period_us: positive_attr(&fringes, "frame_period_us")?,
+            aline_spacing_um: positive_attr(&fringes, "aline_spacing_um")?,
+            frame_spacing_um: positive_attr(&fringes, "frame_spacing_um")?,
+            repeats_per_position: positive_attr(&fringes, "repeats_per_position")?,
+        };
+
+        Ok(Capture {
+            scan,
+            path: path.to_path_buf(),
+            file,
+            fringes,
+            fringes_path: input.fringes.clone(),
+            shape,
+            axes,
+            sample_type,
+            frames,
+            alines,
+            pixels,
+            wavelength_nm,
+            wavelength_source,
+            dataset_wavelength_nm,
+            background,
+            full_scale,
+        })
+    }
+
+    /// Reads frame `index` as (A-lines × pixels) in the stored sample type,
+    /// with the number of saturated samples. Fails on NaN or infinite values.
+    pub fn read_raw_frame(&self, index: usize) -> Result<(RawFrame, u64)> {
+        let slab: Vec<SliceOrIndex> = self
+            .axes
+            .iter()
+            .zip(self.shape.iter())
+            .map(|(&a, &n)| match a {
+                AxisName::Frame => SliceOrIndex::Index(index),
+                _ => SliceOrIndex::SliceCount { start: 0, step: 1, count: n, block: 1 },
+            })
+            .collect();
+        let aline_first = {
+            let rest: Vec<AxisName> = self.axes.iter().copied().filter(|&a| a != AxisName::Frame).collect();
+            rest[0] == AxisName::Aline
+        };
+        let fs = self.full_scale;
+        macro_rules! read_as {
+            ($t:ty, $variant:ident, $kind:ident) => {{
+                let raw: Array2<$t> = self
+                    .fringes
+                    .read_slice(Hyperslab::from(slab))
+                    .with_context(|| format!("reading frame {index} of '{}'", self.fringes_path))?;
+                let raw = if aline_first { raw } else { raw.reversed_axes().as_standard_layout().into_owned() };
+                let v = raw.as_slice().expect("standard layout");
+                read_as!(@check $kind, $t, v);
+                let saturated = match fs {
+                    Some(fs) => read_as!(@saturated $kind, $t, v, fs),
+                    None => 0,
+                };
+                (RawFrame::$variant(raw), saturated)
+            }};
+            // Integers are always finite; floats are checked.
+            (@check int, $t:ty, $v:expr) => {};
+            (@check float, $t:ty, $v:expr) => {{
+                #[allow(clippy::unnecessary_cast)]
+                if let Some(pos) = $v.iter().position(|x| !(*x as f64).is_finite()) {
+                    bail!(
+                        "NaN or infinite value in '{}' frame {index} (A-line {}, pixel {})",
+                        self.fringes_path,
+                        pos / self.pixels,
+                        pos % self.pixels
+                    );
+                }
+            }};
+            // x ≥ full scale, compared in the stored type for integers
+            // (x ≥ fs ⇔ x ≥ ⌈fs⌉), which vectorises.
+            (@saturated int, $t:ty, $v:expr, $fs:expr) => {{
+                let t = $fs.ceil();
+                if t > <$t>::MAX as f64 {
+                    0
+                } else {
+                    let t = t.max(<$t>::MIN as f64) as $t;
+                    // u32 counts per 64 Ki samples: the loop vectorises 4×
+                    // wider than with u64.
+                    $v.chunks(1 << 16).map(|c| c.iter().fold(0u32, |n, &x| n + (x >= t) as u32) as u64).sum::<u64>()
+                }
+            }};
+            (@saturated float, $t:ty, $v:expr, $fs:expr) => {{
+                #[allow(clippy::unnecessary_cast)]
+                let n = $v.iter().filter(|&&x| x as f64 >= $fs).count() as u64;
+                n
+            }};
+        }
+        Ok(match self.sample_type {
+            SampleType::U8 => read_as!(u8, U8, int),
+            SampleType::U16 => read_as!(u16, U16, int),
+            SampleType::I16 => read_as!(i16, I16, int),
+            SampleType::U32 => read_as!(u32, U32, int),
+            SampleType::F32 => read_as!(f32, F32, float),
+            SampleType::F64 => read_as!(f64, F64, float),
+        })
+    }
+
+    /// Reads frame `index` as (A-lines × pixels) f64 into `out`, returning the
+    /// number of saturated samples. Fails on NaN or infinite values.
+    pub fn read_frame(&self, index: usize, out: &mut Array2<f64>) -> Result<u64> {
+        let (raw, saturated) = self.read_raw_frame(index)?;
+        out.assign(&raw.to_f64());
+        Ok(saturated)
+    }
+
+    /// Shape of one frame, (A-lines, pixels).
+    pub fn frame_shape(&self) -> (usize, usize) {
+        (self.alines, self.pixels)
+    }
+
+    /// The underlying HDF5 file (for inspection).
+    pub fn file(&self) -> &hdf5::File {
+        &self.file
+    }
+}

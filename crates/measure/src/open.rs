@@ -1,0 +1,69 @@
+//! Where io and core meet: the pipeline file read (io) and parsed (core),
+//! the pipeline's `[input]` settings turned into io's plain
+//! [`CaptureLayout`] (the wavelength polynomial, or the calibration file
+//! loaded by [`crate::calibration`]) and the capture opened with it, and
+//! io's raw frames lent to the fast path as core's [`Samples`].
+
+use anyhow::Result;
+use std::path::Path;
+
+use crate::io::capture::{AxisName, Capture, CaptureLayout, GivenMap, RawFrame};
+use crate::io::toml_file::{self, FileKind};
+use crate::pipeline::config::{self, InputConfig, PipelineConfig};
+use crate::pipeline::fused::Samples;
+use fringeflow_base::settings::ConfigError;
+
+/// Reads the pipeline file at `path` and parses it with `section.key=value`
+/// overrides (`--set`); a capture, scene or log given instead is named.
+pub fn read_pipeline(path: &Path, overrides: &[String]) -> Result<PipelineConfig, ConfigError> {
+    let kind = toml_file::sniff(path);
+    if matches!(kind, FileKind::Hdf5 | FileKind::Scene | FileKind::Log) {
+        let hint = toml_file::kind_hint(kind).unwrap_or_default();
+        return Err(ConfigError { file: path.display().to_string(), line: None, message: format!("not a pipeline file: {hint}") });
+    }
+    let (_, text) = toml_file::read_text(path)?;
+    PipelineConfig::from_file_text(path, &text, overrides)
+}
+
+/// The capture layout the pipeline's `[input]` settings describe; loads
+/// the wavelength calibration file when one is named.
+pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
+    let given_map = match (&input.calibration, &input.wavelength_poly_nm) {
+        (Some(path), _) => {
+            let (cal, sha256) = crate::calibration::wavelength::WavelengthCalibration::load(Path::new(path))?;
+            Some(GivenMap::Calibration { wavelength_nm: cal.wavelength_nm, path: path.clone(), file_hash: format!("sha256:{sha256}") })
+        }
+        (None, Some(c)) => Some(GivenMap::Polynomial(c.clone())),
+        (None, None) => None,
+    };
+    let axis = |a: &config::AxisName| match a {
+        config::AxisName::Frame => AxisName::Frame,
+        config::AxisName::Aline => AxisName::Aline,
+        config::AxisName::Pixel => AxisName::Pixel,
+    };
+    Ok(CaptureLayout {
+        fringes: input.fringes.clone(),
+        wavelength: input.wavelength.clone(),
+        background: input.background.clone(),
+        axes: input.axes.as_ref().map(|a| a.iter().map(axis).collect()),
+        given_map,
+    })
+}
+
+/// Opens and checks the capture at `path` as the pipeline's `[input]`
+/// settings describe it.
+pub fn open_capture(path: &Path, input: &InputConfig) -> Result<Capture> {
+    Capture::open(path, &capture_layout(input)?)
+}
+
+/// A raw frame as the fast path takes it: a view in its recorded type.
+pub fn samples(frame: &RawFrame) -> Samples<'_> {
+    match frame {
+        RawFrame::U8(a) => Samples::U8(a.view()),
+        RawFrame::U16(a) => Samples::U16(a.view()),
+        RawFrame::I16(a) => Samples::I16(a.view()),
+        RawFrame::U32(a) => Samples::U32(a.view()),
+        RawFrame::F32(a) => Samples::F32(a.view()),
+        RawFrame::F64(a) => Samples::F64(a.view()),
+    }
+}
