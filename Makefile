@@ -51,14 +51,14 @@ demo: build
 # The tests keep the measured kernel choices (pipeline/fused/tune.rs) in
 # target/, not in the user's cache folder.
 test: deps-test deps-python build
-	FRINGEFLOW_CACHE_DIR=$(CURDIR)/target/kernel-cache $(CARGO) test --locked -- --test-threads=2
+	FRINGEFLOW_CACHE_DIR=$(CURDIR)/target/kernel-cache $(CARGO) test --workspace --locked -- --test-threads=2
 	@$(MAKE) --no-print-directory python-test
 
 # The Python package (python/, PyO3 + maturin): built and installed with
 # pip when missing or older than its sources, then its pytest suite, run
 # against the release binary.
 PY_STAMP := target/python-installed.stamp
-PY_SOURCES := $(shell find src python/src python/fringeflow -type f 2>/dev/null) Cargo.toml python/Cargo.toml python/pyproject.toml
+PY_SOURCES := $(shell find src crates python/src python/fringeflow -type f 2>/dev/null) Cargo.toml Cargo.lock python/Cargo.toml python/pyproject.toml
 $(PY_STAMP): $(PY_SOURCES)
 	@echo "== building and installing the Python package (pip install ./python)"
 	$(PYTHON) -m pip install -q ./python

@@ -10,6 +10,7 @@ use anyhow::Result;
 use ndarray::Array2;
 use rustfft::num_complex::Complex32;
 use std::sync::atomic::Ordering;
+use std::sync::mpsc::Receiver;
 use std::time::Instant;
 
 use super::writer::{Writer, Written};
@@ -19,6 +20,7 @@ use crate::contrast::position::{PositionOutput, PositionProcessor, RepeatFrame};
 use crate::io::capture::{Capture, RawFrame};
 use crate::pipeline::config::PipelineConfig;
 use crate::pipeline::fused::{Extra, FusedPlan, FusedTimer};
+use crate::pipeline::plan::StageTimer;
 
 pub struct Computed {
     pub written: Written,
@@ -28,35 +30,49 @@ pub struct Computed {
     pub kernel: Option<(crate::pipeline::kernel::Variant, crate::pipeline::fused::tune::Choice)>,
 }
 
+/// The frame reconstruction of one capture: the plan (or the fused fast
+/// path made from it), the timers and which extra images the contrast
+/// stages need.
+struct Reconstructor<'p> {
+    planned: &'p Planned,
+    fused: Option<FusedPlan>,
+    timer: StageTimer,
+    fused_timer: FusedTimer,
+    depth: usize,
+    alines: usize,
+    needs_complex: bool,
+    needs_amplitude: bool,
+}
+
+/// Buffers of one repeat slot, reused from position to position.
+struct Buffers {
+    db: Array2<f32>,
+    complex: Option<Array2<Complex32>>,
+    sub_bands: Vec<Array2<f32>>,
+    amplitude: Array2<f32>,
+}
+
 pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer: Writer<'_>, ctx: &RunContext<'_>) -> Result<Computed> {
     let (frames, alines) = (capture.frames, capture.alines);
     let plan = &planned.plan;
-    let depth = plan.summary.depth_pixels;
     let average = config.volume.average;
     let positions = frames / average;
     let needs_complex = config.needs_complex();
-    let needs_amplitude = config.needs_amplitude() && !needs_complex;
-    let fused = (!ctx.reference_engine).then(|| FusedPlan::new(plan));
-    let timer = plan.new_timer();
-    let fused_timer = FusedTimer::default();
+    let rec = Reconstructor {
+        planned,
+        fused: (!ctx.reference_engine).then(|| FusedPlan::new(plan)),
+        timer: plan.new_timer(),
+        fused_timer: FusedTimer::default(),
+        depth: plan.summary.depth_pixels,
+        alines,
+        needs_complex,
+        needs_amplitude: config.needs_amplitude() && !needs_complex,
+    };
     let mut processor = PositionProcessor::new(config, planned.depth_um.clone(), alines, planned.doppler.as_ref().map(|(s, _)| *s));
 
     let (written, read_s) = std::thread::scope(|scope| -> Result<_> {
-        let (raw_tx, raw_rx) = std::sync::mpsc::sync_channel::<Result<(RawFrame, u64, f64)>>(2);
         let cancel = ctx.cancel;
-        scope.spawn(move || {
-            for f in 0..frames {
-                if cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
-                    break;
-                }
-                let t = Instant::now();
-                let r = capture.read_raw_frame(f).map(|(raw, sat)| (raw, sat, t.elapsed().as_secs_f64()));
-                let failed = r.is_err();
-                if raw_tx.send(r).is_err() || failed {
-                    break;
-                }
-            }
-        });
+        let raw_rx = spawn_reader(scope, capture, cancel);
         let (out_tx, out_rx) = std::sync::mpsc::sync_channel::<PositionOutput>(2);
         let (free_tx, free_rx) = std::sync::mpsc::channel::<Array2<f32>>();
         let stopped = move || cancel.is_some_and(|c| c.load(Ordering::Relaxed));
@@ -82,7 +98,7 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
         let mut sub_band_db = Array2::<f32>::zeros((0, 0));
         let mut result: Result<()> = Ok(());
         for f in 0..frames {
-            if ctx.cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
+            if stopped() {
                 result = Err(Interrupted.into());
                 break;
             }
@@ -100,52 +116,9 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
             read_s += secs;
             // Buffers come back from the position before (a repeat slot's
             // own), or from the writer (structure images), else are new.
-            let slot = repeats.len();
-            let spare = spares.get_mut(slot).map(std::mem::take);
-            let (mut db, mut complex, mut sub_band_buffers, mut amplitude) = match spare {
-                Some(RepeatFrame { db, complex, sub_bands, amplitude, .. }) => {
-                    let db = if db.dim() == (depth, alines) { db } else { free_rx.try_recv().unwrap_or_else(|_| Array2::<f32>::zeros((depth, alines))) };
-                    (db, complex, sub_bands, amplitude)
-                }
-                None => (
-                    free_rx.try_recv().unwrap_or_else(|_| Array2::<f32>::zeros((depth, alines))),
-                    needs_complex.then(|| Array2::<Complex32>::zeros((depth, alines))),
-                    Vec::new(),
-                    Array2::zeros((0, 0)),
-                ),
-            };
-            if needs_amplitude && amplitude.dim() != (depth, alines) {
-                amplitude = Array2::zeros((depth, alines));
-            }
-            match (&fused, complex.as_mut()) {
-                (Some(fp), Some(c)) => fp.process_raw_image_staged(samples(&raw), &mut db, Extra { complex: Some(c), amplitude: None }, &fused_timer),
-                (Some(fp), None) if needs_amplitude => fp.process_raw_image_staged(samples(&raw), &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, &fused_timer),
-                (Some(fp), None) => fp.process_raw_image(samples(&raw), &mut db, &fused_timer),
-                (None, c) => {
-                    let mut rows = Array2::<f32>::zeros((alines, depth));
-                    match c {
-                        Some(c) => {
-                            let mut crows = Array2::<Complex32>::zeros((alines, depth));
-                            plan.process_frame_complex(raw.to_f64().view(), &mut rows, &mut crows, &timer);
-                            *c = transpose(&crows);
-                        }
-                        None => plan.process_frame(raw.to_f64().view(), &mut rows, &timer),
-                    }
-                    db = transpose(&rows);
-                    if needs_amplitude {
-                        amplitude = db.mapv(|d| 10f32.powf(d / 20.0));
-                    }
-                }
-            }
-            // Split-spectrum: each sub-band's amplitude from the same raw frame.
-            sub_band_buffers.resize_with(planned.sub_bands.len(), || Array2::<f32>::zeros((depth, alines)));
-            if !planned.sub_bands.is_empty() && sub_band_db.dim() != (depth, alines) {
-                sub_band_db = Array2::zeros((depth, alines));
-            }
-            for (sp, band) in planned.sub_bands.iter().zip(sub_band_buffers.iter_mut()) {
-                sp.process_raw_image_with(samples(&raw), &mut sub_band_db, Extra { complex: None, amplitude: Some(band) }, &fused_timer);
-            }
-            let sub_bands = sub_band_buffers;
+            let spare = spares.get_mut(repeats.len()).map(std::mem::take);
+            let buffers = rec.buffers(spare, || free_rx.try_recv().ok());
+            let Buffers { db, complex, sub_bands, amplitude } = rec.reconstruct(&raw, buffers, &mut sub_band_db);
             drop(raw);
             // A frame cut short by a stop is never passed on.
             if stopped() {
@@ -181,16 +154,103 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
         Ok((written?, read_s))
     })?;
 
-    let mut stage_seconds = serde_json::Map::new();
-    if fused.is_some() {
-        for (part, s) in FusedTimer::PARTS.iter().zip(fused_timer.seconds()) {
-            stage_seconds.insert(format!("fused:{part}"), serde_json::json!(s));
+    Ok(Computed { written, read_seconds: read_s, stage_seconds: rec.stage_seconds(), kernel: rec.fused.as_ref().map(|f| (f.variant, f.choice.clone())) })
+}
+
+/// The reader thread: frames in order into a channel of two, stopping at a
+/// cancel, at the first read error (sent on) or when the receiver is gone.
+fn spawn_reader<'scope>(scope: &'scope std::thread::Scope<'scope, '_>, capture: &'scope Capture, cancel: Option<&'scope std::sync::atomic::AtomicBool>) -> Receiver<Result<(RawFrame, u64, f64)>> {
+    let (raw_tx, raw_rx) = std::sync::mpsc::sync_channel::<Result<(RawFrame, u64, f64)>>(2);
+    scope.spawn(move || {
+        for f in 0..capture.frames {
+            if cancel.is_some_and(|c| c.load(Ordering::Relaxed)) {
+                break;
+            }
+            let t = Instant::now();
+            let r = capture.read_raw_frame(f).map(|(raw, sat)| (raw, sat, t.elapsed().as_secs_f64()));
+            let failed = r.is_err();
+            if raw_tx.send(r).is_err() || failed {
+                break;
+            }
         }
-    } else {
-        for (stage, s) in plan.stage_names().iter().zip(timer.seconds()) {
-            stage_seconds.insert(stage.to_string(), serde_json::json!(s));
+    });
+    raw_rx
+}
+
+impl Reconstructor<'_> {
+    /// A repeat slot's buffers: its own from the position before (the dB
+    /// image replaced by one the writer returned, or a new one, when its
+    /// size is wrong), else new ones.
+    fn buffers(&self, spare: Option<RepeatFrame>, mut returned: impl FnMut() -> Option<Array2<f32>>) -> Buffers {
+        let (depth, alines) = (self.depth, self.alines);
+        let mut fresh_db = || returned().unwrap_or_else(|| Array2::<f32>::zeros((depth, alines)));
+        let mut b = match spare {
+            Some(RepeatFrame { db, complex, sub_bands, amplitude, .. }) => {
+                let db = if db.dim() == (depth, alines) { db } else { fresh_db() };
+                Buffers { db, complex, sub_bands, amplitude }
+            }
+            None => Buffers { db: fresh_db(), complex: self.needs_complex.then(|| Array2::<Complex32>::zeros((depth, alines))), sub_bands: Vec::new(), amplitude: Array2::zeros((0, 0)) },
+        };
+        if self.needs_amplitude && b.amplitude.dim() != (depth, alines) {
+            b.amplitude = Array2::zeros((depth, alines));
         }
+        b
     }
-    let kernel = fused.as_ref().map(|f| (f.variant, f.choice.clone()));
-    Ok(Computed { written, read_seconds: read_s, stage_seconds, kernel })
+
+    /// One raw frame into the dB image (and the complex profile or the
+    /// amplitude when contrast needs them), then each split-spectrum
+    /// sub-band's amplitude from the same raw frame.
+    fn reconstruct(&self, raw: &RawFrame, b: Buffers, sub_band_db: &mut Array2<f32>) -> Buffers {
+        let Buffers { mut db, mut complex, mut sub_bands, mut amplitude } = b;
+        let (depth, alines) = (self.depth, self.alines);
+        let plan = &self.planned.plan;
+        let (timer, fused_timer) = (&self.timer, &self.fused_timer);
+        let needs_amplitude = self.needs_amplitude;
+        match (&self.fused, complex.as_mut()) {
+            (Some(fp), Some(c)) => fp.process_raw_image_staged(samples(raw), &mut db, Extra { complex: Some(c), amplitude: None }, fused_timer),
+            (Some(fp), None) if needs_amplitude => fp.process_raw_image_staged(samples(raw), &mut db, Extra { complex: None, amplitude: Some(&mut amplitude) }, fused_timer),
+            (Some(fp), None) => fp.process_raw_image(samples(raw), &mut db, fused_timer),
+            (None, c) => {
+                let mut rows = Array2::<f32>::zeros((alines, depth));
+                match c {
+                    Some(c) => {
+                        let mut crows = Array2::<Complex32>::zeros((alines, depth));
+                        plan.process_frame_complex(raw.to_f64().view(), &mut rows, &mut crows, timer);
+                        *c = transpose(&crows);
+                    }
+                    None => plan.process_frame(raw.to_f64().view(), &mut rows, timer),
+                }
+                db = transpose(&rows);
+                if needs_amplitude {
+                    amplitude = db.mapv(|d| 10f32.powf(d / 20.0));
+                }
+            }
+        }
+        // Split-spectrum: each sub-band's amplitude from the same raw frame.
+        let planned_bands = &self.planned.sub_bands;
+        sub_bands.resize_with(planned_bands.len(), || Array2::<f32>::zeros((depth, alines)));
+        if !planned_bands.is_empty() && sub_band_db.dim() != (depth, alines) {
+            *sub_band_db = Array2::zeros((depth, alines));
+        }
+        for (sp, band) in planned_bands.iter().zip(sub_bands.iter_mut()) {
+            sp.process_raw_image_with(samples(raw), sub_band_db, Extra { complex: None, amplitude: Some(band) }, fused_timer);
+        }
+        Buffers { db, complex, sub_bands, amplitude }
+    }
+
+    /// Seconds per fused part, or per reference stage, for the log.
+    fn stage_seconds(&self) -> serde_json::Map<String, serde_json::Value> {
+        let mut stage_seconds = serde_json::Map::new();
+        if self.fused.is_some() {
+            for (part, s) in FusedTimer::PARTS.iter().zip(self.fused_timer.seconds()) {
+                stage_seconds.insert(format!("fused:{part}"), serde_json::json!(s));
+            }
+        } else {
+            let plan = &self.planned.plan;
+            for (stage, s) in plan.stage_names().iter().zip(self.timer.seconds()) {
+                stage_seconds.insert(stage.to_string(), serde_json::json!(s));
+            }
+        }
+        stage_seconds
+    }
 }

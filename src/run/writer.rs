@@ -130,12 +130,21 @@ impl<'a> Writer<'a> {
     }
 
     /// Writes one position; returns its structure image for reuse.
-    pub fn write(&mut self, p: PositionOutput) -> Result<Array2<f32>> {
+    pub fn write(&mut self, mut p: PositionOutput) -> Result<Array2<f32>> {
         let t = std::time::Instant::now();
+        let floor = self.write_structure(&p)?;
+        self.write_contrast(&mut p, floor)?;
+        self.written.write_seconds += t.elapsed().as_secs_f64();
+        Ok(p.structure_db)
+    }
+
+    /// The structure image of a position: its PNGs, its frame of the volume,
+    /// its en face row, its record and warnings, the averaging record. Returns
+    /// the image's noise floor in dB.
+    fn write_structure(&mut self, p: &PositionOutput) -> Result<f64> {
         let cfg = self.config;
         let lc = &cfg.log_compression;
         let image = &p.structure_db;
-        let (depth, alines) = image.dim();
         let values = image.as_slice().expect("standard layout");
         let floor = noise_floor_db(values);
         let peak = peak_db(values) as f64;
@@ -146,6 +155,52 @@ impl<'a> Writer<'a> {
         // Inverted grey (for print): the same mapping run from white to black.
         let (from, to) = if lc.invert { (white, black) } else { (black, white) };
         let position = p.position;
+        self.write_bscan_pngs(position, image, (black, white), (from, to))?;
+        if let Some(v) = &self.volume {
+            v.write_frame(position, image)?;
+        }
+        if cfg.volume.en_face {
+            self.written.en_face.extend(project(image, self.en_face_range, cfg.volume.en_face_projection));
+        }
+        if peak - floor < 1e-3 {
+            self.written.warnings.push(format!(
+                "frame {}: the B-scan is flat ({floor:.1} dB everywhere): the capture holds no fringes there (constant or all-zero samples: detector off or light blocked?)",
+                p.input_frames[1]
+            ));
+        }
+        if p.saturated > 0 {
+            self.written.warnings.push(format!(
+                "frame {}: {} samples at or above full scale ({}): fringes clipped",
+                p.input_frames[1],
+                p.saturated,
+                self.full_scale.unwrap_or(f64::NAN)
+            ));
+        }
+        if let Some(e) = &self.report {
+            e.push(position, image, round6(floor));
+        }
+        self.written.records.push(FrameRecord {
+            index: position,
+            input_frames: p.input_frames,
+            noise_floor_db: round6(floor),
+            peak_db: round6(peak),
+            saturated_samples: p.saturated,
+            black_db: round6(black),
+            white_db: round6(white),
+        });
+        if let (Some(single), None) = (&p.first_single_db, &self.written.averaging) {
+            self.written.averaging = Some(measure_averaging(single, image, self.average));
+        }
+        Ok(floor)
+    }
+
+    /// The B-scan PNG (grey linear in dB, 8 or 16 bits) and the one at its
+    /// physical aspect with scale and colour bars, as `[output]` asks.
+    fn write_bscan_pngs(&mut self, position: usize, image: &Array2<f32>, (black, white): (f64, f64), (from, to): (f64, f64)) -> Result<()> {
+        let cfg = self.config;
+        let lc = &cfg.log_compression;
+        let (depth, alines) = image.dim();
+        let values = image.as_slice().expect("standard layout");
         if cfg.output.png {
             let name = bscan_png_name(position, self.positions);
             let path = self.staging.path(&name);
@@ -186,55 +241,28 @@ impl<'a> Writer<'a> {
             png::write_rgb8(&self.staging.path(&name), s.image.width, s.image.height, &s.image.bytes, &info)?;
             self.written.outputs.push(name);
         }
-        if let Some(v) = &self.volume {
-            v.write_frame(position, image)?;
-        }
-        if cfg.volume.en_face {
-            self.written.en_face.extend(project(image, self.en_face_range, cfg.volume.en_face_projection));
-        }
-        if peak - floor < 1e-3 {
-            self.written.warnings.push(format!(
-                "frame {}: the B-scan is flat ({floor:.1} dB everywhere): the capture holds no fringes there (constant or all-zero samples: detector off or light blocked?)",
-                p.input_frames[1]
-            ));
-        }
-        if p.saturated > 0 {
-            self.written.warnings.push(format!(
-                "frame {}: {} samples at or above full scale ({}): fringes clipped",
-                p.input_frames[1],
-                p.saturated,
-                self.full_scale.unwrap_or(f64::NAN)
-            ));
-        }
-        if let Some(e) = &self.report {
-            e.push(position, image, round6(floor));
-        }
-        self.written.records.push(FrameRecord {
-            index: position,
-            input_frames: p.input_frames,
-            noise_floor_db: round6(floor),
-            peak_db: round6(peak),
-            saturated_samples: p.saturated,
-            black_db: round6(black),
-            white_db: round6(white),
-        });
-        if let (Some(single), None) = (&p.first_single_db, &self.written.averaging) {
-            self.written.averaging = Some(measure_averaging(single, image, self.average));
-        }
+        Ok(())
+    }
 
-        // Contrast outputs.
+    /// A position's contrast outputs: complex profiles, registration shifts,
+    /// Doppler (dataset, PNG, bulk phases) and each angiography method (map,
+    /// PNG, en face row); `floor` is the structure image's noise floor.
+    fn write_contrast(&mut self, p: &mut PositionOutput, floor: f64) -> Result<()> {
+        let cfg = self.config;
+        let position = p.position;
+        let (depth, alines) = p.structure_db.dim();
         if let Some(ds) = &self.datasets.complex {
             for (index, c) in &p.complex {
                 write_stack_image::<Complex32>(ds, *index, c)?;
             }
         }
-        self.written.shifts.extend(p.shifts);
-        self.written.warnings.extend(p.warnings);
+        self.written.shifts.extend(std::mem::take(&mut p.shifts));
+        self.written.warnings.extend(std::mem::take(&mut p.warnings));
         if let Some(v) = &p.doppler {
             if let Some(ds) = &self.datasets.doppler {
                 write_stack_image(ds, position, v)?;
             }
-            self.written.doppler_bulk.push(p.doppler_bulk_phase);
+            self.written.doppler_bulk.push(std::mem::take(&mut p.doppler_bulk_phase));
             self.written.doppler_vote.bright += p.doppler_vote.bright;
             self.written.doppler_vote.flow += p.doppler_vote.flow;
             if cfg.output.png {
@@ -250,7 +278,7 @@ impl<'a> Writer<'a> {
         if !p.angiography.is_empty() {
             self.written.angiography_floor_db.push(round6(floor));
         }
-        for (k, (method, map, row)) in p.angiography.into_iter().enumerate() {
+        for (k, (method, map, row)) in std::mem::take(&mut p.angiography).into_iter().enumerate() {
             if let Some((_, ds)) = self.datasets.angiography.iter().find(|(m, _)| *m == method) {
                 write_stack_image(ds, position, &map)?;
             }
@@ -267,8 +295,7 @@ impl<'a> Writer<'a> {
                 self.written.outputs.push(name);
             }
         }
-        self.written.write_seconds += t.elapsed().as_secs_f64();
-        Ok(p.structure_db)
+        Ok(())
     }
 
     /// The base chunks with a description and the B-scan pixel size.

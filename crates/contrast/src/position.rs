@@ -130,6 +130,63 @@ impl<'a> PositionProcessor<'a> {
         };
 
         // Registration: shifts per repeat, then applied.
+        let (shifts, applied) = self.register(frames, &mut warnings);
+        let shifted: Vec<bool> = applied.iter().map(|s| s.axial_px != 0.0 || s.lateral_px != 0.0).collect();
+        let margin = applied.iter().map(|&s| wrapped_margin(s)).fold((0, 0), |m, w| (m.0.max(w.0), m.1.max(w.1)));
+
+        // Structure: mean linear amplitude over the repeats, in dB: from
+        // the complex profiles when there are any (after registration),
+        // else from the dB images with the sums of the intensity-only path.
+        // The averaging record is measured on the first position only.
+        let first_single_db = (n > 1 && position == 0).then(|| frames[0].db.clone());
+        // Amplitudes: from the complex profiles (after registration), or as
+        // the pipeline wrote them (amplitude-only stages).
+        if frames[0].complex.is_some() {
+            for f in frames.iter_mut() {
+                let c = f.complex.as_ref().expect("complex");
+                modulus_into(c, &mut f.amplitude);
+            }
+        }
+        let has_amplitude = frames.iter().all(|f| f.amplitude.dim() == f.db.dim());
+        if cfg.needs_amplitude() && !has_amplitude {
+            anyhow::bail!("internal: angiography needs each B-scan's amplitude");
+        }
+        let structure_db = self.structure(frames, shifted[0]);
+        let floor_db = noise_floor_db(structure_db.as_slice().expect("standard layout"));
+        let floor_power = 10f64.powf(floor_db / 10.0);
+
+        let doppler = self.doppler(frames, structure_db.dim(), floor_power);
+
+        let angio = self.angiography(frames, structure_db.view(), floor_db, floor_power, margin);
+
+        let saturated = frames.iter().map(|f| f.saturated).sum();
+        let input_frames = [frames[0].index, frames[n - 1].index];
+        let (doppler, doppler_bulk_phase, doppler_vote) = match doppler {
+            Some((v, b, vote)) => (Some(v), b, vote),
+            None => (None, Vec::new(), Default::default()),
+        };
+        Ok(PositionOutput {
+            position,
+            input_frames,
+            structure_db,
+            first_single_db,
+            saturated,
+            complex: complex_out,
+            shifts: if self.registrar.is_some() { shifts } else { Vec::new() },
+            doppler,
+            doppler_bulk_phase,
+            doppler_vote,
+            angiography: angio,
+            warnings,
+        })
+    }
+
+    /// Registration of the repeats to the first (and of the position to
+    /// the previous one): the shift records and the shifts applied, which
+    /// are also applied to the frames' complex profiles and sub-bands.
+    fn register(&mut self, frames: &mut [RepeatFrame], warnings: &mut Vec<String>) -> (Vec<FrameShift>, Vec<Shift>) {
+        let cfg = self.config;
+        let n = frames.len();
         let mut shifts: Vec<FrameShift> = frames
             .iter()
             .map(|f| FrameShift {
@@ -199,27 +256,17 @@ impl<'a> PositionProcessor<'a> {
             }
             self.previous = Some(reference);
         }
-        let shifted: Vec<bool> = applied.iter().map(|s| s.axial_px != 0.0 || s.lateral_px != 0.0).collect();
-        let margin = applied.iter().map(|&s| wrapped_margin(s)).fold((0, 0), |m, w| (m.0.max(w.0), m.1.max(w.1)));
+        (shifts, applied)
+    }
 
-        // Structure: mean linear amplitude over the repeats, in dB: from
-        // the complex profiles when there are any (after registration),
-        // else from the dB images with the sums of the intensity-only path.
-        // The averaging record is measured on the first position only.
-        let first_single_db = (n > 1 && position == 0).then(|| frames[0].db.clone());
-        // Amplitudes: from the complex profiles (after registration), or as
-        // the pipeline wrote them (amplitude-only stages).
-        if frames[0].complex.is_some() {
-            for f in frames.iter_mut() {
-                let c = f.complex.as_ref().expect("complex");
-                modulus_into(c, &mut f.amplitude);
-            }
-        }
+    /// The structure image in dB: the single frame handed over whole, else
+    /// 20·log10 of the mean amplitude over the repeats (from the complex
+    /// profiles when there are any), else the mean of the dB images' linear
+    /// amplitudes (the intensity-only path).
+    fn structure(&self, frames: &mut [RepeatFrame], first_shifted: bool) -> Array2<f32> {
+        let n = frames.len();
         let has_amplitude = frames.iter().all(|f| f.amplitude.dim() == f.db.dim());
-        if cfg.needs_amplitude() && !has_amplitude {
-            anyhow::bail!("internal: angiography needs each B-scan's amplitude");
-        }
-        let structure_db = if n == 1 && !shifted[0] {
+        if n == 1 && !first_shifted {
             // Handed over whole; the caller refills the slot from the writer's returns.
             std::mem::take(&mut frames[0].db)
         } else if has_amplitude {
@@ -251,13 +298,16 @@ impl<'a> PositionProcessor<'a> {
                 ndarray::Zip::from(&mut sum).and(&f.db).par_for_each(|s, &d| *s += amplitude_from_db(d as f64));
             }
             sum.mapv(|s| to_db(s / n as f64) as f32)
-        };
-        let floor_db = noise_floor_db(structure_db.as_slice().expect("standard layout"));
-        let floor_power = 10f64.powf(floor_db / 10.0);
+        }
+    }
 
-        let doppler = match (cfg.doppler.enabled, &self.doppler_scale) {
+    /// Doppler velocity (Kasai sums between A-lines or repeats), the bulk
+    /// phases removed and the vote of the bulk-phase estimate; `None` when
+    /// Doppler is off.
+    fn doppler(&self, frames: &[RepeatFrame], (depth, alines): (usize, usize), floor_power: f64) -> Option<(Array2<f32>, Vec<f64>, super::phase::BulkVote)> {
+        let cfg = self.config;
+        match (cfg.doppler.enabled, &self.doppler_scale) {
             (true, Some(scale)) => {
-                let (depth, alines) = structure_db.dim();
                 let mut sums = KasaiSums::new(&cfg.doppler, depth, alines, floor_power);
                 match cfg.doppler.between {
                     DopplerPairs::Alines => frames.iter().for_each(|f| sums.add_frame(f.complex.as_ref().expect("complex").view())),
@@ -271,14 +321,20 @@ impl<'a> PositionProcessor<'a> {
                 Some((sums.velocity(&cfg.doppler, scale, threshold, alines), sums.bulk_phases.iter().map(|&p| round6(p)).collect(), sums.vote))
             }
             _ => None,
-        };
+        }
 
+    }
+
+    /// Every angiography method's map (masked below the threshold and in
+    /// the wrapped margins of registration) and its en face row.
+    fn angiography(&self, frames: &[RepeatFrame], structure_db: ndarray::ArrayView2<f32>, floor_db: f64, floor_power: f64, margin: (usize, usize)) -> Vec<(AngiographyMethod, Array2<f32>, Vec<f32>)> {
+        let cfg = self.config;
         let mut angio = Vec::new();
         if cfg.angiography.enabled() {
             let a = &cfg.angiography;
             let views: Vec<_> = frames.iter().map(|f| f.amplitude.view()).collect();
             let threshold = floor_db + a.threshold_db;
-            let surface = angiography::surface(structure_db.view(), floor_db + a.surface_threshold_db);
+            let surface = angiography::surface(structure_db, floor_db + a.surface_threshold_db);
             let slabs = angiography::slabs(a, &self.depth_um, &surface);
             for &method in &a.methods {
                 let mut map = match method {
@@ -298,33 +354,15 @@ impl<'a> PositionProcessor<'a> {
                         mean / bands as f32
                     }
                 };
-                angiography::mask(&mut map, structure_db.view(), threshold, margin);
+                angiography::mask(&mut map, structure_db, threshold, margin);
                 let row = angiography::en_face(map.view(), &slabs, a.en_face_projection);
                 angio.push((method, map, row));
             }
         }
 
-        let saturated = frames.iter().map(|f| f.saturated).sum();
-        let input_frames = [frames[0].index, frames[n - 1].index];
-        let (doppler, doppler_bulk_phase, doppler_vote) = match doppler {
-            Some((v, b, vote)) => (Some(v), b, vote),
-            None => (None, Vec::new(), Default::default()),
-        };
-        Ok(PositionOutput {
-            position,
-            input_frames,
-            structure_db,
-            first_single_db,
-            saturated,
-            complex: complex_out,
-            shifts: if self.registrar.is_some() { shifts } else { Vec::new() },
-            doppler,
-            doppler_bulk_phase,
-            doppler_vote,
-            angiography: angio,
-            warnings,
-        })
+        angio
     }
+
 }
 
 fn round6(v: f64) -> f64 {

@@ -345,28 +345,145 @@ pub fn check_wavelength_map(map: &[f64], pixels: usize, source: &str) -> Result<
     Ok(())
 }
 
+/// The fringe dataset's axis order: as `input.axes` names it, else
+/// (frames, A-lines, pixels) for rank 3 and (A-lines, pixels) for rank 2.
+fn fringe_axes(input: &CaptureLayout, shape: &[usize]) -> Result<Vec<AxisName>> {
+    let axes = match &input.axes {
+        Some(a) => a.clone(),
+        None => match shape.len() {
+            3 => vec![AxisName::Frame, AxisName::Aline, AxisName::Pixel],
+            2 => vec![AxisName::Aline, AxisName::Pixel],
+            r => bail!("dataset '{}' has rank {r}, expected 2 (alines, pixels) or 3 (frames, alines, pixels)", input.fringes),
+        },
+    };
+    if axes.len() != shape.len() {
+        bail!(
+            "dataset '{}' has rank {} but the pipeline's input.axes names {} axes",
+            input.fringes,
+            shape.len(),
+            axes.len()
+        );
+    }
+    Ok(axes)
+}
+
+/// The wavelength map per pixel and where it came from (a calibration file,
+/// the pipeline's polynomial, or the capture's dataset), checked against the
+/// fringes; with the capture's own map when another one was used.
+fn wavelength_map(file: &hdf5::File, input: &CaptureLayout, pixels: usize, shape: &[usize], axes: &[AxisName]) -> Result<(Vec<f64>, WavelengthSource, Option<Vec<f64>>)> {
+    let (wavelength_nm, wavelength_source) = match &input.given_map {
+        Some(GivenMap::Calibration { wavelength_nm, path: cal_path, file_hash }) => {
+            if wavelength_nm.len() != pixels {
+                bail!("calibration file {cal_path} has {} pixels but the fringes have {pixels} pixels", wavelength_nm.len());
+            }
+            (wavelength_nm.clone(), WavelengthSource::Calibration { path: cal_path.clone(), file_hash: file_hash.clone() })
+        }
+        Some(GivenMap::Polynomial(c)) => {
+            let map = (0..pixels)
+                .map(|p| c.iter().rev().fold(0.0, |acc, &ci| acc * p as f64 + ci))
+                .collect::<Vec<_>>();
+            (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
+        }
+        None => {
+            let ds = open_dataset(file, &input.wavelength).ok_or_else(|| {
+                anyhow!(
+                    "dataset '{}' not found (give the map in the capture or as input.wavelength_poly_nm)",
+                    input.wavelength
+                )
+            })?;
+            let map = read_f64(&ds).with_context(|| format!("reading '{}'", input.wavelength))?;
+            if map.ndim() != 1 {
+                bail!("wavelength map '{}' has rank {}, expected 1", input.wavelength, map.ndim());
+            }
+            (map.iter().copied().collect(), WavelengthSource::Dataset { path: input.wavelength.clone() })
+        }
+    };
+    let source_name = match &wavelength_source {
+        WavelengthSource::Dataset { path } => format!("'{path}'"),
+        WavelengthSource::Polynomial { .. } => "input.wavelength_poly_nm".to_string(),
+        WavelengthSource::Calibration { path, .. } => format!("from calibration {path}"),
+    };
+    if wavelength_nm.len() != pixels && shape.contains(&wavelength_nm.len()) {
+        bail!(
+            "wavelength map {source_name} has {} values but the fringes have {pixels} pixels{}",
+            wavelength_nm.len(),
+            transposed_hint(shape, axes, Some(wavelength_nm.len()))
+        );
+    }
+    check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
+    let dataset_wavelength_nm = match wavelength_source {
+        WavelengthSource::Dataset { .. } => None,
+        _ => open_dataset(file, &input.wavelength).and_then(|ds| read_f64(&ds).ok()).filter(|m| m.ndim() == 1 && m.len() == pixels).map(|m| m.iter().copied().collect()),
+    };
+
+    Ok((wavelength_nm, wavelength_source, dataset_wavelength_nm))
+}
+
+/// The capture's background spectrum (the mean of the recorded ones, per
+/// pixel), when it has a background dataset.
+fn read_background(file: &hdf5::File, input: &CaptureLayout, pixels: usize) -> Result<Option<Vec<f64>>> {
+    let background = match open_dataset(file, &input.background) {
+        None => None,
+        Some(ds) => {
+            let b = read_f64(&ds).with_context(|| format!("reading '{}'", input.background))?;
+            let rows: Array2<f64> = match b.ndim() {
+                1 => b.into_dimensionality::<ndarray::Ix1>()?.insert_axis(Axis(0)),
+                2 => b.into_dimensionality::<Ix2>()?,
+                r => bail!("background '{}' has rank {r}, expected 1 or 2", input.background),
+            };
+            if rows.ncols() != pixels || rows.nrows() == 0 {
+                bail!(
+                    "background '{}' has shape {:?}, expected ({pixels},) or (n, {pixels})",
+                    input.background,
+                    rows.shape()
+                );
+            }
+            if rows.iter().any(|v| !v.is_finite()) {
+                bail!("background '{}' contains NaN or infinite values", input.background);
+            }
+            // The mean over the recorded spectra, per pixel.
+            rows.mean_axis(Axis(0)).map(|m| m.to_vec())
+        }
+    };
+
+    Ok(background)
+}
+
+/// The detector's full scale: the fringes' `full_scale` attribute, else the
+/// integer sample type's largest value (none for floats).
+fn full_scale(fringes: &hdf5::Dataset, input: &CaptureLayout, sample_type: SampleType) -> Result<Option<f64>> {
+    let full_scale = match fringes.attr("full_scale") {
+        Ok(a) => {
+            let v = a.read_scalar::<f64>().context("reading attribute full_scale")?;
+            if !(v.is_finite() && v > 0.0) {
+                bail!("attribute full_scale of '{}' is {v}; a detector's full scale must be a positive number of counts", input.fringes);
+            }
+            Some(v)
+        }
+        Err(_) => sample_type.integer_max(),
+    };
+
+    Ok(full_scale)
+}
+
+/// The scan attributes stored on the fringe dataset (each must be positive).
+fn scan_attributes(fringes: &hdf5::Dataset) -> Result<ScanAttributes> {
+    Ok(ScanAttributes {
+        aline_period_us: positive_attr(fringes, "aline_period_us")?,
+        frame_period_us: positive_attr(fringes, "frame_period_us")?,
+        aline_spacing_um: positive_attr(fringes, "aline_spacing_um")?,
+        frame_spacing_um: positive_attr(fringes, "frame_spacing_um")?,
+        repeats_per_position: positive_attr(fringes, "repeats_per_position")?,
+    })
+}
+
 impl Capture {
     /// Opens and validates a capture laid out as `input` says.
     pub fn open(path: &Path, input: &CaptureLayout) -> Result<Self> {
         let file = open_hdf5(path)?;
         let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)))?;
         let shape = fringes.shape();
-        let axes = match &input.axes {
-            Some(a) => a.clone(),
-            None => match shape.len() {
-                3 => vec![AxisName::Frame, AxisName::Aline, AxisName::Pixel],
-                2 => vec![AxisName::Aline, AxisName::Pixel],
-                r => bail!("dataset '{}' has rank {r}, expected 2 (alines, pixels) or 3 (frames, alines, pixels)", input.fringes),
-            },
-        };
-        if axes.len() != shape.len() {
-            bail!(
-                "dataset '{}' has rank {} but the pipeline's input.axes names {} axes",
-                input.fringes,
-                shape.len(),
-                axes.len()
-            );
-        }
+        let axes = fringe_axes(input, &shape)?;
         let dim = |a: AxisName| axes.iter().position(|&x| x == a).map(|i| shape[i]);
         let frames = dim(AxisName::Frame).unwrap_or(1);
         let alines = dim(AxisName::Aline).unwrap_or(0);
@@ -400,93 +517,11 @@ impl Capture {
             )
         })?;
 
-        let (wavelength_nm, wavelength_source) = match &input.given_map {
-            Some(GivenMap::Calibration { wavelength_nm, path: cal_path, file_hash }) => {
-                if wavelength_nm.len() != pixels {
-                    bail!("calibration file {cal_path} has {} pixels but the fringes have {pixels} pixels", wavelength_nm.len());
-                }
-                (wavelength_nm.clone(), WavelengthSource::Calibration { path: cal_path.clone(), file_hash: file_hash.clone() })
-            }
-            Some(GivenMap::Polynomial(c)) => {
-                let map = (0..pixels)
-                    .map(|p| c.iter().rev().fold(0.0, |acc, &ci| acc * p as f64 + ci))
-                    .collect::<Vec<_>>();
-                (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
-            }
-            None => {
-                let ds = open_dataset(&file, &input.wavelength).ok_or_else(|| {
-                    anyhow!(
-                        "dataset '{}' not found (give the map in the capture or as input.wavelength_poly_nm)",
-                        input.wavelength
-                    )
-                })?;
-                let map = read_f64(&ds).with_context(|| format!("reading '{}'", input.wavelength))?;
-                if map.ndim() != 1 {
-                    bail!("wavelength map '{}' has rank {}, expected 1", input.wavelength, map.ndim());
-                }
-                (map.iter().copied().collect(), WavelengthSource::Dataset { path: input.wavelength.clone() })
-            }
-        };
-        let source_name = match &wavelength_source {
-            WavelengthSource::Dataset { path } => format!("'{path}'"),
-            WavelengthSource::Polynomial { .. } => "input.wavelength_poly_nm".to_string(),
-            WavelengthSource::Calibration { path, .. } => format!("from calibration {path}"),
-        };
-        if wavelength_nm.len() != pixels && shape.contains(&wavelength_nm.len()) {
-            bail!(
-                "wavelength map {source_name} has {} values but the fringes have {pixels} pixels{}",
-                wavelength_nm.len(),
-                transposed_hint(&shape, &axes, Some(wavelength_nm.len()))
-            );
-        }
-        check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
-        let dataset_wavelength_nm = match wavelength_source {
-            WavelengthSource::Dataset { .. } => None,
-            _ => open_dataset(&file, &input.wavelength).and_then(|ds| read_f64(&ds).ok()).filter(|m| m.ndim() == 1 && m.len() == pixels).map(|m| m.iter().copied().collect()),
-        };
+        let (wavelength_nm, wavelength_source, dataset_wavelength_nm) = wavelength_map(&file, input, pixels, &shape, &axes)?;
 
-        let background = match open_dataset(&file, &input.background) {
-            None => None,
-            Some(ds) => {
-                let b = read_f64(&ds).with_context(|| format!("reading '{}'", input.background))?;
-                let rows: Array2<f64> = match b.ndim() {
-                    1 => b.into_dimensionality::<ndarray::Ix1>()?.insert_axis(Axis(0)),
-                    2 => b.into_dimensionality::<Ix2>()?,
-                    r => bail!("background '{}' has rank {r}, expected 1 or 2", input.background),
-                };
-                if rows.ncols() != pixels || rows.nrows() == 0 {
-                    bail!(
-                        "background '{}' has shape {:?}, expected ({pixels},) or (n, {pixels})",
-                        input.background,
-                        rows.shape()
-                    );
-                }
-                if rows.iter().any(|v| !v.is_finite()) {
-                    bail!("background '{}' contains NaN or infinite values", input.background);
-                }
-                // The mean over the recorded spectra, per pixel.
-                rows.mean_axis(Axis(0)).map(|m| m.to_vec())
-            }
-        };
-
-        let full_scale = match fringes.attr("full_scale") {
-            Ok(a) => {
-                let v = a.read_scalar::<f64>().context("reading attribute full_scale")?;
-                if !(v.is_finite() && v > 0.0) {
-                    bail!("attribute full_scale of '{}' is {v}; a detector's full scale must be a positive number of counts", input.fringes);
-                }
-                Some(v)
-            }
-            Err(_) => sample_type.integer_max(),
-        };
-
-        let scan = ScanAttributes {
-            aline_period_us: positive_attr(&fringes, "aline_period_us")?,
-            frame_period_us: positive_attr(&fringes, "frame_period_us")?,
-            aline_spacing_um: positive_attr(&fringes, "aline_spacing_um")?,
-            frame_spacing_um: positive_attr(&fringes, "frame_spacing_um")?,
-            repeats_per_position: positive_attr(&fringes, "repeats_per_position")?,
-        };
+        let background = read_background(&file, input, pixels)?;
+        let full_scale = full_scale(&fringes, input, sample_type)?;
+        let scan = scan_attributes(&fringes)?;
 
         Ok(Capture {
             scan,
