@@ -382,16 +382,31 @@ impl Figure for WavelengthMapFigure<'_> {
 
         let areas = root.split_evenly((if residual.is_empty() { 2 } else { 3 }, 1));
         let xmax = (n - 1) as f64;
+        self.draw_map(&areas[0], nominal, residual.is_empty())?;
+        self.draw_difference(&areas[1], nominal, xmax)?;
+        if !residual.is_empty() {
+            self.draw_residual(&areas[2], &residual, xmax)?;
+        }
+        Ok(())
+    }
+}
+
+impl WavelengthMapFigure<'_> {
+    /// The calibrated map over the nominal one, with a legend.
+    fn draw_map<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>, nominal: Option<&[f64]>, show_rms: bool) -> Result<()> {
+        let cal = self.cal;
+        let n = cal.pixels;
+        let xmax = (n - 1) as f64;
         let (lo, hi) = cal.wavelength_nm.iter().chain(nominal.unwrap_or(&[]).iter()).fold((f64::MAX, f64::MIN), |(a, b), &v| (a.min(v), b.max(v)));
         let pad = ((hi - lo) * 0.04).max(0.1);
-        let mut chart = ChartBuilder::on(&areas[0])
+        let mut chart = ChartBuilder::on(area)
             .caption(
                 format!(
                     "Wavelength map: {:.2}–{:.2} nm over {n} pixels (degree {}){}",
                     cal.wavelength_nm[0],
                     cal.wavelength_nm[n - 1],
                     cal.polynomial_nm.len() - 1,
-                    if residual.is_empty() { format!(", fit RMS {:.4} nm", cal.fit_residual_rms_nm) } else { String::new() }
+                    if show_rms { format!(", fit RMS {:.4} nm", cal.fit_residual_rms_nm) } else { String::new() }
                 ),
                 ("sans-serif", 20),
             )
@@ -424,13 +439,19 @@ impl Figure for WavelengthMapFigure<'_> {
             .draw()
             .map_err(err)?;
 
+        Ok(())
+    }
+
+    /// Calibrated minus nominal map, or a note that there is no nominal one.
+    fn draw_difference<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>, nominal: Option<&[f64]>, xmax: f64) -> Result<()> {
+        let cal = self.cal;
         match nominal {
             Some(nom) => {
                 let diff: Vec<(f64, f64)> = cal.wavelength_nm.iter().zip(nom.iter()).enumerate().map(|(p, (c, m))| (p as f64, c - m)).collect();
                 let (dlo, dhi) = diff.iter().fold((f64::MAX, f64::MIN), |(a, b), &(_, v)| (a.min(v), b.max(v)));
                 let dpad = ((dhi - dlo) * 0.08).max(1e-3);
                 let worst = diff.iter().fold(0.0f64, |m, &(_, v)| m.max(v.abs()));
-                let mut chart = ChartBuilder::on(&areas[1])
+                let mut chart = ChartBuilder::on(area)
                     .caption(format!("Calibrated minus nominal: up to {worst:.3} nm"), ("sans-serif", 20))
                     .margin(12)
                     .x_label_area_size(36)
@@ -442,19 +463,23 @@ impl Figure for WavelengthMapFigure<'_> {
                 chart.draw_series(std::iter::once(PathElement::new(vec![(0.0, 0.0), (xmax, 0.0)], BLACK.stroke_width(1)))).map_err(err)?;
             }
             None => {
-                areas[1]
+                area
                     .draw(&Text::new("no nominal map: the capture has no wavelength dataset and the pipeline gives none", (60, 150), ("sans-serif", 18).into_font()))
                     .map_err(err)?;
             }
         }
 
-        if residual.is_empty() {
-            return Ok(());
-        }
+        Ok(())
+    }
+
+    /// Measured minus fitted wavelength over the fitted pixels.
+    fn draw_residual<DB: DrawingBackend>(&self, area: &DrawingArea<DB, Shift>, residual: &[(f64, f64)], xmax: f64) -> Result<()> {
+        let cal = self.cal;
+        let [p0, p1] = cal.fit_pixels;
         let (rlo, rhi) = residual.iter().fold((f64::MAX, f64::MIN), |(a, b), &(_, v)| (a.min(v), b.max(v)));
         let rpad = ((rhi - rlo) * 0.08).max(1e-6);
         let (rlo, rhi) = if residual.is_empty() { (-1e-3, 1e-3) } else { (rlo - rpad, rhi + rpad) };
-        let mut chart = ChartBuilder::on(&areas[2])
+        let mut chart = ChartBuilder::on(area)
             .caption(
                 format!(
                     "Fit residual, measured minus fitted, pixels {p0}–{p1}: RMS {:.4} nm",
@@ -478,7 +503,6 @@ impl Figure for WavelengthMapFigure<'_> {
         chart.draw_series(residual.iter().map(|&p| Circle::new(p, 1, OKABE_ITO[0].filled()))).map_err(err)?;
         chart.draw_series(std::iter::once(PathElement::new(vec![(0.0, 0.0), (xmax, 0.0)], BLACK.stroke_width(1)))).map_err(err)?;
         Ok(())
-    
     }
 }
 

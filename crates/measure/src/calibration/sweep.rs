@@ -190,39 +190,10 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
     let whole = settings.len() * alines_n * depth_n <= PAGE_PIXEL_BUDGET;
     let page_part = if whole { (0, alines_n, 0, depth_n) } else { (crop.first_aline, crop.alines, crop.first_depth_pixel, crop.depth_pixels) };
 
+    let sets = Sets { frame: &frame_set, fine: &fine_set, lines: &lines, crop: &crop, page_part, fine_spacing, k_band: (k_min, k_max) };
     let results: Vec<(SweepRow, Array2<f32>, Array2<f32>)> = settings
         .par_iter()
-        .map(|&(a2, a3)| {
-            let amp = frame_set.amplitudes(a2, a3);
-            let bright = amp.select(Axis(0), &lines);
-            let fine = fine_set.amplitudes(a2, a3);
-            let mut widths = Vec::new();
-            let mut peaks = Vec::new();
-            for row in fine.rows() {
-                let profile = row.to_vec();
-                let (i, v) = analysis::peak(&profile, 0, profile.len());
-                peaks.push(20.0 * v.max(1e-12).log10());
-                if let Some(w) = analysis::fwhm(&profile, i) {
-                    widths.push(w * fine_spacing);
-                }
-            }
-            let fwhm_um = (widths.len() * 2 > fine.nrows()).then(|| crate::stages::background::median_in_place(&mut widths));
-            let peak_db = crate::stages::background::median_in_place(&mut peaks);
-            let eq = physics::dispersion_equivalent(a2, k_min, k_max);
-            let row = SweepRow {
-                a2_rad: a2,
-                a3_rad: a3,
-                entropy: entropy(&bright),
-                fwhm_um,
-                peak_db,
-                gdd_fs2: eq.gdd_fs2,
-                fused_silica_mm: eq.fused_silica_mm,
-                tile: [0; 4],
-            };
-            let (a0, na, d0, nd) = page_part;
-            let page_db = amp.slice(ndarray::s![a0..a0 + na, d0..d0 + nd]).t().mapv(|a| (20.0 * a.max(1e-12).log10()) as f32);
-            (row, tile_db(&amp, &crop), page_db)
-        })
+        .map(|&(a2, a3)| one_setting(&sets, a2, a3))
         .collect();
     let mut rows = Vec::with_capacity(results.len());
     let mut thumbs = Vec::with_capacity(results.len());
@@ -258,6 +229,54 @@ pub fn sweep(capture_path: &Path, config: &PipelineConfig, frame: usize, a2: &[f
         along_a2: a2.len() > 1,
         per_rad: physics::dispersion_equivalent(1.0, k_min, k_max),
     })
+}
+
+/// What every setting of a sweep is measured on: the whole frame's and the
+/// finely sampled bright lines' fringes, the bright lines, the tiles' crop,
+/// the part of the frame the page shows, the fine depth step and the band.
+struct Sets<'a> {
+    frame: &'a FringeSet,
+    fine: &'a FringeSet,
+    lines: &'a [usize],
+    crop: &'a TileCrop,
+    page_part: (usize, usize, usize, usize),
+    fine_spacing: f64,
+    k_band: (f64, f64),
+}
+
+/// One setting (a2, a3): its row (entropy of the bright lines, median FWHM
+/// and peak of the finely sampled ones, the equivalent GDD), its tile and
+/// its page image in dB.
+fn one_setting(sets: &Sets<'_>, a2: f64, a3: f64) -> (SweepRow, Array2<f32>, Array2<f32>) {
+    let amp = sets.frame.amplitudes(a2, a3);
+    let bright = amp.select(Axis(0), sets.lines);
+    let fine = sets.fine.amplitudes(a2, a3);
+    let mut widths = Vec::new();
+    let mut peaks = Vec::new();
+    for row in fine.rows() {
+        let profile = row.to_vec();
+        let (i, v) = analysis::peak(&profile, 0, profile.len());
+        peaks.push(20.0 * v.max(1e-12).log10());
+        if let Some(w) = analysis::fwhm(&profile, i) {
+            widths.push(w * sets.fine_spacing);
+        }
+    }
+    let fwhm_um = (widths.len() * 2 > fine.nrows()).then(|| crate::stages::background::median_in_place(&mut widths));
+    let peak_db = crate::stages::background::median_in_place(&mut peaks);
+    let eq = physics::dispersion_equivalent(a2, sets.k_band.0, sets.k_band.1);
+    let row = SweepRow {
+        a2_rad: a2,
+        a3_rad: a3,
+        entropy: entropy(&bright),
+        fwhm_um,
+        peak_db,
+        gdd_fs2: eq.gdd_fs2,
+        fused_silica_mm: eq.fused_silica_mm,
+        tile: [0; 4],
+    };
+    let (a0, na, d0, nd) = sets.page_part;
+    let page_db = amp.slice(ndarray::s![a0..a0 + na, d0..d0 + nd]).t().mapv(|a| (20.0 * a.max(1e-12).log10()) as f32);
+    (row, tile_db(&amp, sets.crop), page_db)
 }
 
 /// The crop every tile shows: centred on the brightest interface of the

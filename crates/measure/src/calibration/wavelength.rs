@@ -299,30 +299,7 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
         input.fringe_cycles = ph.cycles;
         input.fringe_peak_over_median_db = ph.snr_db;
     }
-    // Shallowest and deepest mirror by fringe frequency.
-    let order: Vec<usize> = {
-        let mut o: Vec<usize> = (0..phases.len()).collect();
-        o.sort_by(|&a, &b| phases[a].cycles.total_cmp(&phases[b].cycles));
-        o
-    };
-    let (first, last) = (order[0], order[order.len() - 1]);
-    let (difference, depth_difference, weight): (Vec<f64>, Option<f64>, Vec<f64>) = if phases.len() == 1 {
-        let z = hints.depths_um.as_ref().map(|d| d[0]);
-        (phases[0].phase.clone(), z, phases[0].amplitude.clone())
-    } else {
-        if phases[last].cycles - phases[first].cycles < 2.0 {
-            bail!("the mirrors are at nearly the same depth ({:.1} and {:.1} fringe cycles); place them further apart", phases[first].cycles, phases[last].cycles);
-        }
-        let d = phases[last].phase.iter().zip(phases[first].phase.iter()).map(|(a, b)| a - b).collect();
-        let w = phases[last].amplitude.iter().zip(phases[first].amplitude.iter()).map(|(a, b)| a.min(*b)).collect();
-        let dz = hints.depths_um.as_ref().map(|z| z[last] - z[first]);
-        if let Some(dz) = dz {
-            if dz <= 0.0 {
-                bail!("--depths-um disagree with the fringes: the mirror with the faster fringe must be the deeper one");
-            }
-        }
-        (d, dz, w)
-    };
+    let (first, difference, depth_difference, weight) = phase_difference(&phases, hints)?;
 
     // k(p) = k_c + α·u(p), u = ψ-difference relative to the middle pixel.
     // The scale is fixed on a polynomial fit of u over the pixels that carry
@@ -390,23 +367,7 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
 
     // Residual dispersion: phase of the shallowest mirror against the
     // calibrated k, as a cubic in the pipeline's x coordinate.
-    let residual_dispersion = if phases.len() >= 2 {
-        let k_fit: Vec<f64> = fitted.iter().map(|&l| physics::wavenumber_per_um(l)).collect();
-        let (k_min, k_max) = k_fit.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
-        let k_mid = 0.5 * (k_min + k_max);
-        // x from the measured k (linear in ψ2 − ψ1, so free of the map
-        // fit's error), normalised by the fitted band.
-        let xs: Vec<f64> = used.iter().map(|&p| (k[p] - k_mid) / (k_max - k_min)).collect();
-        // The fringe phase 2kz + φ increases with k; ψ increases with p.
-        let psi: Vec<f64> = used.iter().map(|&p| alpha.signum() * phases[first].phase[p]).collect();
-        // Phase noise goes as 1/amplitude: weight by amplitude².
-        let w: Vec<f64> = used.iter().map(|&p| phases[first].amplitude[p].powi(2)).collect();
-        let c = crate::analysis::polyfit_weighted(&xs, &psi, Some(&w), 3);
-        let DispersionEquivalent { gdd_fs2, fused_silica_mm } = physics::dispersion_equivalent(c[2], k_min, k_max);
-        Some(ResidualDispersion { a2_rad: c[2], a3_rad: c[3], gdd_fs2, fused_silica_mm })
-    } else {
-        None
-    };
+    let residual_dispersion = (phases.len() >= 2).then(|| residual_dispersion(&fitted, &used, &k, alpha, &phases[first]));
 
     Ok(WavelengthCalibration {
         format: FORMAT.into(),
@@ -421,6 +382,57 @@ pub fn calibrate(spectra: &[Vec<f64>], inputs: Vec<MirrorInput>, hints: &ScaleHi
         residual_dispersion,
         measured_nm,
     })
+}
+
+/// The phase difference between the deepest and the shallowest mirror (by
+/// fringe frequency; a single mirror's own phase), the depth between them
+/// when given, and the weight per pixel (the smaller amplitude). Also the
+/// index of the shallowest mirror.
+fn phase_difference(phases: &[FringePhase], hints: &ScaleHints) -> Result<(usize, Vec<f64>, Option<f64>, Vec<f64>)> {
+    // Shallowest and deepest mirror by fringe frequency.
+    let order: Vec<usize> = {
+        let mut o: Vec<usize> = (0..phases.len()).collect();
+        o.sort_by(|&a, &b| phases[a].cycles.total_cmp(&phases[b].cycles));
+        o
+    };
+    let (first, last) = (order[0], order[order.len() - 1]);
+    let (difference, depth_difference, weight): (Vec<f64>, Option<f64>, Vec<f64>) = if phases.len() == 1 {
+        let z = hints.depths_um.as_ref().map(|d| d[0]);
+        (phases[0].phase.clone(), z, phases[0].amplitude.clone())
+    } else {
+        if phases[last].cycles - phases[first].cycles < 2.0 {
+            bail!("the mirrors are at nearly the same depth ({:.1} and {:.1} fringe cycles); place them further apart", phases[first].cycles, phases[last].cycles);
+        }
+        let d = phases[last].phase.iter().zip(phases[first].phase.iter()).map(|(a, b)| a - b).collect();
+        let w = phases[last].amplitude.iter().zip(phases[first].amplitude.iter()).map(|(a, b)| a.min(*b)).collect();
+        let dz = hints.depths_um.as_ref().map(|z| z[last] - z[first]);
+        if let Some(dz) = dz {
+            if dz <= 0.0 {
+                bail!("--depths-um disagree with the fringes: the mirror with the faster fringe must be the deeper one");
+            }
+        }
+        (d, dz, w)
+    };
+    Ok((first, difference, depth_difference, weight))
+}
+
+/// The shallowest mirror's phase against the measured k (x from k, linear in
+/// the phase difference, normalised by the fitted band), fitted as a cubic
+/// weighted by amplitude²: the dispersion the calibration leaves.
+fn residual_dispersion(fitted: &[f64], used: &[usize], k: &[f64], alpha: f64, shallowest: &FringePhase) -> ResidualDispersion {
+    let k_fit: Vec<f64> = fitted.iter().map(|&l| physics::wavenumber_per_um(l)).collect();
+    let (k_min, k_max) = k_fit.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let k_mid = 0.5 * (k_min + k_max);
+    // x from the measured k (linear in ψ2 − ψ1, so free of the map
+    // fit's error), normalised by the fitted band.
+    let xs: Vec<f64> = used.iter().map(|&p| (k[p] - k_mid) / (k_max - k_min)).collect();
+    // The fringe phase 2kz + φ increases with k; ψ increases with p.
+    let psi: Vec<f64> = used.iter().map(|&p| alpha.signum() * shallowest.phase[p]).collect();
+    // Phase noise goes as 1/amplitude: weight by amplitude².
+    let w: Vec<f64> = used.iter().map(|&p| shallowest.amplitude[p].powi(2)).collect();
+    let c = crate::analysis::polyfit_weighted(&xs, &psi, Some(&w), 3);
+    let DispersionEquivalent { gdd_fs2, fused_silica_mm } = physics::dispersion_equivalent(c[2], k_min, k_max);
+    ResidualDispersion { a2_rad: c[2], a3_rad: c[3], gdd_fs2, fused_silica_mm }
 }
 
 /// The map the first capture would be processed with before calibration

@@ -20,52 +20,12 @@ const THUMB_H: u32 = 120;
 /// Writes `dir/index.html` from `summary` (the batch report as JSON).
 pub fn write_index(dir: &Path, summary: &Value) -> Result<()> {
     let captures = summary["captures"].as_array().cloned().unwrap_or_default();
-    let counts = &summary["counts"];
     let total_s: f64 = captures.iter().filter_map(|c| c["seconds"].as_f64()).sum();
     let mut rows = String::new();
     for c in &captures {
-        let status = c["status"].as_str().unwrap_or("?");
-        let input = c["input"].as_str().unwrap_or("?");
-        // The output folder, relative to the batch folder.
-        let folder = c["output"].as_str().and_then(|o| Path::new(o).file_name()).map(|n| n.to_string_lossy().into_owned());
-        let log: Option<Value> = folder.as_ref().and_then(|f| std::fs::read(dir.join(f).join("log.json")).ok()).and_then(|b| serde_json::from_slice(&b).ok());
-        let (frames, alines) = log.as_ref().map_or((String::new(), String::new()), |l| (l["input"]["frames"].to_string(), l["input"]["alines"].to_string()));
-        let thumb = folder.as_ref().and_then(|f| thumbnail(&dir.join(f), log.as_ref())).map(|b64| format!("<img class=\"thumb\" alt=\"first B-scan\" src=\"data:image/png;base64,{b64}\">")).unwrap_or_default();
-        let link = match &folder {
-            Some(f) if dir.join(f).join("report.html").exists() => format!("<a href=\"{0}/report.html\">{0}</a>", escape(f)),
-            Some(f) => escape(f),
-            None => String::new(),
-        };
-        let reason = match (c["reason"].as_str(), c["error_kind"].as_str()) {
-            (Some(r), Some(k)) => format!("{} <span class=\"note\">({})</span>", escape(r), escape(k)),
-            (Some(r), None) => escape(r),
-            _ => String::new(),
-        };
-        let seconds = c["seconds"].as_f64().unwrap_or(0.0);
-        let warnings = c["warnings"].as_u64().unwrap_or(0);
-        rows += &format!(
-            "<tr class=\"status-{s}\" data-status=\"{s}\"><td>{s}</td><td>{}</td><td data-v=\"{frames}\">{frames}</td><td data-v=\"{alines}\">{alines}</td><td data-v=\"{seconds}\">{seconds:.2}</td><td data-v=\"{warnings}\">{warnings}</td><td>{thumb}</td><td>{link}</td><td class=\"reason\">{reason}</td></tr>\n",
-            escape(input),
-            s = escape(status),
-        );
+        rows += &capture_row(dir, c);
     }
-    let figures = format!(
-        "{} captures in the input list{}; done {}, skipped {}, failed {}, not run {}, held by another run {}; {} warnings; {:.1} s of processing; pipeline sha256:{}{}",
-        summary["inputs_total"],
-        match (summary["shard"]["index"].as_u64(), summary["shard"]["count"].as_u64()) {
-            (Some(i), Some(n)) if n > 1 => format!(" (shard {i} of {n})"),
-            _ => String::new(),
-        },
-        counts["done"],
-        counts["skipped"],
-        counts["failed"],
-        counts["not_run"],
-        counts["held"],
-        counts["warnings"],
-        total_s,
-        summary["pipeline_sha256"].as_str().unwrap_or("?"),
-        summary["interrupted"].as_str().map(|s| format!("; stopped by {s}")).unwrap_or_default()
-    ) + &summary["folder_note"].as_str().map(|n| format!(". {n}")).unwrap_or_default();
+    let figures = figures(summary, total_s);
     let name = dir.file_name().map(|n| n.to_string_lossy().into_owned()).unwrap_or_else(|| "batch".into());
     let page = format!(
         r##"<!DOCTYPE html>
@@ -137,4 +97,54 @@ fn thumbnail(folder: &Path, log: Option<&Value>) -> Option<String> {
     let mut bytes = Vec::new();
     small.write_to(&mut std::io::Cursor::new(&mut bytes), image::ImageFormat::Png).ok()?;
     Some(base64::engine::general_purpose::STANDARD.encode(bytes))
+}
+
+/// One capture's table row: status, input, size, seconds, warnings, the
+/// first B-scan's thumbnail, the link to its report, the reason it failed.
+fn capture_row(dir: &Path, c: &Value) -> String {
+    let status = c["status"].as_str().unwrap_or("?");
+    let input = c["input"].as_str().unwrap_or("?");
+    // The output folder, relative to the batch folder.
+    let folder = c["output"].as_str().and_then(|o| Path::new(o).file_name()).map(|n| n.to_string_lossy().into_owned());
+    let log: Option<Value> = folder.as_ref().and_then(|f| std::fs::read(dir.join(f).join("log.json")).ok()).and_then(|b| serde_json::from_slice(&b).ok());
+    let (frames, alines) = log.as_ref().map_or((String::new(), String::new()), |l| (l["input"]["frames"].to_string(), l["input"]["alines"].to_string()));
+    let thumb = folder.as_ref().and_then(|f| thumbnail(&dir.join(f), log.as_ref())).map(|b64| format!("<img class=\"thumb\" alt=\"first B-scan\" src=\"data:image/png;base64,{b64}\">")).unwrap_or_default();
+    let link = match &folder {
+        Some(f) if dir.join(f).join("report.html").exists() => format!("<a href=\"{0}/report.html\">{0}</a>", escape(f)),
+        Some(f) => escape(f),
+        None => String::new(),
+    };
+    let reason = match (c["reason"].as_str(), c["error_kind"].as_str()) {
+        (Some(r), Some(k)) => format!("{} <span class=\"note\">({})</span>", escape(r), escape(k)),
+        (Some(r), None) => escape(r),
+        _ => String::new(),
+    };
+    let seconds = c["seconds"].as_f64().unwrap_or(0.0);
+    let warnings = c["warnings"].as_u64().unwrap_or(0);
+    format!(
+        "<tr class=\"status-{s}\" data-status=\"{s}\"><td>{s}</td><td>{}</td><td data-v=\"{frames}\">{frames}</td><td data-v=\"{alines}\">{alines}</td><td data-v=\"{seconds}\">{seconds:.2}</td><td data-v=\"{warnings}\">{warnings}</td><td>{thumb}</td><td>{link}</td><td class=\"reason\">{reason}</td></tr>\n",
+        escape(input),
+        s = escape(status),
+    )
+}
+
+/// The batch in one sentence: counts, warnings, processing time, pipeline.
+fn figures(summary: &Value, total_s: f64) -> String {
+    format!(
+        "{} captures in the input list{}; done {}, skipped {}, failed {}, not run {}, held by another run {}; {} warnings; {:.1} s of processing; pipeline sha256:{}{}",
+        summary["inputs_total"],
+        match (summary["shard"]["index"].as_u64(), summary["shard"]["count"].as_u64()) {
+            (Some(i), Some(n)) if n > 1 => format!(" (shard {i} of {n})"),
+            _ => String::new(),
+        },
+        summary["counts"]["done"],
+        summary["counts"]["skipped"],
+        summary["counts"]["failed"],
+        summary["counts"]["not_run"],
+        summary["counts"]["held"],
+        summary["counts"]["warnings"],
+        total_s,
+        summary["pipeline_sha256"].as_str().unwrap_or("?"),
+        summary["interrupted"].as_str().map(|s| format!("; stopped by {s}")).unwrap_or_default()
+    ) + &summary["folder_note"].as_str().map(|n| format!(". {n}")).unwrap_or_default()
 }

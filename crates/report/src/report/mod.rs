@@ -185,6 +185,41 @@ pub fn write_report_embedded(dir: &Path, out: &Path, embedded: Embedded) -> Resu
     write_report_from(dir, out, embedded.step, Some(embedded))
 }
 
+/// Per embedded frame, the black and white levels its PNG used (from the
+/// log's frame records; around `base` when a record is missing).
+fn frame_levels(records: &[Value], indices: &[usize], base: f64) -> Vec<[f64; 2]> {
+    indices
+        .iter()
+        .map(|&f| {
+            let r = records.iter().find(|r| r["index"].as_u64() == Some(f as u64));
+            match r {
+                Some(r) => [r["black_db"].as_f64().unwrap_or(base), r["white_db"].as_f64().unwrap_or(base + 40.0)],
+                None => [base + 3.0, base + 43.0],
+            }
+        })
+        .collect()
+}
+
+/// The en face slab: the logged one, else 60 µm around the depth of the
+/// brightest mean profile (skipping the 8 bins next to zero delay).
+fn en_face_slab(log: &Value, embedded: &[EmbeddedFrame], depth_um: &[f64], depth: usize) -> [f64; 2] {
+    match log["en_face"]["depth_um"].as_array() {
+        Some(a) if a.len() == 2 => [a[0].as_f64().unwrap_or(depth_um[0]), a[1].as_f64().unwrap_or(depth_um[depth - 1])],
+        _ => {
+            let mut mean = vec![0.0f64; depth];
+            for e in embedded {
+                for (m, s) in mean.iter_mut().zip(&e.row_sums) {
+                    *m += s;
+                }
+            }
+            let skip = 8.min(depth - 1);
+            let peak = (skip..depth).max_by(|&a, &b| mean[a].total_cmp(&mean[b])).unwrap_or(0);
+            let z = depth_um[peak];
+            [(z - 30.0).max(depth_um[0]), (z + 30.0).min(depth_um[depth - 1])]
+        }
+    }
+}
+
 fn write_report_from(dir: &Path, out: &Path, requested_step: usize, embedded: Option<Embedded>) -> Result<ReportSummary> {
     let log: Value = serde_json::from_slice(&std::fs::read(dir.join("log.json")).with_context(|| format!("reading {}", dir.join("log.json").display()))?)
         .with_context(|| format!("{}: not a fringeflow log", dir.join("log.json").display()))?;
@@ -215,33 +250,8 @@ fn write_report_from(dir: &Path, out: &Path, requested_step: usize, embedded: Op
     let max_q = embedded.iter().map(|e| e.max_q).max().unwrap_or(0);
     let depth_um = &axes.depth_um;
     // Per embedded frame, the levels its PNG used.
-    let levels: Vec<[f64; 2]> = indices
-        .iter()
-        .map(|&f| {
-            let r = records.iter().find(|r| r["index"].as_u64() == Some(f as u64));
-            match r {
-                Some(r) => [r["black_db"].as_f64().unwrap_or(base), r["white_db"].as_f64().unwrap_or(base + 40.0)],
-                None => [base + 3.0, base + 43.0],
-            }
-        })
-        .collect();
-    // The en face slab: the logged one, else 60 µm around the depth of
-    // the brightest mean profile.
-    let slab = match log["en_face"]["depth_um"].as_array() {
-        Some(a) if a.len() == 2 => [a[0].as_f64().unwrap_or(depth_um[0]), a[1].as_f64().unwrap_or(depth_um[depth - 1])],
-        _ => {
-            let mut mean = vec![0.0f64; depth];
-            for e in &embedded {
-                for (m, s) in mean.iter_mut().zip(&e.row_sums) {
-                    *m += s;
-                }
-            }
-            let skip = 8.min(depth - 1);
-            let peak = (skip..depth).max_by(|&a, &b| mean[a].total_cmp(&mean[b])).unwrap_or(0);
-            let z = depth_um[peak];
-            [(z - 30.0).max(depth_um[0]), (z + 30.0).min(depth_um[depth - 1])]
-        }
-    };
+    let levels = frame_levels(&records, &indices, base);
+    let slab = en_face_slab(&log, &embedded, depth_um, depth);
     let frames_embedded = embedded.len();
     let data: Vec<String> = embedded.into_iter().map(|e| e.data).collect();
     let data_json = json!({

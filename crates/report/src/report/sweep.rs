@@ -286,32 +286,43 @@ fn metric_plot(path: &Path, report: &SweepReport, along_a2: bool, per_rad: physi
         if widths.is_empty() {
             return Ok(());
         }
-        let wpad = ((wmax - wmin) * 0.08).max(0.05);
-        let mut chart = ChartBuilder::on(&lower)
-            .caption("FWHM of the brightest interface (median over the bright A-lines)", ("sans-serif", 18))
-            .margin(14)
-            .x_label_area_size(40)
-            .y_label_area_size(70)
-            .build_cartesian_2d(x0..x1, (wmin - wpad)..(wmax + wpad))
-            .map_err(err)?;
-        chart
-            .configure_mesh()
-            .x_label_formatter(&crate::plot::tick)
-            .y_label_formatter(&crate::plot::tick)
-            .x_desc(if along_a2 { "a2 (rad)" } else { "a3 (rad)" })
-            .y_desc("FWHM (µm, air)")
-            .draw()
-            .map_err(err)?;
-        for (gi, g) in groups.iter().enumerate() {
-            let colour = colour_of(gi);
-            let pts: Vec<(f64, f64)> = report.rows.iter().filter(|r| other(r) == *g).filter_map(|r| r.fwhm_um.map(|w| (key(r), w))).collect();
-            chart.draw_series(LineSeries::new(pts.iter().copied(), colour.stroke_width(2))).map_err(err)?;
-            chart.draw_series(pts.iter().map(|&p| Circle::new(p, 3, colour.filled()))).map_err(err)?;
-        }
-        if let Some(w) = best.fwhm_um {
-            chart.draw_series(std::iter::once(Circle::new((key(best), w), 9, RED.stroke_width(3)))).map_err(err)?;
-        }
-        Ok(())
+        fwhm_panel(&lower, report, along_a2, (x0, x1), &groups, (wmin, wmax))
     })
+}
+
+/// The lower panel of the metric plot: FWHM of the brightest interface
+/// against the swept coefficient, one line per value of the other, the best
+/// setting circled.
+fn fwhm_panel(lower: &DrawingArea<BitMapBackend<'_>, plotters::coord::Shift>, report: &SweepReport, along_a2: bool, (x0, x1): (f64, f64), groups: &[f64], (wmin, wmax): (f64, f64)) -> Result<()> {
+    let key = |r: &SweepRow| if along_a2 { r.a2_rad } else { r.a3_rad };
+    let other = |r: &SweepRow| if along_a2 { r.a3_rad } else { r.a2_rad };
+    let colour_of = |gi: usize| crate::render::colour::OKABE_ITO[gi % crate::render::colour::OKABE_ITO.len()];
+    let best = &report.rows[report.best];
+    let wpad = ((wmax - wmin) * 0.08).max(0.05);
+    let mut chart = ChartBuilder::on(lower)
+        .caption("FWHM of the brightest interface (median over the bright A-lines)", ("sans-serif", 18))
+        .margin(14)
+        .x_label_area_size(40)
+        .y_label_area_size(70)
+        .build_cartesian_2d(x0..x1, (wmin - wpad)..(wmax + wpad))
+        .map_err(err)?;
+    chart
+        .configure_mesh()
+        .x_label_formatter(&crate::plot::tick)
+        .y_label_formatter(&crate::plot::tick)
+        .x_desc(if along_a2 { "a2 (rad)" } else { "a3 (rad)" })
+        .y_desc("FWHM (µm, air)")
+        .draw()
+        .map_err(err)?;
+    for (gi, g) in groups.iter().enumerate() {
+        let colour = colour_of(gi);
+        let pts: Vec<(f64, f64)> = report.rows.iter().filter(|r| other(r) == *g).filter_map(|r| r.fwhm_um.map(|w| (key(r), w))).collect();
+        chart.draw_series(LineSeries::new(pts.iter().copied(), colour.stroke_width(2))).map_err(err)?;
+        chart.draw_series(pts.iter().map(|&p| Circle::new(p, 3, colour.filled()))).map_err(err)?;
+    }
+    if let Some(w) = best.fwhm_um {
+        chart.draw_series(std::iter::once(Circle::new((key(best), w), 9, RED.stroke_width(3)))).map_err(err)?;
+    }
+    Ok(())
 }
 

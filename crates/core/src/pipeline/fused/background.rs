@@ -326,6 +326,73 @@ fn narrow(mut lo: u16, mut hi: u16, counted: impl Iterator<Item = (u16, u16)>, t
     (lo, hi)
 }
 
+/// The first counting pass of [`median_u16_chunk_inline`] around last
+/// frame's answers: thresholds below the bracket, SPLITS−2 inside, its top;
+/// the columns whose median the bracket holds are narrowed and settled.
+#[inline(always)]
+#[allow(clippy::too_many_arguments)]
+fn hint_brackets(data: &[u16], rows: usize, pixels: usize, p0: usize, hint: &[u16], target: u16, (t, counts): (&mut [Vec<u16>; SPLITS], &mut [Vec<u16>; SPLITS]), (lo, hi): (&mut [u16], &mut [u16]), settled: &mut [bool]) {
+    let w = hint.len();
+    // Thresholds: below the bracket, SPLITS−2 inside, its top.
+    for q in 0..w {
+        let (a, b) = (hint[q].saturating_sub(HINT_HALF_WIDTH), hint[q].saturating_add(HINT_HALF_WIDTH));
+        t[0][q] = a.saturating_sub(1);
+        for (i, ti) in t.iter_mut().enumerate().take(SPLITS - 1).skip(1) {
+            ti[q] = (a as u32 + i as u32 * (b - a) as u32 / (SPLITS as u32 - 1)) as u16;
+        }
+        t[SPLITS - 1][q] = b;
+    }
+    count_at_most(data, rows, pixels, p0, t, counts);
+    for q in 0..w {
+        let a = hint[q].saturating_sub(HINT_HALF_WIDTH);
+        let below_ok = a == 0 || counts[0][q] < target;
+        if below_ok && counts[SPLITS - 1][q] >= target {
+            (lo[q], hi[q]) = narrow(a, t[SPLITS - 1][q], (1..SPLITS).map(|i| (t[i][q], counts[i][q])), target);
+            settled[q] = true;
+        }
+    }
+}
+
+/// Brackets [min, max] per column for the columns the hint did not settle.
+#[inline(always)]
+fn min_max_brackets(data: &[u16], rows: usize, pixels: usize, p0: usize, (lo, hi): (&mut [u16], &mut [u16]), settled: &[bool]) {
+    let w = lo.len();
+    // [min, max] for the columns the hint did not settle.
+    let (mut mn, mut mx) = (vec![u16::MAX; w], vec![0u16; w]);
+    for r in 0..rows {
+        let x = &data[r * pixels + p0..r * pixels + p0 + w];
+        for q in 0..w {
+            mn[q] = mn[q].min(x[q]);
+            mx[q] = mx[q].max(x[q]);
+        }
+    }
+    for q in 0..w {
+        if !settled[q] {
+            lo[q] = mn[q];
+            hi[q] = mx[q];
+        }
+    }
+}
+
+/// The upper middle of an even count where the final thresholds did not
+/// reach it: the smallest value above the lower middle (one more pass,
+/// rarely needed).
+#[inline(always)]
+fn fill_upper_middle(data: &[u16], rows: usize, pixels: usize, p0: usize, lo: &[u16], upper: &mut [Option<u16>]) {
+    let w = lo.len();
+    // Upper middle beyond the thresholds: the smallest value above the
+    // lower one (one more pass, rarely needed).
+    let mut above = vec![u16::MAX; w];
+    for r in 0..rows {
+        for ((a, &v), &l) in above.iter_mut().zip(&data[r * pixels + p0..r * pixels + p0 + w]).zip(lo.iter()) {
+            *a = (*a).min(if v > l { v } else { u16::MAX });
+        }
+    }
+    for q in 0..w {
+        upper[q] = upper[q].or(Some(above[q]));
+    }
+}
+
 #[inline(always)]
 fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, dst: &mut [f32], hint: &mut [u16], has_hint: bool) {
     let w = dst.len();
@@ -343,41 +410,10 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
     let (mut lo, mut hi) = (vec![0u16; w], vec![u16::MAX; w]);
     let mut settled = vec![false; w];
     if has_hint {
-        // Thresholds: below the bracket, SPLITS−2 inside, its top.
-        for q in 0..w {
-            let (a, b) = (hint[q].saturating_sub(HINT_HALF_WIDTH), hint[q].saturating_add(HINT_HALF_WIDTH));
-            t[0][q] = a.saturating_sub(1);
-            for (i, ti) in t.iter_mut().enumerate().take(SPLITS - 1).skip(1) {
-                ti[q] = (a as u32 + i as u32 * (b - a) as u32 / (SPLITS as u32 - 1)) as u16;
-            }
-            t[SPLITS - 1][q] = b;
-        }
-        count_at_most(data, rows, pixels, p0, &t, &mut counts);
-        for q in 0..w {
-            let a = hint[q].saturating_sub(HINT_HALF_WIDTH);
-            let below_ok = a == 0 || counts[0][q] < target;
-            if below_ok && counts[SPLITS - 1][q] >= target {
-                (lo[q], hi[q]) = narrow(a, t[SPLITS - 1][q], (1..SPLITS).map(|i| (t[i][q], counts[i][q])), target);
-                settled[q] = true;
-            }
-        }
+        hint_brackets(data, rows, pixels, p0, hint, target, (&mut t, &mut counts), (&mut lo, &mut hi), &mut settled);
     }
     if settled.iter().any(|s| !s) {
-        // [min, max] for the columns the hint did not settle.
-        let (mut mn, mut mx) = (vec![u16::MAX; w], vec![0u16; w]);
-        for r in 0..rows {
-            let x = &data[r * pixels + p0..r * pixels + p0 + w];
-            for q in 0..w {
-                mn[q] = mn[q].min(x[q]);
-                mx[q] = mx[q].max(x[q]);
-            }
-        }
-        for q in 0..w {
-            if !settled[q] {
-                lo[q] = mn[q];
-                hi[q] = mx[q];
-            }
-        }
+        min_max_brackets(data, rows, pixels, p0, (&mut lo, &mut hi), &settled);
     }
     // Narrow until every bracket holds at most SPLITS values.
     while lo.iter().zip(hi.iter()).any(|(a, b)| (b - a) as usize >= SPLITS) {
@@ -424,17 +460,7 @@ fn median_u16_chunk_inline(data: &[u16], rows: usize, pixels: usize, p0: usize, 
         return;
     }
     if upper.iter().any(|u| u.is_none()) {
-        // Upper middle beyond the thresholds: the smallest value above the
-        // lower one (one more pass, rarely needed).
-        let mut above = vec![u16::MAX; w];
-        for r in 0..rows {
-            for ((a, &v), &l) in above.iter_mut().zip(&data[r * pixels + p0..r * pixels + p0 + w]).zip(lo.iter()) {
-                *a = (*a).min(if v > l { v } else { u16::MAX });
-            }
-        }
-        for q in 0..w {
-            upper[q] = upper[q].or(Some(above[q]));
-        }
+        fill_upper_middle(data, rows, pixels, p0, &lo, &mut upper);
     }
     for q in 0..w {
         dst[q] = 0.5 * (lo[q] as f32 + upper[q].expect("set above") as f32);
