@@ -18,7 +18,11 @@ fn mirror_psf_fwhm_matches_coherence_length() {
     let v = read_volume(&out.join("mirror/volume.h5"));
     let limit = fringeflow::physics::coherence_length_um(840.0, 50.0);
     assert!((limit - 6.23).abs() < 0.01);
-    assert_eq!(truth.coherence_length_um, Some(limit));
+    // The simulator's truth comes from its own optics (crates/simulate,
+    // independent of the core's physics): the same formula, so equal to
+    // rounding, not bit for bit.
+    let truth_lc = truth.coherence_length_um.expect("the mirror's truth has a coherence length");
+    assert!((truth_lc - limit).abs() < 1e-9 * limit, "truth {truth_lc} vs core {limit}");
     let (fwhm_um, _) = psf(&v.amplitude(0, 0), v.spacing_um, v.depth_um[0]);
     eprintln!("PSF FWHM {fwhm_um:.3} µm, limit {limit:.3} µm");
     assert!((fwhm_um - limit).abs() / limit < 0.05, "FWHM {fwhm_um} vs {limit}");

@@ -8,13 +8,15 @@
 //! it); its `timing` section is the only part that changes between
 //! identical runs.
 
+mod budget;
 mod compute;
 pub mod log;
 pub mod open;
+mod ownership;
 mod plan;
 pub mod writer;
 
-use anyhow::{bail, Context, Result};
+use anyhow::{Context, Result};
 use indicatif::ProgressBar;
 use ndarray::Array2;
 use rayon::prelude::*;
@@ -22,14 +24,17 @@ use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::time::Instant;
 
-use crate::io::capture::Capture;
 use crate::io::hash;
 use crate::io::staging::Staging;
 use crate::io::volume::{VolumeAttributes, VolumeWriter};
 use crate::pipeline::config::{DopplerPairs, PipelineConfig};
 use crate::stages::log_compression::{grey_levels, grey_levels_u8};
 use log::*;
+pub use budget::{memory_estimate, output_bytes};
+use budget::check_output_space;
 pub use open::{open_capture, read_pipeline};
+pub use ownership::{foreign_owner, hash_algorithm, output_name, recorded_pipeline, would_skip};
+use ownership::up_to_date;
 use plan::{plan, Planned};
 use open::{open, Opened, Opening};
 pub use writer::bscan_png_name;
@@ -74,100 +79,12 @@ pub struct RunContext<'a> {
     pub on_frame: Option<&'a (dyn Fn(usize, usize) + Sync)>,
 }
 
-/// Name of the output directory of a capture: its file stem.
-pub fn output_name(capture: &Path) -> String {
-    capture.file_stem().map(|s| s.to_string_lossy().into_owned()).unwrap_or_else(|| "capture".into())
-}
-
 /// Peak resident set size of this process, MB (Linux /proc).
 pub fn peak_resident_mb() -> Option<f64> {
     let status = std::fs::read_to_string("/proc/self/status").ok()?;
     let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
     let kb: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
     Some(kb / 1024.0)
-}
-
-/// True when `dir/log.json` records this input hash and pipeline hash and
-/// every output it lists exists.
-/// The pipeline hash recorded by an existing output directory's log.json,
-/// when there is one (what `run` compares before replacing outputs).
-pub fn recorded_pipeline(dir: &Path) -> Option<String> {
-    let bytes = std::fs::read(dir.join("log.json")).ok()?;
-    let log = serde_json::from_slice::<serde_json::Value>(&bytes).ok()?;
-    log["pipeline_sha256"].as_str().map(String::from)
-}
-
-/// Why the output folder `dir` is not `input`'s to replace under this
-/// pipeline, when its log.json records another pipeline or another
-/// capture (one with the same stem elsewhere); None when it is (or holds
-/// no log).
-pub fn foreign_owner(dir: &Path, input: &Path, pipeline_sha256: &str) -> Option<String> {
-    let bytes = std::fs::read(dir.join("log.json")).ok()?;
-    let log = serde_json::from_slice::<serde_json::Value>(&bytes).ok()?;
-    if let Some(recorded) = log["input"]["absolute_path"].as_str() {
-        let same = |a: &Path, b: &Path| match (std::fs::canonicalize(a), std::fs::canonicalize(b)) {
-            (Ok(x), Ok(y)) => x == y,
-            _ => std::path::absolute(a).ok() == std::path::absolute(b).ok(),
-        };
-        if !same(Path::new(recorded), input) {
-            return Some(format!("outputs of another capture with the same name, {recorded}"));
-        }
-    }
-    match log["pipeline_sha256"].as_str() {
-        Some(h) if h != pipeline_sha256 => Some(format!("outputs of pipeline sha256 {h}")),
-        _ => None,
-    }
-}
-
-/// What `run` would do with `input` (for `--dry-run`): Ok(true) when
-/// `--resume` would skip it as up to date, Ok(false) when it would be
-/// processed, Err when it would fail before processing (the reason).
-pub fn would_skip(input: &Path, config: &PipelineConfig, out_root: &Path, resume: bool) -> Result<bool> {
-    let capture = crate::run::open_capture(input, &config.input)?;
-    let name = output_name(input);
-    if let Some(problem) = crate::io::staging::output_name_problem(&name) {
-        bail!("{problem}");
-    }
-    crate::io::staging::check_replaceable(&out_root.join(&name))?;
-    let frames = capture.frames;
-    if frames % config.volume.average != 0 {
-        bail!("the capture has {frames} frames, not a multiple of volume.average = {}", config.volume.average);
-    }
-    if !resume {
-        return Ok(false);
-    }
-    let sha = hash::input_hash_with(input, hash_algorithm(config)).with_context(|| format!("hashing {}", input.display()))?;
-    Ok(up_to_date(&out_root.join(&name), input, &sha, &config.sha256(), &capture.wavelength_source).is_some())
-}
-
-/// The digest `[output] input_hash` asks for.
-pub fn hash_algorithm(config: &PipelineConfig) -> hash::HashAlgorithm {
-    match config.output.input_hash {
-        crate::pipeline::config::InputHash::Blake3 => hash::HashAlgorithm::Blake3,
-        crate::pipeline::config::InputHash::Sha256 => hash::HashAlgorithm::Sha256,
-    }
-}
-
-/// `now` is the input's hash with the configured algorithm; a log made with
-/// the other one is checked by hashing the input again with it. Up to date
-/// also means the same wavelength map: the same calibration file content
-/// (its digest, which the pipeline hash, naming only the path, does not
-/// cover). Returns the digest that decided (the log's), when up to date.
-pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str, map: &crate::io::capture::WavelengthSource) -> Option<hash::HashAlgorithm> {
-    let bytes = std::fs::read(dir.join("log.json")).ok()?;
-    let log = serde_json::from_slice::<serde_json::Value>(&bytes).ok()?;
-    let recorded = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str()).unwrap_or("");
-    let same = if hash::HashAlgorithm::of(recorded) == hash::HashAlgorithm::of(now) { hash::same_input(recorded, now) } else { hash::verify(recorded, input).is_ok_and(|(same, _)| same) };
-    let same_map = match map {
-        crate::io::capture::WavelengthSource::Calibration { file_hash, .. } => log["input"]["wavelength_map"]["file_hash"].as_str() == Some(file_hash.as_str()),
-        _ => true,
-    };
-    (same
-        && same_map
-        && log["pipeline_sha256"] == pipeline_sha256
-        && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file()))))
-    .then(|| hash::HashAlgorithm::of(recorded))
-    .flatten()
 }
 
 /// (rows × cols) → (cols × rows), in parallel over bands of 32 output rows.
@@ -193,62 +110,6 @@ pub fn transpose<T: Copy + Default + Send + Sync>(a: &Array2<T>) -> Array2<T> {
 pub fn grey8(db: &[f32], black: f64, white: f64, bytes: &mut Vec<u8>) {
     bytes.resize(db.len(), 0);
     grey_levels_u8(db, black, white, bytes);
-}
-
-/// Bytes one capture's reconstruction holds at its peak: the frames in
-/// flight between reader, pipeline and writer, one position's repeats
-/// with their complex profiles, amplitudes and sub-bands, the contrast
-/// stages' working arrays, and the images waiting for the writer.
-pub fn memory_estimate(capture: &Capture, config: &PipelineConfig, depth: usize) -> u64 {
-    // In u128, so sizes a file declares cannot wrap.
-    let px = capture.alines as u128 * depth as u128;
-    let raw = capture.alines as u128 * capture.pixels as u128 * 8; // f64 at worst
-    let bands = if config.angiography.methods.contains(&crate::pipeline::config::AngiographyMethod::SplitSpectrum) { config.angiography.split_bands as u128 } else { 0 };
-    let per_repeat = px * (4 + if config.needs_complex() { 8 } else { 0 } + if config.has_contrast() { 4 } else { 0 } + 4 * bands);
-    let n = config.volume.average as u128;
-    let working = if config.has_contrast() { px * (16 + 4 * 8) } else { 0 };
-    let outputs = px * (4 + 4 * (config.angiography.methods.len() as u128 + config.doppler.enabled as u128)) + if config.output.complex { px * 8 * n } else { 0 };
-    u64::try_from(3 * raw + n * per_repeat + working + 3 * outputs + px * 8).unwrap_or(u64::MAX)
-}
-/// Bytes the outputs of one capture take, before anything is written:
-/// volume.h5's datasets exactly (they are stored uncompressed), the
-/// OME-TIFF, and the PNGs at a quarter of their raw pixels (compressed;
-/// whole when `png_compression = "none"`). The report embeds a subset of
-/// the B-scans and is left out.
-pub fn output_bytes(config: &PipelineConfig, frames: usize, positions: usize, alines: usize, depth: usize) -> u64 {
-    let px = alines as u128 * depth as u128;
-    let (pos, frames) = (positions as u128, frames as u128);
-    let out = &config.output;
-    let contrast_maps = config.angiography.methods.len() as u128 + config.doppler.enabled as u128;
-    let mut volume = 0u128;
-    if out.volume {
-        let sample = match out.volume_type {
-            crate::pipeline::config::VolumeType::Float32 => 4,
-            crate::pipeline::config::VolumeType::Uint16 => 2,
-        };
-        volume = pos * px * sample + pos * px * 4 * contrast_maps + pos * alines as u128 * 4 * (1 + config.angiography.methods.len() as u128);
-        if out.complex {
-            volume += frames * px * 8;
-        }
-    }
-    let tiff = if out.ome_tiff { pos * px * 4 } else { 0 };
-    let mut png_raw = 0u128;
-    if out.png {
-        png_raw = pos * px * (config.log_compression.bit_depth as u128 / 8 + 3 * config.doppler.enabled as u128 + config.angiography.methods.len() as u128);
-    }
-    if out.scaled_png {
-        png_raw += pos * px * 3;
-    }
-    let png = if out.png_compression == crate::pipeline::config::PngCompression::None { png_raw } else { png_raw / 4 };
-    u64::try_from(volume + tiff + png).unwrap_or(u64::MAX)
-}
-
-/// Refuses a capture whose outputs cannot fit in the free space of the
-/// output file system, before anything is staged.
-fn check_output_space(opened: &Opened, planned: &Planned, config: &PipelineConfig, out_root: &Path) -> Result<()> {
-    let (frames, alines) = (opened.capture.frames, opened.capture.alines);
-    let bytes = output_bytes(config, frames, opened.positions, alines, planned.depth_um.len());
-    crate::memory::check_space(&format!("the outputs of this capture ({} positions of {alines} A-lines × {} depth pixels)", opened.positions, planned.depth_um.len()), bytes, out_root)
 }
 
 /// Phase 3a: volume.h5 with every dataset the pipeline asks for.

@@ -28,7 +28,7 @@ pub fn wavelength_nm(wavenumber_per_um: f64) -> f64 {
 ///
 /// ```
 /// // An 840 nm source with 50 nm FWHM resolves about 6.2 µm in air.
-/// let lc = fringeflow::physics::coherence_length_um(840.0, 50.0);
+/// let lc = fringeflow_core::physics::coherence_length_um(840.0, 50.0);
 /// assert!((lc - 6.23).abs() < 0.01);
 /// ```
 pub fn coherence_length_um(centre_nm: f64, fwhm_nm: f64) -> f64 {
@@ -52,7 +52,7 @@ pub fn max_depth_um(centre_nm: f64, pixel_width_nm: f64, group_index: f64) -> f6
 /// equation with the coefficients of Malitson 1965, JOSA 55:1205.
 ///
 /// ```
-/// let n = fringeflow::physics::fused_silica_index(0.6328); // HeNe line
+/// let n = fringeflow_core::physics::fused_silica_index(0.6328); // HeNe line
 /// assert!((n - 1.4570).abs() < 1e-4);
 /// ```
 pub fn fused_silica_index(wavelength_um: f64) -> f64 {

@@ -27,7 +27,7 @@ pub enum Interpolation {
 /// Precomputed resampling from pixels to a uniform wavenumber grid.
 ///
 /// ```
-/// use fringeflow::stages::k_linearization::{Interpolation, KLinearization};
+/// use fringeflow_core::stages::k_linearization::{Interpolation, KLinearization};
 /// use rustfft::num_complex::Complex64;
 /// // A camera with pixels evenly spaced in wavelength, 800–900 nm.
 /// let map: Vec<f64> = (0..64).map(|p| 800.0 + 100.0 * p as f64 / 63.0).collect();

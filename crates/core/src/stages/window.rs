@@ -29,7 +29,7 @@ pub enum WindowKind {
 /// Window coefficients for `samples` points.
 ///
 /// ```
-/// use fringeflow::stages::window::{coefficients, WindowKind};
+/// use fringeflow_core::stages::window::{coefficients, WindowKind};
 /// let hann = coefficients(WindowKind::Hann, 5, 0.5, 0.5);
 /// assert_eq!(hann.len(), 5);
 /// assert!((hann[2] - 1.0).abs() < 1e-12 && hann[0].abs() < 1e-12);

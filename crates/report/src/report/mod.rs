@@ -1,7 +1,7 @@
 //! report.html: one self-contained page per output folder, built from what
 //! io wrote there (log.json, volume.h5, the contrast PNGs), never from the
 //! pipeline's internals. Everything is inline: the style, the script
-//! (src/report/page.js, ours), and the B-scans as 16-bit steps of 0.1 dB
+//! (crates/report/src/report/page.js, ours), and the B-scans as 16-bit steps of 0.1 dB
 //! (zlib, base64) that the page maps to grey or colour with a live
 //! window/level. Opens from a file:// path or a mail attachment with no
 //! network.
