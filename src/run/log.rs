@@ -32,6 +32,10 @@ pub struct InputInfo {
     pub full_scale: Option<f64>,
     pub wavelength_map: WavelengthSource,
     pub has_background: bool,
+    /// For a capture that is not HDF5: its format, stored sample type and
+    /// order (`dtype` is the type its frames are held in).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub format: Option<String>,
     /// Scan attributes of the fringes (A-line period, spacings), when recorded.
     #[serde(skip_serializing_if = "ScanAttributes::is_empty")]
     pub scan: ScanAttributes,

@@ -408,6 +408,7 @@ fn write_log(input: &Path, opened: &Opened, planned: &Planned, config: &Pipeline
             pixels: capture.pixels,
             full_scale: capture.full_scale,
             wavelength_map: capture.wavelength_source.clone(),
+            format: capture.format_detail.clone(),
             has_background: capture.background.is_some(),
             scan: capture.scan.clone(),
         },

@@ -83,7 +83,7 @@ pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &
     let recorded = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str()).unwrap_or("");
     let same = if hash::HashAlgorithm::of(recorded) == hash::HashAlgorithm::of(now) { hash::same_input(recorded, now) } else { hash::verify(recorded, input).is_ok_and(|(same, _)| same) };
     let same_map = match map {
-        crate::io::capture::WavelengthSource::Calibration { file_hash, .. } => log["input"]["wavelength_map"]["file_hash"].as_str() == Some(file_hash.as_str()),
+        crate::io::capture::WavelengthSource::Calibration { file_hash, .. } | crate::io::capture::WavelengthSource::File { file_hash, .. } => log["input"]["wavelength_map"]["file_hash"].as_str() == Some(file_hash.as_str()),
         _ => true,
     };
     (same

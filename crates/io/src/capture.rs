@@ -12,7 +12,8 @@ use ndarray::{Array2, ArrayD, Axis, Ix2};
 use serde::Serialize;
 use std::path::{Path, PathBuf};
 
-pub use super::capture_layout::{AxisName, CaptureLayout, GivenMap};
+pub use super::capture_layout::{AxisName, CaptureLayout, FileFormat, GivenMap, RawLayout};
+use crate::capture_array::detect_format;
 
 /// Sample types a fringe dataset may have (also what the simulator writes).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, serde::Deserialize)]
@@ -62,6 +63,7 @@ pub enum WavelengthSource {
     Dataset { path: String },
     Polynomial { coefficients_nm: Vec<f64> },
     Calibration { path: String, file_hash: String },
+    File { path: String, file_hash: String },
 }
 
 /// One frame of spectra (A-lines × pixels, standard layout) in the type it
@@ -93,8 +95,11 @@ impl RawFrame {
 /// An opened, validated capture.
 pub struct Capture {
     pub path: PathBuf,
-    file: hdf5::File,
-    fringes: Dataset,
+    pub(crate) source: Source,
+    /// The file format and, for an array file, its stored sample type and
+    /// order in words (for the log and `inspect`).
+    pub format: FileFormat,
+    pub format_detail: Option<String>,
     /// Dataset path of the fringes.
     pub fringes_path: String,
     /// Stored shape of the fringe dataset.
@@ -171,6 +176,12 @@ fn positive_attr(ds: &Dataset, name: &str) -> Result<Option<f64>> {
             }
         }
     }
+}
+
+/// Where the frames are read from.
+pub(crate) enum Source {
+    Hdf5 { file: hdf5::File, fringes: Dataset },
+    Array(crate::array_file::ArrayFile),
 }
 
 impl std::fmt::Debug for Capture {
@@ -370,7 +381,7 @@ fn fringe_axes(input: &CaptureLayout, shape: &[usize]) -> Result<Vec<AxisName>> 
 /// The wavelength map per pixel and where it came from (a calibration file,
 /// the pipeline's polynomial, or the capture's dataset), checked against the
 /// fringes; with the capture's own map when another one was used.
-fn wavelength_map(file: &hdf5::File, input: &CaptureLayout, pixels: usize, shape: &[usize], axes: &[AxisName]) -> Result<(Vec<f64>, WavelengthSource, Option<Vec<f64>>)> {
+pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, pixels: usize, shape: &[usize], axes: &[AxisName]) -> Result<(Vec<f64>, WavelengthSource, Option<Vec<f64>>)> {
     let (wavelength_nm, wavelength_source) = match &input.given_map {
         Some(GivenMap::Calibration { wavelength_nm, path: cal_path, file_hash }) => {
             if wavelength_nm.len() != pixels {
@@ -384,10 +395,17 @@ fn wavelength_map(file: &hdf5::File, input: &CaptureLayout, pixels: usize, shape
                 .collect::<Vec<_>>();
             (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
         }
+        Some(GivenMap::File { path }) => {
+            let (map, file_hash) = crate::map_file::read_map_file(Path::new(path), pixels)?;
+            (map.iter().map(|v| v * input.wavelength_unit_nm).collect(), WavelengthSource::File { path: path.clone(), file_hash })
+        }
         None => {
+            let Some(file) = file else {
+                bail!("the capture holds no wavelength map: give input.wavelength_file (a .npy or text file), input.wavelength_poly_nm or input.calibration");
+            };
             let ds = open_dataset(file, &input.wavelength).ok_or_else(|| {
                 anyhow!(
-                    "dataset '{}' not found (give the map in the capture or as input.wavelength_poly_nm)",
+                    "dataset '{}' not found (give the map in the capture, or as input.wavelength_file, input.wavelength_poly_nm or input.calibration)",
                     input.wavelength
                 )
             })?;
@@ -395,14 +413,21 @@ fn wavelength_map(file: &hdf5::File, input: &CaptureLayout, pixels: usize, shape
             if map.ndim() != 1 {
                 bail!("wavelength map '{}' has rank {}, expected 1", input.wavelength, map.ndim());
             }
-            (map.iter().copied().collect(), WavelengthSource::Dataset { path: input.wavelength.clone() })
+            (map.iter().map(|v| v * input.wavelength_unit_nm).collect(), WavelengthSource::Dataset { path: input.wavelength.clone() })
         }
     };
     let source_name = match &wavelength_source {
         WavelengthSource::Dataset { path } => format!("'{path}'"),
         WavelengthSource::Polynomial { .. } => "input.wavelength_poly_nm".to_string(),
         WavelengthSource::Calibration { path, .. } => format!("from calibration {path}"),
+        WavelengthSource::File { path, .. } => format!("from file {path}"),
     };
+    let unit = match input.wavelength_unit_nm {
+        u if u == 1.0 => String::new(),
+        u if u == 1e3 => " (declared in um)".into(),
+        _ => " (declared in m)".into(),
+    };
+    let source_name = format!("{source_name}{unit}");
     if wavelength_nm.len() != pixels && shape.contains(&wavelength_nm.len()) {
         bail!(
             "wavelength map {source_name} has {} values but the fringes have {pixels} pixels{}",
@@ -413,7 +438,7 @@ fn wavelength_map(file: &hdf5::File, input: &CaptureLayout, pixels: usize, shape
     check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
     let dataset_wavelength_nm = match wavelength_source {
         WavelengthSource::Dataset { .. } => None,
-        _ => open_dataset(file, &input.wavelength).and_then(|ds| read_f64(&ds).ok()).filter(|m| m.ndim() == 1 && m.len() == pixels).map(|m| m.iter().copied().collect()),
+        _ => file.and_then(|f| open_dataset(f, &input.wavelength)).and_then(|ds| read_f64(&ds).ok()).filter(|m| m.ndim() == 1 && m.len() == pixels).map(|m| m.iter().copied().collect()),
     };
 
     Ok((wavelength_nm, wavelength_source, dataset_wavelength_nm))
@@ -480,6 +505,15 @@ fn scan_attributes(fringes: &hdf5::Dataset) -> Result<ScanAttributes> {
 impl Capture {
     /// Opens and validates a capture laid out as `input` says.
     pub fn open(path: &Path, input: &CaptureLayout) -> Result<Self> {
+        match input.format.map_or_else(|| detect_format(path, input), Ok)? {
+            FileFormat::Hdf5 => Self::open_hdf5(path, input),
+            FileFormat::Npy => crate::capture_array::open_npy(path, input),
+            FileFormat::Raw => crate::capture_array::open_raw(path, input),
+        }
+    }
+
+    /// An HDF5 capture.
+    fn open_hdf5(path: &Path, input: &CaptureLayout) -> Result<Self> {
         let file = open_hdf5(path)?;
         let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)))?;
         let shape = fringes.shape();
@@ -517,7 +551,7 @@ impl Capture {
             )
         })?;
 
-        let (wavelength_nm, wavelength_source, dataset_wavelength_nm) = wavelength_map(&file, input, pixels, &shape, &axes)?;
+        let (wavelength_nm, wavelength_source, dataset_wavelength_nm) = wavelength_map(Some(&file), input, pixels, &shape, &axes)?;
 
         let background = read_background(&file, input, pixels)?;
         let full_scale = full_scale(&fringes, input, sample_type)?;
@@ -526,8 +560,9 @@ impl Capture {
         Ok(Capture {
             scan,
             path: path.to_path_buf(),
-            file,
-            fringes,
+            source: Source::Hdf5 { file, fringes },
+            format: FileFormat::Hdf5,
+            format_detail: None,
             fringes_path: input.fringes.clone(),
             shape,
             axes,
@@ -546,6 +581,16 @@ impl Capture {
     /// Reads frame `index` as (A-lines × pixels) in the stored sample type,
     /// with the number of saturated samples. Fails on NaN or infinite values.
     pub fn read_raw_frame(&self, index: usize) -> Result<(RawFrame, u64)> {
+        let raw = match &self.source {
+            Source::Hdf5 { fringes, .. } => self.read_hdf5_frame(fringes, index)?,
+            Source::Array(a) => a.read_frame(index).with_context(|| format!("reading frame {index} of {}", self.path.display()))?,
+        };
+        let saturated = self.check_frame(&raw, index)?;
+        Ok((raw, saturated))
+    }
+
+    /// One frame of an HDF5 dataset as a hyperslab, A-lines first.
+    fn read_hdf5_frame(&self, fringes: &Dataset, index: usize) -> Result<RawFrame> {
         let slab: Vec<SliceOrIndex> = self
             .axes
             .iter()
@@ -559,25 +604,38 @@ impl Capture {
             let rest: Vec<AxisName> = self.axes.iter().copied().filter(|&a| a != AxisName::Frame).collect();
             rest[0] == AxisName::Aline
         };
-        let fs = self.full_scale;
         macro_rules! read_as {
-            ($t:ty, $variant:ident, $kind:ident) => {{
-                let raw: Array2<$t> = self
-                    .fringes
-                    .read_slice(Hyperslab::from(slab))
-                    .with_context(|| format!("reading frame {index} of '{}'", self.fringes_path))?;
-                let raw = if aline_first { raw } else { raw.reversed_axes().as_standard_layout().into_owned() };
-                let v = raw.as_slice().expect("standard layout");
-                read_as!(@check $kind, $t, v);
-                let saturated = match fs {
-                    Some(fs) => read_as!(@saturated $kind, $t, v, fs),
+            ($t:ty, $variant:ident) => {{
+                let raw: Array2<$t> = fringes.read_slice(Hyperslab::from(slab)).with_context(|| format!("reading frame {index} of '{}'", self.fringes_path))?;
+                RawFrame::$variant(if aline_first { raw } else { raw.reversed_axes().as_standard_layout().into_owned() })
+            }};
+        }
+        Ok(match self.sample_type {
+            SampleType::U8 => read_as!(u8, U8),
+            SampleType::U16 => read_as!(u16, U16),
+            SampleType::I16 => read_as!(i16, I16),
+            SampleType::U32 => read_as!(u32, U32),
+            SampleType::F32 => read_as!(f32, F32),
+            SampleType::F64 => read_as!(f64, F64),
+        })
+    }
+
+    /// Fails on a NaN or infinite sample; counts the samples at or above
+    /// full scale.
+    fn check_frame(&self, raw: &RawFrame, index: usize) -> Result<u64> {
+        let fs = self.full_scale;
+        macro_rules! check {
+            ($a:expr, $t:ty, $kind:ident) => {{
+                let v = $a.as_slice().expect("standard layout");
+                check!(@finite $kind, $t, v);
+                match fs {
+                    Some(fs) => check!(@saturated $kind, $t, v, fs),
                     None => 0,
-                };
-                (RawFrame::$variant(raw), saturated)
+                }
             }};
             // Integers are always finite; floats are checked.
-            (@check int, $t:ty, $v:expr) => {};
-            (@check float, $t:ty, $v:expr) => {{
+            (@finite int, $t:ty, $v:expr) => {};
+            (@finite float, $t:ty, $v:expr) => {{
                 #[allow(clippy::unnecessary_cast)]
                 if let Some(pos) = $v.iter().position(|x| !(*x as f64).is_finite()) {
                     bail!(
@@ -607,13 +665,13 @@ impl Capture {
                 n
             }};
         }
-        Ok(match self.sample_type {
-            SampleType::U8 => read_as!(u8, U8, int),
-            SampleType::U16 => read_as!(u16, U16, int),
-            SampleType::I16 => read_as!(i16, I16, int),
-            SampleType::U32 => read_as!(u32, U32, int),
-            SampleType::F32 => read_as!(f32, F32, float),
-            SampleType::F64 => read_as!(f64, F64, float),
+        Ok(match raw {
+            RawFrame::U8(a) => check!(a, u8, int),
+            RawFrame::U16(a) => check!(a, u16, int),
+            RawFrame::I16(a) => check!(a, i16, int),
+            RawFrame::U32(a) => check!(a, u32, int),
+            RawFrame::F32(a) => check!(a, f32, float),
+            RawFrame::F64(a) => check!(a, f64, float),
         })
     }
 
@@ -630,8 +688,11 @@ impl Capture {
         (self.alines, self.pixels)
     }
 
-    /// The underlying HDF5 file (for inspection).
-    pub fn file(&self) -> &hdf5::File {
-        &self.file
+    /// The underlying HDF5 file (for inspection), when the capture is one.
+    pub fn file(&self) -> Option<&hdf5::File> {
+        match &self.source {
+            Source::Hdf5 { file, .. } => Some(file),
+            Source::Array(_) => None,
+        }
     }
 }

@@ -31,6 +31,37 @@ pub struct CaptureLayout {
     pub axes: Option<Vec<AxisName>>,
     /// A wavelength map used instead of the dataset, and where it came from.
     pub given_map: Option<GivenMap>,
+    /// The file format; None: by the file's signature.
+    pub format: Option<FileFormat>,
+    /// How a headerless raw file is laid out.
+    pub raw: RawLayout,
+    /// Nanometres per unit of the wavelength map in the capture or a map
+    /// file (1 for nm, 1000 for µm, 1e9 for m).
+    pub wavelength_unit_nm: f64,
+}
+
+/// A capture's file format.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum FileFormat {
+    Hdf5,
+    Npy,
+    Raw,
+}
+
+/// A headerless raw file: sample type and byte order, the frame's shape,
+/// the number of frames (None: as many as the file holds) and the bytes of
+/// header before the data, before every frame and before every A-line.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct RawLayout {
+    pub sample_type: Option<String>,
+    pub big_endian: bool,
+    pub pixels: Option<usize>,
+    pub alines_per_frame: Option<usize>,
+    pub frames: Option<usize>,
+    pub file_header_bytes: u64,
+    pub frame_header_bytes: u64,
+    pub aline_header_bytes: u64,
 }
 
 /// A wavelength map from outside the capture (a polynomial evaluated, or a
@@ -42,10 +73,22 @@ pub enum GivenMap {
     Polynomial(Vec<f64>),
     /// Per-pixel wavelengths (nm) from a calibration file, its path and hash.
     Calibration { wavelength_nm: Vec<f64>, path: String, file_hash: String },
+    /// A map file read here: `.npy`, or text with one value per line or
+    /// pixel and wavelength columns (in the layout's wavelength unit).
+    File { path: String },
 }
 
 impl Default for CaptureLayout {
     fn default() -> Self {
-        CaptureLayout { fringes: "/fringes".into(), wavelength: "/wavelength_nm".into(), background: "/background".into(), axes: None, given_map: None }
+        CaptureLayout {
+            fringes: "/fringes".into(),
+            wavelength: "/wavelength_nm".into(),
+            background: "/background".into(),
+            axes: None,
+            given_map: None,
+            format: None,
+            raw: RawLayout::default(),
+            wavelength_unit_nm: 1.0,
+        }
     }
 }

@@ -7,7 +7,7 @@
 use anyhow::Result;
 use std::path::Path;
 
-use crate::io::capture::{AxisName, Capture, CaptureLayout, GivenMap, RawFrame};
+use crate::io::capture::{AxisName, Capture, CaptureLayout, FileFormat, GivenMap, RawFrame, RawLayout};
 use crate::io::toml_file::{self, FileKind};
 use crate::pipeline::config::{self, InputConfig, PipelineConfig};
 use crate::pipeline::fused::Samples;
@@ -34,7 +34,7 @@ pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
             Some(GivenMap::Calibration { wavelength_nm: cal.wavelength_nm, path: path.clone(), file_hash: format!("sha256:{sha256}") })
         }
         (None, Some(c)) => Some(GivenMap::Polynomial(c.clone())),
-        (None, None) => None,
+        (None, None) => input.wavelength_file.as_ref().map(|path| GivenMap::File { path: path.clone() }),
     };
     let axis = |a: &config::AxisName| match a {
         config::AxisName::Frame => AxisName::Frame,
@@ -47,6 +47,26 @@ pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
         background: input.background.clone(),
         axes: input.axes.as_ref().map(|a| a.iter().map(axis).collect()),
         given_map,
+        format: input.format.map(|f| match f {
+            config::CaptureFormat::Hdf5 => FileFormat::Hdf5,
+            config::CaptureFormat::Npy => FileFormat::Npy,
+            config::CaptureFormat::Raw => FileFormat::Raw,
+        }),
+        raw: RawLayout {
+            sample_type: input.sample_type.clone(),
+            big_endian: input.byte_order == Some(config::ByteOrder::Big),
+            pixels: input.pixels,
+            alines_per_frame: input.alines_per_frame,
+            frames: input.frames,
+            file_header_bytes: input.file_header_bytes.unwrap_or(0),
+            frame_header_bytes: input.frame_header_bytes.unwrap_or(0),
+            aline_header_bytes: input.aline_header_bytes.unwrap_or(0),
+        },
+        wavelength_unit_nm: match input.wavelength_unit {
+            None | Some(config::WavelengthUnit::Nm) => 1.0,
+            Some(config::WavelengthUnit::Um) => 1e3,
+            Some(config::WavelengthUnit::M) => 1e9,
+        },
     })
 }
 

@@ -50,6 +50,69 @@ pub struct InputConfig {
     /// (their `aline_spacing_um` attribute); used for the images' pixel size.
     #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
     pub aline_spacing_um: Option<f64>,
+    /// The capture's file format: "hdf5", "npy" or "raw"; by the file's
+    /// signature when omitted (a headerless raw file needs "raw").
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub format: Option<CaptureFormat>,
+    /// Raw binary: sample type (u8, i8, u16, i16, u32, i32, u64, i64, f32, f64).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub sample_type: Option<String>,
+    /// Raw binary: "little" (default) or "big" byte order.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub byte_order: Option<ByteOrder>,
+    /// Raw binary: samples per spectrum.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub pixels: Option<usize>,
+    /// Raw binary: A-lines per frame.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub alines_per_frame: Option<usize>,
+    /// Raw binary: number of frames; omitted: as many as the file holds.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub frames: Option<usize>,
+    /// Raw binary: bytes to skip at the start of the file.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub file_header_bytes: Option<u64>,
+    /// Raw binary: bytes before every frame.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub frame_header_bytes: Option<u64>,
+    /// Raw binary: bytes before every A-line.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub aline_header_bytes: Option<u64>,
+    /// Wavelength map from a file: `.npy`, or text (one value per line, or
+    /// pixel and wavelength columns separated by a comma, tab or spaces).
+    /// A relative path is taken from the pipeline file's directory.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub wavelength_file: Option<String>,
+    /// Unit of the wavelength map in the capture or `wavelength_file`:
+    /// "nm" (default), "um" or "m".
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub wavelength_unit: Option<WavelengthUnit>,
+}
+
+/// A capture's file format.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum CaptureFormat {
+    Hdf5,
+    Npy,
+    Raw,
+}
+
+/// Byte order of raw samples.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum ByteOrder {
+    Little,
+    Big,
+}
+
+/// Unit of a wavelength map.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum WavelengthUnit {
+    Nm,
+    Um,
+    M,
 }
 
 impl Default for InputConfig {
@@ -62,6 +125,17 @@ impl Default for InputConfig {
             wavelength_poly_nm: None,
             calibration: None,
             aline_spacing_um: None,
+            format: None,
+            sample_type: None,
+            byte_order: None,
+            pixels: None,
+            alines_per_frame: None,
+            frames: None,
+            file_header_bytes: None,
+            frame_header_bytes: None,
+            aline_header_bytes: None,
+            wavelength_file: None,
+            wavelength_unit: None,
         }
     }
 }
@@ -377,13 +451,12 @@ impl PipelineConfig {
         }
         // A relative calibration path is relative to the pipeline file; store
         // it absolute so the log alone is enough to rerun.
-        if let Some(c) = &config.input.calibration {
-            let p = Path::new(c);
-            if p.is_relative() {
-                let dir = path.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new("."));
-                let joined = dir.join(p);
+        let dir = path.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new(".")).to_path_buf();
+        for named in [&mut config.input.calibration, &mut config.input.wavelength_file] {
+            if let Some(c) = named.as_ref().filter(|c| Path::new(c).is_relative()) {
+                let joined = dir.join(c);
                 let absolute = std::path::absolute(&joined).unwrap_or(joined);
-                config.input.calibration = Some(absolute.display().to_string());
+                *named = Some(absolute.display().to_string());
             }
         }
         config.check_files(&path.display().to_string(), &text)?;
@@ -473,6 +546,15 @@ impl PipelineConfig {
             if !(a.is_finite() && b.is_finite() && a <= b) {
                 return Err(fail("dispersion", key, format!("needs finite start <= end, found [{a}, {b}]")));
             }
+        }
+        if let Some(s) = &self.input.sample_type {
+            const TYPES: [&str; 10] = ["u8", "i8", "u16", "i16", "u32", "i32", "u64", "i64", "f32", "f64"];
+            if !TYPES.contains(&s.as_str()) {
+                return Err(fail("input", "sample_type", format!("\"{s}\" is not a sample type; give one of {}", TYPES.join(", "))));
+            }
+        }
+        if self.input.wavelength_file.is_some() && (self.input.calibration.is_some() || self.input.wavelength_poly_nm.is_some()) {
+            return Err(fail("input", "wavelength_file", "give one wavelength map: calibration, wavelength_poly_nm or wavelength_file".into()));
         }
         if self.input.calibration.is_some() && self.input.wavelength_poly_nm.is_some() {
             return Err(fail("input", "calibration", "give calibration or wavelength_poly_nm, not both".into()));

@@ -1,0 +1,81 @@
+//! A wavelength map kept in a file of its own: a NumPy `.npy` vector (also
+//! a 1×N or N×1 matrix), or text with one value per line or two columns
+//! (pixel, wavelength) separated by a comma, tab or spaces; `#` starts a
+//! comment. Values are returned as written (the caller applies the unit),
+//! with the file's SHA-256 so a log can name the exact map.
+
+use anyhow::{bail, Context, Result};
+use std::path::Path;
+
+use crate::array_file::{dimension_strides, read_npy_header, ArrayFile, ByteLayout};
+use crate::capture::RawFrame;
+
+/// The map's values, one per pixel, and "sha256:<hex>" of the file.
+pub fn read_map_file(path: &Path, pixels: usize) -> Result<(Vec<f64>, String)> {
+    let bytes = std::fs::read(path).with_context(|| format!("wavelength file {}", path.display()))?;
+    let digest = format!("sha256:{}", crate::hash::sha256_hex(&bytes));
+    let values = if bytes.starts_with(crate::array_file::NPY_MAGIC) { npy_vector(path)? } else { text_values(path, &bytes)? };
+    if values.len() != pixels {
+        bail!("wavelength file {}: {} values, but the fringes have {pixels} pixels", path.display(), values.len());
+    }
+    Ok((values, digest))
+}
+
+/// A `.npy` vector, or a matrix with one dimension of 1.
+fn npy_vector(path: &Path) -> Result<Vec<f64>> {
+    let h = read_npy_header(path)?;
+    let n: usize = h.shape.iter().product();
+    if h.shape.iter().filter(|&&d| d > 1).count() > 1 {
+        bail!("wavelength file {}: shape {:?} is not a vector", path.display(), h.shape);
+    }
+    let strides = dimension_strides(&h.shape, h.stored.size, h.fortran_order);
+    let step = h.shape.iter().zip(&strides).find(|(&d, _)| d > 1).map_or(h.stored.size as u64, |(_, &s)| s);
+    let layout = ByteLayout { base: h.data_offset, frame: 0, aline: 0, pixel: step };
+    let a = ArrayFile::open(path, h.stored, layout, (1, 1, n))?;
+    Ok(match a.read_frame(0)? {
+        RawFrame::U8(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::U16(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::I16(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::U32(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::F32(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::F64(v) => v.iter().copied().collect(),
+    })
+}
+
+/// One value per line, or (pixel, value) per line with the pixels in order
+/// from 0 or from 1.
+fn text_values(path: &Path, bytes: &[u8]) -> Result<Vec<f64>> {
+    let text = std::str::from_utf8(bytes).with_context(|| format!("wavelength file {}: neither .npy nor text", path.display()))?;
+    let mut values = Vec::new();
+    let mut first_pixel = None;
+    for (i, line) in text.lines().enumerate() {
+        let line = line.split('#').next().unwrap_or("").trim();
+        if line.is_empty() {
+            continue;
+        }
+        let fields: Vec<&str> = line.split(|c: char| c == ',' || c == ';' || c.is_whitespace()).filter(|s| !s.is_empty()).collect();
+        let number = |s: &str| s.parse::<f64>().ok().filter(|v| v.is_finite());
+        let Some(parsed) = fields.iter().map(|s| number(s)).collect::<Option<Vec<f64>>>() else {
+            // A header line of column names before any value is skipped.
+            if values.is_empty() && first_pixel.is_none() && fields.iter().all(|s| s.parse::<f64>().is_err()) {
+                continue;
+            }
+            bail!("wavelength file {} line {}: \"{line}\" is not a number", path.display(), i + 1);
+        };
+        match parsed.as_slice() {
+            [v] => values.push(*v),
+            [p, v] => {
+                let start = *first_pixel.get_or_insert(*p);
+                if *p != start + values.len() as f64 {
+                    bail!("wavelength file {} line {}: pixel {p} out of order (expected {})", path.display(), i + 1, start + values.len() as f64);
+                }
+                values.push(*v);
+            }
+            _ => bail!("wavelength file {} line {}: {} columns; give one value, or pixel and value", path.display(), i + 1, parsed.len()),
+        }
+    }
+    if values.is_empty() {
+        bail!("wavelength file {}: no values", path.display());
+    }
+    Ok(values)
+}

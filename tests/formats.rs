@@ -1,0 +1,133 @@
+//! Captures in the formats labs write: one simulated capture written by
+//! NumPy (C and Fortran order, big-endian, a MATLAB-like pixel-fastest
+//! Fortran array) and as raw binary (plain `tofile`, and with file, frame and
+//! A-line headers), each reconstructed and compared with the HDF5
+//! original's volume by h5py (an independent reader): the same bytes.
+//! Wavelength maps from text files (one value per line; pixel and value
+//! columns in µm). Bad descriptions fail with one line naming the problem.
+
+mod common;
+use common::*;
+use std::path::Path;
+use std::process::Command;
+
+const WRITE: &str = r#"
+import sys, h5py, numpy as np
+src, d = sys.argv[1], sys.argv[2]
+with h5py.File(src, "r") as f:
+    a = f["/fringes"][...]
+    wl = f["/wavelength_nm"][...]
+assert a.dtype == np.uint16 and a.ndim == 3
+np.save(d + "/c.npy", a)
+np.save(d + "/fortran.npy", np.asfortranarray(a))
+np.save(d + "/big.npy", a.astype(">u2"))
+# Pixel fastest, frame slowest, stored column-major: (pixels, alines, frames).
+np.save(d + "/pixel-first.npy", np.asfortranarray(a.transpose(2, 1, 0)))
+a.tofile(d + "/plain.bin")
+rng = np.random.default_rng(7)
+with open(d + "/headers.bin", "wb") as f:
+    f.write(rng.integers(0, 256, 100, dtype=np.uint8).tobytes())
+    for frame in a:
+        f.write(rng.integers(0, 256, 16, dtype=np.uint8).tobytes())
+        for line in frame:
+            f.write(rng.integers(0, 256, 8, dtype=np.uint8).tobytes())
+            f.write(line.astype("<u2").tobytes())
+np.savetxt(d + "/wavelength.txt", wl, fmt="%.17g")
+with open(d + "/wavelength-um.csv", "w") as f:
+    f.write("pixel,wavelength_um\n")
+    for p, v in enumerate(wl):
+        f.write("%d,%.17g\n" % (p, v / 1000.0))
+"#;
+
+const COMPARE: &str = r#"
+import sys, h5py, numpy as np
+ref = h5py.File(sys.argv[1], "r")["/volume_db"][...]
+for p in sys.argv[2:]:
+    v = h5py.File(p, "r")["/volume_db"][...]
+    same = v.dtype == ref.dtype and v.shape == ref.shape and v.tobytes() == ref.tobytes()
+    print(p, "same" if same else "differs: max |d| = %g" % np.max(np.abs(v.astype(float) - ref)))
+"#;
+
+fn python(code: &str, args: &[&Path]) -> String {
+    let o = Command::new("python3").arg("-c").arg(code).args(args).output().expect("python3 with numpy and h5py (make test installs them)");
+    assert!(o.status.success(), "python failed: {}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stdout).into_owned()
+}
+
+/// The pipeline of the comparison: the frame median as background (the
+/// array formats carry no recorded background), everything else default.
+const BASE: &str = "[background]\nmethod = \"median\"\n";
+
+#[test]
+fn every_format_gives_the_hdf5_volume_byte_for_byte() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let (h5, _) = simulate_scene(d, "sample", &small_scene(400.0, 3, 64, 1024));
+    python(WRITE, &[&h5, d]);
+    run_ok(d, &[&h5], BASE, &d.join("out-h5"));
+    let wl = d.join("wavelength.txt");
+    let wl_um = d.join("wavelength-um.csv");
+    let map = format!("[input]\nwavelength_file = \"{}\"\n", wl.display());
+    let raw = |extra: &str| format!("[input]\nwavelength_file = \"{}\"\nformat = \"raw\"\nsample_type = \"u16\"\npixels = 1024\nalines_per_frame = 64\n{extra}", wl.display());
+    let cases: Vec<(&str, String)> = vec![
+        ("c.npy", map.clone()),
+        ("fortran.npy", map.clone()),
+        ("big.npy", map.clone()),
+        ("pixel-first.npy", format!("{map}axes = [\"pixel\", \"aline\", \"frame\"]\n")),
+        ("plain.bin", raw("")),
+        ("headers.bin", raw("file_header_bytes = 100\nframe_header_bytes = 16\naline_header_bytes = 8\nframes = 3\n")),
+        ("c.npy", format!("[input]\nwavelength_file = \"{}\"\nwavelength_unit = \"um\"\n", wl_um.display())),
+    ];
+    let mut volumes = Vec::new();
+    for (i, (file, input)) in cases.iter().enumerate() {
+        let out = d.join(format!("out-{i}"));
+        let o = run(d, &[&d.join(file)], &format!("{BASE}{input}"), &out);
+        assert!(o.status.success(), "{file}: {}", String::from_utf8_lossy(&o.stderr));
+        let stem = Path::new(file).file_stem().unwrap().to_string_lossy().into_owned();
+        let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join(&stem).join("log.json")).unwrap()).unwrap();
+        // The log names the format and where the map came from.
+        let format = log["input"]["format"].as_str().unwrap_or_default().to_string();
+        assert!(format.starts_with(if file.ends_with(".npy") { "NumPy .npy" } else { "raw binary" }), "{file}: {format}");
+        assert_eq!(log["input"]["wavelength_map"]["kind"], "file", "{file}");
+        assert!(log["input"]["wavelength_map"]["file_hash"].as_str().unwrap().starts_with("sha256:"));
+        assert_eq!(log["input"]["frames"], 3);
+        volumes.push(out.join(stem).join("volume.h5"));
+    }
+    let mut args: Vec<&Path> = vec![];
+    let reference = d.join("out-h5/sample/volume.h5");
+    args.push(&reference);
+    args.extend(volumes.iter().map(|p| p.as_path()));
+    let report = python(COMPARE, &args);
+    assert_eq!(report.lines().filter(|l| l.ends_with(" same")).count(), cases.len(), "{report}");
+}
+
+#[test]
+fn bad_descriptions_fail_with_one_line_naming_the_problem() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let (h5, _) = simulate_scene(d, "sample", &small_scene(400.0, 2, 32, 512));
+    python(WRITE, &[&h5, d]);
+    let wl = d.join("wavelength.txt");
+    std::fs::write(d.join("bad.txt"), "800.0\n801.0\nabc\n").unwrap();
+    let cases = [
+        // Shape × sample size does not fit the file: by how much, what would.
+        (format!("[input]\nwavelength_file = \"{}\"\nsample_type = \"u16\"\npixels = 512\nalines_per_frame = 32\nframes = 3\n", wl.display()), "plain.bin", "short by 32768 bytes"),
+        (format!("[input]\nwavelength_file = \"{}\"\nsample_type = \"u16\"\npixels = 500\nalines_per_frame = 32\n", wl.display()), "plain.bin", "bytes over"),
+        (format!("[input]\nwavelength_file = \"{}\"\nsample_type = \"u16\"\npixels = 512\nalines_per_frame = 32\nfile_header_bytes = 99999999\n", wl.display()), "plain.bin", "file_header_bytes = 99999999 but the file has only"),
+        (format!("[input]\nwavelength_file = \"{}\"\n", d.join("bad.txt").display()), "c.npy", "line 3: \"abc\" is not a number"),
+        (format!("[input]\nwavelength_file = \"{}\"\nwavelength_unit = \"um\"\n", wl.display()), "c.npy", "(declared in um)"),
+        ("[input]\n".to_string(), "c.npy", "give input.wavelength_file"),
+    ];
+    for (i, (pipeline, file, needle)) in cases.iter().enumerate() {
+        let out = d.join(format!("bad-{i}"));
+        let o = run(d, &[&d.join(file)], pipeline, &out);
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert!(!o.status.success(), "case {i} succeeded");
+        assert!(err.contains(needle), "case {i}: expected {needle:?} in {err}");
+        assert!(!out.join(Path::new(file).file_stem().unwrap()).join("volume.h5").exists(), "case {i}: an output was written");
+    }
+    // An unknown sample type is a settings error (exit 2).
+    let o = run(d, &[&d.join("plain.bin")], "[input]\nsample_type = \"u12\"\npixels = 512\nalines_per_frame = 32\n", &d.join("bad-type"));
+    assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("input.sample_type: \"u12\" is not a sample type"));
+}
