@@ -33,6 +33,16 @@ with open(d + "/headers.bin", "wb") as f:
             f.write(rng.integers(0, 256, 8, dtype=np.uint8).tobytes())
             f.write(line.astype("<u2").tobytes())
 np.savetxt(d + "/wavelength.txt", wl, fmt="%.17g")
+# As MATLAB v7.3 saves `fringes` of size [alines, pixels, frames] and a
+# 1-by-N `wavelength_nm`: HDF5 after a 512-byte user block, dimensions
+# reversed, MATLAB_class attributes, the text header in the user block.
+with h5py.File(d + "/export.mat", "w", userblock_size=512) as f:
+    ds = f.create_dataset("fringes", data=np.ascontiguousarray(a.transpose(0, 2, 1)))
+    ds.attrs["MATLAB_class"] = np.bytes_("uint16")
+    w = f.create_dataset("wavelength_nm", data=wl.reshape(-1, 1))
+    w.attrs["MATLAB_class"] = np.bytes_("double")
+with open(d + "/export.mat", "r+b") as f:
+    f.write(b"MATLAB 7.3 MAT-file, Platform: GLNXA64, Created on: Sat Dec  5 00:00:00 2026 HDF5 schema 1.00 .".ljust(116) + b"\x00" * 8 + b"\x00\x02IM")
 with open(d + "/wavelength-um.csv", "w") as f:
     f.write("pixel,wavelength_um\n")
     for p, v in enumerate(wl):
@@ -77,6 +87,8 @@ fn every_format_gives_the_hdf5_volume_byte_for_byte() {
         ("plain.bin", raw("")),
         ("headers.bin", raw("file_header_bytes = 100\nframe_header_bytes = 16\naline_header_bytes = 8\nframes = 3\n")),
         ("c.npy", format!("[input]\nwavelength_file = \"{}\"\nwavelength_unit = \"um\"\n", wl_um.display())),
+        // axes in the order MATLAB shows the array.
+        ("export.mat", "[input]\nfringes = \"/fringes\"\naxes = [\"aline\", \"pixel\", \"frame\"]\n".to_string()),
     ];
     let mut volumes = Vec::new();
     for (i, (file, input)) in cases.iter().enumerate() {
@@ -87,9 +99,16 @@ fn every_format_gives_the_hdf5_volume_byte_for_byte() {
         let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join(&stem).join("log.json")).unwrap()).unwrap();
         // The log names the format and where the map came from.
         let format = log["input"]["format"].as_str().unwrap_or_default().to_string();
-        assert!(format.starts_with(if file.ends_with(".npy") { "NumPy .npy" } else { "raw binary" }), "{file}: {format}");
-        assert_eq!(log["input"]["wavelength_map"]["kind"], "file", "{file}");
-        assert!(log["input"]["wavelength_map"]["file_hash"].as_str().unwrap().starts_with("sha256:"));
+        let expected = match Path::new(file).extension().and_then(|e| e.to_str()) {
+            Some("npy") => "NumPy .npy",
+            Some("mat") => "MATLAB v7.3",
+            _ => "raw binary",
+        };
+        assert!(format.starts_with(expected), "{file}: {format}");
+        if !file.ends_with(".mat") {
+            assert_eq!(log["input"]["wavelength_map"]["kind"], "file", "{file}");
+            assert!(log["input"]["wavelength_map"]["file_hash"].as_str().unwrap().starts_with("sha256:"));
+        }
         assert_eq!(log["input"]["frames"], 3);
         volumes.push(out.join(stem).join("volume.h5"));
     }
@@ -126,6 +145,10 @@ fn bad_descriptions_fail_with_one_line_naming_the_problem() {
         assert!(err.contains(needle), "case {i}: expected {needle:?} in {err}");
         assert!(!out.join(Path::new(file).file_stem().unwrap()).join("volume.h5").exists(), "case {i}: an output was written");
     }
+    // A MATLAB file whose axes are not given: the hint speaks MATLAB's order.
+    let o = run(d, &[&d.join("export.mat")], "", &d.join("bad-mat"));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("set `axes = [\"aline\", \"pixel\", \"frame\"]` (in MATLAB's order)"), "{err}");
     // An unknown sample type is a settings error (exit 2).
     let o = run(d, &[&d.join("plain.bin")], "[input]\nsample_type = \"u12\"\npixels = 512\nalines_per_frame = 32\n", &d.join("bad-type"));
     assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));

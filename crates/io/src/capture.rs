@@ -227,6 +227,14 @@ fn open_hdf5_with(path: &Path, chunk_cache: Option<(usize, usize)>) -> Result<hd
     })
 }
 
+/// Whether the file is a MATLAB v7.3 MAT-file (its 128-byte text header,
+/// then HDF5 after the 512-byte user block).
+fn is_matlab(path: &Path) -> bool {
+    use std::io::Read;
+    let mut head = [0u8; 19];
+    std::fs::File::open(path).and_then(|mut f| f.read_exact(&mut head)).is_ok() && &head == b"MATLAB 7.3 MAT-file"
+}
+
 /// The first line of an HDF5 error message.
 fn concise_detail(detail: &str) -> String {
     detail.lines().next().unwrap_or(detail).trim().to_string()
@@ -283,13 +291,20 @@ fn dataset_hint(file: &hdf5::File) -> String {
 /// (MATLAB, Fortran) array of (pixel, A-line, frame), the full reversal of
 /// (frame, A-line, pixel); spectra in the middle means one (pixel × A-line)
 /// image per frame. The alternative order is named too.
-fn transposed_hint(shape: &[usize], axes: &[AxisName], map_len: Option<usize>) -> String {
+fn transposed_hint(shape: &[usize], axes: &[AxisName], map_len: Option<usize>, matlab: bool) -> String {
     let pixel_axis = match map_len {
         Some(n) => shape.iter().position(|&s| s == n),
         None => shape.iter().enumerate().max_by_key(|(_, s)| **s).map(|(i, _)| i),
     };
     let Some(p) = pixel_axis.filter(|&p| axes.get(p) != Some(&AxisName::Pixel)) else { return String::new() };
-    let list = |order: &[&str]| order.iter().map(|a| format!("\"{a}\"")).collect::<Vec<_>>().join(", ");
+    // For a MATLAB file, in the order MATLAB shows the array (reversed).
+    let list = |order: &[&str]| {
+        let mut o: Vec<&str> = order.to_vec();
+        if matlab {
+            o.reverse();
+        }
+        o.iter().map(|a| format!("\"{a}\"")).collect::<Vec<_>>().join(", ")
+    };
     let (likely, other): (Vec<&str>, Option<Vec<&str>>) = match (shape.len(), p) {
         (3, 0) => (vec!["pixel", "aline", "frame"], Some(vec!["pixel", "frame", "aline"])),
         (3, 1) => (vec!["frame", "pixel", "aline"], Some(vec!["aline", "pixel", "frame"])),
@@ -298,6 +313,11 @@ fn transposed_hint(shape: &[usize], axes: &[AxisName], map_len: Option<usize>) -
         _ => (vec!["aline", "pixel"], None),
     };
     let alternative = other.map_or_else(String::new, |o| format!(" (or `axes = [{}]` if the other two axes are the other way round)", list(&o)));
+    if matlab {
+        let shown: Vec<usize> = shape.iter().rev().copied().collect();
+        let dim = shape.len() - p;
+        return format!("; the MATLAB array of size {shown:?} looks transposed (spectra along dimension {dim}): set `axes = [{}]` (in MATLAB's order) in the pipeline's [input] section{alternative}", list(&likely));
+    }
     format!("; the layout {shape:?} looks transposed (spectra along axis {p}): set `axes = [{}]` in the pipeline's [input] section{alternative}", list(&likely))
 }
 
@@ -409,7 +429,12 @@ pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, p
                     input.wavelength
                 )
             })?;
-            let map = read_f64(&ds).with_context(|| format!("reading '{}'", input.wavelength))?;
+            let mut map = read_f64(&ds).with_context(|| format!("reading '{}'", input.wavelength))?;
+            // A vector kept as a 1×N or N×1 matrix (as MATLAB stores one).
+            if map.ndim() == 2 && map.shape().contains(&1) {
+                let n = map.len();
+                map = map.into_shape_with_order(ndarray::IxDyn(&[n]))?;
+            }
             if map.ndim() != 1 {
                 bail!("wavelength map '{}' has rank {}, expected 1", input.wavelength, map.ndim());
             }
@@ -432,7 +457,7 @@ pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, p
         bail!(
             "wavelength map {source_name} has {} values but the fringes have {pixels} pixels{}",
             wavelength_nm.len(),
-            transposed_hint(shape, axes, Some(wavelength_nm.len()))
+            transposed_hint(shape, axes, Some(wavelength_nm.len()), input.matlab_order)
         );
     }
     check_wavelength_map(&wavelength_nm, pixels, &source_name)?;
@@ -514,6 +539,16 @@ impl Capture {
 
     /// An HDF5 capture.
     fn open_hdf5(path: &Path, input: &CaptureLayout) -> Result<Self> {
+        // A MATLAB v7.3 file: `axes` is given in MATLAB's order (reversed).
+        let matlab = is_matlab(path);
+        let mut given = input.clone();
+        if matlab {
+            given.matlab_order = true;
+            if let Some(a) = &mut given.axes {
+                a.reverse();
+            }
+        }
+        let input = &given;
         let file = open_hdf5(path)?;
         let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)))?;
         let shape = fringes.shape();
@@ -526,7 +561,7 @@ impl Capture {
             bail!("dataset '{}' is empty (shape {:?})", input.fringes, shape);
         }
         if pixels < 16 {
-            bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16{}", input.fringes, transposed_hint(&shape, &axes, None));
+            bail!("dataset '{}' has {pixels} pixels per spectrum, expected at least 16{}", input.fringes, transposed_hint(&shape, &axes, None, input.matlab_order));
         }
         // One frame is read whole (as f64 on the reference path).
         super::memory::check_fits(&format!("one frame of dataset '{}' ({alines} A-lines × {pixels} pixels)", input.fringes), alines as u64 * pixels as u64, 8)?;
@@ -562,7 +597,7 @@ impl Capture {
             path: path.to_path_buf(),
             source: Source::Hdf5 { file, fringes },
             format: FileFormat::Hdf5,
-            format_detail: None,
+            format_detail: matlab.then(|| "MATLAB v7.3 MAT-file (HDF5 after a 512-byte user block)".to_string()),
             fringes_path: input.fringes.clone(),
             shape,
             axes,

@@ -38,6 +38,9 @@ pub struct CaptureLayout {
     /// Nanometres per unit of the wavelength map in the capture or a map
     /// file (1 for nm, 1000 for µm, 1e9 for m).
     pub wavelength_unit_nm: f64,
+    /// Set when opening a MATLAB v7.3 file: `axes` and the layout hints
+    /// speak the order MATLAB shows the array in (the stored order reversed).
+    pub matlab_order: bool,
 }
 
 /// A capture's file format.
@@ -89,6 +92,7 @@ impl Default for CaptureLayout {
             format: None,
             raw: RawLayout::default(),
             wavelength_unit_nm: 1.0,
+            matlab_order: false,
         }
     }
 }

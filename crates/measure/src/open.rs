@@ -67,6 +67,7 @@ pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
             Some(config::WavelengthUnit::Um) => 1e3,
             Some(config::WavelengthUnit::M) => 1e9,
         },
+        matlab_order: false,
     })
 }
 
