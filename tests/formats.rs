@@ -17,6 +17,9 @@ src, d = sys.argv[1], sys.argv[2]
 with h5py.File(src, "r") as f:
     a = f["/fringes"][...]
     wl = f["/wavelength_nm"][...]
+    bg = f["/background"][...]
+np.save(d + "/background.npy", bg)
+np.savetxt(d + "/background.txt", bg, fmt="%.17g")
 assert a.dtype == np.uint16 and a.ndim == 3
 np.save(d + "/c.npy", a)
 np.save(d + "/fortran.npy", np.asfortranarray(a))
@@ -153,4 +156,38 @@ fn bad_descriptions_fail_with_one_line_naming_the_problem() {
     let o = run(d, &[&d.join("plain.bin")], "[input]\nsample_type = \"u12\"\npixels = 512\nalines_per_frame = 32\n", &d.join("bad-type"));
     assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(String::from_utf8_lossy(&o.stderr).contains("input.sample_type: \"u12\" is not a sample type"));
+}
+
+/// The background from a file (`.npy` rows, text rows) gives what the
+/// capture's own background dataset gives; scan facts given in `[input]`
+/// are used and the log names them.
+#[test]
+fn background_file_and_scan_facts_from_the_pipeline() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let (h5, _) = simulate_scene(d, "sample", &small_scene(400.0, 2, 64, 1024));
+    python(WRITE, &[&h5, d]);
+    let recorded = "[background]\nmethod = \"recorded\"\n";
+    run_ok(d, &[&h5], recorded, &d.join("out-h5"));
+    let mut volumes = Vec::new();
+    for (i, bg) in ["background.npy", "background.txt"].iter().enumerate() {
+        let pipeline = format!(
+            "{recorded}[input]\nwavelength_file = \"{}\"\nbackground_file = \"{}\"\naline_period_us = 12.5\nframe_spacing_um = 3.0\nfull_scale = 4095\n",
+            d.join("wavelength.txt").display(),
+            d.join(bg).display()
+        );
+        let out = d.join(format!("out-{i}"));
+        run_ok(d, &[&d.join("c.npy")], &pipeline, &out);
+        let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("c/log.json")).unwrap()).unwrap();
+        assert!(log["input"]["background_file"]["file_hash"].as_str().unwrap().starts_with("sha256:"));
+        assert!(log["input"]["has_background"].as_bool().unwrap());
+        assert_eq!(log["input"]["scan"]["aline_period_us"], 12.5);
+        assert_eq!(log["input"]["scan"]["frame_spacing_um"], 3.0);
+        assert_eq!(log["input"]["full_scale"], 4095.0);
+        assert_eq!(log["input"]["given_by_pipeline"], serde_json::json!(["aline_period_us", "frame_spacing_um", "full_scale"]));
+        volumes.push(out.join("c/volume.h5"));
+    }
+    let reference = d.join("out-h5/sample/volume.h5");
+    let report = python(COMPARE, &[&reference, &volumes[0], &volumes[1]]);
+    assert_eq!(report.lines().filter(|l| l.ends_with(" same")).count(), 2, "{report}");
 }

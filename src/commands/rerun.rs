@@ -132,17 +132,20 @@ fn check_inputs(log: &serde_json::Value, input: &Path, sha: &str) -> Result<(), 
         Ok((false, h)) => return Err(fail(1, format!("{}: its hash is {h}, the log recorded {sha}: not the same input", input.display()))),
         Err(e) => return Err(fail(1, format!("{}: {e}", input.display()))),
     }
-    // The wavelength calibration file must be the one the log recorded: its
-    // path is in the pipeline (and its hash), its content only here.
-    if let (Some(path), Some(recorded_cal)) = (log["input"]["wavelength_map"]["path"].as_str(), log["input"]["wavelength_map"]["file_hash"].as_str()) {
+    // The wavelength calibration (or map) file and the background file must
+    // be the ones the log recorded: their paths are in the pipeline, their
+    // content only here.
+    for (record, what) in [(&log["input"]["wavelength_map"], "the wavelength map"), (&log["input"]["background_file"], "the background")] {
+        let (Some(path), Some(recorded_file)) = (record["path"].as_str(), record["file_hash"].as_str()) else { continue };
+        let kind = if record["kind"] == "calibration" { "calibration file" } else { "file" };
         match std::fs::read(path) {
             Ok(bytes) => {
                 let now = format!("sha256:{}", fringeflow::io::hash::sha256_hex(&bytes));
-                if now != recorded_cal {
-                    return Err(fail(1, format!("calibration file {path}: its hash is {now}, the log recorded {recorded_cal}: the wavelength map changed since the run, so a rerun would not reproduce it")));
+                if now != recorded_file {
+                    return Err(fail(1, format!("{kind} {path}: its hash is {now}, the log recorded {recorded_file}: {what} changed since the run, so a rerun would not reproduce it")));
                 }
             }
-            Err(e) => return Err(fail(1, format!("calibration file {path}: {e}"))),
+            Err(e) => return Err(fail(1, format!("{kind} {path}: {e}"))),
         }
     }
     Ok(())

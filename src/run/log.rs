@@ -36,9 +36,23 @@ pub struct InputInfo {
     /// order (`dtype` is the type its frames are held in).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub format: Option<String>,
+    /// The background file used instead of the capture's dataset.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub background_file: Option<FileRecord>,
+    /// Scan facts and the full scale given by the pipeline's `[input]`
+    /// over what the file records.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub given_by_pipeline: Vec<String>,
     /// Scan attributes of the fringes (A-line period, spacings), when recorded.
     #[serde(skip_serializing_if = "ScanAttributes::is_empty")]
     pub scan: ScanAttributes,
+}
+
+/// A file the run read besides the capture.
+#[derive(Debug, Clone, Serialize)]
+pub struct FileRecord {
+    pub path: String,
+    pub file_hash: String,
 }
 
 /// The version of log.json's layout (1: before it was recorded; 3: Doppler λ0

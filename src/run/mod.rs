@@ -409,6 +409,8 @@ fn write_log(input: &Path, opened: &Opened, planned: &Planned, config: &Pipeline
             full_scale: capture.full_scale,
             wavelength_map: capture.wavelength_source.clone(),
             format: capture.format_detail.clone(),
+            background_file: capture.background_file.clone().map(|(path, file_hash)| FileRecord { path, file_hash }),
+            given_by_pipeline: capture.given_by_pipeline.clone(),
             has_background: capture.background.is_some(),
             scan: capture.scan.clone(),
         },

@@ -43,7 +43,7 @@ pub(super) fn open(input: &Path, config: &PipelineConfig, out_root: &Path, ctx: 
         p.set_length(capture.frames as u64);
     }
     if ctx.resume {
-        if let Some(digest) = up_to_date(&out_root.join(&name), input, sha_now.as_deref().unwrap_or(""), &pipeline_sha256, &capture.wavelength_source) {
+        if let Some(digest) = up_to_date(&out_root.join(&name), input, sha_now.as_deref().unwrap_or(""), &pipeline_sha256, &capture) {
             return Ok(Opening::UpToDate(capture.frames, capture.alines, digest));
         }
     }

@@ -61,7 +61,7 @@ pub fn would_skip(input: &Path, config: &PipelineConfig, out_root: &Path, resume
         return Ok(false);
     }
     let sha = hash::input_hash_with(input, hash_algorithm(config)).with_context(|| format!("hashing {}", input.display()))?;
-    Ok(up_to_date(&out_root.join(&name), input, &sha, &config.sha256(), &capture.wavelength_source).is_some())
+    Ok(up_to_date(&out_root.join(&name), input, &sha, &config.sha256(), &capture).is_some())
 }
 
 /// The digest `[output] input_hash` asks for.
@@ -77,7 +77,8 @@ pub fn hash_algorithm(config: &PipelineConfig) -> hash::HashAlgorithm {
 /// also means the same wavelength map: the same calibration file content
 /// (its digest, which the pipeline hash, naming only the path, does not
 /// cover). Returns the digest that decided (the log's), when up to date.
-pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str, map: &crate::io::capture::WavelengthSource) -> Option<hash::HashAlgorithm> {
+pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &str, capture: &crate::io::capture::Capture) -> Option<hash::HashAlgorithm> {
+    let map = &capture.wavelength_source;
     let bytes = std::fs::read(dir.join("log.json")).ok()?;
     let log = serde_json::from_slice::<serde_json::Value>(&bytes).ok()?;
     let recorded = log["input_hash"].as_str().or_else(|| log["input"]["sha256"].as_str()).unwrap_or("");
@@ -86,8 +87,10 @@ pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &
         crate::io::capture::WavelengthSource::Calibration { file_hash, .. } | crate::io::capture::WavelengthSource::File { file_hash, .. } => log["input"]["wavelength_map"]["file_hash"].as_str() == Some(file_hash.as_str()),
         _ => true,
     };
+    let same_background = log["input"]["background_file"]["file_hash"].as_str() == capture.background_file.as_ref().map(|(_, h)| h.as_str());
     (same
         && same_map
+        && same_background
         && log["pipeline_sha256"] == pipeline_sha256
         && log["outputs"].as_array().is_some_and(|o| o.iter().all(|n| n.as_str().is_some_and(|n| dir.join(n).is_file()))))
     .then(|| hash::HashAlgorithm::of(recorded))

@@ -125,6 +125,12 @@ pub struct Capture {
     /// Scan timing and geometry from attributes of the fringe dataset, when
     /// the capture records them.
     pub scan: ScanAttributes,
+    /// Scan facts and the full scale given by the pipeline instead of the
+    /// file (their key names).
+    pub given_by_pipeline: Vec<String>,
+    /// The background file used instead of the capture's dataset: its path
+    /// and "sha256:<hex>".
+    pub background_file: Option<(String, String)>,
 }
 
 /// Optional attributes of the fringe dataset that describe the scan.
@@ -610,6 +616,8 @@ impl Capture {
             dataset_wavelength_nm,
             background,
             full_scale,
+            given_by_pipeline: Vec::new(),
+            background_file: None,
         })
     }
 

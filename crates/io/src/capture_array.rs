@@ -105,6 +105,8 @@ fn finish(path: &Path, input: &CaptureLayout, file: ArrayFile, format: FileForma
         background: None,
         full_scale: stored.integer_max(),
         scan: ScanAttributes::default(),
+        given_by_pipeline: Vec::new(),
+        background_file: None,
     })
 }
 

@@ -21,6 +21,65 @@ pub fn read_map_file(path: &Path, pixels: usize) -> Result<(Vec<f64>, String)> {
     Ok((values, digest))
 }
 
+/// Background spectra from a file: a `.npy` vector or (spectra × pixels)
+/// matrix, or text with one spectrum per row (or a single column); their
+/// mean per pixel and "sha256:<hex>" of the file.
+pub fn read_background_file(path: &Path, pixels: usize) -> Result<(Vec<f64>, String)> {
+    let bytes = std::fs::read(path).with_context(|| format!("background file {}", path.display()))?;
+    let digest = format!("sha256:{}", crate::hash::sha256_hex(&bytes));
+    let (rows, cols, values) = if bytes.starts_with(crate::array_file::NPY_MAGIC) {
+        let h = read_npy_header(path)?;
+        let (rows, cols) = match h.shape.as_slice() {
+            [n] => (1, *n),
+            [r, c] => (*r, *c),
+            s => bail!("background file {}: shape {s:?}, expected (pixels,) or (spectra, pixels)", path.display()),
+        };
+        let strides = dimension_strides(&[rows, cols], h.stored.size, h.fortran_order);
+        let layout = ByteLayout { base: h.data_offset, frame: 0, aline: strides[0], pixel: strides[1] };
+        let a = ArrayFile::open(path, h.stored, layout, (1, rows, cols))?;
+        (rows, cols, as_f64(a.read_frame(0)?))
+    } else {
+        let text = std::str::from_utf8(&bytes).with_context(|| format!("background file {}: neither .npy nor text", path.display()))?;
+        let mut rows = Vec::new();
+        for (i, line) in text.lines().enumerate() {
+            let line = line.split('#').next().unwrap_or("").trim();
+            if line.is_empty() {
+                continue;
+            }
+            let row = line.split(|c: char| c == ',' || c == ';' || c.is_whitespace()).filter(|s| !s.is_empty()).map(|s| s.parse::<f64>().ok().filter(|v| v.is_finite())).collect::<Option<Vec<f64>>>();
+            match row {
+                Some(r) => rows.push(r),
+                None => bail!("background file {} line {}: \"{line}\" holds something that is not a number", path.display(), i + 1),
+            }
+        }
+        // One value per line: a single spectrum written as a column.
+        if rows.iter().all(|r| r.len() == 1) {
+            rows = vec![rows.into_iter().flatten().collect()];
+        }
+        let cols = rows.first().map_or(0, Vec::len);
+        if rows.iter().any(|r| r.len() != cols) {
+            bail!("background file {}: rows of different lengths", path.display());
+        }
+        (rows.len(), cols, rows.into_iter().flatten().collect())
+    };
+    if cols != pixels || rows == 0 {
+        bail!("background file {}: {rows} spectra of {cols} values, but the fringes have {pixels} pixels", path.display());
+    }
+    let mean = (0..cols).map(|p| (0..rows).map(|r| values[r * cols + p]).sum::<f64>() / rows as f64).collect();
+    Ok((mean, digest))
+}
+
+fn as_f64(frame: RawFrame) -> Vec<f64> {
+    match frame {
+        RawFrame::U8(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::U16(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::I16(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::U32(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::F32(v) => v.iter().map(|&x| x as f64).collect(),
+        RawFrame::F64(v) => v.iter().copied().collect(),
+    }
+}
+
 /// A `.npy` vector, or a matrix with one dimension of 1.
 fn npy_vector(path: &Path) -> Result<Vec<f64>> {
     let h = read_npy_header(path)?;
@@ -32,14 +91,7 @@ fn npy_vector(path: &Path) -> Result<Vec<f64>> {
     let step = h.shape.iter().zip(&strides).find(|(&d, _)| d > 1).map_or(h.stored.size as u64, |(_, &s)| s);
     let layout = ByteLayout { base: h.data_offset, frame: 0, aline: 0, pixel: step };
     let a = ArrayFile::open(path, h.stored, layout, (1, 1, n))?;
-    Ok(match a.read_frame(0)? {
-        RawFrame::U8(v) => v.iter().map(|&x| x as f64).collect(),
-        RawFrame::U16(v) => v.iter().map(|&x| x as f64).collect(),
-        RawFrame::I16(v) => v.iter().map(|&x| x as f64).collect(),
-        RawFrame::U32(v) => v.iter().map(|&x| x as f64).collect(),
-        RawFrame::F32(v) => v.iter().map(|&x| x as f64).collect(),
-        RawFrame::F64(v) => v.iter().copied().collect(),
-    })
+    Ok(as_f64(a.read_frame(0)?))
 }
 
 /// One value per line, or (pixel, value) per line with the pixels in order

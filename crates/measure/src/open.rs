@@ -74,7 +74,37 @@ pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
 /// Opens and checks the capture at `path` as the pipeline's `[input]`
 /// settings describe it.
 pub fn open_capture(path: &Path, input: &InputConfig) -> Result<Capture> {
-    Capture::open(path, &capture_layout(input)?)
+    let mut capture = Capture::open(path, &capture_layout(input)?)?;
+    given_facts(&mut capture, input)?;
+    Ok(capture)
+}
+
+/// What the pipeline's `[input]` says of the scan, the full scale and the
+/// background, over what the file records (each key it gave is listed).
+fn given_facts(capture: &mut Capture, input: &InputConfig) -> Result<()> {
+    let scan = &mut capture.scan;
+    let given = [
+        ("aline_period_us", input.aline_period_us, &mut scan.aline_period_us),
+        ("frame_period_us", input.frame_period_us, &mut scan.frame_period_us),
+        ("frame_spacing_um", input.frame_spacing_um, &mut scan.frame_spacing_um),
+        ("repeats_per_position", input.repeats_per_position, &mut scan.repeats_per_position),
+    ];
+    for (key, value, slot) in given {
+        if let Some(v) = value {
+            *slot = Some(v);
+            capture.given_by_pipeline.push(key.to_string());
+        }
+    }
+    if let Some(fs) = input.full_scale {
+        capture.full_scale = Some(fs);
+        capture.given_by_pipeline.push("full_scale".into());
+    }
+    if let Some(path) = &input.background_file {
+        let (mean, digest) = crate::io::map_file::read_background_file(Path::new(path), capture.pixels)?;
+        capture.background = Some(mean);
+        capture.background_file = Some((path.clone(), digest));
+    }
+    Ok(())
 }
 
 /// A raw frame as the fast path takes it: a view in its recorded type.

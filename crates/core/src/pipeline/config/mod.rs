@@ -87,6 +87,26 @@ pub struct InputConfig {
     /// "nm" (default), "um" or "m".
     #[serde(skip_serializing_if = "Option::is_none")]
     pub wavelength_unit: Option<WavelengthUnit>,
+    /// Background spectra from a file (`.npy` or text: one spectrum, or one
+    /// per row), averaged per pixel; instead of the capture's dataset.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub background_file: Option<String>,
+    /// Time from one A-line to the next, µs (overrides the capture's).
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub aline_period_us: Option<f64>,
+    /// Time from one B-scan to the next, µs (overrides the capture's).
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub frame_period_us: Option<f64>,
+    /// Step between slow-axis positions, µm (overrides the capture's).
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub frame_spacing_um: Option<f64>,
+    /// B-scans recorded at each slow-axis position (overrides the capture's).
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub repeats_per_position: Option<f64>,
+    /// The detector's full scale in counts (overrides the capture's
+    /// attribute and the sample type's largest value).
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub full_scale: Option<f64>,
 }
 
 /// A capture's file format.
@@ -136,6 +156,12 @@ impl Default for InputConfig {
             aline_header_bytes: None,
             wavelength_file: None,
             wavelength_unit: None,
+            background_file: None,
+            aline_period_us: None,
+            frame_period_us: None,
+            frame_spacing_um: None,
+            repeats_per_position: None,
+            full_scale: None,
         }
     }
 }
@@ -452,7 +478,7 @@ impl PipelineConfig {
         // A relative calibration path is relative to the pipeline file; store
         // it absolute so the log alone is enough to rerun.
         let dir = path.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new(".")).to_path_buf();
-        for named in [&mut config.input.calibration, &mut config.input.wavelength_file] {
+        for named in [&mut config.input.calibration, &mut config.input.wavelength_file, &mut config.input.background_file] {
             if let Some(c) = named.as_ref().filter(|c| Path::new(c).is_relative()) {
                 let joined = dir.join(c);
                 let absolute = std::path::absolute(&joined).unwrap_or(joined);
