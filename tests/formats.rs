@@ -1,7 +1,8 @@
 //! Captures in the formats labs write: one simulated capture written by
 //! NumPy (C and Fortran order, big-endian, a MATLAB-like pixel-fastest
-//! Fortran array) and as raw binary (plain `tofile`, and with file, frame and
-//! A-line headers), each reconstructed and compared with the HDF5
+//! Fortran array), as raw binary (plain `tofile`, and with file, frame and
+//! A-line headers), as multi-page TIFF by tifffile (plain, deflate, pages
+//! transposed) and as MATLAB v7.3 writes HDF5, each reconstructed and compared with the HDF5
 //! original's volume by h5py (an independent reader): the same bytes.
 //! Wavelength maps from text files (one value per line; pixel and value
 //! columns in µm). Bad descriptions fail with one line naming the problem.
@@ -27,6 +28,10 @@ np.save(d + "/big.npy", a.astype(">u2"))
 # Pixel fastest, frame slowest, stored column-major: (pixels, alines, frames).
 np.save(d + "/pixel-first.npy", np.asfortranarray(a.transpose(2, 1, 0)))
 a.tofile(d + "/plain.bin")
+import tifffile
+tifffile.imwrite(d + "/pages.tif", a, photometric="minisblack")
+tifffile.imwrite(d + "/pages-deflate.tif", a, photometric="minisblack", compression="zlib")
+tifffile.imwrite(d + "/pages-transposed.tif", np.ascontiguousarray(a.transpose(0, 2, 1)), photometric="minisblack")
 rng = np.random.default_rng(7)
 with open(d + "/headers.bin", "wb") as f:
     f.write(rng.integers(0, 256, 100, dtype=np.uint8).tobytes())
@@ -90,6 +95,9 @@ fn every_format_gives_the_hdf5_volume_byte_for_byte() {
         ("plain.bin", raw("")),
         ("headers.bin", raw("file_header_bytes = 100\nframe_header_bytes = 16\naline_header_bytes = 8\nframes = 3\n")),
         ("c.npy", format!("[input]\nwavelength_file = \"{}\"\nwavelength_unit = \"um\"\n", wl_um.display())),
+        ("pages.tif", map.clone()),
+        ("pages-deflate.tif", map.clone()),
+        ("pages-transposed.tif", format!("{map}axes = [\"frame\", \"pixel\", \"aline\"]\n")),
         // axes in the order MATLAB shows the array.
         ("export.mat", "[input]\nfringes = \"/fringes\"\naxes = [\"aline\", \"pixel\", \"frame\"]\n".to_string()),
     ];
@@ -105,6 +113,7 @@ fn every_format_gives_the_hdf5_volume_byte_for_byte() {
         let expected = match Path::new(file).extension().and_then(|e| e.to_str()) {
             Some("npy") => "NumPy .npy",
             Some("mat") => "MATLAB v7.3",
+            Some("tif") => "multi-page TIFF",
             _ => "raw binary",
         };
         assert!(format.starts_with(expected), "{file}: {format}");

@@ -98,7 +98,7 @@ pub struct ArrayFile {
 impl ArrayFile {
     /// Opens `path` read-only; checks that every sample lies inside it.
     pub fn open(path: &Path, stored: StoredType, layout: ByteLayout, (frames, alines, pixels): (usize, usize, usize)) -> Result<Self> {
-        let file = File::open(path).with_context(|| format!("{}: cannot open", path.display()))?;
+        let file = File::open(path).with_context(|| format!("cannot open"))?;
         let len = file.metadata()?.len();
         let last = layout.base as u128
             + (frames.max(1) - 1) as u128 * layout.frame as u128
@@ -106,11 +106,11 @@ impl ArrayFile {
             + (pixels.max(1) - 1) as u128 * layout.pixel as u128
             + stored.size as u128;
         if last > len as u128 {
-            bail!("{}: the described array ends at byte {last} but the file has {len} bytes", path.display());
+            bail!("the described array ends at byte {last} but the file has {len} bytes");
         }
         let contiguous_rows = layout.pixel == stored.size as u64;
         // Rows not contiguous: gather through a read-only map.
-        let map = if contiguous_rows { None } else { Some(unsafe { memmap2::Mmap::map(&file) }.with_context(|| format!("{}: cannot map", path.display()))?) };
+        let map = if contiguous_rows { None } else { Some(unsafe { memmap2::Mmap::map(&file) }.with_context(|| format!("cannot map"))?) };
         Ok(ArrayFile { file, map, stored, layout, frames, alines, pixels })
     }
 
@@ -183,11 +183,11 @@ pub const NPY_MAGIC: &[u8] = b"\x93NUMPY";
 
 /// Reads and checks the header of a `.npy` file.
 pub fn read_npy_header(path: &Path) -> Result<NpyHeader> {
-    let file = File::open(path).with_context(|| format!("{}: cannot open", path.display()))?;
+    let file = File::open(path).with_context(|| format!("cannot open"))?;
     let mut head = [0u8; 12];
-    file.read_exact_at(&mut head[..10], 0).with_context(|| format!("{}: too short for a .npy file", path.display()))?;
+    file.read_exact_at(&mut head[..10], 0).with_context(|| format!("too short for a .npy file"))?;
     if &head[..6] != NPY_MAGIC {
-        bail!("{}: not a NumPy .npy file (no \\x93NUMPY signature)", path.display());
+        bail!("not a NumPy .npy file (no \\x93NUMPY signature)");
     }
     let (len, start) = match head[6] {
         1 => (u16::from_le_bytes([head[8], head[9]]) as usize, 10usize),
@@ -195,15 +195,15 @@ pub fn read_npy_header(path: &Path) -> Result<NpyHeader> {
             file.read_exact_at(&mut head[10..12], 10)?;
             (u32::from_le_bytes([head[8], head[9], head[10], head[11]]) as usize, 12usize)
         }
-        v => bail!("{}: .npy format version {v} is not one fringeflow reads (1, 2 or 3)", path.display()),
+        v => bail!(".npy format version {v} is not one fringeflow reads (1, 2 or 3)"),
     };
     if len > 1 << 20 {
-        bail!("{}: .npy header of {len} bytes is implausible", path.display());
+        bail!(".npy header of {len} bytes is implausible");
     }
     let mut text = vec![0u8; len];
-    file.read_exact_at(&mut text, start as u64).with_context(|| format!("{}: the .npy header is cut short", path.display()))?;
+    file.read_exact_at(&mut text, start as u64).with_context(|| format!("the .npy header is cut short"))?;
     let text = String::from_utf8_lossy(&text).into_owned();
-    parse_npy_dict(&text, (start + len) as u64).with_context(|| format!("{}: .npy header {}", path.display(), text.trim()))
+    parse_npy_dict(&text, (start + len) as u64).with_context(|| format!(".npy header {}", text.trim()))
 }
 
 /// The header dictionary: {'descr': '<u2', 'fortran_order': False, 'shape': (4, 64, 1024), }

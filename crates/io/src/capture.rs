@@ -188,6 +188,7 @@ fn positive_attr(ds: &Dataset, name: &str) -> Result<Option<f64>> {
 pub(crate) enum Source {
     Hdf5 { file: hdf5::File, fringes: Dataset },
     Array(crate::array_file::ArrayFile),
+    Tiff(crate::tiff_pages::TiffPages),
 }
 
 impl std::fmt::Debug for Capture {
@@ -540,6 +541,7 @@ impl Capture {
             FileFormat::Hdf5 => Self::open_hdf5(path, input),
             FileFormat::Npy => crate::capture_array::open_npy(path, input),
             FileFormat::Raw => crate::capture_array::open_raw(path, input),
+            FileFormat::Tiff => crate::capture_array::open_tiff(path, input),
         }
     }
 
@@ -627,6 +629,7 @@ impl Capture {
         let raw = match &self.source {
             Source::Hdf5 { fringes, .. } => self.read_hdf5_frame(fringes, index)?,
             Source::Array(a) => a.read_frame(index).with_context(|| format!("reading frame {index} of {}", self.path.display()))?,
+            Source::Tiff(t) => t.read_frame(index).with_context(|| format!("reading frame {index} of {}", self.path.display()))?,
         };
         let saturated = self.check_frame(&raw, index)?;
         Ok((raw, saturated))
@@ -735,7 +738,7 @@ impl Capture {
     pub fn file(&self) -> Option<&hdf5::File> {
         match &self.source {
             Source::Hdf5 { file, .. } => Some(file),
-            Source::Array(_) => None,
+            Source::Array(_) | Source::Tiff(_) => None,
         }
     }
 }

@@ -27,6 +27,9 @@ pub fn detect_format(path: &Path, input: &CaptureLayout) -> Result<FileFormat> {
     if head.starts_with(NPY_MAGIC) {
         return Ok(FileFormat::Npy);
     }
+    if crate::tiff_pages::is_tiff(&head) {
+        return Ok(FileFormat::Tiff);
+    }
     if input.raw.sample_type.is_some() {
         return Ok(FileFormat::Raw);
     }
@@ -84,18 +87,24 @@ fn axes_for(input: &CaptureLayout, rank: usize, what: &str) -> Result<Vec<AxisNa
 #[allow(clippy::too_many_arguments)]
 fn finish(path: &Path, input: &CaptureLayout, file: ArrayFile, format: FileFormat, detail: String, shape: Vec<usize>, axes: Vec<AxisName>) -> Result<Capture> {
     let (frames, alines, pixels) = (file.frames, file.alines, file.pixels);
-    crate::memory::check_fits(&format!("one frame of {} ({alines} A-lines × {pixels} pixels)", path.display()), alines as u64 * pixels as u64, 8)?;
-    let (wavelength_nm, wavelength_source, dataset_wavelength_nm) = wavelength_map(None, input, pixels, &shape, &axes)?;
     let stored = file.stored;
+    finish_with(path, input, Source::Array(file), (held_type(stored), stored.integer_max()), (format, detail), (frames, alines, pixels), shape, axes)
+}
+
+/// A capture from a frame source, its held sample type and full scale.
+#[allow(clippy::too_many_arguments)]
+fn finish_with(path: &Path, input: &CaptureLayout, source: Source, (sample_type, full_scale): (SampleType, Option<f64>), (format, detail): (FileFormat, String), (frames, alines, pixels): (usize, usize, usize), shape: Vec<usize>, axes: Vec<AxisName>) -> Result<Capture> {
+    crate::memory::check_fits(&format!("one frame ({alines} A-lines × {pixels} pixels)"), alines as u64 * pixels as u64, 8)?;
+    let (wavelength_nm, wavelength_source, dataset_wavelength_nm) = wavelength_map(None, input, pixels, &shape, &axes)?;
     Ok(Capture {
         path: path.to_path_buf(),
-        source: Source::Array(file),
+        source,
         format,
         format_detail: Some(detail),
         fringes_path: path.file_name().map_or_else(String::new, |n| n.to_string_lossy().into_owned()),
         shape,
         axes,
-        sample_type: held_type(stored),
+        sample_type,
         frames,
         alines,
         pixels,
@@ -103,7 +112,7 @@ fn finish(path: &Path, input: &CaptureLayout, file: ArrayFile, format: FileForma
         wavelength_source,
         dataset_wavelength_nm,
         background: None,
-        full_scale: stored.integer_max(),
+        full_scale,
         scan: ScanAttributes::default(),
         given_by_pipeline: Vec::new(),
         background_file: None,
@@ -115,7 +124,7 @@ fn finish(path: &Path, input: &CaptureLayout, file: ArrayFile, format: FileForma
 /// order NumPy shows the shape.
 pub fn open_npy(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     let h = read_npy_header(path)?;
-    let what = format!("{} (NumPy array of shape {:?})", path.display(), h.shape);
+    let what = format!("the NumPy array of shape {:?}", h.shape);
     let axes = axes_for(input, h.shape.len(), &what)?;
     let dims = logical_dims(&h.shape, &axes, &what)?;
     let strides = dimension_strides(&h.shape, h.stored.size, h.fortran_order);
@@ -161,9 +170,9 @@ pub fn open_raw(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     }
     let aline_bytes = r.aline_header_bytes + pixels as u64 * size;
     let frame_bytes = r.frame_header_bytes + alines as u64 * aline_bytes;
-    let len = std::fs::metadata(path).with_context(|| format!("{}: cannot read", path.display()))?.len();
+    let len = std::fs::metadata(path).with_context(|| format!("cannot read"))?.len();
     if r.file_header_bytes > len {
-        bail!("{}: input.file_header_bytes = {} but the file has only {len} bytes", path.display(), r.file_header_bytes);
+        bail!("input.file_header_bytes = {} but the file has only {len} bytes", r.file_header_bytes);
     }
     let data = len - r.file_header_bytes;
     let whole = data / frame_bytes;
@@ -172,8 +181,7 @@ pub fn open_raw(path: &Path, input: &CaptureLayout) -> Result<Capture> {
         None => {
             if whole == 0 || data % frame_bytes != 0 {
                 bail!(
-                    "{}: {len} bytes do not hold whole frames of {frame_bytes} bytes after a {}-byte header ({whole} frames and {} bytes over); check pixels, alines_per_frame, sample_type and the header sizes",
-                    path.display(),
+                    "{len} bytes do not hold whole frames of {frame_bytes} bytes after a {}-byte header ({whole} frames and {} bytes over); check pixels, alines_per_frame, sample_type and the header sizes",
                     r.file_header_bytes,
                     data % frame_bytes
                 );
@@ -184,7 +192,7 @@ pub fn open_raw(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     let needed = r.file_header_bytes + frames as u64 * frame_bytes;
     if needed != len {
         let (how, by) = if needed > len { ("short by", needed - len) } else { ("longer by", len - needed) };
-        bail!("{}: the description ({frames} frames of {frame_bytes} bytes after a {}-byte header) needs {needed} bytes; the file has {len}, {how} {by} bytes; it would hold {whole} whole frames", path.display(), r.file_header_bytes);
+        bail!("the description ({frames} frames of {frame_bytes} bytes after a {}-byte header) needs {needed} bytes; the file has {len}, {how} {by} bytes; it would hold {whole} whole frames", r.file_header_bytes);
     }
     let layout = if natural {
         ByteLayout { base: r.file_header_bytes + r.frame_header_bytes + r.aline_header_bytes, frame: frame_bytes, aline: aline_bytes, pixel: size }
@@ -216,4 +224,33 @@ pub fn open_raw(path: &Path, input: &CaptureLayout) -> Result<Capture> {
         r.aline_header_bytes
     );
     finish(path, input, file, FileFormat::Raw, detail, shape, axes)
+}
+
+/// A multi-page TIFF, one frame per page: rows are A-lines and columns
+/// pixels, or the other way round with `axes = ["frame", "pixel", "aline"]`.
+pub fn open_tiff(path: &Path, input: &CaptureLayout) -> Result<Capture> {
+    let transposed = match input.axes.as_deref() {
+        None => false,
+        Some([AxisName::Frame, AxisName::Aline, AxisName::Pixel]) => false,
+        Some([AxisName::Frame, AxisName::Pixel, AxisName::Aline]) => true,
+        Some(other) => bail!("input.axes = {other:?}: a TIFF holds one frame per page, so the axes are [\"frame\", \"aline\", \"pixel\"] (rows are A-lines) or [\"frame\", \"pixel\", \"aline\"] (rows are pixels)"),
+    };
+    let pages = crate::tiff_pages::TiffPages::open(path, transposed)?;
+    let (alines, pixels) = pages.frame_shape();
+    let frames = pages.frames;
+    let shape = vec![frames, pages.rows, pages.cols];
+    let axes = if transposed { vec![AxisName::Frame, AxisName::Pixel, AxisName::Aline] } else { vec![AxisName::Frame, AxisName::Aline, AxisName::Pixel] };
+    logical_dims(&shape, &axes, &format!("the TIFF of {frames} pages of {}×{}", pages.cols, pages.rows))?;
+    // The held type from the first page.
+    let first = pages.read_frame(0).with_context(|| format!("reading page 0"))?;
+    let sample_type = match first {
+        crate::capture::RawFrame::U8(_) => SampleType::U8,
+        crate::capture::RawFrame::U16(_) => SampleType::U16,
+        crate::capture::RawFrame::I16(_) => SampleType::I16,
+        crate::capture::RawFrame::U32(_) => SampleType::U32,
+        crate::capture::RawFrame::F32(_) => SampleType::F32,
+        crate::capture::RawFrame::F64(_) => SampleType::F64,
+    };
+    let detail = format!("multi-page TIFF, {} pages of {} × {} ({}), {}", frames, pages.cols, pages.rows, pages.sample, if transposed { "rows are pixels" } else { "rows are A-lines" });
+    finish_with(path, input, Source::Tiff(pages), (sample_type, sample_type.integer_max()), (FileFormat::Tiff, detail), (frames, alines, pixels), shape, axes)
 }

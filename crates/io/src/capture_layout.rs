@@ -50,6 +50,7 @@ pub enum FileFormat {
     Hdf5,
     Npy,
     Raw,
+    Tiff,
 }
 
 /// A headerless raw file: sample type and byte order, the frame's shape,

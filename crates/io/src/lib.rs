@@ -14,6 +14,7 @@ pub mod map_file;
 pub mod ome_tiff;
 pub mod png;
 pub mod staging;
+pub mod tiff_pages;
 pub mod toml_file;
 pub mod volume;
 

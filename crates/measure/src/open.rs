@@ -51,6 +51,7 @@ pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
             config::CaptureFormat::Hdf5 => FileFormat::Hdf5,
             config::CaptureFormat::Npy => FileFormat::Npy,
             config::CaptureFormat::Raw => FileFormat::Raw,
+            config::CaptureFormat::Tiff => FileFormat::Tiff,
         }),
         raw: RawLayout {
             sample_type: input.sample_type.clone(),
