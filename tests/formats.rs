@@ -20,6 +20,8 @@ with h5py.File(src, "r") as f:
     wl = f["/wavelength_nm"][...]
     bg = f["/background"][...]
 np.save(d + "/background.npy", bg)
+np.savez(d + "/archive.npz", fringes=a, wavelength_nm=wl, background=bg)
+np.savez_compressed(d + "/packed.npz", fringes=a, wavelength_nm=wl)
 np.savetxt(d + "/background.txt", bg, fmt="%.17g")
 assert a.dtype == np.uint16 and a.ndim == 3
 np.save(d + "/c.npy", a)
@@ -196,7 +198,18 @@ fn background_file_and_scan_facts_from_the_pipeline() {
         assert_eq!(log["input"]["given_by_pipeline"], serde_json::json!(["aline_period_us", "frame_spacing_um", "full_scale"]));
         volumes.push(out.join("c/volume.h5"));
     }
+    // An uncompressed .npz with the fringes, map and background inside:
+    // nothing to declare.
+    run_ok(d, &[&d.join("archive.npz")], recorded, &d.join("out-npz"));
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(d.join("out-npz/archive/log.json")).unwrap()).unwrap();
+    assert!(log["input"]["format"].as_str().unwrap().starts_with("NumPy .npz array 'fringes'"), "{}", log["input"]["format"]);
+    assert_eq!(log["input"]["wavelength_map"]["path"], "wavelength_nm (in the archive)");
+    volumes.push(d.join("out-npz/archive/volume.h5"));
     let reference = d.join("out-h5/sample/volume.h5");
-    let report = python(COMPARE, &[&reference, &volumes[0], &volumes[1]]);
-    assert_eq!(report.lines().filter(|l| l.ends_with(" same")).count(), 2, "{report}");
+    let report = python(COMPARE, &[&reference, &volumes[0], &volumes[1], &volumes[2]]);
+    assert_eq!(report.lines().filter(|l| l.ends_with(" same")).count(), 3, "{report}");
+    // A compressed archive is refused with the way forward.
+    let o = run(d, &[&d.join("packed.npz")], "", &d.join("out-packed"));
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("is compressed (numpy.savez_compressed)"), "{}", String::from_utf8_lossy(&o.stderr));
 }

@@ -98,7 +98,7 @@ pub struct ArrayFile {
 impl ArrayFile {
     /// Opens `path` read-only; checks that every sample lies inside it.
     pub fn open(path: &Path, stored: StoredType, layout: ByteLayout, (frames, alines, pixels): (usize, usize, usize)) -> Result<Self> {
-        let file = File::open(path).with_context(|| format!("cannot open"))?;
+        let file = File::open(path).context("cannot open")?;
         let len = file.metadata()?.len();
         let last = layout.base as u128
             + (frames.max(1) - 1) as u128 * layout.frame as u128
@@ -110,7 +110,7 @@ impl ArrayFile {
         }
         let contiguous_rows = layout.pixel == stored.size as u64;
         // Rows not contiguous: gather through a read-only map.
-        let map = if contiguous_rows { None } else { Some(unsafe { memmap2::Mmap::map(&file) }.with_context(|| format!("cannot map"))?) };
+        let map = if contiguous_rows { None } else { Some(unsafe { memmap2::Mmap::map(&file) }.context("cannot map")?) };
         Ok(ArrayFile { file, map, stored, layout, frames, alines, pixels })
     }
 
@@ -183,16 +183,22 @@ pub const NPY_MAGIC: &[u8] = b"\x93NUMPY";
 
 /// Reads and checks the header of a `.npy` file.
 pub fn read_npy_header(path: &Path) -> Result<NpyHeader> {
-    let file = File::open(path).with_context(|| format!("cannot open"))?;
+    read_npy_header_at(path, 0)
+}
+
+/// The same for a `.npy` that starts `at` bytes into the file (an array of
+/// an uncompressed `.npz`).
+pub fn read_npy_header_at(path: &Path, at: u64) -> Result<NpyHeader> {
+    let file = File::open(path).context("cannot open")?;
     let mut head = [0u8; 12];
-    file.read_exact_at(&mut head[..10], 0).with_context(|| format!("too short for a .npy file"))?;
+    file.read_exact_at(&mut head[..10], at).context("too short for a .npy array")?;
     if &head[..6] != NPY_MAGIC {
         bail!("not a NumPy .npy file (no \\x93NUMPY signature)");
     }
     let (len, start) = match head[6] {
         1 => (u16::from_le_bytes([head[8], head[9]]) as usize, 10usize),
         2 | 3 => {
-            file.read_exact_at(&mut head[10..12], 10)?;
+            file.read_exact_at(&mut head[10..12], at + 10)?;
             (u32::from_le_bytes([head[8], head[9], head[10], head[11]]) as usize, 12usize)
         }
         v => bail!(".npy format version {v} is not one fringeflow reads (1, 2 or 3)"),
@@ -201,9 +207,9 @@ pub fn read_npy_header(path: &Path) -> Result<NpyHeader> {
         bail!(".npy header of {len} bytes is implausible");
     }
     let mut text = vec![0u8; len];
-    file.read_exact_at(&mut text, start as u64).with_context(|| format!("the .npy header is cut short"))?;
+    file.read_exact_at(&mut text, at + start as u64).context("the .npy header is cut short")?;
     let text = String::from_utf8_lossy(&text).into_owned();
-    parse_npy_dict(&text, (start + len) as u64).with_context(|| format!(".npy header {}", text.trim()))
+    parse_npy_dict(&text, at + (start + len) as u64).with_context(|| format!(".npy header {}", text.trim()))
 }
 
 /// The header dictionary: {'descr': '<u2', 'fortran_order': False, 'shape': (4, 64, 1024), }

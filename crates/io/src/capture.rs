@@ -422,6 +422,7 @@ pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, p
                 .collect::<Vec<_>>();
             (map, WavelengthSource::Polynomial { coefficients_nm: c.clone() })
         }
+        Some(GivenMap::Inside { wavelength_nm, path }) => (wavelength_nm.iter().map(|v| v * input.wavelength_unit_nm).collect(), WavelengthSource::Dataset { path: path.clone() }),
         Some(GivenMap::File { path }) => {
             let (map, file_hash) = crate::map_file::read_map_file(Path::new(path), pixels)?;
             (map.iter().map(|v| v * input.wavelength_unit_nm).collect(), WavelengthSource::File { path: path.clone(), file_hash })
@@ -542,6 +543,7 @@ impl Capture {
             FileFormat::Npy => crate::capture_array::open_npy(path, input),
             FileFormat::Raw => crate::capture_array::open_raw(path, input),
             FileFormat::Tiff => crate::capture_array::open_tiff(path, input),
+            FileFormat::Npz => crate::capture_array::open_npz(path, input),
         }
     }
 

@@ -30,6 +30,9 @@ pub fn detect_format(path: &Path, input: &CaptureLayout) -> Result<FileFormat> {
     if crate::tiff_pages::is_tiff(&head) {
         return Ok(FileFormat::Tiff);
     }
+    if crate::npz::is_zip(&head) {
+        return Ok(FileFormat::Npz);
+    }
     if input.raw.sample_type.is_some() {
         return Ok(FileFormat::Raw);
     }
@@ -124,6 +127,11 @@ fn finish_with(path: &Path, input: &CaptureLayout, source: Source, (sample_type,
 /// order NumPy shows the shape.
 pub fn open_npy(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     let h = read_npy_header(path)?;
+    open_npy_array(path, input, h, "NumPy .npy".into())
+}
+
+/// A `.npy` array whose header is `h` (a file, or a member of an archive).
+fn open_npy_array(path: &Path, input: &CaptureLayout, h: crate::array_file::NpyHeader, what_file: String) -> Result<Capture> {
     let what = format!("the NumPy array of shape {:?}", h.shape);
     let axes = axes_for(input, h.shape.len(), &what)?;
     let dims = logical_dims(&h.shape, &axes, &what)?;
@@ -131,13 +139,55 @@ pub fn open_npy(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     let (frame, aline, pixel) = axis_strides(&strides, &axes);
     let file = ArrayFile::open(path, h.stored, ByteLayout { base: h.data_offset, frame, aline, pixel }, dims)?;
     let detail = format!(
-        "NumPy .npy, {} {}-endian, {} order, shape {:?}",
+        "{what_file}, {} {}-endian, {} order, shape {:?}",
         h.stored.name(),
         if h.stored.big_endian { "big" } else { "little" },
         if h.fortran_order { "Fortran" } else { "C" },
         h.shape
     );
-    finish(path, input, file, FileFormat::Npy, detail, h.shape, axes)
+    let format = if what_file.starts_with("NumPy .npz") { FileFormat::Npz } else { FileFormat::Npy };
+    finish(path, input, file, format, detail, h.shape, axes)
+}
+
+/// An array of an uncompressed NumPy `.npz` archive (`numpy.savez`), read in
+/// place: `input.fringes` names the array ("/fringes" → `fringes.npy`); the
+/// wavelength map and the background are taken from the arrays named by
+/// `input.wavelength` and `input.background` when the archive has them.
+pub fn open_npz(path: &Path, input: &CaptureLayout) -> Result<Capture> {
+    let members = crate::npz::members(path)?;
+    let name = input.fringes.trim_start_matches('/');
+    let m = crate::npz::find(&members, name).with_context(|| format!("no array '{name}' in the archive (it holds: {}); name it with input.fringes", crate::npz::names(&members)))?;
+    let stored_only = |m: &crate::npz::Member, what: &str| -> Result<()> {
+        if m.method != 0 {
+            bail!("array '{what}' is compressed (numpy.savez_compressed): fringeflow reads the arrays of an uncompressed .npz (numpy.savez) in place; save with numpy.savez, or the array alone with numpy.save");
+        }
+        Ok(())
+    };
+    stored_only(m, name)?;
+    let h = crate::array_file::read_npy_header_at(path, m.data_offset).with_context(|| format!("array '{name}'"))?;
+    let mut given = input.clone();
+    if given.given_map.is_none() {
+        if let Some(w) = crate::npz::find(&members, &input.wavelength) {
+            let wname = input.wavelength.trim_start_matches('/');
+            stored_only(w, wname)?;
+            let (rows, cols, values) = crate::map_file::npy_values_at(path, w.data_offset).with_context(|| format!("array '{wname}'"))?;
+            if rows > 1 && cols > 1 {
+                bail!("array '{wname}' is a {rows} × {cols} matrix, not a wavelength vector");
+            }
+            given.given_map = Some(crate::capture_layout::GivenMap::Inside { wavelength_nm: values, path: format!("{wname} (in the archive)") });
+        }
+    }
+    let mut capture = open_npy_array(path, &given, h, format!("NumPy .npz array '{name}'"))?;
+    if let Some(b) = crate::npz::find(&members, &input.background) {
+        let bname = input.background.trim_start_matches('/');
+        stored_only(b, bname)?;
+        let (rows, cols, values) = crate::map_file::npy_values_at(path, b.data_offset).with_context(|| format!("array '{bname}'"))?;
+        if cols != capture.pixels || rows == 0 {
+            bail!("array '{bname}' has shape ({rows}, {cols}), expected ({},) or (n, {})", capture.pixels, capture.pixels);
+        }
+        capture.background = Some(crate::map_file::mean_spectrum(rows, cols, &values));
+    }
+    Ok(capture)
 }
 
 /// A headerless raw capture as `[input]` describes it: sample type and byte
@@ -170,7 +220,7 @@ pub fn open_raw(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     }
     let aline_bytes = r.aline_header_bytes + pixels as u64 * size;
     let frame_bytes = r.frame_header_bytes + alines as u64 * aline_bytes;
-    let len = std::fs::metadata(path).with_context(|| format!("cannot read"))?.len();
+    let len = std::fs::metadata(path).context("cannot read")?.len();
     if r.file_header_bytes > len {
         bail!("input.file_header_bytes = {} but the file has only {len} bytes", r.file_header_bytes);
     }
@@ -242,7 +292,7 @@ pub fn open_tiff(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     let axes = if transposed { vec![AxisName::Frame, AxisName::Pixel, AxisName::Aline] } else { vec![AxisName::Frame, AxisName::Aline, AxisName::Pixel] };
     logical_dims(&shape, &axes, &format!("the TIFF of {frames} pages of {}×{}", pages.cols, pages.rows))?;
     // The held type from the first page.
-    let first = pages.read_frame(0).with_context(|| format!("reading page 0"))?;
+    let first = pages.read_frame(0).context("reading page 0")?;
     let sample_type = match first {
         crate::capture::RawFrame::U8(_) => SampleType::U8,
         crate::capture::RawFrame::U16(_) => SampleType::U16,

@@ -51,6 +51,7 @@ pub enum FileFormat {
     Npy,
     Raw,
     Tiff,
+    Npz,
 }
 
 /// A headerless raw file: sample type and byte order, the frame's shape,
@@ -80,6 +81,9 @@ pub enum GivenMap {
     /// A map file read here: `.npy`, or text with one value per line or
     /// pixel and wavelength columns (in the layout's wavelength unit).
     File { path: String },
+    /// Values read by the opener from an array inside the capture that is
+    /// not HDF5 (a `.npz` member), with that array's name.
+    Inside { wavelength_nm: Vec<f64>, path: String },
 }
 
 impl Default for CaptureLayout {

@@ -11,6 +11,7 @@ pub mod h5;
 pub mod hash;
 pub mod json_doc;
 pub mod map_file;
+pub mod npz;
 pub mod ome_tiff;
 pub mod png;
 pub mod staging;

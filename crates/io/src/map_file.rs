@@ -7,7 +7,7 @@
 use anyhow::{bail, Context, Result};
 use std::path::Path;
 
-use crate::array_file::{dimension_strides, read_npy_header, ArrayFile, ByteLayout};
+use crate::array_file::{dimension_strides, ArrayFile, ByteLayout};
 use crate::capture::RawFrame;
 
 /// The map's values, one per pixel, and "sha256:<hex>" of the file.
@@ -28,16 +28,7 @@ pub fn read_background_file(path: &Path, pixels: usize) -> Result<(Vec<f64>, Str
     let bytes = std::fs::read(path).with_context(|| format!("background file {}", path.display()))?;
     let digest = format!("sha256:{}", crate::hash::sha256_hex(&bytes));
     let (rows, cols, values) = if bytes.starts_with(crate::array_file::NPY_MAGIC) {
-        let h = read_npy_header(path)?;
-        let (rows, cols) = match h.shape.as_slice() {
-            [n] => (1, *n),
-            [r, c] => (*r, *c),
-            s => bail!("background file {}: shape {s:?}, expected (pixels,) or (spectra, pixels)", path.display()),
-        };
-        let strides = dimension_strides(&[rows, cols], h.stored.size, h.fortran_order);
-        let layout = ByteLayout { base: h.data_offset, frame: 0, aline: strides[0], pixel: strides[1] };
-        let a = ArrayFile::open(path, h.stored, layout, (1, rows, cols))?;
-        (rows, cols, as_f64(a.read_frame(0)?))
+        npy_values_at(path, 0).with_context(|| format!("background file {}", path.display()))?
     } else {
         let text = std::str::from_utf8(&bytes).with_context(|| format!("background file {}: neither .npy nor text", path.display()))?;
         let mut rows = Vec::new();
@@ -65,8 +56,27 @@ pub fn read_background_file(path: &Path, pixels: usize) -> Result<(Vec<f64>, Str
     if cols != pixels || rows == 0 {
         bail!("background file {}: {rows} spectra of {cols} values, but the fringes have {pixels} pixels", path.display());
     }
-    let mean = (0..cols).map(|p| (0..rows).map(|r| values[r * cols + p]).sum::<f64>() / rows as f64).collect();
-    Ok((mean, digest))
+    Ok((mean_spectrum(rows, cols, &values), digest))
+}
+
+/// A 1-D or 2-D `.npy` array starting `at` bytes into `path`: its (rows,
+/// columns) and values, row by row (a vector is one row).
+pub fn npy_values_at(path: &Path, at: u64) -> Result<(usize, usize, Vec<f64>)> {
+    let h = crate::array_file::read_npy_header_at(path, at)?;
+    let (rows, cols) = match h.shape.as_slice() {
+        [n] => (1, *n),
+        [r, c] => (*r, *c),
+        s => bail!("shape {s:?}: expected a vector or a matrix"),
+    };
+    let strides = dimension_strides(&[rows, cols], h.stored.size, h.fortran_order);
+    let layout = ByteLayout { base: h.data_offset, frame: 0, aline: strides[0], pixel: strides[1] };
+    let a = ArrayFile::open(path, h.stored, layout, (1, rows, cols))?;
+    Ok((rows, cols, as_f64(a.read_frame(0)?)))
+}
+
+/// Mean per pixel of (rows × pixels) spectra.
+pub fn mean_spectrum(rows: usize, cols: usize, values: &[f64]) -> Vec<f64> {
+    (0..cols).map(|p| (0..rows).map(|r| values[r * cols + p]).sum::<f64>() / rows as f64).collect()
 }
 
 fn as_f64(frame: RawFrame) -> Vec<f64> {
@@ -82,16 +92,11 @@ fn as_f64(frame: RawFrame) -> Vec<f64> {
 
 /// A `.npy` vector, or a matrix with one dimension of 1.
 fn npy_vector(path: &Path) -> Result<Vec<f64>> {
-    let h = read_npy_header(path)?;
-    let n: usize = h.shape.iter().product();
-    if h.shape.iter().filter(|&&d| d > 1).count() > 1 {
-        bail!("wavelength file {}: shape {:?} is not a vector", path.display(), h.shape);
+    let (rows, cols, values) = npy_values_at(path, 0).with_context(|| format!("wavelength file {}", path.display()))?;
+    if rows > 1 && cols > 1 {
+        bail!("wavelength file {}: a {rows} × {cols} matrix is not a vector", path.display());
     }
-    let strides = dimension_strides(&h.shape, h.stored.size, h.fortran_order);
-    let step = h.shape.iter().zip(&strides).find(|(&d, _)| d > 1).map_or(h.stored.size as u64, |(_, &s)| s);
-    let layout = ByteLayout { base: h.data_offset, frame: 0, aline: 0, pixel: step };
-    let a = ArrayFile::open(path, h.stored, layout, (1, 1, n))?;
-    Ok(as_f64(a.read_frame(0)?))
+    Ok(values)
 }
 
 /// One value per line, or (pixel, value) per line with the pixels in order

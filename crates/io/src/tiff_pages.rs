@@ -36,7 +36,7 @@ impl TiffPages {
     /// Opens `path`, counts its pages and checks that they all have the
     /// first page's size.
     pub fn open(path: &Path, transposed: bool) -> Result<Self> {
-        let file = File::open(path).with_context(|| format!("cannot open"))?;
+        let file = File::open(path).context("cannot open")?;
         let mut dec = Decoder::new(BufReader::new(file)).map_err(|e| anyhow!("not a readable TIFF: {e}"))?;
         let (w, h) = dec.dimensions().map_err(|e| anyhow!("{e}"))?;
         let colour = dec.colortype().map_err(|e| anyhow!("{e}"))?;

@@ -52,6 +52,7 @@ pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
             config::CaptureFormat::Npy => FileFormat::Npy,
             config::CaptureFormat::Raw => FileFormat::Raw,
             config::CaptureFormat::Tiff => FileFormat::Tiff,
+            config::CaptureFormat::Npz => FileFormat::Npz,
         }),
         raw: RawLayout {
             sample_type: input.sample_type.clone(),

@@ -50,7 +50,7 @@ pub struct InputConfig {
     /// (their `aline_spacing_um` attribute); used for the images' pixel size.
     #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
     pub aline_spacing_um: Option<f64>,
-    /// The capture's file format: "hdf5", "npy", "raw" or "tiff"; by the file's
+    /// The capture's file format: "hdf5", "npy", "npz", "raw" or "tiff"; by the file's
     /// signature when omitted (a headerless raw file needs "raw").
     #[serde(skip_serializing_if = "Option::is_none")]
     pub format: Option<CaptureFormat>,
@@ -117,6 +117,7 @@ pub enum CaptureFormat {
     Npy,
     Raw,
     Tiff,
+    Npz,
 }
 
 /// Byte order of raw samples.
