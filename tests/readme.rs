@@ -10,57 +10,10 @@
 //! job array in turn with the environment Slurm sets; tests/slurm.rs runs
 //! the same kind of script under a real Slurm.
 
+mod common;
+use common::{copy_dir, doc_blocks as blocks};
 use std::path::{Path, PathBuf};
 use std::process::Command;
-
-struct Block {
-    line: usize,
-    kind: String,
-    text: String,
-    skip: bool,
-    /// The paragraph before it announces printed output.
-    printed: bool,
-}
-
-fn blocks(readme: &str) -> Vec<Block> {
-    let lines: Vec<&str> = readme.lines().collect();
-    let mut out = Vec::new();
-    let mut i = 0;
-    while i < lines.len() {
-        if let Some(kind) = lines[i].strip_prefix("```") {
-            let start = i;
-            let mut j = i + 1;
-            while j < lines.len() && !lines[j].starts_with("```") {
-                j += 1;
-            }
-            let before = lines[..start].iter().rev().find(|l| !l.trim().is_empty()).copied().unwrap_or("");
-            out.push(Block {
-                line: start + 1,
-                kind: kind.trim().to_string(),
-                text: lines[start + 1..j].join("\n"),
-                skip: before.starts_with("<!-- readme-test: skip"),
-                printed: before.starts_with("Printed here"),
-            });
-            i = j + 1;
-        } else {
-            i += 1;
-        }
-    }
-    out
-}
-
-fn copy_dir(from: &Path, to: &Path) {
-    std::fs::create_dir_all(to).unwrap();
-    for e in std::fs::read_dir(from).unwrap() {
-        let e = e.unwrap();
-        let target = to.join(e.file_name());
-        if e.file_type().unwrap().is_dir() {
-            copy_dir(&e.path(), &target);
-        } else {
-            std::fs::copy(e.path(), &target).unwrap();
-        }
-    }
-}
 
 fn squeeze(s: &str) -> String {
     s.split_whitespace().collect::<Vec<_>>().join(" ")

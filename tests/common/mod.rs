@@ -211,3 +211,57 @@ pub fn decode(args: &[&std::ffi::OsStr]) {
     assert!(o.status.success(), "decode check failed: {text}");
     assert!(text.contains("ok "), "nothing was checked: {text}");
 }
+
+/// A fenced block of a Markdown page (the README, docs/): its first line,
+/// kind (sh, text, toml), text, and whether a skip marker or a "Printed
+/// here" paragraph precedes it.
+pub struct Block {
+    pub line: usize,
+    pub kind: String,
+    pub text: String,
+    pub skip: bool,
+    /// The paragraph before it announces printed output.
+    pub printed: bool,
+}
+
+/// The fenced blocks of `readme`, in order.
+pub fn doc_blocks(readme: &str) -> Vec<Block> {
+    let lines: Vec<&str> = readme.lines().collect();
+    let mut out = Vec::new();
+    let mut i = 0;
+    while i < lines.len() {
+        if let Some(kind) = lines[i].strip_prefix("```") {
+            let start = i;
+            let mut j = i + 1;
+            while j < lines.len() && !lines[j].starts_with("```") {
+                j += 1;
+            }
+            let before = lines[..start].iter().rev().find(|l| !l.trim().is_empty()).copied().unwrap_or("");
+            out.push(Block {
+                line: start + 1,
+                kind: kind.trim().to_string(),
+                text: lines[start + 1..j].join("\n"),
+                skip: before.starts_with("<!-- readme-test: skip"),
+                printed: before.starts_with("Printed here"),
+            });
+            i = j + 1;
+        } else {
+            i += 1;
+        }
+    }
+    out
+}
+
+/// Copies a folder tree.
+pub fn copy_dir(from: &Path, to: &Path) {
+    std::fs::create_dir_all(to).unwrap();
+    for e in std::fs::read_dir(from).unwrap() {
+        let e = e.unwrap();
+        let target = to.join(e.file_name());
+        if e.file_type().unwrap().is_dir() {
+            copy_dir(&e.path(), &target);
+        } else {
+            std::fs::copy(e.path(), &target).unwrap();
+        }
+    }
+}
