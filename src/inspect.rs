@@ -121,8 +121,16 @@ fn stats(name: &str, ds: &hdf5::Dataset) -> Result<DatasetStats> {
     Ok(st)
 }
 
-/// Inspects a capture; dataset paths come from `input`.
+/// Inspects a capture; dataset paths (or a raw layout) come from `input`.
 pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
+    let layout = crate::open::capture_layout(input)?;
+    let format = match layout.format {
+        Some(f) => f,
+        None => crate::io::capture_array::detect_format(path, &layout)?,
+    };
+    if format != crate::io::capture::FileFormat::Hdf5 {
+        return inspect_frames(path, input);
+    }
     let file = open_hdf5(path)?;
     let mut sets = Vec::new();
     let mut problems = Vec::new();
@@ -170,6 +178,62 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
         }
     }
     Ok(Inspection { datasets, problems })
+}
+
+/// A capture that is not HDF5: opened as `run` opens it, the statistics of
+/// its frames (evenly spaced ones beyond the budget) and of its wavelength
+/// map.
+fn inspect_frames(path: &Path, input: &InputConfig) -> Result<Inspection> {
+    let mut problems = Vec::new();
+    let capture = match crate::run::open_capture(path, input) {
+        Ok(c) => c,
+        Err(e) => {
+            problems.push(format!("{e:#}"));
+            return Ok(Inspection { datasets: Vec::new(), problems });
+        }
+    };
+    let per_frame = capture.alines * capture.pixels;
+    let budget = (SAMPLE_BUDGET / per_frame.max(1)).max(1);
+    let chosen: Vec<usize> = if capture.frames <= budget { (0..capture.frames).collect() } else { (0..budget).map(|i| i * capture.frames / budget).collect() };
+    let name = capture.format_detail.clone().unwrap_or_else(|| "fringes".into());
+    let mut st = DatasetStats {
+        name,
+        shape: capture.shape.clone(),
+        dtype: format!("{:?}", capture.sample_type).to_lowercase(),
+        min: f64::INFINITY,
+        max: f64::NEG_INFINITY,
+        non_finite: 0,
+        at_full_scale: None,
+        sampled_values: (chosen.len() < capture.frames).then_some((chosen.len() * per_frame) as u64),
+    };
+    let mut saturated = 0;
+    for &f in &chosen {
+        match capture.read_raw_frame(f) {
+            Ok((raw, sat)) => {
+                saturated += sat;
+                for v in raw.to_f64().iter() {
+                    st.min = st.min.min(*v);
+                    st.max = st.max.max(*v);
+                }
+            }
+            Err(e) => {
+                problems.push(format!("frame {f}: {}", first_line(&format!("{e:#}"))));
+                break;
+            }
+        }
+    }
+    st.at_full_scale = capture.full_scale.map(|fs| (saturated, fs));
+    if saturated > 0 {
+        problems.push(format!("{saturated} samples at or above full scale {} (saturated)", capture.full_scale.unwrap_or(f64::NAN)));
+    }
+    if st.min == st.max {
+        problems.push(format!("every sample read is {}: no fringes (an empty capture, or the camera recorded nothing)", st.min));
+    }
+    let map = &capture.wavelength_nm;
+    let (lo, hi) = map.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    let source = serde_json::to_value(&capture.wavelength_source).ok().and_then(|v| v["path"].as_str().map(String::from)).unwrap_or_else(|| "given map".into());
+    let wl = DatasetStats { name: format!("wavelength map (nm) from {source}"), shape: vec![map.len()], dtype: "f64".into(), min: lo, max: hi, non_finite: 0, at_full_scale: None, sampled_values: None };
+    Ok(Inspection { datasets: vec![st, wl], problems })
 }
 
 impl Inspection {

@@ -46,6 +46,7 @@ fn main() -> ExitCode {
         Command::Dispersion(c) => commands::dispersion::command(c),
         Command::Design(a) => commands::design::command(a),
         Command::Inspect(a) => commands::inspect::command(a),
+        Command::Import(a) => commands::import::command(a),
         Command::Pipeline(c) => commands::pipeline::command(c),
         Command::Completions(a) => commands::completions::command(a),
         Command::Man(a) => commands::man::command(a, quiet),

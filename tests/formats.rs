@@ -213,3 +213,52 @@ fn background_file_and_scan_facts_from_the_pipeline() {
     assert_eq!(o.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&o.stderr).contains("is compressed (numpy.savez_compressed)"), "{}", String::from_utf8_lossy(&o.stderr));
 }
+
+/// `import` writes a capture of another format as fringeflow HDF5: the
+/// same samples (h5py), one frame per chunk, deflated when asked, the
+/// source's digest and settings on the root; reconstructing it gives the
+/// original's volume. `inspect` describes the array formats too.
+#[test]
+fn import_and_inspect_other_formats() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let (h5, _) = simulate_scene(d, "sample", &small_scene(400.0, 2, 64, 1024));
+    python(WRITE, &[&h5, d]);
+    let pipeline = d.join("raw.toml");
+    std::fs::write(&pipeline, format!("[input]\nsample_type = \"u16\"\npixels = 1024\nalines_per_frame = 64\nwavelength_file = \"{}\"\n", d.join("wavelength.txt").display())).unwrap();
+    let imported = d.join("imported.h5");
+    let o = Command::new(bin()).arg("import").arg(d.join("plain.bin")).arg("-p").arg(&pipeline).arg("--out").arg(&imported).arg("--deflate").arg("4").output().unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let check = r#"
+import sys, h5py, numpy as np
+src, imp = sys.argv[1], sys.argv[2]
+a, b = h5py.File(src, "r"), h5py.File(imp, "r")
+assert np.array_equal(a["/fringes"][...], b["/fringes"][...]) and b["/fringes"].dtype == np.uint16
+assert b["/fringes"].chunks == (1, 64, 1024), b["/fringes"].chunks
+assert b["/fringes"].compression == "gzip" and b["/fringes"].shuffle
+assert np.array_equal(a["/wavelength_nm"][...], b["/wavelength_nm"][...])
+assert b.attrs["source_digest"].startswith("blake3:")
+assert "raw binary, u16" in b.attrs["source_format"]
+assert b["/fringes"].attrs["full_scale"] == 65535
+print("imported ok")
+"#;
+    assert!(python(check, &[&h5, &imported]).contains("imported ok"));
+    // The imported capture reconstructs as the original.
+    let base = "[background]\nmethod = \"median\"\n";
+    run_ok(d, &[&h5], base, &d.join("out-h5"));
+    run_ok(d, &[&imported], base, &d.join("out-imported"));
+    let report = python(COMPARE, &[&d.join("out-h5/sample/volume.h5"), &d.join("out-imported/imported/volume.h5")]);
+    assert!(report.trim_end().ends_with(" same"), "{report}");
+    // An existing --out is refused (exit 2), the file untouched.
+    let o = Command::new(bin()).arg("import").arg(d.join("plain.bin")).arg("-p").arg(&pipeline).arg("--out").arg(&imported).output().unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    // inspect on a .npy: the format, the frames' range, the map's range in nm.
+    let p2 = d.join("npy.toml");
+    std::fs::write(&p2, format!("[input]\nwavelength_file = \"{}\"\n", d.join("wavelength.txt").display())).unwrap();
+    let o = Command::new(bin()).arg("inspect").arg(d.join("fortran.npy")).arg("-p").arg(&p2).output().unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert!(o.status.success(), "{text}{}", String::from_utf8_lossy(&o.stderr));
+    assert!(text.contains("NumPy .npy, u16 little-endian, Fortran order, shape [2, 64, 1024]"), "{text}");
+    assert!(text.contains("wavelength map (nm) from"), "{text}");
+    assert!(text.contains("problems: none"), "{text}");
+}

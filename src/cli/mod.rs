@@ -17,6 +17,7 @@ Reconstruct:
   run           Reconstruct captures into B-scans, volume.h5 and log.json
   rerun         Reproduce an output from its log.json alone
   inspect       List a capture's datasets, shapes, value ranges and problems
+  import        Write a capture in any readable format as a fringeflow HDF5 capture
   pipeline      Print the commented defaults, check a pipeline, show its resolved form
   report        Write (or rewrite) report.html for an output folder
   compare       Page comparing two outputs of one capture (side by side, blink, difference)
@@ -72,7 +73,7 @@ mod tools;
 
 pub use batch::{SlurmScriptArgs, SummarizeArgs};
 pub use characterise::{CalibrateCommand, DesignArgs, DispersionCommand, MeasureCommand};
-pub use reconstruct::{CompareArgs, Engine, InspectArgs, PipelineCommand, RerunArgs, ReportArgs, RunArgs};
+pub use reconstruct::{CompareArgs, Engine, ImportArgs, InspectArgs, PipelineCommand, RerunArgs, ReportArgs, RunArgs};
 pub use tools::{BenchArgs, CompletionsArgs, ManArgs, SimulateArgs};
 
 #[derive(Debug, Parser)]
@@ -178,6 +179,14 @@ pub enum Command {
         "  0 no problems; 1 problems found or the file cannot be read; 2 usage or pipeline error"
     ))]
     Inspect(InspectArgs),
+    /// Write any readable capture (npy, npz, raw, TIFF, MATLAB, HDF5) as a fringeflow HDF5 capture.
+    #[command(after_help = concat!(
+        "EXAMPLES:\n",
+        "  fringeflow import scan.npy -p lab.toml --out archive/scan.h5 --deflate 4\n",
+        "  fringeflow import dump.bin --set input.sample_type=u16 --set input.pixels=2048 --set input.alines_per_frame=512 --set input.wavelength_file=map.txt --out dump.h5\n\n",
+        EXIT_STATUS_USAGE!()
+    ))]
+    Import(ImportArgs),
     /// Pipeline files: print the commented defaults, check one, show its resolved form.
     #[command(subcommand)]
     Pipeline(PipelineCommand),

@@ -138,3 +138,25 @@ pub struct CompareArgs {
     #[arg(long, short, value_name = "FILE")]
     pub out: PathBuf,
 }
+
+#[derive(Debug, Args)]
+pub struct ImportArgs {
+    /// Capture in any format fringeflow reads (HDF5, .npy, .npz, raw, TIFF, MATLAB v7.3).
+    #[arg(value_name = "CAPTURE")]
+    pub capture: PathBuf,
+    /// HDF5 capture to write (refused if it exists).
+    #[arg(long, short, value_name = "FILE")]
+    pub out: PathBuf,
+    /// Pipeline file whose [input] section describes the capture (raw layout, wavelength map, scan facts).
+    #[arg(long, short, value_name = "FILE")]
+    pub pipeline: Option<PathBuf>,
+    /// Override one [input] setting (repeatable), e.g. --set input.sample_type=u16.
+    #[arg(long = "set", value_name = "SECTION.KEY=VALUE")]
+    pub overrides: Vec<String>,
+    /// Deflate level 1–9 (lossless, with the byte shuffle); uncompressed when omitted.
+    #[arg(long, value_name = "LEVEL", value_parser = clap::value_parser!(u8).range(1..=9))]
+    pub deflate: Option<u8>,
+    /// Print what was written as JSON.
+    #[arg(long)]
+    pub json: bool,
+}

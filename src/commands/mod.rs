@@ -9,6 +9,7 @@ pub mod compare;
 pub mod completions;
 pub mod design;
 pub mod dispersion;
+pub mod import;
 pub mod inspect;
 pub mod man;
 pub mod measure;

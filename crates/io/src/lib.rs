@@ -9,6 +9,7 @@ pub mod capture_array;
 pub mod capture_layout;
 pub mod h5;
 pub mod hash;
+pub mod import;
 pub mod json_doc;
 pub mod map_file;
 pub mod npz;
