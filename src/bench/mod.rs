@@ -14,6 +14,7 @@
 //! `simulator.rs` their workloads, `report.rs` the report and its text.
 
 mod contrast;
+mod readers;
 mod report;
 mod simulator;
 mod sizes;
@@ -27,6 +28,7 @@ use std::time::Instant;
 use crate::pipeline::config::PipelineConfig;
 use crate::pipeline::fused::FusedPlan;
 use crate::pipeline::plan::{CaptureGeometry, Plan};
+pub use readers::{ReaderPoint, ReadersReport};
 pub use report::{BenchReport, ContrastPoint, Machine, ScalingPoint, SimulatorPoint, SizePoint, VariantPoint};
 pub use sizes::SIZES;
 use contrast::time_contrast;
@@ -56,6 +58,9 @@ pub struct BenchOptions {
     pub progress: bool,
     /// Also time every variant at each camera size of [`SIZES`].
     pub sizes: bool,
+    /// Also time the capture readers against HDF5 and the memory of reading
+    /// a 2 GB raw capture.
+    pub readers: bool,
 }
 
 pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
@@ -108,9 +113,11 @@ pub fn run_bench(opts: &BenchOptions) -> Result<BenchReport> {
     let (end_to_end, end_to_end_uint16, volume_only, sha256) = if opts.end_to_end { time_end_to_end(&path, &config, opts)? } else { (None, None, None, None) };
 
     let contrast = time_contrast(&config, &capture, &plan, &frames, opts, pipe_rate)?;
+    let readers = if opts.readers { Some(readers::time_readers(&path, &config, &opts.work_dir, opts.repeats)?) } else { None };
     let simulator = if opts.simulator { Some(time_simulator(opts)?) } else { None };
 
     Ok(BenchReport {
+        readers,
         contrast,
         simulator,
         machine: machine(),

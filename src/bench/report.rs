@@ -96,6 +96,9 @@ pub struct BenchReport {
     /// formulas on one thread (the serial scalar simulator), the baseline
     /// for parallel + vectorised together.
     pub simulator: Option<SimulatorPoint>,
+    /// Capture readers against HDF5, and memory on a 2 GB raw capture.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub readers: Option<super::ReadersReport>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -187,6 +190,15 @@ impl BenchReport {
         for c in &self.contrast {
             s += &format!("{:<44} {:>14.0}\n", c.workload, c.alines_per_second);
             s += &format!("{:<44} {:>14.3}\n", "  ratio to the intensity pipeline", c.over_pipeline);
+        }
+        if let Some(r) = &self.readers {
+            s += "\ncapture readers, every frame through read_raw_frame (same run, median):\n";
+            for p in &r.readers {
+                s += &format!("  {:<52} {:>8.0} MB/s  {:.2} of HDF5\n", p.format, p.megabytes_per_second, p.over_hdf5);
+            }
+            if let (Some(b), Some(pk), Some(g)) = (r.large_raw_resident_before_mb, r.large_raw_peak_resident_mb, r.large_raw_growth_mb) {
+                s += &format!("  raw capture of {:.0} MB read frame by frame: resident {b:.0} MB before, {pk:.0} MB at peak (+{g:.1} MB)\n", r.large_raw_megabytes);
+            }
         }
         if let Some(sim) = &self.simulator {
             s += &format!(

@@ -43,6 +43,9 @@ pub struct BenchArgs {
     /// Skip the camera-size table (1024, 2048, 4096 and 2000 pixels, every variant).
     #[arg(long)]
     pub no_sizes: bool,
+    /// Skip timing the capture readers (npy, raw, TIFF against HDF5) and the 2 GB raw memory figure.
+    #[arg(long)]
+    pub no_readers: bool,
     /// Kernel variant for the main figures: avx512, avx2 or scalar (as
     /// FRINGEFLOW_KERNEL; default: the one measured fastest on the plan).
     /// Every variant is also timed on its own line.

@@ -1,7 +1,6 @@
 //! `fringeflow bench`: the throughput report (bare FFT against the
 //! pipeline, end to end, contrast, simulator), printed and optionally saved.
 
-use std::path::PathBuf;
 use std::io::IsTerminal;
 use std::process::ExitCode;
 
@@ -9,10 +8,7 @@ use super::fail;
 use crate::cli::BenchArgs;
 
 pub fn command(a: BenchArgs, quiet: bool) -> ExitCode {
-    bench(a.capture, a.work_dir, a.alines, a.repeats, a.no_scaling, a.no_end_to_end, a.no_simulator, a.no_sizes, a.kernel, a.report, a.json, quiet)
-}
-
-fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: usize, no_scaling: bool, no_end_to_end: bool, no_simulator: bool, no_sizes: bool, kernel: Option<String>, report_path: Option<PathBuf>, json: bool, quiet: bool) -> ExitCode {
+    let BenchArgs { capture, work_dir, alines, repeats, no_scaling, no_end_to_end, no_simulator, no_sizes, no_readers, kernel, report: report_path, json } = a;
     if let Some(k) = &kernel {
         match fringeflow::pipeline::kernel::Variant::parse(k) {
             Some(v) if v.supported() => fringeflow::pipeline::kernel::force(Some(v)),
@@ -35,6 +31,7 @@ fn bench(capture: Option<PathBuf>, work_dir: PathBuf, alines: usize, repeats: us
         simulator: !no_simulator,
         progress: !quiet && std::io::stderr().is_terminal(),
         sizes: !no_sizes,
+        readers: !no_readers,
     };
     let report = match fringeflow::bench::run_bench(&opts) {
         Ok(r) => r,

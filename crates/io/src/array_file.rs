@@ -118,10 +118,20 @@ impl ArrayFile {
     /// values exactly: u8, u16, i16 (also for i8), u32, f32, or f64 (for
     /// i32, u64, i64 and f64).
     pub fn read_frame(&self, index: usize) -> Result<RawFrame> {
-        let (n, size) = (self.alines * self.pixels, self.stored.size);
-        let mut bytes = vec![0u8; n * size];
-        let row = self.pixels * size;
         let l = self.layout;
+        let size = self.stored.size;
+        let row = self.pixels * size;
+        let whole = l.pixel == size as u64 && (self.alines == 1 || l.aline == row as u64);
+        // A frame stored whole, in a type held as is: one positioned read
+        // straight into the frame's samples.
+        if whole && self.map.is_none() {
+            let at = l.base + index as u64 * l.frame;
+            if let Some(frame) = self.read_direct(at)? {
+                return Ok(frame);
+            }
+        }
+        let n = self.alines * self.pixels;
+        let mut bytes = vec![0u8; n * size];
         for a in 0..self.alines {
             let at = l.base + index as u64 * l.frame + a as u64 * l.aline;
             let dst = &mut bytes[a * row..(a + 1) * row];
@@ -136,6 +146,69 @@ impl ArrayFile {
             }
         }
         Ok(decode(&bytes, self.stored, (self.alines, self.pixels)))
+    }
+
+    /// The frame at byte `at` read into typed samples without a copy, for
+    /// the types held as stored (u8, u16, i16, u32, f32, f64; byte order
+    /// swapped in place when it is not this machine's); None for the others.
+    fn read_direct(&self, at: u64) -> Result<Option<RawFrame>> {
+        let shape = (self.alines, self.pixels);
+        let n = shape.0 * shape.1;
+        let big = self.stored.big_endian;
+        macro_rules! direct {
+            ($t:ty, $variant:ident) => {{
+                let mut v: Vec<$t> = vec![<$t>::default(); n];
+                // SAFETY: a plain-number slice viewed as its bytes (no
+                // padding, every bit pattern valid for these types).
+                let bytes = unsafe { std::slice::from_raw_parts_mut(v.as_mut_ptr() as *mut u8, n * std::mem::size_of::<$t>()) };
+                self.file.read_exact_at(bytes, at).context("reading a frame")?;
+                if big != cfg!(target_endian = "big") {
+                    for x in v.iter_mut() {
+                        *x = <$t>::from_bits(x.to_bits().swap_bytes());
+                    }
+                }
+                Some(RawFrame::$variant(Array2::from_shape_vec(shape, v).expect("frame shape")))
+            }};
+        }
+        use StoredKind::*;
+        Ok(match (self.stored.kind, self.stored.size) {
+            (Unsigned, 1) => direct!(u8, U8),
+            (Unsigned, 2) => direct!(u16, U16),
+            (Signed, 2) => direct!(i16, I16),
+            (Unsigned, 4) => direct!(u32, U32),
+            (Float, 4) => direct!(f32, F32),
+            (Float, 8) => direct!(f64, F64),
+            _ => None,
+        })
+    }
+}
+
+/// Integers and floats as their bits, for swapping the byte order.
+trait Bits: Copy {
+    type B;
+    fn to_bits(self) -> Self::B;
+    fn from_bits(b: Self::B) -> Self;
+}
+macro_rules! bits_int {
+    ($($t:ty),*) => {$(impl Bits for $t { type B = $t; fn to_bits(self) -> $t { self } fn from_bits(b: $t) -> $t { b } })*};
+}
+bits_int!(u8, u16, i16, u32);
+impl Bits for f32 {
+    type B = u32;
+    fn to_bits(self) -> u32 {
+        f32::to_bits(self)
+    }
+    fn from_bits(b: u32) -> f32 {
+        f32::from_bits(b)
+    }
+}
+impl Bits for f64 {
+    type B = u64;
+    fn to_bits(self) -> u64 {
+        f64::to_bits(self)
+    }
+    fn from_bits(b: u64) -> f64 {
+        f64::from_bits(b)
     }
 }
 

@@ -87,3 +87,16 @@ impl TiffPages {
         })
     }
 }
+
+/// Writes u16 frames as an uncompressed multi-page TIFF, one frame per page
+/// (rows are A-lines): what the bench reads back.
+pub fn write_u16_pages(path: &Path, frames: &[Array2<u16>]) -> Result<()> {
+    let file = std::io::BufWriter::new(File::create(path).with_context(|| format!("creating {}", path.display()))?);
+    let mut enc = tiff::encoder::TiffEncoder::new(file).map_err(|e| anyhow!("{e}"))?;
+    for f in frames {
+        let (a, p) = f.dim();
+        let data = f.as_standard_layout();
+        enc.write_image::<tiff::encoder::colortype::Gray16>(p as u32, a as u32, data.as_slice().expect("standard layout")).map_err(|e| anyhow!("{e}"))?;
+    }
+    Ok(())
+}
