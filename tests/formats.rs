@@ -163,6 +163,23 @@ fn bad_descriptions_fail_with_one_line_naming_the_problem() {
     let o = run(d, &[&d.join("export.mat")], "", &d.join("bad-mat"));
     let err = String::from_utf8_lossy(&o.stderr);
     assert!(err.contains("set `axes = [\"aline\", \"pixel\", \"frame\"]` (in MATLAB's order)"), "{err}");
+    // A raw description missing a key is a settings error (exit 2).
+    let o = run(d, &[&d.join("plain.bin")], "[input]\nformat = \"raw\"\nsample_type = \"u16\"\npixels = 512\n", &d.join("bad-raw"));
+    assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("input.format: a raw capture also needs alines_per_frame"), "{}", String::from_utf8_lossy(&o.stderr));
+    // A missing wavelength map: the file's candidates and every way to give one.
+    let o = run(d, &[&h5], "[input]\nwavelength = \"/lambda\"\n", &d.join("bad-map"));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(err.contains("the capture's datasets of 512 values: /wavelength_nm [512]") && err.contains("input.wavelength_file") && err.contains("input.calibration"), "{err}");
+    // A description that makes B-scans a few A-lines wide warns.
+    let out = d.join("narrow");
+    run_ok(d, &[&d.join("plain.bin")], &format!("[input]\nwavelength_file = \"{}\"\nsample_type = \"u16\"\npixels = 512\nalines_per_frame = 4\n", wl.display()), &out);
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(out.join("plain/log.json")).unwrap()).unwrap();
+    assert!(log["warnings"].as_array().unwrap().iter().any(|w| w.as_str().unwrap().contains("reads as 16 B-scans only 4 A-lines wide")), "{}", log["warnings"]);
+    // fringeflow's own output given as a capture says so.
+    run_ok(d, &[&h5], "", &d.join("good"));
+    let o = run(d, &[&d.join("good/sample/volume.h5")], "", &d.join("bad-own"));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("this is fringeflow's own output"), "{}", String::from_utf8_lossy(&o.stderr));
     // An unknown sample type is a settings error (exit 2).
     let o = run(d, &[&d.join("plain.bin")], "[input]\nsample_type = \"u12\"\npixels = 512\nalines_per_frame = 32\n", &d.join("bad-type"));
     assert_eq!(o.status.code(), Some(2), "{}", String::from_utf8_lossy(&o.stderr));

@@ -67,6 +67,17 @@ pub(super) fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> 
         }
     }
     let mut warnings = Vec::new();
+    // A B-scan a few A-lines wide, and more of them than A-lines: the frame
+    // and A-line axes are likely swapped (a column-major file read row-major).
+    if capture.alines < 16 && capture.frames > capture.alines {
+        warnings.push(format!(
+            "the capture reads as {} B-scans only {} A-lines wide (stored shape {:?}, axes {:?}): if the frame and A-line axes are swapped, set input.axes",
+            capture.frames,
+            capture.alines,
+            capture.shape,
+            capture.axes
+        ));
+    }
     if config.background.method == BackgroundMethod::Auto && capture.background.is_none() {
         warnings.push(format!("capture has no '{}' dataset: background estimated as the median over each frame's A-lines", config.input.background));
     }

@@ -291,6 +291,26 @@ fn dataset_hint(file: &hdf5::File) -> String {
     }
 }
 
+/// The capture's 1-D datasets (or 1×N / N×1) with one value per pixel: the
+/// likely wavelength maps, for the message when the named one is missing.
+fn map_candidates(file: &hdf5::File, pixels: usize) -> String {
+    let mut sets = Vec::new();
+    super::h5::collect_datasets(file, "", &mut sets, &mut Vec::new());
+    let found: Vec<String> = sets
+        .iter()
+        .filter(|(_, d)| {
+            let s = d.shape();
+            s.iter().product::<usize>() == pixels && s.iter().filter(|&&n| n > 1).count() == 1
+        })
+        .map(|(n, d)| format!("{n} {:?}", d.shape()))
+        .collect();
+    if found.is_empty() {
+        format!(" (the capture has no 1-D dataset of {pixels} values)")
+    } else {
+        format!(" (the capture's datasets of {pixels} values: {})", found.join(", "))
+    }
+}
+
 /// A suggestion of `input.axes` when the fringe dataset looks transposed:
 /// the spectra seem to run along another axis (the longest one, or the one
 /// as long as the wavelength map). For 3-D data the other two axes keep
@@ -433,8 +453,9 @@ pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, p
             };
             let ds = open_dataset(file, &input.wavelength).ok_or_else(|| {
                 anyhow!(
-                    "dataset '{}' not found (give the map in the capture, or as input.wavelength_file, input.wavelength_poly_nm or input.calibration)",
-                    input.wavelength
+                    "dataset '{}' not found{}; give the map as input.wavelength (a dataset of the capture), input.wavelength_file (a .npy or text file), input.wavelength_poly_nm (a polynomial in the pixel index) or input.calibration (a file of `fringeflow calibrate wavelength`)",
+                    input.wavelength,
+                    map_candidates(file, pixels)
                 )
             })?;
             let mut map = read_f64(&ds).with_context(|| format!("reading '{}'", input.wavelength))?;
@@ -560,7 +581,14 @@ impl Capture {
         }
         let input = &given;
         let file = open_hdf5(path)?;
-        let fringes = open_dataset(&file, &input.fringes).ok_or_else(|| anyhow!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)))?;
+        let fringes = match open_dataset(&file, &input.fringes) {
+            Some(f) => f,
+            // fringeflow's own output is not a capture.
+            None if open_dataset(&file, "/volume_db").is_some() => {
+                bail!("this is fringeflow's own output (the volume.h5 of a run), not a capture of raw spectra: give the capture it was made from (the log.json beside it names it under input.path)")
+            }
+            None => bail!("dataset '{}' not found; {}", input.fringes, dataset_hint(&file)),
+        };
         let shape = fringes.shape();
         let axes = fringe_axes(input, &shape)?;
         let dim = |a: AxisName| axes.iter().position(|&x| x == a).map(|i| shape[i]);

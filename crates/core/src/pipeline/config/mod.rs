@@ -581,6 +581,16 @@ impl PipelineConfig {
                 return Err(fail("input", "sample_type", format!("\"{s}\" is not a sample type; give one of {}", TYPES.join(", "))));
             }
         }
+        if self.input.format == Some(CaptureFormat::Raw) || self.input.sample_type.is_some() {
+            let i = &self.input;
+            let missing: Vec<&str> = [("sample_type", i.sample_type.is_none()), ("pixels", i.pixels.is_none()), ("alines_per_frame", i.alines_per_frame.is_none())].iter().filter(|(_, m)| *m).map(|(k, _)| *k).collect();
+            if !missing.is_empty() {
+                return Err(fail("input", if i.format.is_some() { "format" } else { "sample_type" }, format!("a raw capture also needs {}", missing.join(", "))));
+            }
+            if i.pixels.is_some_and(|p| p < 16) || i.alines_per_frame == Some(0) || i.frames == Some(0) {
+                return Err(fail("input", "pixels", "a raw capture needs at least 16 pixels, 1 A-line per frame and 1 frame".into()));
+            }
+        }
         if self.input.wavelength_file.is_some() && (self.input.calibration.is_some() || self.input.wavelength_poly_nm.is_some()) {
             return Err(fail("input", "wavelength_file", "give one wavelength map: calibration, wavelength_poly_nm or wavelength_file".into()));
         }
