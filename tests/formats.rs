@@ -43,6 +43,9 @@ with open(d + "/headers.bin", "wb") as f:
             f.write(rng.integers(0, 256, 8, dtype=np.uint8).tobytes())
             f.write(line.astype("<u2").tobytes())
 np.savetxt(d + "/wavelength.txt", wl, fmt="%.17g")
+# The map kept as an attribute of the fringes, in µm.
+with h5py.File(d + "/attr.h5", "w") as f:
+    f.create_dataset("spectra", data=a).attrs["lambda_um"] = wl / 1000.0
 # As MATLAB v7.3 saves `fringes` of size [alines, pixels, frames] and a
 # 1-by-N `wavelength_nm`: HDF5 after a 512-byte user block, dimensions
 # reversed, MATLAB_class attributes, the text header in the user block.
@@ -269,6 +272,10 @@ print("imported ok")
     // An existing --out is refused (exit 2), the file untouched.
     let o = Command::new(bin()).arg("import").arg(d.join("plain.bin")).arg("-p").arg(&pipeline).arg("--out").arg(&imported).output().unwrap();
     assert_eq!(o.status.code(), Some(2));
+    // A map kept as an attribute, in µm.
+    run_ok(d, &[&d.join("attr.h5")], &format!("{base}[input]\nfringes = \"/spectra\"\nwavelength = \"/spectra@lambda_um\"\nwavelength_unit = \"um\"\n"), &d.join("out-attr"));
+    let report = python(COMPARE, &[&d.join("out-h5/sample/volume.h5"), &d.join("out-attr/attr/volume.h5")]);
+    assert!(report.trim_end().ends_with(" same"), "{report}");
     // inspect on a .npy: the format, the frames' range, the map's range in nm.
     let p2 = d.join("npy.toml");
     std::fs::write(&p2, format!("[input]\nwavelength_file = \"{}\"\n", d.join("wavelength.txt").display())).unwrap();

@@ -291,6 +291,24 @@ fn dataset_hint(file: &hdf5::File) -> String {
     }
 }
 
+/// A wavelength map kept as an attribute: `input.wavelength` written as
+/// "OBJECT@ATTRIBUTE" (e.g. "/fringes@wavelength_nm", "/@lambda" for the
+/// file's root), a numeric vector.
+fn read_map_attribute(file: &hdf5::File, spec: &str) -> Result<Vec<f64>> {
+    let (object, name) = spec.rsplit_once('@').expect("has @");
+    let object = if object.is_empty() { "/" } else { object };
+    let attr = if object == "/" {
+        file.attr(name)
+    } else if let Ok(ds) = file.dataset(object) {
+        ds.attr(name)
+    } else {
+        file.group(object).and_then(|g| g.attr(name))
+    }
+    .map_err(|_| anyhow!("input.wavelength = \"{spec}\": no attribute '{name}' on '{object}'"))?;
+    let v: Vec<f64> = attr.read_raw::<f64>().with_context(|| format!("input.wavelength = \"{spec}\": not a numeric attribute"))?;
+    Ok(v)
+}
+
 /// The capture's 1-D datasets (or 1×N / N×1) with one value per pixel: the
 /// likely wavelength maps, for the message when the named one is missing.
 fn map_candidates(file: &hdf5::File, pixels: usize) -> String {
@@ -446,6 +464,10 @@ pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, p
         Some(GivenMap::File { path }) => {
             let (map, file_hash) = crate::map_file::read_map_file(Path::new(path), pixels)?;
             (map.iter().map(|v| v * input.wavelength_unit_nm).collect(), WavelengthSource::File { path: path.clone(), file_hash })
+        }
+        None if input.wavelength.contains('@') && file.is_some() => {
+            let values = read_map_attribute(file.expect("checked"), &input.wavelength)?;
+            (values.iter().map(|v| v * input.wavelength_unit_nm).collect(), WavelengthSource::Dataset { path: input.wavelength.clone() })
         }
         None => {
             let Some(file) = file else {
