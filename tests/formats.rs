@@ -286,3 +286,35 @@ print("imported ok")
     assert!(text.contains("wavelength map (nm) from"), "{text}");
     assert!(text.contains("problems: none"), "{text}");
 }
+
+/// A raw dump described by a sidecar beside it (`dump.bin.toml`, relative
+/// paths from its folder): no `[input]` keys needed; the log names the
+/// sidecar with its digest, and a rerun after the sidecar changed is refused.
+#[test]
+fn sidecar_describes_a_raw_dump() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let (h5, _) = simulate_scene(d, "sample", &small_scene(400.0, 2, 32, 512));
+    python(WRITE, &[&h5, d]);
+    let base = "[background]\nmethod = \"median\"\n";
+    run_ok(d, &[&h5], base, &d.join("out-h5"));
+    let sidecar = d.join("plain.bin.toml");
+    std::fs::write(&sidecar, "# written by the acquisition script\nsample_type = \"u16\"\npixels = 512\nalines_per_frame = 32\nwavelength_file = \"wavelength.txt\"\n").unwrap();
+    run_ok(d, &[&d.join("plain.bin")], base, &d.join("out-raw"));
+    let report = python(COMPARE, &[&d.join("out-h5/sample/volume.h5"), &d.join("out-raw/plain/volume.h5")]);
+    assert!(report.trim_end().ends_with(" same"), "{report}");
+    let log_path = d.join("out-raw/plain/log.json");
+    let log: serde_json::Value = serde_json::from_slice(&std::fs::read(&log_path).unwrap()).unwrap();
+    assert_eq!(log["input"]["sidecar"]["path"], sidecar.display().to_string());
+    assert!(log["input"]["sidecar"]["file_hash"].as_str().unwrap().starts_with("sha256:"));
+    // Changed sidecar: the rerun would not reproduce the run.
+    std::fs::write(&sidecar, "sample_type = \"u16\"\npixels = 512\nalines_per_frame = 16\nwavelength_file = \"wavelength.txt\"\n").unwrap();
+    let o = Command::new(bin()).arg("rerun").arg(&log_path).arg("--out").arg(d.join("again")).output().unwrap();
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("the capture's sidecar changed since the run"), "{}", String::from_utf8_lossy(&o.stderr));
+    // An unknown key in a sidecar is named.
+    std::fs::write(&sidecar, "sample_type = \"u16\"\npixel_count = 512\n").unwrap();
+    let o = run(d, &[&d.join("plain.bin")], base, &d.join("out-bad"));
+    assert!(!o.status.success());
+    assert!(String::from_utf8_lossy(&o.stderr).contains("pixel_count"), "{}", String::from_utf8_lossy(&o.stderr));
+}

@@ -135,7 +135,7 @@ fn check_inputs(log: &serde_json::Value, input: &Path, sha: &str) -> Result<(), 
     // The wavelength calibration (or map) file and the background file must
     // be the ones the log recorded: their paths are in the pipeline, their
     // content only here.
-    for (record, what) in [(&log["input"]["wavelength_map"], "the wavelength map"), (&log["input"]["background_file"], "the background")] {
+    for (record, what) in [(&log["input"]["wavelength_map"], "the wavelength map"), (&log["input"]["background_file"], "the background"), (&log["input"]["sidecar"], "the capture's sidecar")] {
         let (Some(path), Some(recorded_file)) = (record["path"].as_str(), record["file_hash"].as_str()) else { continue };
         let kind = if record["kind"] == "calibration" { "calibration file" } else { "file" };
         match std::fs::read(path) {

@@ -39,6 +39,9 @@ pub struct InputInfo {
     /// The background file used instead of the capture's dataset.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub background_file: Option<FileRecord>,
+    /// The sidecar beside the capture whose keys described it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub sidecar: Option<FileRecord>,
     /// Scan facts and the full scale given by the pipeline's `[input]`
     /// over what the file records.
     #[serde(skip_serializing_if = "Vec::is_empty")]

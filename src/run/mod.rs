@@ -410,6 +410,7 @@ fn write_log(input: &Path, opened: &Opened, planned: &Planned, config: &Pipeline
             wavelength_map: capture.wavelength_source.clone(),
             format: capture.format_detail.clone(),
             background_file: capture.background_file.clone().map(|(path, file_hash)| FileRecord { path, file_hash }),
+            sidecar: capture.sidecar.clone().map(|(path, file_hash)| FileRecord { path, file_hash }),
             given_by_pipeline: capture.given_by_pipeline.clone(),
             has_background: capture.background.is_some(),
             scan: capture.scan.clone(),

@@ -87,7 +87,8 @@ pub(super) fn up_to_date(dir: &Path, input: &Path, now: &str, pipeline_sha256: &
         crate::io::capture::WavelengthSource::Calibration { file_hash, .. } | crate::io::capture::WavelengthSource::File { file_hash, .. } => log["input"]["wavelength_map"]["file_hash"].as_str() == Some(file_hash.as_str()),
         _ => true,
     };
-    let same_background = log["input"]["background_file"]["file_hash"].as_str() == capture.background_file.as_ref().map(|(_, h)| h.as_str());
+    let same_background = log["input"]["background_file"]["file_hash"].as_str() == capture.background_file.as_ref().map(|(_, h)| h.as_str())
+        && log["input"]["sidecar"]["file_hash"].as_str() == capture.sidecar.as_ref().map(|(_, h)| h.as_str());
     (same
         && same_map
         && same_background

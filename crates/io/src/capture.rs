@@ -131,6 +131,9 @@ pub struct Capture {
     /// The background file used instead of the capture's dataset: its path
     /// and "sha256:<hex>".
     pub background_file: Option<(String, String)>,
+    /// The sidecar file whose keys described the capture: path and
+    /// "sha256:<hex>".
+    pub sidecar: Option<(String, String)>,
 }
 
 /// Optional attributes of the fringe dataset that describe the scan.
@@ -672,6 +675,7 @@ impl Capture {
             full_scale,
             given_by_pipeline: Vec::new(),
             background_file: None,
+            sidecar: None,
         })
     }
 

@@ -119,6 +119,7 @@ fn finish_with(path: &Path, input: &CaptureLayout, source: Source, (sample_type,
         scan: ScanAttributes::default(),
         given_by_pipeline: Vec::new(),
         background_file: None,
+        sidecar: None,
     })
 }
 

@@ -4,7 +4,7 @@
 //! loaded by [`crate::calibration`]) and the capture opened with it, and
 //! io's raw frames lent to the fast path as core's [`Samples`].
 
-use anyhow::Result;
+use anyhow::{Context, Result};
 use std::path::Path;
 
 use crate::io::capture::{AxisName, Capture, CaptureLayout, FileFormat, GivenMap, RawFrame, RawLayout};
@@ -76,9 +76,50 @@ pub fn capture_layout(input: &InputConfig) -> Result<CaptureLayout> {
 /// Opens and checks the capture at `path` as the pipeline's `[input]`
 /// settings describe it.
 pub fn open_capture(path: &Path, input: &InputConfig) -> Result<Capture> {
-    let mut capture = Capture::open(path, &capture_layout(input)?)?;
-    given_facts(&mut capture, input)?;
+    let (input, sidecar) = match sidecar_of(path) {
+        Some(s) => {
+            let (merged, digest) = with_sidecar(input, &s)?;
+            (std::borrow::Cow::Owned(merged), Some((s.display().to_string(), digest)))
+        }
+        None => (std::borrow::Cow::Borrowed(input), None),
+    };
+    let mut capture = Capture::open(path, &capture_layout(&input)?)?;
+    given_facts(&mut capture, &input)?;
+    capture.sidecar = sidecar;
     Ok(capture)
+}
+
+/// The sidecar of a capture: `CAPTURE.toml` beside it (e.g. `dump.bin.toml`),
+/// when there is one.
+pub fn sidecar_of(path: &Path) -> Option<std::path::PathBuf> {
+    let mut name = path.file_name()?.to_os_string();
+    name.push(".toml");
+    let s = path.with_file_name(name);
+    s.is_file().then_some(s)
+}
+
+/// The pipeline's `[input]` with a sidecar's keys over it (top-level keys,
+/// or an `[input]` table; relative file paths from the sidecar's folder),
+/// and the sidecar's "sha256:<hex>".
+fn with_sidecar(input: &InputConfig, sidecar: &Path) -> Result<(InputConfig, String)> {
+    let text = std::fs::read_to_string(sidecar).with_context(|| format!("sidecar {}", sidecar.display()))?;
+    let digest = format!("sha256:{}", crate::io::hash::sha256_hex(text.as_bytes()));
+    let mut table: toml::Table = text.parse().map_err(|e: toml::de::Error| anyhow::anyhow!("sidecar {}: {}", sidecar.display(), e.message()))?;
+    if let Some(toml::Value::Table(inner)) = table.remove("input") {
+        table.extend(inner);
+    }
+    let dir = sidecar.parent().filter(|d| !d.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    for key in ["wavelength_file", "background_file", "calibration"] {
+        if let Some(toml::Value::String(p)) = table.get_mut(key) {
+            if Path::new(p.as_str()).is_relative() {
+                *p = dir.join(p.as_str()).display().to_string();
+            }
+        }
+    }
+    let mut merged = toml::Table::try_from(input).context("the pipeline's [input] as TOML")?;
+    merged.extend(table);
+    let config: InputConfig = toml::Value::Table(merged).try_into().map_err(|e: toml::de::Error| anyhow::anyhow!("sidecar {}: {}", sidecar.display(), e.message()))?;
+    Ok((config, digest))
 }
 
 /// What the pipeline's `[input]` says of the scan, the full scale and the
