@@ -42,6 +42,37 @@ const SAMPLE_BUDGET: usize = 1 << 24;
 pub struct Inspection {
     pub datasets: Vec<DatasetStats>,
     pub problems: Vec<String>,
+    /// The capture as `run` would open it, when it opens.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub capture: Option<CaptureFacts>,
+}
+
+/// What `run` would read: format, size, the wavelength range (nm) and its
+/// source, the scan facts with their units, the full scale.
+#[derive(Debug, Clone, serde::Serialize)]
+pub struct CaptureFacts {
+    pub format: String,
+    pub frames: usize,
+    pub alines: usize,
+    pub pixels: usize,
+    pub wavelength_range_nm: [f64; 2],
+    pub wavelength_source: serde_json::Value,
+    pub scan: crate::io::capture::ScanAttributes,
+    pub full_scale: Option<f64>,
+}
+
+fn facts(c: &crate::io::capture::Capture) -> CaptureFacts {
+    let (lo, hi) = c.wavelength_nm.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
+    CaptureFacts {
+        format: c.format_detail.clone().unwrap_or_else(|| format!("HDF5, {:?} samples", c.sample_type).to_lowercase()),
+        frames: c.frames,
+        alines: c.alines,
+        pixels: c.pixels,
+        wavelength_range_nm: [lo, hi],
+        wavelength_source: serde_json::to_value(&c.wavelength_source).unwrap_or_default(),
+        scan: c.scan.clone(),
+        full_scale: c.full_scale,
+    }
 }
 
 fn is_numeric_name(dtype: &str) -> bool {
@@ -171,13 +202,17 @@ pub fn inspect(path: &Path, input: &InputConfig) -> Result<Inspection> {
         }
         datasets.push(st);
     }
-    if let Err(e) = crate::run::open_capture(path, input) {
-        let msg = format!("{e:#}");
-        if !problems.iter().any(|p| p == &msg) {
-            problems.push(msg);
+    let capture = match crate::run::open_capture(path, input) {
+        Ok(c) => Some(facts(&c)),
+        Err(e) => {
+            let msg = format!("{e:#}");
+            if !problems.iter().any(|p| p == &msg) {
+                problems.push(msg);
+            }
+            None
         }
-    }
-    Ok(Inspection { datasets, problems })
+    };
+    Ok(Inspection { datasets, problems, capture })
 }
 
 /// A capture that is not HDF5: opened as `run` opens it, the statistics of
@@ -189,7 +224,7 @@ fn inspect_frames(path: &Path, input: &InputConfig) -> Result<Inspection> {
         Ok(c) => c,
         Err(e) => {
             problems.push(format!("{e:#}"));
-            return Ok(Inspection { datasets: Vec::new(), problems });
+            return Ok(Inspection { datasets: Vec::new(), problems, capture: None });
         }
     };
     let per_frame = capture.alines * capture.pixels;
@@ -233,7 +268,7 @@ fn inspect_frames(path: &Path, input: &InputConfig) -> Result<Inspection> {
     let (lo, hi) = map.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| (a.min(v), b.max(v)));
     let source = serde_json::to_value(&capture.wavelength_source).ok().and_then(|v| v["path"].as_str().map(String::from)).unwrap_or_else(|| "given map".into());
     let wl = DatasetStats { name: format!("wavelength map (nm) from {source}"), shape: vec![map.len()], dtype: "f64".into(), min: lo, max: hi, non_finite: 0, at_full_scale: None, sampled_values: None };
-    Ok(Inspection { datasets: vec![st, wl], problems })
+    Ok(Inspection { datasets: vec![st, wl], problems, capture: Some(facts(&capture)) })
 }
 
 impl Inspection {
@@ -254,6 +289,26 @@ impl Inspection {
                 let _ = write!(s, " (statistics of {n} sampled values)");
             }
             let _ = writeln!(s);
+        }
+        if let Some(c) = &self.capture {
+            let _ = writeln!(s, "as run reads it: {}; {} frames × {} A-lines × {} pixels", c.format, c.frames, c.alines, c.pixels);
+            let source = c.wavelength_source["path"].as_str().map_or_else(|| c.wavelength_source["kind"].as_str().unwrap_or("?").to_string(), |p| p.to_string());
+            let _ = writeln!(s, "  wavelength {:.3}–{:.3} nm (from {source})", c.wavelength_range_nm[0], c.wavelength_range_nm[1]);
+            let sc = &c.scan;
+            let units = [
+                ("A-line period", sc.aline_period_us, "µs"),
+                ("frame period", sc.frame_period_us, "µs"),
+                ("A-line spacing", sc.aline_spacing_um, "µm"),
+                ("frame spacing", sc.frame_spacing_um, "µm"),
+                ("repeats per position", sc.repeats_per_position, ""),
+            ];
+            let given: Vec<String> = units.iter().filter_map(|(n, v, u)| v.map(|v| format!("{n} {} {u}", fmt_num(v)).trim_end().to_string())).collect();
+            if !given.is_empty() {
+                let _ = writeln!(s, "  scan: {}", given.join(", "));
+            }
+            if let Some(fs) = c.full_scale {
+                let _ = writeln!(s, "  full scale {} counts", fmt_num(fs));
+            }
         }
         if self.problems.is_empty() {
             let _ = writeln!(s, "problems: none");

@@ -284,6 +284,7 @@ print("imported ok")
     assert!(o.status.success(), "{text}{}", String::from_utf8_lossy(&o.stderr));
     assert!(text.contains("NumPy .npy, u16 little-endian, Fortran order, shape [2, 64, 1024]"), "{text}");
     assert!(text.contains("wavelength map (nm) from"), "{text}");
+    assert!(text.contains("as run reads it: NumPy .npy") && text.contains(" nm (from ") && text.contains("full scale 65535 counts"), "{text}");
     assert!(text.contains("problems: none"), "{text}");
 }
 
