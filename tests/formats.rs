@@ -127,6 +127,27 @@ fn every_format_gives_the_hdf5_volume_byte_for_byte() {
             assert!(log["input"]["wavelength_map"]["file_hash"].as_str().unwrap().starts_with("sha256:"));
         }
         assert_eq!(log["input"]["frames"], 3);
+        // The same log apart from the source description (and timing).
+        let strip = |mut v: serde_json::Value| {
+            let o = v.as_object_mut().unwrap();
+            // The source description: the input, its digest, the pipeline's
+            // [input] keys and so the pipeline's hash.
+            for k in ["input", "input_hash", "timing", "kernel_choice", "pipeline_sha256"] {
+                o.remove(k);
+            }
+            o["pipeline"].as_object_mut().unwrap().remove("input");
+            v
+        };
+        let ours = strip(log_without_timing(&out.join(&stem).join("log.json")));
+        let original = strip(log_without_timing(&d.join("out-h5/sample/log.json")));
+        for (k, v) in original.as_object().unwrap() {
+            if k == "outputs" || k == "frames" {
+                continue; // compared below without the frames' saturation counts
+            }
+            assert_eq!(&ours[k], v, "{file}: log.{k} differs");
+        }
+        let levels = |l: &serde_json::Value| l["frames"].as_array().unwrap().iter().map(|f| (f["noise_floor_db"].clone(), f["peak_db"].clone(), f["black_db"].clone(), f["white_db"].clone())).collect::<Vec<_>>();
+        assert_eq!(levels(&ours), levels(&original), "{file}: frame records differ");
         volumes.push(out.join(stem).join("volume.h5"));
     }
     let mut args: Vec<&Path> = vec![];
@@ -145,6 +166,9 @@ fn bad_descriptions_fail_with_one_line_naming_the_problem() {
     python(WRITE, &[&h5, d]);
     let wl = d.join("wavelength.txt");
     std::fs::write(d.join("bad.txt"), "800.0\n801.0\nabc\n").unwrap();
+    std::fs::write(d.join("short.txt"), "800.0\n801.0\n802.0\n").unwrap();
+    let zigzag: String = (0..512).map(|p| format!("{}\n", 800.0 + p as f64 * 0.2 - if p == 300 { 5.0 } else { 0.0 })).collect();
+    std::fs::write(d.join("zigzag.txt"), zigzag).unwrap();
     let cases = [
         // Shape × sample size does not fit the file: by how much, what would.
         (format!("[input]\nwavelength_file = \"{}\"\nsample_type = \"u16\"\npixels = 512\nalines_per_frame = 32\nframes = 3\n", wl.display()), "plain.bin", "short by 32768 bytes"),
@@ -152,6 +176,8 @@ fn bad_descriptions_fail_with_one_line_naming_the_problem() {
         (format!("[input]\nwavelength_file = \"{}\"\nsample_type = \"u16\"\npixels = 512\nalines_per_frame = 32\nfile_header_bytes = 99999999\n", wl.display()), "plain.bin", "file_header_bytes = 99999999 but the file has only"),
         (format!("[input]\nwavelength_file = \"{}\"\n", d.join("bad.txt").display()), "c.npy", "line 3: \"abc\" is not a number"),
         (format!("[input]\nwavelength_file = \"{}\"\nwavelength_unit = \"um\"\n", wl.display()), "c.npy", "(declared in um)"),
+        (format!("[input]\nwavelength_file = \"{}\"\n", d.join("short.txt").display()), "c.npy", "3 values, but the fringes have 512 pixels"),
+        (format!("[input]\nwavelength_file = \"{}\"\n", d.join("zigzag.txt").display()), "c.npy", "is not monotonic"),
         ("[input]\n".to_string(), "c.npy", "give input.wavelength_file"),
     ];
     for (i, (pipeline, file, needle)) in cases.iter().enumerate() {
