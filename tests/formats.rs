@@ -45,7 +45,10 @@ with open(d + "/headers.bin", "wb") as f:
 np.savetxt(d + "/wavelength.txt", wl, fmt="%.17g")
 # The map kept as an attribute of the fringes, in µm.
 with h5py.File(d + "/attr.h5", "w") as f:
-    f.create_dataset("spectra", data=a).attrs["lambda_um"] = wl / 1000.0
+    s = f.create_dataset("spectra", data=a)
+    s.attrs["lambda_um"] = wl / 1000.0
+    # The background as an attribute, one spectrum per column.
+    s.attrs["dark"] = np.ascontiguousarray(bg.T)
 # As MATLAB v7.3 saves `fringes` of size [alines, pixels, frames] and a
 # 1-by-N `wavelength_nm`: HDF5 after a 512-byte user block, dimensions
 # reversed, MATLAB_class attributes, the text header in the user block.
@@ -54,6 +57,9 @@ with h5py.File(d + "/export.mat", "w", userblock_size=512) as f:
     ds.attrs["MATLAB_class"] = np.bytes_("uint16")
     w = f.create_dataset("wavelength_nm", data=wl.reshape(-1, 1))
     w.attrs["MATLAB_class"] = np.bytes_("double")
+    # MATLAB's [spectra, pixels] background, stored reversed.
+    b = f.create_dataset("background", data=np.ascontiguousarray(bg.T))
+    b.attrs["MATLAB_class"] = np.bytes_("double")
 with open(d + "/export.mat", "r+b") as f:
     f.write(b"MATLAB 7.3 MAT-file, Platform: GLNXA64, Created on: Sat Dec  5 00:00:00 2026 HDF5 schema 1.00 .".ljust(116) + b"\x00" * 8 + b"\x00\x02IM")
 with open(d + "/wavelength-um.csv", "w") as f:
@@ -251,9 +257,20 @@ fn background_file_and_scan_facts_from_the_pipeline() {
     assert!(log["input"]["format"].as_str().unwrap().starts_with("NumPy .npz array 'fringes'"), "{}", log["input"]["format"]);
     assert_eq!(log["input"]["wavelength_map"]["path"], "wavelength_nm (in the archive)");
     volumes.push(d.join("out-npz/archive/volume.h5"));
+    // The background as an attribute (spectra along columns), and as a
+    // MATLAB export stores an n×pixels matrix (reversed).
+    let attr = format!("{recorded}[input]\nfringes = \"/spectra\"\nwavelength = \"/spectra@lambda_um\"\nwavelength_unit = \"um\"\nbackground = \"/spectra@dark\"\n");
+    run_ok(d, &[&d.join("attr.h5")], &attr, &d.join("out-attr"));
+    volumes.push(d.join("out-attr/attr/volume.h5"));
+    run_ok(d, &[&d.join("export.mat")], &format!("{recorded}[input]\naxes = [\"aline\", \"pixel\", \"frame\"]\n"), &d.join("out-mat"));
+    volumes.push(d.join("out-mat/export/volume.h5"));
     let reference = d.join("out-h5/sample/volume.h5");
-    let report = python(COMPARE, &[&reference, &volumes[0], &volumes[1], &volumes[2]]);
-    assert_eq!(report.lines().filter(|l| l.ends_with(" same")).count(), 3, "{report}");
+    let report = python(COMPARE, &[&reference, &volumes[0], &volumes[1], &volumes[2], &volumes[3], &volumes[4]]);
+    assert_eq!(report.lines().filter(|l| l.ends_with(" same")).count(), 5, "{report}");
+    // A named attribute that is not there is an error naming it.
+    let o = run(d, &[&d.join("attr.h5")], &attr.replace("@dark", "@missing"), &d.join("out-no-attr"));
+    assert_eq!(o.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&o.stderr).contains("input.background = \"/spectra@missing\": no attribute 'missing'"), "{}", String::from_utf8_lossy(&o.stderr));
     // A compressed archive is refused with the way forward.
     let o = run(d, &[&d.join("packed.npz")], "", &d.join("out-packed"));
     assert_eq!(o.status.code(), Some(1));

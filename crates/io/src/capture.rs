@@ -294,10 +294,10 @@ fn dataset_hint(file: &hdf5::File) -> String {
     }
 }
 
-/// A wavelength map kept as an attribute: `input.wavelength` written as
-/// "OBJECT@ATTRIBUTE" (e.g. "/fringes@wavelength_nm", "/@lambda" for the
-/// file's root), a numeric vector.
-fn read_map_attribute(file: &hdf5::File, spec: &str) -> Result<Vec<f64>> {
+/// A numeric attribute named "OBJECT@ATTRIBUTE" (e.g.
+/// "/fringes@wavelength_nm", "/@lambda" for the file's root), as its values
+/// and shape; `key` names the setting for the messages.
+fn read_numeric_attribute(file: &hdf5::File, spec: &str, key: &str) -> Result<(Vec<f64>, Vec<usize>)> {
     let (object, name) = spec.rsplit_once('@').expect("has @");
     let object = if object.is_empty() { "/" } else { object };
     let attr = if object == "/" {
@@ -307,9 +307,16 @@ fn read_map_attribute(file: &hdf5::File, spec: &str) -> Result<Vec<f64>> {
     } else {
         file.group(object).and_then(|g| g.attr(name))
     }
-    .map_err(|_| anyhow!("input.wavelength = \"{spec}\": no attribute '{name}' on '{object}'"))?;
-    let v: Vec<f64> = attr.read_raw::<f64>().with_context(|| format!("input.wavelength = \"{spec}\": not a numeric attribute"))?;
-    Ok(v)
+    .map_err(|_| anyhow!("{key} = \"{spec}\": no attribute '{name}' on '{object}'"))?;
+    let shape = attr.shape();
+    let v: Vec<f64> = attr.read_raw::<f64>().with_context(|| format!("{key} = \"{spec}\": not a numeric attribute"))?;
+    Ok((v, shape))
+}
+
+/// A wavelength map kept as an attribute: `input.wavelength` written as
+/// "OBJECT@ATTRIBUTE", a numeric vector.
+fn read_map_attribute(file: &hdf5::File, spec: &str) -> Result<Vec<f64>> {
+    Ok(read_numeric_attribute(file, spec, "input.wavelength")?.0)
 }
 
 /// The capture's 1-D datasets (or 1×N / N×1) with one value per pixel: the
@@ -526,31 +533,36 @@ pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, p
 /// The capture's background spectrum (the mean of the recorded ones, per
 /// pixel), when it has a background dataset.
 fn read_background(file: &hdf5::File, input: &CaptureLayout, pixels: usize) -> Result<Option<Vec<f64>>> {
-    let background = match open_dataset(file, &input.background) {
-        None => None,
-        Some(ds) => {
-            let b = read_f64(&ds).with_context(|| format!("reading '{}'", input.background))?;
-            let rows: Array2<f64> = match b.ndim() {
-                1 => b.into_dimensionality::<ndarray::Ix1>()?.insert_axis(Axis(0)),
-                2 => b.into_dimensionality::<Ix2>()?,
-                r => bail!("background '{}' has rank {r}, expected 1 or 2", input.background),
-            };
-            if rows.ncols() != pixels || rows.nrows() == 0 {
-                bail!(
-                    "background '{}' has shape {:?}, expected ({pixels},) or (n, {pixels})",
-                    input.background,
-                    rows.shape()
-                );
-            }
-            if rows.iter().any(|v| !v.is_finite()) {
-                bail!("background '{}' contains NaN or infinite values", input.background);
-            }
-            // The mean over the recorded spectra, per pixel.
-            rows.mean_axis(Axis(0)).map(|m| m.to_vec())
+    let name = &input.background;
+    // A background kept as an attribute ("OBJECT@NAME"): named on purpose,
+    // so it must be there.
+    let b = if name.contains('@') {
+        let (values, shape) = read_numeric_attribute(file, name, "input.background")?;
+        let rank = shape.len().max(1);
+        ndarray::ArrayD::from_shape_vec(if shape.is_empty() { vec![values.len()] } else { shape }, values)
+            .map_err(|_| anyhow!("input.background = \"{name}\": attribute of rank {rank} could not be read as an array"))?
+    } else {
+        match open_dataset(file, name) {
+            None => return Ok(None),
+            Some(ds) => read_f64(&ds).with_context(|| format!("reading '{name}'"))?,
         }
     };
-
-    Ok(background)
+    // Spectra along either dimension of a matrix: a MATLAB file stores an
+    // n×pixels matrix reversed, as (pixels, n), and a vector as 1×N or N×1.
+    let rows: Array2<f64> = match b.ndim() {
+        1 => b.into_dimensionality::<ndarray::Ix1>()?.insert_axis(Axis(0)),
+        2 if b.shape()[1] != pixels && b.shape()[0] == pixels => b.into_dimensionality::<Ix2>()?.reversed_axes(),
+        2 => b.into_dimensionality::<Ix2>()?,
+        r => bail!("background '{name}' has rank {r}, expected 1 or 2"),
+    };
+    if rows.ncols() != pixels || rows.nrows() == 0 {
+        bail!("background '{name}' has shape {:?}, expected ({pixels},) or (n, {pixels})", rows.shape());
+    }
+    if rows.iter().any(|v| !v.is_finite()) {
+        bail!("background '{name}' contains NaN or infinite values");
+    }
+    // The mean over the recorded spectra, per pixel.
+    Ok(rows.mean_axis(Axis(0)).map(|m| m.to_vec()))
 }
 
 /// The detector's full scale: the fringes' `full_scale` attribute, else the
