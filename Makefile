@@ -47,6 +47,8 @@ demo: build
 	$(BIN) run out/demo-captures/flow-phantom.h5 --pipeline pipelines/flow.toml --out out/demo
 	@echo "flow: out/demo/flow-phantom/bscan-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
 	@echo "pages: out/demo/layered-phantom/report.html, out/demo/flow-phantom/report.html and out/demo/index.html"
+	$(BIN) run sample-data/layered-phantom.h5 --pipeline pipelines/layers.toml --out out/demo-layers
+	@echo "layers: out/demo-layers/layered-phantom/surfaces-*.png (the surfaces over the B-scans); /surfaces_um and /thickness_um in its volume.h5; thickness per layer in its log.json"
 
 # The tests keep the measured kernel choices (pipeline/fused/tune.rs) in
 # target/, not in the user's cache folder.

@@ -224,7 +224,42 @@ pub struct ProcessingLog {
     /// Registration, Doppler and angiography, when any ran.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub contrast: Option<ContrastRecord>,
+    /// Layer surfaces and thickness, when `[layers]` asked for them.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub layers: Option<LayersRecord>,
     pub outputs: Vec<String>,
     pub warnings: Vec<String>,
     pub timing: Timing,
+}
+
+/// What layer segmentation found (`layers` in log.json).
+#[derive(Debug, Clone, Serialize)]
+pub struct LayersRecord {
+    /// How the surfaces were found, in words.
+    pub method: &'static str,
+    pub surfaces: Vec<SurfaceRecord>,
+    /// Between consecutive surfaces, top first.
+    pub thickness: Vec<ThicknessRecord>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct SurfaceRecord {
+    pub label: String,
+    pub polarity: &'static str,
+    /// Per stored frame (position): A-lines where this surface was not
+    /// found (NaN in /surfaces_um).
+    pub missing_alines_per_frame: Vec<usize>,
+    /// Mean depth in air over the A-lines where it was found, µm.
+    pub mean_depth_um: Option<f64>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct ThicknessRecord {
+    /// "upper-lower" by the surfaces' labels.
+    pub layer: String,
+    /// Depth difference in air ÷ this = thickness in tissue.
+    pub group_index: f64,
+    /// Over every A-line of every position where both surfaces were found, µm in tissue.
+    pub mean_um: Option<f64>,
+    pub median_um: Option<f64>,
 }

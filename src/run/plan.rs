@@ -66,6 +66,9 @@ pub(super) fn plan(opened: &Opened, config: &PipelineConfig) -> Result<Planned> 
             bail!("angiography.en_face_depth_um [{a}, {b}] holds no depth pixel of this capture ({:.1}–{:.1} µm)", depth_um[0], depth_um[depth - 1]);
         }
     }
+    if let Err(e) = config.layers.check_fits(depth_um[depth - 1] - depth_um[0]) {
+        bail!("{e}");
+    }
     let mut warnings = Vec::new();
     // A B-scan a few A-lines wide, and more of them than A-lines: the frame
     // and A-line axes are likely swapped (a column-major file read row-major).

@@ -11,6 +11,7 @@ use rustfft::num_complex::Complex32;
 
 use super::log::{AveragingRecord, FrameRecord};
 use crate::contrast::position::{FrameShift, PositionOutput};
+use crate::contrast::surfaces::BscanSurfaces;
 use crate::io::png::{self, PngInfo};
 use crate::io::staging::Staging;
 use crate::io::volume::{write_stack_image, VolumeWriter};
@@ -53,6 +54,10 @@ pub struct Written {
     pub volume: Option<VolumeWriter>,
     /// The report's embedded frames, made beside the writing.
     pub report: Option<crate::report::Embedder>,
+    /// Layer surfaces: (position, surface, depth in µm per A-line).
+    pub surfaces: Vec<(usize, usize, Vec<f32>)>,
+    /// Per position: A-lines without each surface.
+    pub surfaces_missing: Vec<Vec<usize>>,
 }
 
 pub struct Writer<'a> {
@@ -77,6 +82,9 @@ pub struct Writer<'a> {
     pub position_step_um: Option<f64>,
     /// Embeds the frames for report.html as they are written.
     pub report: Option<crate::report::Embedder>,
+    /// Depth of the first image row and the step between rows, µm.
+    pub depth_um0: f64,
+    pub depth_step_um: f64,
     written: Written,
     grey: Vec<u8>,
 }
@@ -109,6 +117,8 @@ impl<'a> Writer<'a> {
             bscan_pixel_um: None,
             position_step_um: None,
             report: None,
+            depth_um0: 0.0,
+            depth_step_um: 1.0,
             written: Written {
                 records: Vec::new(),
                 en_face: Vec::new(),
@@ -124,6 +134,8 @@ impl<'a> Writer<'a> {
                 angiography_en_face: methods.iter().map(|&m| (m, Vec::new())).collect(),
                 volume: None,
                 report: None,
+                surfaces: Vec::new(),
+                surfaces_missing: Vec::new(),
             },
             grey: Vec::new(),
         }
@@ -132,16 +144,20 @@ impl<'a> Writer<'a> {
     /// Writes one position; returns its structure image for reuse.
     pub fn write(&mut self, mut p: PositionOutput) -> Result<Array2<f32>> {
         let t = std::time::Instant::now();
-        let floor = self.write_structure(&p)?;
+        let (floor, levels) = self.write_structure(&p)?;
         self.write_contrast(&mut p, floor)?;
+        if let Some(surfaces) = p.surfaces.take() {
+            self.write_surfaces(p.position, &p.structure_db, surfaces, levels)?;
+        }
         self.written.write_seconds += t.elapsed().as_secs_f64();
         Ok(p.structure_db)
     }
 
     /// The structure image of a position: its PNGs, its frame of the volume,
     /// its en face row, its record and warnings, the averaging record. Returns
-    /// the image's noise floor in dB.
-    fn write_structure(&mut self, p: &PositionOutput) -> Result<f64> {
+    /// the image's noise floor in dB and its grey mapping (dB at grey 0 and
+    /// at full grey).
+    fn write_structure(&mut self, p: &PositionOutput) -> Result<(f64, (f64, f64))> {
         let cfg = self.config;
         let lc = &cfg.log_compression;
         let image = &p.structure_db;
@@ -191,7 +207,30 @@ impl<'a> Writer<'a> {
         if let (Some(single), None) = (&p.first_single_db, &self.written.averaging) {
             self.written.averaging = Some(measure_averaging(single, image, self.average));
         }
-        Ok(floor)
+        Ok((floor, (from, to)))
+    }
+
+    /// A position's layer surfaces: kept for /surfaces_um and the log, and
+    /// drawn over a copy of the B-scan (`surfaces-NNNN.png`; the plain
+    /// B-scan is left as it is).
+    fn write_surfaces(&mut self, position: usize, image: &Array2<f32>, surfaces: BscanSurfaces, (from, to): (f64, f64)) -> Result<()> {
+        let (depth, alines) = image.dim();
+        if self.config.output.png {
+            let mut grey = vec![0u8; depth * alines];
+            grey_levels_u8(image.as_slice().expect("standard layout"), from, to, &mut grey);
+            let rgb = crate::render::surfaces_over(&grey, depth, alines, &surfaces.depth_um, self.depth_um0, self.depth_step_um);
+            let name = format!("surfaces-{position:0w$}.png", w = index_digits(self.positions));
+            let labels = self.config.layers.labels();
+            let info = self.image_info(format!("B-scan {position} with its layer surfaces drawn over it, top first: {}", crate::render::surface_colour_names(&labels)));
+            png::write_rgb8(&self.staging.path(&name), alines, depth, &rgb, &info)?;
+            self.written.outputs.push(name);
+        }
+        for (i, d) in surfaces.depth_um.iter().enumerate() {
+            debug_assert_eq!(d.len(), alines);
+            self.written.surfaces.push((position, i, d.clone()));
+        }
+        self.written.surfaces_missing.push(surfaces.missing);
+        Ok(())
     }
 
     /// The B-scan PNG (grey linear in dB, 8 or 16 bits) and the one at its
@@ -328,10 +367,60 @@ impl<'a> Writer<'a> {
                 self.written.outputs.push(png_name);
             }
         }
+        self.write_layer_datasets(positions)?;
         self.written.write_seconds += t.elapsed().as_secs_f64();
         self.written.volume = self.volume.take();
         self.written.report = self.report.take();
         Ok(self.written)
+    }
+}
+
+impl Writer<'_> {
+    /// /surfaces_um (position, surface, A-line) and /thickness_um
+    /// (position, layer, A-line) in volume.h5, after the last position.
+    fn write_layer_datasets(&mut self, positions: usize) -> Result<()> {
+        let layers = &self.config.layers;
+        let n = layers.surfaces.len();
+        if n == 0 || self.written.surfaces.is_empty() {
+            return Ok(());
+        }
+        let alines = self.alines;
+        let mut surfaces = vec![f32::NAN; positions * n * alines];
+        for (position, i, d) in &self.written.surfaces {
+            let at = (position * n + i) * alines;
+            surfaces[at..at + alines].copy_from_slice(d);
+        }
+        let Some(v) = &self.volume else { return Ok(()) };
+        let labels = layers.labels().join(",");
+        let polarities = layers.surfaces.iter().map(|s| s.polarity.name()).collect::<Vec<_>>().join(",");
+        let attrs = [
+            ("axes", "position,surface,aline".into()),
+            ("units", "um".into()),
+            ("description", "depth in air of each layer surface (top first) at each A-line, from zero delay; NaN where the A-line has no surface; thickness in tissue = difference / the layer's group index (see /thickness_um)".into()),
+            ("surfaces", labels.clone().into()),
+            ("polarity", polarities.into()),
+        ];
+        v.write_per_aline("surfaces_um", &surfaces, (positions, n, alines), "surface", &attrs)?;
+        if n > 1 {
+            let mut thickness = vec![f32::NAN; positions * (n - 1) * alines];
+            for p in 0..positions {
+                let rows: Vec<Vec<f32>> = (0..n).map(|i| surfaces[(p * n + i) * alines..(p * n + i + 1) * alines].to_vec()).collect();
+                for (j, t) in crate::contrast::surfaces::thickness_um(&rows, &layers.layer_group_indices()).into_iter().enumerate() {
+                    let at = (p * (n - 1) + j) * alines;
+                    thickness[at..at + alines].copy_from_slice(&t);
+                }
+            }
+            let names: Vec<String> = layers.labels().windows(2).map(|w| format!("{}-{}", w[0], w[1])).collect();
+            let attrs = [
+                ("axes", "position,layer,aline".into()),
+                ("units", "um".into()),
+                ("description", "thickness in tissue of the layer between consecutive surfaces (depth difference in air / the layer's group index, listed in group_indices); NaN where a surface is missing".into()),
+                ("layers", names.join(",").into()),
+                ("group_indices", layers.layer_group_indices().iter().map(|n| n.to_string()).collect::<Vec<_>>().join(",").into()),
+            ];
+            v.write_per_aline("thickness_um", &thickness, (positions, n - 1, alines), "layer", &attrs)?;
+        }
+        Ok(())
     }
 }
 
@@ -379,7 +468,7 @@ pub fn flow_grey(values: &[f32], white: f64) -> Vec<u8> {
     values.iter().map(|&v| if v.is_nan() { 0 } else { (v as f64 * scale).round().clamp(0.0, 255.0) as u8 }).collect()
 }
 
-fn round6(v: f64) -> f64 {
+pub(crate) fn round6(v: f64) -> f64 {
     (v * 1e6).round() / 1e6
 }
 

@@ -6,7 +6,8 @@
 //! Layout: [`registration`] (upsampled phase correlation), [`doppler`]
 //! (Kasai estimator), [`angiography`] (decorrelation, split-spectrum,
 //! speckle variance, complex difference), [`phase`] (bulk-motion phase),
-//! [`box_sum`] (neighbourhood sums), [`fft2`] (2-D FFTs), [`position`] (one position's repeats through all
+//! [`box_sum`] (neighbourhood sums), [`surfaces`] (layer
+//! segmentation of the structure image), [`fft2`] (2-D FFTs), [`position`] (one position's repeats through all
 //! of them, as `run` uses it).
 
 pub mod angiography;
@@ -16,5 +17,6 @@ pub mod fft2;
 pub mod phase;
 pub mod position;
 pub mod registration;
+pub mod surfaces;
 
 use fringeflow_core::{analysis, physics, pipeline, stages};

@@ -96,6 +96,8 @@ pub struct PositionOutput {
     pub doppler_vote: super::phase::BulkVote,
     /// Per method: flow image (NaN where masked) and its en face row.
     pub angiography: Vec<(AngiographyMethod, Array2<f32>, Vec<f32>)>,
+    /// The layer surfaces of the structure image, when `[layers]` asks.
+    pub surfaces: Option<super::surfaces::BscanSurfaces>,
     pub warnings: Vec<String>,
 }
 
@@ -158,6 +160,7 @@ impl<'a> PositionProcessor<'a> {
         let doppler = self.doppler(frames, structure_db.dim(), floor_power);
 
         let angio = self.angiography(frames, structure_db.view(), floor_db, floor_power, margin);
+        let surfaces = cfg.layers.enabled().then(|| super::surfaces::SurfaceFinder::new(&cfg.layers, self.depth_um.clone()).find(structure_db.view(), floor_db));
 
         let saturated = frames.iter().map(|f| f.saturated).sum();
         let input_frames = [frames[0].index, frames[n - 1].index];
@@ -177,6 +180,7 @@ impl<'a> PositionProcessor<'a> {
             doppler_bulk_phase,
             doppler_vote,
             angiography: angio,
+            surfaces,
             warnings,
         })
     }

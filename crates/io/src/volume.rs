@@ -228,6 +228,19 @@ impl VolumeWriter {
         Ok(())
     }
 
+    /// A (position, item, A-line) array, e.g. surfaces or thicknesses per
+    /// position: the position and A-line scales attached, the middle axis
+    /// labelled `item` (its names in the attribute `names`).
+    pub fn write_per_aline(&self, name: &str, values: &[f32], shape: (usize, usize, usize), item: &str, attrs: &[(&str, Attr)]) -> Result<()> {
+        let array = ndarray::ArrayView3::from_shape(shape, values)?;
+        let ds = self.file.new_dataset_builder().with_data(&array).create(name).map_err(concise).with_context(|| format!("writing /{name}"))?;
+        write_attrs(&ds, attrs)?;
+        let same = shape.0 == self.frames;
+        label_dimensions(&ds, &["position", item, "aline"])?;
+        attach_scales(&ds, &[same.then_some(&self.axes.frame), None, Some(&self.axes.aline)])?;
+        attach_scales(&ds, &[same.then_some(self.axes.position_um.as_ref()).flatten(), None, self.axes.aline_um.as_ref()])
+    }
+
     /// A numeric attribute of the file's root.
     pub fn write_root_attr(&self, name: &str, value: f64) -> Result<()> {
         write_attr(&self.file, name, value)

@@ -76,6 +76,8 @@ pub struct Vessel {
     s_range: [f64; 2],
     /// (s, u, v, amplitude) at the start of the current frame.
     scatterers: Vec<[f64; 4]>,
+    /// The layer holding the axis at the scan's middle position.
+    layer: Option<usize>,
 }
 
 impl Vessel {
@@ -152,7 +154,8 @@ impl ScannedSample {
                 let centre = [v.lateral_um, 0.5 * scan_length(scene, &scan), v.depth_um];
                 let (axis, across) = vessel_frame(v);
                 let s_range = vessel_s_range(scene, v, centre, axis, max_depth_um);
-                Vessel { spec: v.clone(), centre, axis, across, s_range, scatterers: Vec::new() }
+                let layer = scene.sample.as_ref().and_then(|_| crate::scene::SampleSpec::layer_at(&interfaces_at(centre[0], centre[1]), centre[2]));
+                Vessel { spec: v.clone(), centre, axis, across, s_range, scatterers: Vec::new(), layer }
             })
             .collect();
 
@@ -181,12 +184,13 @@ impl ScannedSample {
                     let ifs = interfaces_at(x, y);
                     let z = ifs[i] + q * (ifs[i + 1] - ifs[i]);
                     let _ = thickness;
+                    let weight = sample.field_weight(&ifs, z);
                     if vessels.iter().any(|v| v.distance_from_axis([x, y, z]).0 <= v.spec.radius_um) {
                         continue;
                     }
                     let ci = (((x - x0) / cell) as usize).min(nx - 1);
                     let cj = (((y - y0) / cell) as usize).min(ny - 1);
-                    cells[cj * nx + ci].push(Point { x, y, z, amplitude: 2.0 * r.sqrt() });
+                    cells[cj * nx + ci].push(Point { x, y, z, amplitude: 2.0 * r.sqrt() * weight });
                 }
             }
         }
@@ -197,13 +201,15 @@ impl ScannedSample {
             let [lo, hi] = v.s_range;
             let r = v.spec.radius_um;
             let count = (v.spec.scatterer_density_per_um3 * std::f64::consts::PI * r * r * (hi - lo)).round() as usize;
+            // Weakened by the layers above the vessel's centre.
+            let weight = scene.sample.as_ref().map_or(1.0, |sample| sample.field_weight(&interfaces_at(v.centre[0], v.centre[1]), v.centre[2]));
             v.scatterers = (0..count)
                 .map(|_| {
                     let s = lo + (hi - lo) * rng.random::<f64>();
                     // Uniform over the disc.
                     let (rho, phi) = (r * rng.random::<f64>().sqrt(), 2.0 * std::f64::consts::PI * rng.random::<f64>());
                     let refl = v.spec.scatterer_reflectivity * rng.sample::<f64, _>(Exp1);
-                    [s, rho * phi.cos(), rho * phi.sin(), 2.0 * refl.sqrt()]
+                    [s, rho * phi.cos(), rho * phi.sin(), 2.0 * refl.sqrt() * weight]
                 })
                 .collect();
         }
@@ -314,6 +320,9 @@ pub struct VesselTruth {
     /// fast axis (it then lies in every B-scan).
     pub centre_per_position: Vec<VesselCrossing>,
     pub scatterers: usize,
+    /// The layer (0 = the top one) holding the vessel's axis at the middle
+    /// slow-axis position; None outside the layered sample.
+    pub layer: Option<usize>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -337,6 +346,7 @@ impl ScannedSample {
                     })
                     .collect(),
                 scatterers: v.scatterers.len(),
+                layer: v.layer,
             })
             .collect()
     }

@@ -81,6 +81,55 @@ pub struct Truth {
     /// Scanned scenes: timing, the sample's motion per frame, vessels.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub scan: Option<ScanTruth>,
+    /// Layered samples: every interface at every A-line, each layer's
+    /// group index and attenuation.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub layers: Option<LayerTruth>,
+}
+
+/// Ground truth of a layered sample's geometry and optical properties.
+#[derive(Debug, Clone, Serialize)]
+pub struct LayerTruth {
+    /// Optical depth (in air, µm, zero delay at 0) of every interface (top
+    /// first, the last is the bottom of the last layer) at every A-line of
+    /// every slow-axis position's first B-scan: [surface][position][A-line].
+    pub surfaces_um: Vec<Vec<Vec<f64>>>,
+    /// Per layer (top first).
+    pub group_index: Vec<f64>,
+    pub attenuation_per_mm: Vec<f64>,
+    /// Geometric thickness of each layer (optical / group index), µm:
+    /// [layer][position][A-line].
+    pub thickness_um: Vec<Vec<Vec<f64>>>,
+}
+
+/// The layered sample's truth, as imaged (motion included).
+fn layer_truth(scene: &Scene, scanned: Option<&ScannedSample>) -> Option<LayerTruth> {
+    let s = scene.sample.as_ref()?;
+    let positions = scene.frames / scene.repeats;
+    let per_position: Vec<Vec<Vec<f64>>> = (0..positions)
+        .map(|p| {
+            (0..scene.alines)
+                .map(|a| {
+                    let (ifs, dz) = interfaces_seen(scene, a, p * scene.repeats, scanned);
+                    ifs.iter().map(|i| i.0 + dz).collect()
+                })
+                .collect()
+        })
+        .collect();
+    let n = s.layers.len() + 1;
+    let surfaces_um: Vec<Vec<Vec<f64>>> = (0..n).map(|i| per_position.iter().map(|lines| lines.iter().map(|d| d[i]).collect()).collect()).collect();
+    let thickness_um = s
+        .layers
+        .iter()
+        .enumerate()
+        .map(|(i, layer)| per_position.iter().map(|lines| lines.iter().map(|d| (d[i + 1] - d[i]) / layer.group_index).collect()).collect())
+        .collect();
+    Some(LayerTruth {
+        surfaces_um,
+        group_index: s.layers.iter().map(|l| l.group_index).collect(),
+        attenuation_per_mm: s.layers.iter().map(|l| l.attenuation_per_mm).collect(),
+        thickness_um,
+    })
 }
 
 /// Ground truth of a scanned scene.
@@ -199,20 +248,31 @@ fn optics(scene: &Scene, wl: &[f64]) -> Optics {
     Optics { k, spectrum, sigma_k, pixel_dk, chirp, pattern, two_k, two_sigma2 }
 }
 
-/// Lateral and slow-axis depth offset of the sample at A-line `a` of frame `f`.
-fn sample_offset(scene: &Scene, a: usize, f: usize) -> f64 {
+/// Fractions (u, v) of the fast-axis and slow-axis extent (0 at the first,
+/// 1 at the last A-line or position) of A-line `a` of frame `f`.
+fn aline_fractions(scene: &Scene, a: usize, f: usize) -> (f64, f64) {
     let u = if scene.alines > 1 { a as f64 / (scene.alines - 1) as f64 } else { 0.5 };
     let positions = scene.frames / scene.repeats;
     let position = f / scene.repeats;
     let v = if positions > 1 { position as f64 / (positions - 1) as f64 } else { 0.5 };
-    sample_offset_at(scene, u, v)
+    (u, v)
 }
 
-/// The same at fractions u of the fast-axis and v of the slow-axis extent
-/// (0 at the first, 1 at the last A-line or position).
-fn sample_offset_at(scene: &Scene, u: f64, v: f64) -> f64 {
-    let Some(s) = &scene.sample else { return 0.0 };
-    s.sag_um * (2.0 * u - 1.0).powi(2) + s.tilt_um * (u - 0.5) + s.frame_tilt_um * (v - 0.5)
+/// The interfaces (optical depth, reflectivity) seen by A-line `a` of frame
+/// `f`, and the axial displacement of the sample there.
+fn interfaces_seen(scene: &Scene, a: usize, f: usize, scanned: Option<&ScannedSample>) -> (Vec<(f64, f64)>, f64) {
+    let Some(s) = &scene.sample else { return (Vec::new(), scanned.map_or(0.0, |sc| sc.displacement(scene, f, a)[1])) };
+    match scanned {
+        Some(sc) => {
+            let [bx, by] = sc.beam_in_sample(scene, f, a);
+            let (u, v) = scan_fractions(scene, bx, by);
+            (s.interfaces_at(u, v), sc.displacement(scene, f, a)[1])
+        }
+        None => {
+            let (u, v) = aline_fractions(scene, a, f);
+            (s.interfaces_at(u, v), 0.0)
+        }
+    }
 }
 
 /// Fractions (u, v) of the scan of a point (x, y) µm in a scanned scene.
@@ -249,27 +309,23 @@ fn clean_spectrum(scene: &Scene, o: &Optics, a: usize, f: usize, sample_arm: boo
     let mut scatterers: Vec<(f64, f64)> = Vec::new();
     let mut dc = 1.0;
     if sample_arm {
-        let (offset, dz) = match scanned {
-            Some(sc) => {
-                let [bx, by] = sc.beam_in_sample(scene, f, a);
-                let (u, v) = scan_fractions(scene, bx, by);
-                (sample_offset_at(scene, u, v), sc.displacement(scene, f, a)[1])
-            }
-            None => (sample_offset(scene, a, f), 0.0),
-        };
+        let (ifs, dz) = interfaces_seen(scene, a, f, scanned);
+        let depths: Vec<f64> = ifs.iter().map(|i| i.0).collect();
         coupled.extend(scene.reflectors.iter().map(|r| (r.depth_um + dz, r.reflectivity)));
-        let ifs = interfaces(scene);
-        coupled.extend(ifs.iter().map(|&(z, r)| (z + offset + dz, r)));
+        // Each interface weakened by the layers above it (round trip).
+        if let Some(s) = &scene.sample {
+            coupled.extend(ifs.iter().map(|&(z, r)| (z + dz, r * s.field_weight(&depths, z).powi(2))));
+        }
         match scanned {
             Some(sc) => sc.scatterers_seen(scene, f, a, &mut scatterers),
             None => {
                 if let Some(s) = &scene.sample {
                     for (i, layer) in s.layers.iter().enumerate() {
-                        let (top, bottom) = (ifs[i].0 + offset, ifs[i + 1].0 + offset);
+                        let (top, bottom) = (depths[i], depths[i + 1]);
                         for _ in 0..layer.scatterers {
                             let z = top + (bottom - top) * rng.random::<f64>();
                             let r = layer.scatterer_reflectivity * rng.sample::<f64, _>(Exp1);
-                            scatterers.push((z, 2.0 * r.sqrt()));
+                            scatterers.push((z, 2.0 * r.sqrt() * s.field_weight(&depths, z)));
                         }
                     }
                 }
@@ -425,13 +481,15 @@ pub fn truth(scene: &Scene) -> Truth {
         reflectors: scene.reflectors.clone(),
         interfaces: interfaces(scene)
             .into_iter()
-            .map(|(z, r)| InterfaceTruth {
+            .enumerate()
+            .map(|(i, (z, r))| InterfaceTruth {
                 reflectivity: r,
                 depth_um: z,
-                depth_um_frame0: (0..scene.alines).map(|a| z + sample_offset(scene, a, 0)).collect(),
+                depth_um_frame0: (0..scene.alines).map(|a| interfaces_seen(scene, a, 0, None).0[i].0).collect(),
             })
             .collect(),
         scan: None,
+        layers: None,
     }
 }
 
@@ -493,8 +551,7 @@ pub fn simulate_with_progress(scene: &Scene, out: &Path, progress: &(dyn Fn(usiz
     let mut scanned = scene.scan.as_ref().map(|_| {
         ScannedSample::new(scene, &|x, y| {
             let (u, v) = scan_fractions(scene, x, y);
-            let offset = sample_offset_at(scene, u, v);
-            interfaces(scene).iter().map(|&(z, _)| z + offset).collect()
+            scene.sample.as_ref().map(|s| s.interfaces_at(u, v).iter().map(|i| i.0).collect()).unwrap_or_default()
         })
     });
     write_atomically(out, |tmp| {
@@ -567,6 +624,7 @@ pub fn simulate_with_progress(scene: &Scene, out: &Path, progress: &(dyn Fn(usiz
         };
         t.scan = Some(scan_truth(scene, sc, t.depth_spacing_um, band_centre_nm, field));
     }
+    t.layers = layer_truth(scene, scanned.as_ref());
     let json = serde_json::to_vec_pretty(&t)?;
     let tp = truth_path(out);
     write_atomically(&tp, |tmp| Ok(std::fs::write(tmp, &json)?)).with_context(|| format!("writing {}", tp.display()))?;

@@ -199,6 +199,28 @@ pub struct Layer {
     /// Mean reflectivity of a scatterer.
     #[serde(default, deserialize_with = "de_reflectivity")]
     pub scatterer_reflectivity: f64,
+    /// The interface at the top of this layer waves across the fast axis:
+    /// amplitude in µm of optical depth, `wave_cycles` periods from the
+    /// first to the last A-line, starting at phase `wave_phase_deg`.
+    #[serde(default, deserialize_with = "de_non_negative", skip_serializing_if = "is_zero")]
+    pub wave_um: f64,
+    #[serde(default, deserialize_with = "de_non_negative", skip_serializing_if = "is_zero")]
+    pub wave_cycles: f64,
+    #[serde(default, deserialize_with = "de_finite", skip_serializing_if = "is_zero")]
+    pub wave_phase_deg: f64,
+    /// Depth change of this interface alone from the first to the last
+    /// A-line, µm (over the whole sample's `tilt_um`).
+    #[serde(default, deserialize_with = "de_finite", skip_serializing_if = "is_zero")]
+    pub tilt_um: f64,
+    /// Attenuation coefficient of the layer, mm⁻¹: light that goes down a
+    /// geometric depth z in it and comes back is weakened by exp(−2·μ·z)
+    /// in intensity (single scattering), and so is everything below.
+    #[serde(default, deserialize_with = "de_non_negative", skip_serializing_if = "is_zero")]
+    pub attenuation_per_mm: f64,
+}
+
+fn is_zero(v: &f64) -> bool {
+    *v == 0.0
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -220,6 +242,50 @@ pub struct SampleSpec {
     /// Reflectivity of the interface below the last layer.
     #[serde(default, deserialize_with = "de_reflectivity")]
     pub bottom_reflectivity: f64,
+}
+
+impl SampleSpec {
+    /// The interfaces (top first) at fractions u of the fast-axis and v of
+    /// the slow-axis extent of the scan: optical depth in µm (the sample's
+    /// depth, sag and tilt, then each interface's own wave and tilt) and
+    /// reflectivity. The last is the bottom of the last layer, which has
+    /// no shape of its own.
+    pub fn interfaces_at(&self, u: f64, v: f64) -> Vec<(f64, f64)> {
+        let offset = self.sag_um * (2.0 * u - 1.0).powi(2) + self.tilt_um * (u - 0.5) + self.frame_tilt_um * (v - 0.5);
+        let mut out = Vec::with_capacity(self.layers.len() + 1);
+        // (Summed in this order so that a scene without waves gives the
+        // same depths, to the bit, as before waves existed.)
+        let mut z = self.surface_um;
+        for layer in &self.layers {
+            let own = layer.wave_um * (std::f64::consts::TAU * layer.wave_cycles * u + layer.wave_phase_deg.to_radians()).sin() + layer.tilt_um * (u - 0.5);
+            out.push((z + offset + own, layer.top_reflectivity));
+            z += layer.thickness_um * layer.group_index;
+        }
+        out.push((z + offset, self.bottom_reflectivity));
+        out
+    }
+
+    /// The field (amplitude) weight of light reflected at optical depth z,
+    /// given the interfaces' depths there: exp(−Σ μ_j·d_j), d_j the
+    /// geometric path through layer j above z (optical / group index).
+    pub fn field_weight(&self, depths: &[f64], z: f64) -> f64 {
+        let mut exponent = 0.0;
+        for (j, layer) in self.layers.iter().enumerate() {
+            if layer.attenuation_per_mm == 0.0 {
+                continue;
+            }
+            let (top, bottom) = (depths[j], depths[j + 1]);
+            let inside = (z.min(bottom) - top).max(0.0);
+            exponent += layer.attenuation_per_mm * 1e-3 * inside / layer.group_index;
+        }
+        (-exponent).exp()
+    }
+
+    /// The layer holding optical depth z (None above the first or below
+    /// the last interface).
+    pub fn layer_at(depths: &[f64], z: f64) -> Option<usize> {
+        depths.windows(2).position(|w| z >= w[0] && z < w[1])
+    }
 }
 
 /// Lateral scan geometry and timing. With it, the sample is a 3-D field of
@@ -383,6 +449,18 @@ impl Scene {
         }
         if !wavelength_map(s).windows(2).all(|w| w[1] > w[0]) {
             return Err(fail("spectrometer", "nonlinearity_nm", "makes the wavelength map non-monotonic".into()));
+        }
+        if let Some(sample) = &scene.sample {
+            // Interfaces that cross would make a layer of negative thickness.
+            for step in 0..=1000 {
+                let u = step as f64 / 1000.0;
+                for v in [0.0, 1.0] {
+                    let ifs = sample.interfaces_at(u, v);
+                    if let Some(i) = ifs.windows(2).position(|w| w[1].0 <= w[0].0) {
+                        return Err(fail("sample", "layers", format!("interfaces {i} and {} (counted from the top, 0 first) cross at {:.0} % of the fast axis: reduce a wave or tilt, or thicken the layer between them", i + 1, u * 100.0)));
+                    }
+                }
+            }
         }
         if scene.source.shape == SpectrumShape::GaussianSum && scene.source.components.is_empty() {
             return Err(fail("source", "components", "shape = \"gaussian_sum\" needs at least one component".into()));

@@ -3,6 +3,9 @@
 
 pub mod colour;
 pub mod geometry;
+pub mod surfaces;
+
+pub use surfaces::{surface_colour_names, surfaces_over};
 
 use anyhow::{anyhow, Result};
 use ndarray::ArrayView2;

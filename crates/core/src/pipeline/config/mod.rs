@@ -14,8 +14,10 @@ use crate::stages::log_compression::GreyMapping;
 use crate::stages::window::WindowKind;
 
 mod contrast;
+mod layers;
 mod output;
 pub use contrast::*;
+pub use layers::*;
 pub use output::*;
 
 /// A named axis of the fringe dataset.
@@ -420,6 +422,8 @@ pub struct PipelineConfig {
     pub doppler: DopplerConfig,
     #[serde(skip_serializing_if = "is_default")]
     pub angiography: AngiographyConfig,
+    #[serde(skip_serializing_if = "is_default")]
+    pub layers: LayersConfig,
     pub output: OutputConfig,
 }
 
@@ -557,6 +561,18 @@ impl PipelineConfig {
         }
         if self.fft.crop_um.is_some() && self.fft.crop_px.is_some() {
             return Err(fail("fft", "crop_px", "give crop_um or crop_px, not both".into()));
+        }
+        for (i, surface) in self.layers.surfaces.iter().enumerate() {
+            if let Some(max) = surface.max_separation_um {
+                if max <= surface.min_separation_um {
+                    return Err(fail("layers", "surface", format!("surface {}: max_separation_um ({max}) must exceed min_separation_um ({})", i + 1, surface.min_separation_um)));
+                }
+            }
+            if let Some(label) = &surface.label {
+                if label.is_empty() || self.layers.surfaces.iter().filter(|s| s.label.as_ref() == Some(label)).count() > 1 {
+                    return Err(fail("layers", "surface", format!("surface {}: label \"{label}\" is empty or given twice", i + 1)));
+                }
+            }
         }
         if let Some([a, b]) = self.volume.en_face_depth_um {
             if !(a.is_finite() && b.is_finite() && a >= 0.0 && b > a) {
