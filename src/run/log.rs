@@ -240,6 +240,18 @@ pub struct LayersRecord {
     pub surfaces: Vec<SurfaceRecord>,
     /// Between consecutive surfaces, top first.
     pub thickness: Vec<ThicknessRecord>,
+    /// How the attenuation coefficients were estimated, when asked.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub attenuation: Option<AttenuationRecord>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct AttenuationRecord {
+    pub method: &'static str,
+    pub corrections_applied: Vec<String>,
+    pub not_corrected: Vec<String>,
+    /// What the per-layer medians leave out.
+    pub medians_exclude: String,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -262,4 +274,8 @@ pub struct ThicknessRecord {
     /// Over every A-line of every position where both surfaces were found, µm in tissue.
     pub mean_um: Option<f64>,
     pub median_um: Option<f64>,
+    /// Median attenuation coefficient inside the layer, mm⁻¹ (with
+    /// `[layers] attenuation`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub attenuation_median_per_mm: Option<f64>,
 }

@@ -114,7 +114,7 @@ pub fn grey8(db: &[f32], black: f64, white: f64, bytes: &mut Vec<u8>) {
 
 /// Phase 3a: volume.h5 with every dataset the pipeline asks for.
 fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, staging: &Staging) -> Result<(Option<VolumeWriter>, ContrastDatasets)> {
-    let none = ContrastDatasets { complex: None, doppler: None, angiography: Vec::new() };
+    let none = ContrastDatasets { complex: None, doppler: None, angiography: Vec::new(), attenuation: None };
     if !config.output.volume {
         return Ok((None, none));
     }
@@ -192,7 +192,22 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
         )?;
         angiography.push((m, ds));
     }
-    Ok((Some(v), ContrastDatasets { complex, doppler, angiography }))
+    let attenuation = if config.layers.enabled() && config.layers.attenuation {
+        Some(v.add_stack::<f32>(
+            "attenuation_per_mm",
+            opened.positions,
+            depth,
+            alines,
+            &[
+                ("axes", "position,depth,aline".into()),
+                ("units", "1/mm".into()),
+                ("description", "depth-resolved attenuation coefficient (Vermeer et al. 2014) of the structure image, noise floor removed, averaged over neighbouring A-lines; NaN above the first surface and where a surface is missing; see log.json layers".into()),
+            ],
+        )?)
+    } else {
+        None
+    };
+    Ok((Some(v), ContrastDatasets { complex, doppler, angiography, attenuation }))
 }
 
 const PHASE_CONVENTION: &str = "phase of a reflector at optical depth z is 2·k_centre·z: it grows with depth; motion away from the probe raises it, towards the probe lowers it";
@@ -523,13 +538,37 @@ fn layers_record(config: &PipelineConfig, written: &writer::Written) -> Option<l
                 let m = values.len() / 2;
                 writer::round6(if values.len() % 2 == 1 { values[m] } else { 0.5 * (values[m - 1] + values[m]) })
             });
-            log::ThicknessRecord { layer: format!("{}-{}", labels[i], labels[i + 1]), group_index: group_indices[i], mean_um: finite_mean(&values), median_um: median }
+            let attenuation_median_per_mm = written.attenuation.get(i).and_then(|h| h.median()).map(|m| (m * 1e4).round() / 1e4);
+            log::ThicknessRecord { layer: format!("{}-{}", labels[i], labels[i + 1]), group_index: group_indices[i], mean_um: finite_mean(&values), median_um: median, attenuation_median_per_mm }
         })
         .collect();
     Some(log::LayersRecord {
         method: "minimum-cost path across the A-lines on the signed axial gradient (Chiu et al. 2010), dynamic programming, surfaces top first within their separation limits; sub-pixel at a thin interface's peak or a step's steepest edge",
         surfaces,
         thickness,
+        attenuation: layers.attenuation.then(|| log::AttenuationRecord {
+            method: "depth-resolved: mu[i] = I[i] / (2 * sum_{j>i} I[j] * dz_j) (Vermeer et al. 2014), I the linear intensity, dz_j the pixel size in the medium (depth step in air / the layer's group index)",
+            corrections_applied: [
+                Some("noise floor power subtracted".to_string()),
+                Some(format!("intensity averaged over {} A-lines before the ratio (speckle)", layers.attenuation_alines)),
+                layers.rolloff_6db_depth_um.map(|z| format!("roll-off divided out: Gaussian amplitude fall, one half at {z} um")),
+            ]
+            .into_iter()
+            .flatten()
+            .collect(),
+            not_corrected: [
+                layers.rolloff_6db_depth_um.is_none().then(|| "the spectrometer's roll-off (give layers.rolloff_6db_depth_um from measure rolloff)".to_string()),
+                Some("the depth-dependent loss of the k-resampling's interpolation".to_string()),
+            ]
+            .into_iter()
+            .flatten()
+            .collect(),
+            medians_exclude: format!(
+                "{} px next to each surface and the bottom {:.0} % of the depth range, where the sum below lacks the light beyond the range",
+                crate::contrast::attenuation::EDGE_PX,
+                crate::contrast::attenuation::BOTTOM_FRACTION * 100.0
+            ),
+        }),
     })
 }
 

@@ -34,6 +34,8 @@ pub struct ContrastDatasets {
     pub complex: Option<Dataset>,
     pub doppler: Option<Dataset>,
     pub angiography: Vec<(AngiographyMethod, Dataset)>,
+    /// The attenuation coefficient, mm⁻¹ (layers).
+    pub attenuation: Option<Dataset>,
 }
 
 /// Everything the writer collected, for the log.
@@ -58,6 +60,8 @@ pub struct Written {
     pub surfaces: Vec<(usize, usize, Vec<f32>)>,
     /// Per position: A-lines without each surface.
     pub surfaces_missing: Vec<Vec<usize>>,
+    /// Per layer: the attenuation coefficients inside it, binned.
+    pub attenuation: Vec<crate::contrast::attenuation::Histogram>,
 }
 
 pub struct Writer<'a> {
@@ -136,6 +140,7 @@ impl<'a> Writer<'a> {
                 report: None,
                 surfaces: Vec::new(),
                 surfaces_missing: Vec::new(),
+                attenuation: Vec::new(),
             },
             grey: Vec::new(),
         }
@@ -148,6 +153,15 @@ impl<'a> Writer<'a> {
         self.write_contrast(&mut p, floor)?;
         if let Some(surfaces) = p.surfaces.take() {
             self.write_surfaces(p.position, &p.structure_db, surfaces, levels)?;
+        }
+        if let Some((mu, per_layer)) = p.attenuation.take() {
+            if let Some(ds) = &self.datasets.attenuation {
+                write_stack_image(ds, p.position, &mu)?;
+            }
+            self.written.attenuation.resize(per_layer.len(), Default::default());
+            for (h, values) in self.written.attenuation.iter_mut().zip(&per_layer) {
+                h.add(values);
+            }
         }
         self.written.write_seconds += t.elapsed().as_secs_f64();
         Ok(p.structure_db)

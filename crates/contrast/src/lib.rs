@@ -11,6 +11,7 @@
 //! of them, as `run` uses it).
 
 pub mod angiography;
+pub mod attenuation;
 pub mod box_sum;
 pub mod doppler;
 pub mod fft2;

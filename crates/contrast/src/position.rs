@@ -98,6 +98,9 @@ pub struct PositionOutput {
     pub angiography: Vec<(AngiographyMethod, Array2<f32>, Vec<f32>)>,
     /// The layer surfaces of the structure image, when `[layers]` asks.
     pub surfaces: Option<super::surfaces::BscanSurfaces>,
+    /// Attenuation coefficient (mm⁻¹, depth × A-lines) and each layer's
+    /// values for the medians, when `[layers] attenuation` asks.
+    pub attenuation: Option<(Array2<f32>, Vec<Vec<f32>>)>,
     pub warnings: Vec<String>,
 }
 
@@ -161,6 +164,21 @@ impl<'a> PositionProcessor<'a> {
 
         let angio = self.angiography(frames, structure_db.view(), floor_db, floor_power, margin);
         let surfaces = cfg.layers.enabled().then(|| super::surfaces::SurfaceFinder::new(&cfg.layers, self.depth_um.clone()).find(structure_db.view(), floor_db));
+        let attenuation = match &surfaces {
+            Some(found) if cfg.layers.attenuation => {
+                let indices = cfg.layers.layer_group_indices();
+                let inputs = super::attenuation::AttenuationInputs {
+                    depth_um: &self.depth_um,
+                    surfaces_um: &found.depth_um,
+                    group_index: &indices,
+                    below_group_index: cfg.layers.group_index,
+                    alines_averaged: cfg.layers.attenuation_alines,
+                    rolloff_6db_um: cfg.layers.rolloff_6db_depth_um,
+                };
+                Some(super::attenuation::attenuation(structure_db.view(), floor_db, &inputs))
+            }
+            _ => None,
+        };
 
         let saturated = frames.iter().map(|f| f.saturated).sum();
         let input_frames = [frames[0].index, frames[n - 1].index];
@@ -181,6 +199,7 @@ impl<'a> PositionProcessor<'a> {
             doppler_vote,
             angiography: angio,
             surfaces,
+            attenuation,
             warnings,
         })
     }

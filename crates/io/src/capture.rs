@@ -508,10 +508,12 @@ pub(crate) fn wavelength_map(file: Option<&hdf5::File>, input: &CaptureLayout, p
         WavelengthSource::Calibration { path, .. } => format!("from calibration {path}"),
         WavelengthSource::File { path, .. } => format!("from file {path}"),
     };
-    let unit = match input.wavelength_unit_nm {
-        u if u == 1.0 => String::new(),
-        u if u == 1e3 => " (declared in um)".into(),
-        _ => " (declared in m)".into(),
+    let unit = if input.wavelength_unit_nm == 1.0 {
+        String::new()
+    } else if input.wavelength_unit_nm == 1e3 {
+        " (declared in um)".into()
+    } else {
+        " (declared in m)".into()
     };
     let source_name = format!("{source_name}{unit}");
     if wavelength_nm.len() != pixels && shape.contains(&wavelength_nm.len()) {

@@ -230,7 +230,7 @@ pub fn open_raw(path: &Path, input: &CaptureLayout) -> Result<Capture> {
     let frames = match r.frames {
         Some(n) => n,
         None => {
-            if whole == 0 || data % frame_bytes != 0 {
+            if whole == 0 || !data.is_multiple_of(frame_bytes) {
                 bail!(
                     "{len} bytes do not hold whole frames of {frame_bytes} bytes after a {}-byte header ({whole} frames and {} bytes over); check pixels, alines_per_frame, sample_type and the header sizes",
                     r.file_header_bytes,

@@ -92,11 +92,31 @@ pub struct LayersConfig {
     /// noise floor, has no surface (NaN there), dB.
     #[serde(deserialize_with = "de_positive")]
     pub min_edge_db: f64,
+    /// The depth-resolved attenuation coefficient (Vermeer et al. 2014) in
+    /// every layer: /attenuation_per_mm and each layer's median in the log.
+    pub attenuation: bool,
+    /// A-lines averaged (odd) before the ratio, against speckle.
+    #[serde(deserialize_with = "de_smoothing")]
+    pub attenuation_alines: usize,
+    /// The system's −6 dB roll-off depth in air (from `measure rolloff`),
+    /// µm: its Gaussian fall is divided out first. None: not corrected.
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub rolloff_6db_depth_um: Option<f64>,
 }
 
 impl Default for LayersConfig {
     fn default() -> Self {
-        LayersConfig { surfaces: Vec::new(), group_index: 1.38, search_from_um: 20.0, max_step_um: 8.0, lateral_smoothing_alines: 5, min_edge_db: 3.0 }
+        LayersConfig {
+            surfaces: Vec::new(),
+            group_index: 1.38,
+            search_from_um: 20.0,
+            max_step_um: 8.0,
+            lateral_smoothing_alines: 5,
+            min_edge_db: 3.0,
+            attenuation: false,
+            attenuation_alines: 9,
+            rolloff_6db_depth_um: None,
+        }
     }
 }
 
