@@ -147,8 +147,26 @@ fn surfaces_and_thickness_match_the_simulated_truth() {
     assert_eq!(layers["thickness"][1]["layer"], "2-3");
     let thin = layers["thickness"][1]["median_um"].as_f64().unwrap();
     assert!((thin - 15.0).abs() < 2.0, "thin layer median {thin} µm, truth 15 µm");
-    // The overlay is its own image; the plain B-scan is still there.
-    assert!(folder.join("surfaces-0000.png").is_file() && folder.join("bscan-0000.png").is_file());
+    // The overlay is its own image, read by Pillow (an independent
+    // decoder): the first surface's colour at its row on A-line 64, grey
+    // elsewhere, and the plain B-scan still grey there.
+    let overlay = r#"
+import sys, h5py, numpy as np
+from PIL import Image
+folder = sys.argv[1]
+with h5py.File(folder + "/volume.h5", "r") as f:
+    s = f["/surfaces_um"][0, 0, 64]
+    depth = f["/depth_um"][...]
+row = int(round((s - depth[0]) / (depth[1] - depth[0])))
+o = np.asarray(Image.open(folder + "/surfaces-0000.png").convert("RGB"))
+b = np.asarray(Image.open(folder + "/bscan-0000.png"))
+print("overlay", tuple(int(v) for v in o[row, 64]), "above", tuple(int(v) for v in o[row - 10, 64]), "plain_grey", b.ndim == 2, o.shape[:2] == b.shape[:2])
+"#;
+    let seen = python(overlay, &[&folder]);
+    assert!(seen.contains("overlay (255, 64, 48)"), "{seen}");
+    let above: Vec<i64> = seen.split("above (").nth(1).unwrap().split(')').next().unwrap().split(", ").map(|v| v.parse().unwrap()).collect();
+    assert!(above[0] == above[1] && above[1] == above[2], "{seen}");
+    assert!(seen.trim_end().ends_with("plain_grey True True"), "{seen}");
 }
 
 /// The demo's layered phantom (a curved top, thin interfaces over darker
