@@ -77,12 +77,6 @@ for p in sys.argv[2:]:
     print(p, "same" if same else "differs: max |d| = %g" % np.max(np.abs(v.astype(float) - ref)))
 "#;
 
-fn python(code: &str, args: &[&Path]) -> String {
-    let o = Command::new("python3").arg("-c").arg(code).args(args).output().expect("python3 with numpy and h5py (make test installs them)");
-    assert!(o.status.success(), "python failed: {}", String::from_utf8_lossy(&o.stderr));
-    String::from_utf8_lossy(&o.stdout).into_owned()
-}
-
 /// The pipeline of the comparison: the frame median as background (the
 /// array formats carry no recorded background), everything else default.
 const BASE: &str = "[background]\nmethod = \"median\"\n";

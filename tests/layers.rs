@@ -101,19 +101,6 @@ if truth.shape[1] > 2:
     print("thin gap_px %.3f" % gap)
 "#;
 
-fn python(code: &str, args: &[&std::path::Path]) -> String {
-    let o = Command::new("python3").arg("-c").arg(code).args(args).output().expect("python3 with numpy and h5py (make test installs them)");
-    assert!(o.status.success(), "python failed: {}", String::from_utf8_lossy(&o.stderr));
-    String::from_utf8_lossy(&o.stdout).into_owned()
-}
-
-fn value(report: &str, line_start: &str, key: &str) -> f64 {
-    let line = report.lines().find(|l| l.starts_with(line_start)).unwrap_or_else(|| panic!("no '{line_start}' in {report}"));
-    let words: Vec<&str> = line.split_whitespace().collect();
-    let at = words.iter().position(|w| *w == key).unwrap_or_else(|| panic!("no {key} in {line}"));
-    words[at + 1].parse().unwrap()
-}
-
 #[test]
 fn surfaces_and_thickness_match_the_simulated_truth() {
     let dir = tempfile::tempdir().unwrap();

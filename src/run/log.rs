@@ -243,6 +243,36 @@ pub struct LayersRecord {
     /// How the attenuation coefficients were estimated, when asked.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub attenuation: Option<AttenuationRecord>,
+    /// The flattening, when `[layers] flatten` asked.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub flattening: Option<FlatteningRecord>,
+    /// The en face slabs (`[[layers.slab]]`).
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub slabs: Vec<SlabRecord>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct FlatteningRecord {
+    /// The surface made straight.
+    pub surface: String,
+    /// The depth it was moved to, µm in air.
+    pub depth_um: Option<f64>,
+    pub method: &'static str,
+    /// Smallest and largest shift applied, depth pixels (positive: deeper).
+    pub shift_px_range: Option<[f64; 2]>,
+    /// Per position: A-lines whose shift was interpolated (surface
+    /// missing there); null: the position was not flattened.
+    pub missing_alines_per_frame: Vec<Option<usize>>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct SlabRecord {
+    pub name: String,
+    /// Top and bottom in words (surfaces or depths, with offsets).
+    pub edges: String,
+    pub projection: &'static str,
+    /// Per position: A-lines where the slab held no rows.
+    pub empty_alines_per_frame: Vec<usize>,
 }
 
 #[derive(Debug, Clone, Serialize)]

@@ -10,6 +10,7 @@
 
 mod budget;
 mod compute;
+mod layers_log;
 pub mod log;
 pub mod open;
 mod ownership;
@@ -409,7 +410,7 @@ fn write_log(input: &Path, opened: &Opened, planned: &Planned, config: &Pipeline
     let mut report_frames = written.report.take();
     let background_method = serde_json::to_value(planned.plan.summary.background_method).ok().and_then(|v| v.as_str().map(String::from));
     let contrast = contrast_record(config, planned, &mut written);
-    let layers = layers_record(config, &written);
+    let layers = layers_log::layers_record(config, &written);
     let total = started.elapsed().as_secs_f64();
     let log = ProcessingLog {
         format_version: LOG_FORMAT_VERSION,
@@ -497,81 +498,6 @@ fn png_base_info(pipeline_sha256: &str, depth_spacing_um: f64, aline_spacing_um:
 }
 
 /// The log's contrast section, when any contrast stage ran.
-/// The `layers` section of the log: per surface the A-lines without it per
-/// frame and its mean depth, per layer its mean and median thickness.
-fn layers_record(config: &PipelineConfig, written: &writer::Written) -> Option<log::LayersRecord> {
-    let layers = &config.layers;
-    if !layers.enabled() {
-        return None;
-    }
-    let labels = layers.labels();
-    let n = labels.len();
-    let finite_mean = |v: &[f64]| (!v.is_empty()).then(|| writer::round6(v.iter().sum::<f64>() / v.len() as f64));
-    let mut per_surface: Vec<Vec<&Vec<f32>>> = vec![Vec::new(); n];
-    let mut positions: Vec<usize> = written.surfaces.iter().map(|s| s.0).collect();
-    positions.dedup();
-    for (_, i, d) in &written.surfaces {
-        per_surface[*i].push(d);
-    }
-    let surfaces = (0..n)
-        .map(|i| {
-            let values: Vec<f64> = per_surface[i].iter().flat_map(|d| d.iter()).filter(|v| v.is_finite()).map(|&v| v as f64).collect();
-            log::SurfaceRecord {
-                label: labels[i].clone(),
-                polarity: layers.surfaces[i].polarity.name(),
-                missing_alines_per_frame: written.surfaces_missing.iter().map(|m| m[i]).collect(),
-                mean_depth_um: finite_mean(&values),
-            }
-        })
-        .collect();
-    let group_indices = layers.layer_group_indices();
-    let thickness = (0..n.saturating_sub(1))
-        .map(|i| {
-            let mut values: Vec<f64> = per_surface[i]
-                .iter()
-                .zip(&per_surface[i + 1])
-                .flat_map(|(a, b)| a.iter().zip(b.iter()).map(|(x, y)| (y - x) as f64 / group_indices[i]))
-                .filter(|v| v.is_finite())
-                .collect();
-            values.sort_by(f64::total_cmp);
-            let median = (!values.is_empty()).then(|| {
-                let m = values.len() / 2;
-                writer::round6(if values.len() % 2 == 1 { values[m] } else { 0.5 * (values[m - 1] + values[m]) })
-            });
-            let attenuation_median_per_mm = written.attenuation.get(i).and_then(|h| h.median()).map(|m| (m * 1e4).round() / 1e4);
-            log::ThicknessRecord { layer: format!("{}-{}", labels[i], labels[i + 1]), group_index: group_indices[i], mean_um: finite_mean(&values), median_um: median, attenuation_median_per_mm }
-        })
-        .collect();
-    Some(log::LayersRecord {
-        method: "minimum-cost path across the A-lines on the signed axial gradient (Chiu et al. 2010), dynamic programming, surfaces top first within their separation limits; sub-pixel at a thin interface's peak or a step's steepest edge",
-        surfaces,
-        thickness,
-        attenuation: layers.attenuation.then(|| log::AttenuationRecord {
-            method: "depth-resolved: mu[i] = I[i] / (2 * sum_{j>i} I[j] * dz_j) (Vermeer et al. 2014), I the linear intensity, dz_j the pixel size in the medium (depth step in air / the layer's group index)",
-            corrections_applied: [
-                Some("noise floor power subtracted".to_string()),
-                Some(format!("intensity averaged over {} A-lines before the ratio (speckle)", layers.attenuation_alines)),
-                layers.rolloff_6db_depth_um.map(|z| format!("roll-off divided out: Gaussian amplitude fall, one half at {z} um")),
-            ]
-            .into_iter()
-            .flatten()
-            .collect(),
-            not_corrected: [
-                layers.rolloff_6db_depth_um.is_none().then(|| "the spectrometer's roll-off (give layers.rolloff_6db_depth_um from measure rolloff)".to_string()),
-                Some("the depth-dependent loss of the k-resampling's interpolation".to_string()),
-            ]
-            .into_iter()
-            .flatten()
-            .collect(),
-            medians_exclude: format!(
-                "{} px next to each surface and the bottom {:.0} % of the depth range, where the sum below lacks the light beyond the range",
-                crate::contrast::attenuation::EDGE_PX,
-                crate::contrast::attenuation::BOTTOM_FRACTION * 100.0
-            ),
-        }),
-    })
-}
-
 fn contrast_record(config: &PipelineConfig, planned: &Planned, written: &mut writer::Written) -> Option<ContrastRecord> {
     if !config.has_contrast() {
         return None;

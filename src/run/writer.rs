@@ -9,6 +9,10 @@ use hdf5::Dataset;
 use ndarray::Array2;
 use rustfft::num_complex::Complex32;
 
+mod layers;
+
+pub use layers::{describe_slab, SlabWritten};
+
 use super::log::{AveragingRecord, FrameRecord};
 use crate::contrast::position::{FrameShift, PositionOutput};
 use crate::contrast::surfaces::BscanSurfaces;
@@ -62,6 +66,11 @@ pub struct Written {
     pub surfaces_missing: Vec<Vec<usize>>,
     /// Per layer: the attenuation coefficients inside it, binned.
     pub attenuation: Vec<crate::contrast::attenuation::Histogram>,
+    /// Flattening: per position, the shift of each A-line (pixels) and the
+    /// A-lines where the surface was missing.
+    pub flattening: Vec<Option<(Vec<f32>, usize, f64)>>,
+    /// Each `[[layers.slab]]`'s en face rows.
+    pub slabs: Vec<SlabWritten>,
 }
 
 pub struct Writer<'a> {
@@ -141,6 +150,8 @@ impl<'a> Writer<'a> {
                 surfaces: Vec::new(),
                 surfaces_missing: Vec::new(),
                 attenuation: Vec::new(),
+                flattening: Vec::new(),
+                slabs: config.layers.slabs.iter().map(|_| SlabWritten::default()).collect(),
             },
             grey: Vec::new(),
         }
@@ -154,6 +165,7 @@ impl<'a> Writer<'a> {
         if let Some(surfaces) = p.surfaces.take() {
             self.write_surfaces(p.position, &p.structure_db, surfaces, levels)?;
         }
+        self.keep_layers(&mut p);
         if let Some((mu, per_layer)) = p.attenuation.take() {
             if let Some(ds) = &self.datasets.attenuation {
                 write_stack_image(ds, p.position, &mu)?;
@@ -386,55 +398,6 @@ impl<'a> Writer<'a> {
         self.written.volume = self.volume.take();
         self.written.report = self.report.take();
         Ok(self.written)
-    }
-}
-
-impl Writer<'_> {
-    /// /surfaces_um (position, surface, A-line) and /thickness_um
-    /// (position, layer, A-line) in volume.h5, after the last position.
-    fn write_layer_datasets(&mut self, positions: usize) -> Result<()> {
-        let layers = &self.config.layers;
-        let n = layers.surfaces.len();
-        if n == 0 || self.written.surfaces.is_empty() {
-            return Ok(());
-        }
-        let alines = self.alines;
-        let mut surfaces = vec![f32::NAN; positions * n * alines];
-        for (position, i, d) in &self.written.surfaces {
-            let at = (position * n + i) * alines;
-            surfaces[at..at + alines].copy_from_slice(d);
-        }
-        let Some(v) = &self.volume else { return Ok(()) };
-        let labels = layers.labels().join(",");
-        let polarities = layers.surfaces.iter().map(|s| s.polarity.name()).collect::<Vec<_>>().join(",");
-        let attrs = [
-            ("axes", "position,surface,aline".into()),
-            ("units", "um".into()),
-            ("description", "depth in air of each layer surface (top first) at each A-line, from zero delay; NaN where the A-line has no surface; thickness in tissue = difference / the layer's group index (see /thickness_um)".into()),
-            ("surfaces", labels.clone().into()),
-            ("polarity", polarities.into()),
-        ];
-        v.write_per_aline("surfaces_um", &surfaces, (positions, n, alines), "surface", &attrs)?;
-        if n > 1 {
-            let mut thickness = vec![f32::NAN; positions * (n - 1) * alines];
-            for p in 0..positions {
-                let rows: Vec<Vec<f32>> = (0..n).map(|i| surfaces[(p * n + i) * alines..(p * n + i + 1) * alines].to_vec()).collect();
-                for (j, t) in crate::contrast::surfaces::thickness_um(&rows, &layers.layer_group_indices()).into_iter().enumerate() {
-                    let at = (p * (n - 1) + j) * alines;
-                    thickness[at..at + alines].copy_from_slice(&t);
-                }
-            }
-            let names: Vec<String> = layers.labels().windows(2).map(|w| format!("{}-{}", w[0], w[1])).collect();
-            let attrs = [
-                ("axes", "position,layer,aline".into()),
-                ("units", "um".into()),
-                ("description", "thickness in tissue of the layer between consecutive surfaces (depth difference in air / the layer's group index, listed in group_indices); NaN where a surface is missing".into()),
-                ("layers", names.join(",").into()),
-                ("group_indices", layers.layer_group_indices().iter().map(|n| n.to_string()).collect::<Vec<_>>().join(",").into()),
-            ];
-            v.write_per_aline("thickness_um", &thickness, (positions, n - 1, alines), "layer", &attrs)?;
-        }
-        Ok(())
     }
 }
 

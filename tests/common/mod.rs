@@ -265,3 +265,20 @@ pub fn copy_dir(from: &Path, to: &Path) {
         }
     }
 }
+
+/// Runs a Python snippet (NumPy, h5py, Pillow: the independent readers)
+/// with `args` as sys.argv[1:]; its standard output.
+pub fn python(code: &str, args: &[&Path]) -> String {
+    let o = std::process::Command::new("python3").arg("-c").arg(code).args(args).output().expect("python3 with numpy and h5py (make test installs them)");
+    assert!(o.status.success(), "python failed: {}", String::from_utf8_lossy(&o.stderr));
+    String::from_utf8_lossy(&o.stdout).into_owned()
+}
+
+/// The number after `key` on the first line of `report` starting with
+/// `line_start` (reports printed by the Python checks).
+pub fn value(report: &str, line_start: &str, key: &str) -> f64 {
+    let line = report.lines().find(|l| l.starts_with(line_start)).unwrap_or_else(|| panic!("no '{line_start}' in {report}"));
+    let words: Vec<&str> = line.split_whitespace().collect();
+    let at = words.iter().position(|w| *w == key).unwrap_or_else(|| panic!("no {key} in {line}"));
+    words[at + 1].parse().unwrap()
+}

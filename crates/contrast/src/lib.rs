@@ -15,9 +15,11 @@ pub mod attenuation;
 pub mod box_sum;
 pub mod doppler;
 pub mod fft2;
+pub mod flatten;
 pub mod phase;
 pub mod position;
 pub mod registration;
+pub mod slab;
 pub mod surfaces;
 
 use fringeflow_core::{analysis, physics, pipeline, stages};

@@ -101,7 +101,24 @@ pub struct PositionOutput {
     /// Attenuation coefficient (mm⁻¹, depth × A-lines) and each layer's
     /// values for the medians, when `[layers] attenuation` asks.
     pub attenuation: Option<(Array2<f32>, Vec<Vec<f32>>)>,
+    /// Flattening: the shift applied to each A-line, depth pixels
+    /// (positive: moved deeper), the A-lines where the surface was missing
+    /// (their shift interpolated), and the depth it was moved to, µm.
+    pub flattening: Option<(Vec<f32>, usize, f64)>,
+    /// Each `[[layers.slab]]`'s en face row.
+    pub slabs: Vec<SlabOutput>,
     pub warnings: Vec<String>,
+}
+
+/// One slab's en face values at one position.
+pub struct SlabOutput {
+    /// Structure: the projection of the linear intensity, in dB, per A-line.
+    pub structure_db: Vec<f32>,
+    /// Per angiography method (in the pipeline's order): its projection.
+    pub angiography: Vec<Vec<f32>>,
+    /// A-lines where the slab holds no rows (a surface missing, or the
+    /// bottom above the top there).
+    pub empty_alines: usize,
 }
 
 /// Settings and state carried from position to position.
@@ -113,12 +130,24 @@ pub struct PositionProcessor<'a> {
     previous: Option<RegistrationSpectrum>,
     cumulative: Shift,
     log2: crate::pipeline::fused::FastLog2,
+    /// The surfaces of the previous position (the 3-D constraint).
+    previous_surfaces: Option<super::surfaces::BscanSurfaces>,
+    /// Flattening: the depth the surface is moved to, µm (fixed at the
+    /// first position), and the column shifter.
+    flatten_target_um: Option<f64>,
+    flattener: Option<super::flatten::Flattener>,
 }
 
 impl<'a> PositionProcessor<'a> {
     pub fn new(config: &'a PipelineConfig, depth_um: Vec<f64>, alines: usize, doppler_scale: Option<DopplerScale>) -> Self {
         let registrar = config.registration.enabled().then(|| Registrar::new(depth_um.len(), alines, config.registration.upsampling));
-        PositionProcessor { config, depth_um, registrar, doppler_scale, previous: None, cumulative: Shift::NONE, log2: crate::pipeline::fused::FastLog2::new() }
+        PositionProcessor { config, depth_um, registrar, doppler_scale, previous: None,
+            cumulative: Shift::NONE,
+            log2: crate::pipeline::fused::FastLog2::new(),
+            previous_surfaces: None,
+            flatten_target_um: config.layers.flatten_depth_um,
+            flattener: None,
+        }
     }
 
     /// Processes the repeats of `position` (in acquisition order). The
@@ -156,15 +185,21 @@ impl<'a> PositionProcessor<'a> {
         if cfg.needs_amplitude() && !has_amplitude {
             anyhow::bail!("internal: angiography needs each B-scan's amplitude");
         }
-        let structure_db = self.structure(frames, shifted[0]);
+        let flattening = cfg.layers.flatten.is_some();
+        let mut structure_db = self.structure(frames, shifted[0] || flattening);
         let floor_db = noise_floor_db(structure_db.as_slice().expect("standard layout"));
         let floor_power = 10f64.powf(floor_db / 10.0);
 
-        let doppler = self.doppler(frames, structure_db.dim(), floor_power);
-
-        let angio = self.angiography(frames, structure_db.view(), floor_db, floor_power, margin);
-        let surfaces = cfg.layers.enabled().then(|| super::surfaces::SurfaceFinder::new(&cfg.layers, self.depth_um.clone()).find(structure_db.view(), floor_db));
-        let attenuation = match &surfaces {
+        // Layers first (on the structure as registered), so that flattening
+        // reaches Doppler and angiography.
+        let mut surfaces = cfg.layers.enabled().then(|| {
+            let finder = super::surfaces::SurfaceFinder::new(&cfg.layers, self.depth_um.clone());
+            finder.find_near(structure_db.view(), floor_db, self.previous_surfaces.as_ref())
+        });
+        if cfg.layers.max_step_between_positions_um.is_some() {
+            self.previous_surfaces = surfaces.clone();
+        }
+        let mut attenuation = match &surfaces {
             Some(found) if cfg.layers.attenuation => {
                 let indices = cfg.layers.layer_group_indices();
                 let inputs = super::attenuation::AttenuationInputs {
@@ -178,6 +213,20 @@ impl<'a> PositionProcessor<'a> {
                 Some(super::attenuation::attenuation(structure_db.view(), floor_db, &inputs))
             }
             _ => None,
+        };
+        let flattening = match surfaces.as_mut() {
+            Some(found) if flattening => self.flatten(frames, found, attenuation.as_mut().map(|a| &mut a.0), position, &mut warnings),
+            _ => None,
+        };
+        if flattening.is_some() {
+            structure_db = self.structure(frames, true);
+        }
+
+        let doppler = self.doppler(frames, structure_db.dim(), floor_power);
+        let angio = self.angiography(frames, structure_db.view(), floor_db, floor_power, margin);
+        let slabs = match &surfaces {
+            Some(found) => self.slabs(structure_db.view(), &found.depth_um, &angio),
+            None => Vec::new(),
         };
 
         let saturated = frames.iter().map(|f| f.saturated).sum();
@@ -200,8 +249,83 @@ impl<'a> PositionProcessor<'a> {
             angiography: angio,
             surfaces,
             attenuation,
+            flattening,
+            slabs,
             warnings,
         })
+    }
+
+    /// Flattens the position to `[layers] flatten`'s surface: each A-line's
+    /// complex profile (every repeat alike) and sub-bands shifted so the
+    /// surface lies at the target depth; the amplitudes, the surfaces and
+    /// the attenuation map follow. Returns the shifts (pixels) and the
+    /// A-lines where the surface was missing; None (with a warning) when it
+    /// is missing everywhere.
+    fn flatten(&mut self, frames: &mut [RepeatFrame], found: &mut super::surfaces::BscanSurfaces, attenuation: Option<&mut Array2<f32>>, position: usize, warnings: &mut Vec<String>) -> Option<(Vec<f32>, usize, f64)> {
+        let cfg = self.config;
+        let label = cfg.layers.flatten.as_deref()?;
+        let k = cfg.layers.surface_index(label)?;
+        let step = if self.depth_um.len() > 1 { self.depth_um[1] - self.depth_um[0] } else { 1.0 };
+        let surface = &found.depth_um[k];
+        let target = *self.flatten_target_um.get_or_insert_with(|| {
+            let mut known: Vec<f32> = surface.iter().copied().filter(|v| v.is_finite()).collect();
+            known.sort_by(f32::total_cmp);
+            known.get(known.len() / 2).map_or(f64::NAN, |&v| v as f64)
+        });
+        let Some(shifts) = super::flatten::shifts_px(surface, target, step).filter(|_| target.is_finite()) else {
+            if !target.is_finite() {
+                self.flatten_target_um = None;
+            }
+            warnings.push(format!("frame {}: surface \"{label}\" not found on any A-line: position {position} not flattened", frames[0].index));
+            return None;
+        };
+        let missing = found.missing[k];
+        let depth = frames[0].amplitude.nrows();
+        let max_shift = shifts.iter().fold(0.0f64, |m, s| m.max(s.abs()));
+        let len_needed = (depth + max_shift.ceil() as usize + 16).next_power_of_two();
+        if self.flattener.as_ref().is_none_or(|f| f.len() < len_needed) {
+            self.flattener = Some(super::flatten::Flattener::new(depth, max_shift));
+        }
+        let flattener = self.flattener.as_ref().expect("made above");
+        let carrier = flattener.carrier(frames[0].complex.as_ref().expect("flattening makes the complex profile").view());
+        for f in frames.iter_mut() {
+            let c = f.complex.as_mut().expect("complex");
+            flattener.shift_complex(c, &shifts, carrier);
+            modulus_into(c, &mut f.amplitude);
+            for band in f.sub_bands.iter_mut() {
+                super::flatten::shift_real(band, &shifts, 0.0);
+            }
+        }
+        if let Some(mu) = attenuation {
+            super::flatten::shift_real(mu, &shifts, f32::NAN);
+        }
+        for d in found.depth_um.iter_mut() {
+            for (v, s) in d.iter_mut().zip(&shifts) {
+                *v += (s * step) as f32;
+            }
+        }
+        Some((shifts.iter().map(|&s| s as f32).collect(), missing, target))
+    }
+
+    /// Each `[[layers.slab]]`'s en face row of the structure and of every
+    /// angiography map.
+    fn slabs(&self, structure_db: ndarray::ArrayView2<f32>, surfaces_um: &[Vec<f32>], angio: &[(AngiographyMethod, Array2<f32>, Vec<f32>)]) -> Vec<SlabOutput> {
+        let layers = &self.config.layers;
+        let labels = layers.labels();
+        let alines = structure_db.ncols();
+        layers
+            .slabs
+            .iter()
+            .map(|slab| {
+                let (top, bottom) = slab.edges(&labels).expect("slabs are checked when the pipeline is read");
+                let rows = super::slab::rows(top, bottom, surfaces_um, &self.depth_um, alines);
+                SlabOutput {
+                    structure_db: super::slab::structure(structure_db, &rows, slab.projection),
+                    angiography: angio.iter().map(|(_, map, _)| super::slab::flow(map.view(), &rows, slab.projection)).collect(),
+                    empty_alines: rows.iter().filter(|r| r.is_none()).count(),
+                }
+            })
+            .collect()
     }
 
     /// Registration of the repeats to the first (and of the position to

@@ -60,6 +60,16 @@ impl<'a> SurfaceFinder<'a> {
     /// The surfaces of a dB image (depth × A-lines) whose noise floor is
     /// `floor_db`.
     pub fn find(&self, db: ArrayView2<'_, f32>, floor_db: f64) -> BscanSurfaces {
+        self.find_near(db, floor_db, None)
+    }
+
+    /// The same, each surface searched only within
+    /// `max_step_between_positions_um` of where it was at the previous
+    /// position (`previous`, same A-lines), where it was found there and
+    /// the two bands meet (the 3-D constraint, in the spirit of Garvin et
+    /// al. 2009, IEEE Trans. Med. Imaging 28:1436, applied position by
+    /// position so memory stays flat).
+    pub fn find_near(&self, db: ArrayView2<'_, f32>, floor_db: f64, previous: Option<&BscanSurfaces>) -> BscanSurfaces {
         let (depth, alines) = db.dim();
         let smooth = smoothed(db, self.config.lateral_smoothing_alines);
         let gradient = axial_gradient(&smooth, depth, alines);
@@ -68,7 +78,9 @@ impl<'a> SurfaceFinder<'a> {
         let first = self.px(self.config.search_from_um).clamp(1, depth.saturating_sub(2).max(1));
         let mut out = BscanSurfaces { depth_um: Vec::new(), missing: Vec::new() };
         let mut above: Option<Vec<usize>> = None;
-        for surface in &self.config.surfaces {
+        let near = self.config.max_step_between_positions_um.map(|um| self.px(um).max(1));
+        for (k, surface) in self.config.surfaces.iter().enumerate() {
+            let prior = previous.zip(near).and_then(|(p, n)| p.depth_um.get(k).filter(|d| d.len() == alines).map(|d| (d, n)));
             let bounds: Vec<(usize, usize)> = (0..alines)
                 .map(|a| {
                     let last = depth.saturating_sub(2).max(1);
@@ -80,6 +92,15 @@ impl<'a> SurfaceFinder<'a> {
                             (lo, hi.max(lo))
                         }
                     }
+                })
+                .enumerate()
+                .map(|(a, (lo, hi))| match prior {
+                    Some((d, n)) if d[a].is_finite() => {
+                        let z = ((d[a] as f64 - self.depth_um[0]) / self.step_um).round().max(0.0) as usize;
+                        let (l, h) = (lo.max(z.saturating_sub(n)), hi.min(z + n));
+                        if l <= h { (l, h) } else { (lo, hi) }
+                    }
+                    _ => (lo, hi),
                 })
                 .collect();
             let sign = if surface.polarity == Polarity::DarkToBright { 1.0 } else { -1.0 };

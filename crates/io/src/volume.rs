@@ -246,6 +246,11 @@ impl VolumeWriter {
         write_attr(&self.file, name, value)
     }
 
+    /// A text attribute of the file's root.
+    pub fn write_root_text(&self, name: &str, value: &str) -> Result<()> {
+        write_attr_str(&self.file, name, value)
+    }
+
     /// Records the input's SHA-256 and closes the file.
     pub fn finish(self, input_hash: &str) -> Result<()> {
         write_attr_str(&self.file, "input_hash", input_hash)?;

@@ -4,6 +4,7 @@
 pub mod colour;
 pub mod geometry;
 pub mod surfaces;
+pub mod viridis;
 
 pub use surfaces::{surface_colour_names, surfaces_over};
 
@@ -61,6 +62,52 @@ pub fn signed_with_colour_bar(values: ArrayView2<'_, f32>, limit: f64, unit: &st
         if height as f64 > 4.0 * size {
             root.draw(&Text::new("0".to_string(), (x, h / 2 - size as i32 / 2), style.clone())).map_err(err)?;
             root.draw(&Text::new(unit.to_string(), (x, h / 4), style)).map_err(err)?;
+        }
+        root.present().map_err(err)?;
+    }
+    Ok(RgbImage { width, height, bytes })
+}
+
+/// A non-negative map (rows × columns, e.g. a thickness map: positions
+/// down, A-lines across) in viridis (van der Walt and Smith, matplotlib
+/// 2015; its 256-entry table, nearest entry) over [lo, hi], NaN
+/// black, each row repeated `row_repeat` times so a few positions still
+/// make a picture, with a colour bar labelled in `unit` to its right (hi
+/// at the top, lo at the bottom, the middle value between).
+pub fn sequential_with_colour_bar(values: ArrayView2<'_, f32>, lo: f64, hi: f64, unit: &str, row_repeat: usize) -> Result<RgbImage> {
+    let (rows, cols) = values.dim();
+    let repeat = row_repeat.max(1);
+    let height = rows * repeat;
+    let width = cols + COLOUR_BAR_COLUMNS;
+    let mut bytes = vec![0u8; width * height * 3];
+    let span = if hi > lo { hi - lo } else { 1.0 };
+    let colour = |v: f64| viridis::VIRIDIS[(((v - lo) / span).clamp(0.0, 1.0) * 255.0).round() as usize];
+    for y in 0..height {
+        let r = y / repeat;
+        for a in 0..cols {
+            let v = values[[r, a]];
+            if !v.is_nan() {
+                bytes[(y * width + a) * 3..][..3].copy_from_slice(&colour(v as f64));
+            }
+        }
+        let t = if height > 1 { 1.0 - y as f64 / (height - 1) as f64 } else { 0.5 };
+        let c = colour(lo + t * span);
+        for x in cols + BAR_GAP..cols + BAR_GAP + BAR_WIDTH {
+            bytes[(y * width + x) * 3..][..3].copy_from_slice(&c);
+        }
+    }
+    {
+        let root = BitMapBackend::with_buffer(&mut bytes, (width as u32, height as u32)).into_drawing_area();
+        let size = (height as f64 / 14.0).clamp(9.0, 15.0);
+        let style = ("sans-serif", size).into_font().color(&WHITE);
+        let x = (cols + BAR_GAP + BAR_WIDTH + 4) as i32;
+        let h = height as i32;
+        let fmt = |v: f64| if v.abs() >= 10.0 { format!("{v:.0}") } else { format!("{v:.2}") };
+        let err = |e: DrawingAreaErrorKind<_>| anyhow!("drawing the colour bar: {e:?}");
+        root.draw(&Text::new(format!("{} {unit}", fmt(lo + span)), (x, 0), style.clone())).map_err(err)?;
+        root.draw(&Text::new(fmt(lo), (x, (h - size as i32 - 2).max(0)), style.clone())).map_err(err)?;
+        if height as f64 > 4.0 * size {
+            root.draw(&Text::new(fmt(lo + span / 2.0), (x, h / 2 - size as i32 / 2), style)).map_err(err)?;
         }
         root.present().map_err(err)?;
     }

@@ -102,6 +102,100 @@ pub struct LayersConfig {
     /// µm: its Gaussian fall is divided out first. None: not corrected.
     #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
     pub rolloff_6db_depth_um: Option<f64>,
+    /// Flatten every B-scan to this surface (its label): each A-line is
+    /// shifted in depth, sub-pixel, on the complex profile, so that the
+    /// surface is straight. None: not flattened.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub flatten: Option<String>,
+    /// Depth (in air, µm) the flattened surface is moved to; None: its
+    /// median depth in the first B-scan.
+    #[serde(deserialize_with = "de_optional_non_negative", skip_serializing_if = "Option::is_none")]
+    pub flatten_depth_um: Option<f64>,
+    /// Largest change of a surface from one slow-axis position to the next
+    /// at the same A-line, µm: each surface is searched within this of the
+    /// same surface at the previous position (a 3-D constraint). None: each
+    /// B-scan on its own.
+    #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
+    pub max_step_between_positions_um: Option<f64>,
+    /// En face slabs between surfaces (`[[layers.slab]]`).
+    #[serde(rename = "slab", skip_serializing_if = "Vec::is_empty")]
+    pub slabs: Vec<SlabConfig>,
+}
+
+/// How a slab's values are projected along depth.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum SlabProjection {
+    /// Mean over the slab's rows (structure: of the linear intensity).
+    #[default]
+    Mean,
+    /// Largest value.
+    Max,
+    /// Sum over the rows (structure: of the linear intensity).
+    Sum,
+}
+
+impl SlabProjection {
+    pub fn name(self) -> &'static str {
+        match self {
+            SlabProjection::Mean => "mean",
+            SlabProjection::Max => "max",
+            SlabProjection::Sum => "sum",
+        }
+    }
+}
+
+/// One en face slab (`[[layers.slab]]`): the rows of each A-line from its
+/// top (a surface, or a depth from zero delay) plus an offset down to its
+/// bottom plus an offset, depths in air.
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(default, deny_unknown_fields)]
+pub struct SlabConfig {
+    /// Names the slab's datasets and images (letters, digits, '-' and '_').
+    pub name: String,
+    /// Label of the surface at the top (or give `top_depth_um`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub top: Option<String>,
+    #[serde(deserialize_with = "de_optional_non_negative", skip_serializing_if = "Option::is_none")]
+    pub top_depth_um: Option<f64>,
+    /// Added to the top, µm (positive: deeper).
+    #[serde(deserialize_with = "crate::settings::de_finite")]
+    pub top_offset_um: f64,
+    /// Label of the surface at the bottom (or give `bottom_depth_um`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bottom: Option<String>,
+    #[serde(deserialize_with = "de_optional_non_negative", skip_serializing_if = "Option::is_none")]
+    pub bottom_depth_um: Option<f64>,
+    #[serde(deserialize_with = "crate::settings::de_finite")]
+    pub bottom_offset_um: f64,
+    pub projection: SlabProjection,
+}
+
+/// Where a slab's top or bottom lies: a surface (its index from the top)
+/// or a depth, each with its offset, µm.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum SlabEdge {
+    Surface(usize, f64),
+    Depth(f64),
+}
+
+impl SlabConfig {
+    /// The slab's top and bottom, given the surfaces' labels (top first).
+    pub fn edges(&self, labels: &[String]) -> Result<(SlabEdge, SlabEdge), String> {
+        let edge = |which: &str, label: &Option<String>, depth: Option<f64>, offset: f64| -> Result<SlabEdge, String> {
+            match (label, depth) {
+                (Some(l), None) => match labels.iter().position(|x| x == l) {
+                    Some(i) => Ok(SlabEdge::Surface(i, offset)),
+                    None if labels.is_empty() => Err(format!("slab \"{}\": {which} names surface \"{l}\" but [layers] finds no surfaces (add [[layers.surface]])", self.name)),
+                    None => Err(format!("slab \"{}\": {which} names surface \"{l}\", which does not exist (surfaces: {})", self.name, labels.join(", "))),
+                },
+                (None, Some(d)) => Ok(SlabEdge::Depth(d + offset)),
+                (Some(_), Some(_)) => Err(format!("slab \"{}\": give {which} or {which}_depth_um, not both", self.name)),
+                (None, None) => Err(format!("slab \"{}\": needs {which} (a surface label) or {which}_depth_um", self.name)),
+            }
+        };
+        Ok((edge("top", &self.top, self.top_depth_um, self.top_offset_um)?, edge("bottom", &self.bottom, self.bottom_depth_um, self.bottom_offset_um)?))
+    }
 }
 
 impl Default for LayersConfig {
@@ -116,6 +210,10 @@ impl Default for LayersConfig {
             attenuation: false,
             attenuation_alines: 9,
             rolloff_6db_depth_um: None,
+            flatten: None,
+            flatten_depth_um: None,
+            max_step_between_positions_um: None,
+            slabs: Vec::new(),
         }
     }
 }
@@ -133,6 +231,59 @@ impl LayersConfig {
     /// Each surface's label: the user's, or its number from the top.
     pub fn labels(&self) -> Vec<String> {
         self.surfaces.iter().enumerate().map(|(i, s)| s.label.clone().unwrap_or_else(|| format!("{}", i + 1))).collect()
+    }
+
+    /// Index of the surface labelled `label`.
+    pub fn surface_index(&self, label: &str) -> Option<usize> {
+        self.labels().iter().position(|l| l == label)
+    }
+
+    /// The checks among the section's keys: separations, labels, the
+    /// flattening surface and every slab (surfaces that exist, a bottom
+    /// that is not above its top everywhere). Err: (key, message).
+    pub fn check(&self) -> Result<(), (&'static str, String)> {
+        for (i, surface) in self.surfaces.iter().enumerate() {
+            if let Some(max) = surface.max_separation_um {
+                if max <= surface.min_separation_um {
+                    return Err(("surface", format!("surface {}: max_separation_um ({max}) must exceed min_separation_um ({})", i + 1, surface.min_separation_um)));
+                }
+            }
+            if let Some(label) = &surface.label {
+                if label.is_empty() || self.surfaces.iter().filter(|s| s.label.as_ref() == Some(label)).count() > 1 {
+                    return Err(("surface", format!("surface {}: label \"{label}\" is empty or given twice", i + 1)));
+                }
+            }
+        }
+        let labels = self.labels();
+        if let Some(f) = &self.flatten {
+            if !labels.contains(f) {
+                return Err(("flatten", format!("names surface \"{f}\", which does not exist (surfaces: {})", if labels.is_empty() { "none".to_string() } else { labels.join(", ") })));
+            }
+        }
+        for (k, slab) in self.slabs.iter().enumerate() {
+            if slab.name.is_empty() || !slab.name.chars().all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_') {
+                return Err(("slab", format!("slab {}: name \"{}\" must be letters, digits, '-' or '_' (it names files)", k + 1, slab.name)));
+            }
+            if self.slabs.iter().filter(|s| s.name == slab.name).count() > 1 {
+                return Err(("slab", format!("slab name \"{}\" given twice", slab.name)));
+            }
+            let (top, bottom) = slab.edges(&labels).map_err(|e| ("slab", e))?;
+            // Surfaces stay in order, each at least min_separation_um below
+            // the one above: a bottom that is that surely above the top
+            // everywhere leaves the slab empty.
+            let empty = match (top, bottom) {
+                (SlabEdge::Depth(t), SlabEdge::Depth(b)) => b <= t,
+                (SlabEdge::Surface(i, ot), SlabEdge::Surface(j, ob)) if j <= i => {
+                    let gap: f64 = self.surfaces[j + 1..=i].iter().map(|s| s.min_separation_um).sum();
+                    ob - ot <= gap
+                }
+                _ => false,
+            };
+            if empty {
+                return Err(("slab", format!("slab \"{}\": its bottom is above (or at) its top at every A-line, so it holds nothing", slab.name)));
+            }
+        }
+        Ok(())
     }
 
     /// Checks what the depth axis decides: whether the surfaces fit in a

@@ -449,6 +449,7 @@ impl PipelineConfig {
             || self.registration.enabled()
             || self.doppler.enabled
             || self.angiography.methods.contains(&AngiographyMethod::ComplexDifference)
+            || self.layers.flatten.is_some()
     }
 
     /// Whether a stage needs the linear amplitude of each B-scan (the
@@ -475,6 +476,7 @@ impl PipelineConfig {
         let mut config: PipelineConfig = toml_file::parse(&file, &text)?;
         config.check(&path.display().to_string(), &text)?;
         config.deprecations = toml_file::deprecated_names(&path.display().to_string(), &text, PIPELINE_RENAMES);
+        config.note_deprecated_settings(&path.display().to_string());
         // Preset files kept under an old name say so on their first line.
         if let Some(first) = original.lines().next().filter(|l| l.starts_with("# Deprecated name:")) {
             let rest: String = original.lines().take(2).map(|l| l.trim_start_matches('#').trim()).collect::<Vec<_>>().join(" ");
@@ -530,7 +532,17 @@ impl PipelineConfig {
         let mut config: PipelineConfig = toml_file::parse(name, text)?;
         config.check(name, text)?;
         config.deprecations = toml_file::deprecated_names(name, text, PIPELINE_RENAMES);
+        config.note_deprecated_settings(name);
         Ok(config)
+    }
+
+    /// Settings still accepted that a newer key replaces.
+    fn note_deprecated_settings(&mut self, file: &str) {
+        if self.angiography.en_face_from_surface {
+            self.deprecations.push(format!(
+                "{file}: angiography.en_face_from_surface is deprecated (still honoured): a [[layers.slab]] with top and bottom at a [[layers.surface]] and µm offsets gives the same slab, for structure and every angiography method (docs/pipeline-reference.md, [layers])"
+            ));
+        }
     }
 
     /// The checks that involve several keys, for a pipeline that did not
@@ -562,17 +574,8 @@ impl PipelineConfig {
         if self.fft.crop_um.is_some() && self.fft.crop_px.is_some() {
             return Err(fail("fft", "crop_px", "give crop_um or crop_px, not both".into()));
         }
-        for (i, surface) in self.layers.surfaces.iter().enumerate() {
-            if let Some(max) = surface.max_separation_um {
-                if max <= surface.min_separation_um {
-                    return Err(fail("layers", "surface", format!("surface {}: max_separation_um ({max}) must exceed min_separation_um ({})", i + 1, surface.min_separation_um)));
-                }
-            }
-            if let Some(label) = &surface.label {
-                if label.is_empty() || self.layers.surfaces.iter().filter(|s| s.label.as_ref() == Some(label)).count() > 1 {
-                    return Err(fail("layers", "surface", format!("surface {}: label \"{label}\" is empty or given twice", i + 1)));
-                }
-            }
+        if let Err((key, message)) = self.layers.check() {
+            return Err(fail("layers", key, message));
         }
         if let Some([a, b]) = self.volume.en_face_depth_um {
             if !(a.is_finite() && b.is_finite() && a >= 0.0 && b > a) {
