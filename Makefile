@@ -46,9 +46,10 @@ demo: build
 	$(BIN) simulate sample-data/flow-phantom.toml --out out/demo-captures/flow-phantom.h5
 	$(BIN) run out/demo-captures/flow-phantom.h5 --pipeline pipelines/flow.toml --out out/demo
 	@echo "flow: out/demo/flow-phantom/bscan-*.png (structure), doppler-*.png (velocity, mm/s), angiography-decorrelation-*.png and angiography-decorrelation-en-face.png (motion contrast)"
+	@echo "layer-bounded angiograms: out/demo/flow-phantom/slab-upper-layer-angiography-decorrelation.png and slab-lower-layer-*.png (each layer's vessel alone); thickness map: thickness-top-interface.png; surfaces-*.png"
 	@echo "pages: out/demo/layered-phantom/report.html, out/demo/flow-phantom/report.html and out/demo/index.html"
 	$(BIN) run sample-data/layered-phantom.h5 --pipeline pipelines/layers.toml --out out/demo-layers
-	@echo "layers: out/demo-layers/layered-phantom/surfaces-*.png (the surfaces over the B-scans); /surfaces_um and /thickness_um in its volume.h5; thickness per layer in its log.json"
+	@echo "layers: out/demo-layers/layered-phantom/surfaces-*.png (the surfaces over the B-scans), thickness-*.png (maps with a colour bar in µm); /surfaces_um and /thickness_um in its volume.h5; thickness per layer in its log.json"
 
 # The tests keep the measured kernel choices (pipeline/fused/tune.rs) in
 # target/, not in the user's cache folder.

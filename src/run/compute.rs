@@ -69,6 +69,9 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
         needs_amplitude: config.needs_amplitude() && !needs_complex,
     };
     let mut processor = PositionProcessor::new(config, planned.depth_um.clone(), alines, planned.doppler.as_ref().map(|(s, _)| *s));
+    if config.layers.enabled() && config.layers.attenuation {
+        processor.set_resampling_power(plan.resampling_power_transfer(&planned.depth_um));
+    }
 
     let (written, read_s) = std::thread::scope(|scope| -> Result<_> {
         let cancel = ctx.cancel;

@@ -83,13 +83,16 @@ pub(super) fn layers_record(config: &PipelineConfig, written: &writer::Written) 
                 Some("noise floor power subtracted".to_string()),
                 Some(format!("intensity averaged over {} A-lines before the ratio (speckle)", layers.attenuation_alines)),
                 layers.rolloff_6db_depth_um.map(|z| format!("roll-off divided out: Gaussian amplitude fall, one half at {z} um")),
+                Some(format!(
+                    "the k-resampling's interpolation loss divided out: its power transfer at each depth, computed from the plan's {} interpolation tables (/attenuation_depth_gain)",
+                    serde_json::to_value(config.k_linearization.method).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default()
+                )),
             ]
             .into_iter()
             .flatten()
             .collect(),
             not_corrected: [
                 layers.rolloff_6db_depth_um.is_none().then(|| "the spectrometer's roll-off (give layers.rolloff_6db_depth_um from measure rolloff)".to_string()),
-                Some("the depth-dependent loss of the k-resampling's interpolation".to_string()),
             ]
             .into_iter()
             .flatten()

@@ -36,6 +36,26 @@ pub struct AttenuationInputs<'a> {
     pub alines_averaged: usize,
     /// −6 dB roll-off depth, µm in air, when the roll-off is to be divided out.
     pub rolloff_6db_um: Option<f64>,
+    /// The k-resampling's power transfer per row (the plan's
+    /// `resampling_power_transfer`), when it is to be divided out.
+    pub resampling_power: Option<&'a [f64]>,
+}
+
+/// What the intensity of each row is divided by before the ratio: the
+/// Gaussian roll-off (power falls to ¼ at the −6 dB depth of the
+/// amplitude) times the k-resampling's power transfer, each when given.
+pub fn depth_gain(depth_um: &[f64], rolloff_6db_um: Option<f64>, resampling_power: Option<&[f64]>) -> Vec<f64> {
+    depth_um
+        .iter()
+        .enumerate()
+        .map(|(i, &z)| {
+            let rolloff = match rolloff_6db_um {
+                Some(z6) if z6 > 0.0 => (-2.0 * std::f64::consts::LN_2 * (z / z6).powi(2)).exp(),
+                _ => 1.0,
+            };
+            rolloff * resampling_power.and_then(|t| t.get(i)).copied().filter(|&t| t > 1e-6).unwrap_or(1.0)
+        })
+        .collect()
 }
 
 /// μ in mm⁻¹ (depth × A-lines), NaN above the first surface and where an
@@ -46,15 +66,8 @@ pub fn attenuation(db: ArrayView2<'_, f32>, floor_db: f64, inputs: &AttenuationI
     let (depth, alines) = db.dim();
     let step_mm = if inputs.depth_um.len() > 1 { (inputs.depth_um[1] - inputs.depth_um[0]) * 1e-3 } else { 1e-3 };
     let floor = 10f64.powf(floor_db / 10.0);
-    // Linear intensity, floor removed, roll-off divided out.
-    let gain: Vec<f64> = inputs
-        .depth_um
-        .iter()
-        .map(|&z| match inputs.rolloff_6db_um {
-            Some(z6) if z6 > 0.0 => (-2.0 * std::f64::consts::LN_2 * (z / z6).powi(2)).exp(),
-            _ => 1.0,
-        })
-        .collect();
+    // Linear intensity, floor removed, roll-off and resampling loss divided out.
+    let gain = depth_gain(inputs.depth_um, inputs.rolloff_6db_um, inputs.resampling_power);
     let linear = Array2::from_shape_fn((depth, alines), |(z, a)| (10f64.powf(db[[z, a]] as f64 / 10.0) - floor).max(0.0) / gain[z]);
     let half = inputs.alines_averaged / 2;
     let n_layers = inputs.surfaces_um.len().saturating_sub(1);
@@ -197,7 +210,7 @@ mod tests {
             }
         });
         let surfaces = vec![vec![(surface * step_um) as f32; alines], vec![(790.0 * step_um) as f32; alines]];
-        let inputs = AttenuationInputs { depth_um: &depth_um, surfaces_um: &surfaces, group_index: &[1.0], below_group_index: 1.0, alines_averaged: 1, rolloff_6db_um: None };
+        let inputs = AttenuationInputs { depth_um: &depth_um, surfaces_um: &surfaces, group_index: &[1.0], below_group_index: 1.0, alines_averaged: 1, rolloff_6db_um: None, resampling_power: None };
         let (mu, mut layers) = attenuation(db.view(), -300.0, &inputs);
         // The discrete sum gives (e^{2μΔ} − 1)/(2Δ) = 1.016·μ here, less
         // the light beyond the range (e^{−11} of it at the surface).

@@ -136,6 +136,8 @@ pub struct PositionProcessor<'a> {
     /// first position), and the column shifter.
     flatten_target_um: Option<f64>,
     flattener: Option<super::flatten::Flattener>,
+    /// The k-resampling's power transfer per row (attenuation).
+    resampling_power: Option<Vec<f64>>,
 }
 
 impl<'a> PositionProcessor<'a> {
@@ -147,7 +149,15 @@ impl<'a> PositionProcessor<'a> {
             previous_surfaces: None,
             flatten_target_um: config.layers.flatten_depth_um,
             flattener: None,
+            resampling_power: None,
         }
+    }
+
+    /// The k-resampling's power transfer per depth row (from the plan:
+    /// `Plan::resampling_power_transfer`), divided out before the
+    /// attenuation estimate.
+    pub fn set_resampling_power(&mut self, transfer: Vec<f64>) {
+        self.resampling_power = Some(transfer);
     }
 
     /// Processes the repeats of `position` (in acquisition order). The
@@ -209,6 +219,7 @@ impl<'a> PositionProcessor<'a> {
                     below_group_index: cfg.layers.group_index,
                     alines_averaged: cfg.layers.attenuation_alines,
                     rolloff_6db_um: cfg.layers.rolloff_6db_depth_um,
+                    resampling_power: self.resampling_power.as_deref(),
                 };
                 Some(super::attenuation::attenuation(structure_db.view(), floor_db, &inputs))
             }

@@ -246,6 +246,14 @@ impl VolumeWriter {
         write_attr(&self.file, name, value)
     }
 
+    /// A 1-D dataset along depth (one value per image row), with attributes.
+    pub fn write_1d(&self, name: &str, values: &[f32], attrs: &[(&str, Attr)]) -> Result<()> {
+        let ds = write_1d(&self.file, name, values)?;
+        write_attrs(&ds, attrs)?;
+        label_dimensions(&ds, &["depth"])?;
+        attach_scales(&ds, &[Some(&self.axes.depth)])
+    }
+
     /// A text attribute of the file's root.
     pub fn write_root_text(&self, name: &str, value: &str) -> Result<()> {
         write_attr_str(&self.file, name, value)

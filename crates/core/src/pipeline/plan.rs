@@ -152,6 +152,14 @@ impl DepthGeometry {
 }
 
 impl Plan {
+    /// The fraction of a fringe's power the k-resampling keeps at each depth
+    /// (µm in air), computed from this plan's interpolation tables.
+    pub fn resampling_power_transfer(&self, depth_um: &[f64]) -> Vec<f64> {
+        self.resampling.power_transfer(&self.wavelength_nm, depth_um)
+    }
+}
+
+impl Plan {
     pub fn new(config: &PipelineConfig, capture: CaptureGeometry<'_>) -> Result<Self> {
         let pixels = capture.wavelength_nm.len();
         let geometry = DepthGeometry::of(config, capture.wavelength_nm)?;
