@@ -69,7 +69,7 @@ pub fn run(capture: &Capture, config: &PipelineConfig, planned: &Planned, writer
         needs_amplitude: config.needs_amplitude() && !needs_complex,
     };
     let mut processor = PositionProcessor::new(config, planned.depth_um.clone(), alines, planned.doppler.as_ref().map(|(s, _)| *s));
-    if config.layers.enabled() && config.layers.attenuation {
+    if config.layers.enabled() && config.layers.attenuation && config.layers.attenuation_resampling_correction {
         processor.set_resampling_power(plan.resampling_power_transfer(&planned.depth_um));
     }
 

@@ -83,7 +83,7 @@ pub(super) fn layers_record(config: &PipelineConfig, written: &writer::Written) 
                 Some("noise floor power subtracted".to_string()),
                 Some(format!("intensity averaged over {} A-lines before the ratio (speckle)", layers.attenuation_alines)),
                 layers.rolloff_6db_depth_um.map(|z| format!("roll-off divided out: Gaussian amplitude fall, one half at {z} um")),
-                Some(format!(
+                layers.attenuation_resampling_correction.then(|| format!(
                     "the k-resampling's interpolation loss divided out: its power transfer at each depth, computed from the plan's {} interpolation tables (/attenuation_depth_gain)",
                     serde_json::to_value(config.k_linearization.method).ok().and_then(|v| v.as_str().map(String::from)).unwrap_or_default()
                 )),
@@ -93,6 +93,7 @@ pub(super) fn layers_record(config: &PipelineConfig, written: &writer::Written) 
             .collect(),
             not_corrected: [
                 layers.rolloff_6db_depth_um.is_none().then(|| "the spectrometer's roll-off (give layers.rolloff_6db_depth_um from measure rolloff)".to_string()),
+                (!layers.attenuation_resampling_correction).then(|| "the k-resampling's interpolation loss (layers.attenuation_resampling_correction = false)".to_string()),
             ]
             .into_iter()
             .flatten()

@@ -194,15 +194,15 @@ fn create_volume(opened: &Opened, planned: &Planned, config: &PipelineConfig, st
         angiography.push((m, ds));
     }
     let attenuation = if config.layers.enabled() && config.layers.attenuation {
-        let transfer = planned.plan.resampling_power_transfer(&planned.depth_um);
-        let gain = crate::contrast::attenuation::depth_gain(&planned.depth_um, config.layers.rolloff_6db_depth_um, Some(&transfer));
+        let transfer = config.layers.attenuation_resampling_correction.then(|| planned.plan.resampling_power_transfer(&planned.depth_um));
+        let gain = crate::contrast::attenuation::depth_gain(&planned.depth_um, config.layers.rolloff_6db_depth_um, transfer.as_deref());
         let gain: Vec<f32> = gain.iter().map(|&g| g as f32).collect();
         v.write_1d(
             "attenuation_depth_gain",
             &gain,
             &[
                 ("axes", "depth".into()),
-                ("description", "what each row's linear intensity was divided by before the attenuation estimate: the k-resampling's power transfer (computed from the plan's interpolation) times the Gaussian roll-off when layers.rolloff_6db_depth_um is given".into()),
+                ("description", "what each row's linear intensity was divided by before the attenuation estimate: the k-resampling's power transfer (computed from the plan's interpolation; with layers.attenuation_resampling_correction) times the Gaussian roll-off (with layers.rolloff_6db_depth_um); 1 where neither".into()),
             ],
         )?;
         Some(v.add_stack::<f32>(

@@ -102,6 +102,9 @@ pub struct LayersConfig {
     /// µm: its Gaussian fall is divided out first. None: not corrected.
     #[serde(deserialize_with = "de_optional_positive", skip_serializing_if = "Option::is_none")]
     pub rolloff_6db_depth_um: Option<f64>,
+    /// Divide out the k-resampling's interpolation loss (computed from the
+    /// plan's tables) before the attenuation estimate.
+    pub attenuation_resampling_correction: bool,
     /// Flatten every B-scan to this surface (its label): each A-line is
     /// shifted in depth, sub-pixel, on the complex profile, so that the
     /// surface is straight. None: not flattened.
@@ -210,6 +213,7 @@ impl Default for LayersConfig {
             attenuation: false,
             attenuation_alines: 9,
             rolloff_6db_depth_um: None,
+            attenuation_resampling_correction: true,
             flatten: None,
             flatten_depth_um: None,
             max_step_between_positions_um: None,
