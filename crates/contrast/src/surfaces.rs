@@ -13,6 +13,7 @@
 //! far above the noise floor, the A-line has no surface there (NaN): a
 //! path is never invented through shadow or noise.
 
+use rayon::prelude::*;
 use ndarray::ArrayView2;
 
 use crate::pipeline::config::{LayersConfig, Polarity};
@@ -74,6 +75,7 @@ impl<'a> SurfaceFinder<'a> {
         let smooth = smoothed(db, self.config.lateral_smoothing_alines);
         let gradient = axial_gradient(&smooth, depth, alines);
         let wide_alines = (3 * self.config.lateral_smoothing_alines).max(WIDE_ALINES) | 1;
+        let wide_gradient = axial_gradient(&smoothed(db, wide_alines), depth, alines);
         let max_step = self.px(self.config.max_step_um).max(1);
         let first = self.px(self.config.search_from_um).clamp(1, depth.saturating_sub(2).max(1));
         let mut out = BscanSurfaces { depth_um: Vec::new(), missing: Vec::new() };
@@ -107,7 +109,7 @@ impl<'a> SurfaceFinder<'a> {
             let narrow = strength(&gradient, sign, depth, &bounds);
             // Edges of the image averaged over many A-lines: they order
             // the path (the surface is the first strong edge of its band).
-            let wide = strength(&axial_gradient(&smoothed(db, wide_alines), depth, alines), sign, depth, &bounds);
+            let wide = strength(&wide_gradient, sign, depth, &bounds);
             let path = match &above {
                 None => cheapest_path(&narrow, Some(&wide), depth, &bounds, max_step),
                 Some(reference) => {
@@ -119,10 +121,14 @@ impl<'a> SurfaceFinder<'a> {
                     // beside it stays sharp), averaged with the first. The
                     // one whose edge stays sharp when averaged along its
                     // own course is the interface; speckle does not.
-                    let as_they_lie = cheapest_path(&narrow, Some(&wide), depth, &bounds, max_step);
-                    let along = strength(&along_surface(&smooth, reference, depth, wide_alines), sign, depth, &bounds);
-                    let both: Vec<f32> = narrow.iter().zip(&along).map(|(a, b)| 0.5 * (a + b)).collect();
-                    let parallel = cheapest_path(&both, Some(&along), depth, &bounds, max_step);
+                    let (as_they_lie, parallel) = rayon::join(
+                        || cheapest_path(&narrow, Some(&wide), depth, &bounds, max_step),
+                        || {
+                            let along = strength(&along_surface(&smooth, reference, depth, wide_alines), sign, depth, &bounds);
+                            let both: Vec<f32> = narrow.iter().zip(&along).map(|(a, b)| 0.5 * (a + b)).collect();
+                            cheapest_path(&both, Some(&along), depth, &bounds, max_step)
+                        },
+                    );
                     let coherence = |path: &[usize]| sign * edge_along(&smooth, path, depth, wide_alines);
                     if coherence(&parallel) >= coherence(&as_they_lie) {
                         parallel
@@ -175,28 +181,32 @@ fn axial_gradient(smooth: &[f32], depth: usize, alines: usize) -> Vec<f32> {
 }
 
 /// The dB image averaged over `width` neighbouring A-lines (fewer at the
-/// edges) and over [1, 2, 1]/4 in depth, stored A-line by A-line.
+/// edges) and over [1, 2, 1]/4 in depth, stored A-line by A-line. Lateral
+/// means from running sums along each image row, A-lines in parallel.
 fn smoothed(db: ArrayView2<'_, f32>, width: usize) -> Vec<f32> {
     let (depth, alines) = db.dim();
     let half = width / 2;
-    let mut lateral = vec![0f32; depth * alines];
-    for a in 0..alines {
+    // Running sums along each row (f64: no drift across wide B-scans).
+    let mut cum = vec![0f64; depth * (alines + 1)];
+    cum.par_chunks_mut(alines + 1).zip(db.axis_iter(ndarray::Axis(0)).into_par_iter()).for_each(|(c, row)| {
+        for (j, &v) in row.iter().enumerate() {
+            c[j + 1] = c[j] + v as f64;
+        }
+    });
+    let mut out = vec![0f32; depth * alines];
+    out.par_chunks_mut(depth).enumerate().for_each(|(a, o)| {
         let (lo, hi) = clamped(a, half, alines);
-        let n = (hi - lo + 1) as f32;
-        let out = &mut lateral[a * depth..(a + 1) * depth];
-        for (z, o) in out.iter_mut().enumerate() {
-            let row = db.row(z);
-            *o = (lo..=hi).map(|j| row[j]).sum::<f32>() / n;
+        let n = (hi - lo + 1) as f64;
+        let mut lateral = vec![0f32; depth];
+        for (z, l) in lateral.iter_mut().enumerate() {
+            let c = &cum[z * (alines + 1)..];
+            *l = ((c[hi + 1] - c[lo]) / n) as f32;
         }
-    }
-    let mut out = lateral.clone();
-    for a in 0..alines {
-        let s = &lateral[a * depth..(a + 1) * depth];
-        let o = &mut out[a * depth..(a + 1) * depth];
+        o.copy_from_slice(&lateral);
         for z in 1..depth.saturating_sub(1) {
-            o[z] = 0.25 * s[z - 1] + 0.5 * s[z] + 0.25 * s[z + 1];
+            o[z] = 0.25 * lateral[z - 1] + 0.5 * lateral[z] + 0.25 * lateral[z + 1];
         }
-    }
+    });
     out
 }
 
@@ -204,19 +214,18 @@ fn smoothed(db: ArrayView2<'_, f32>, width: usize) -> Vec<f32> {
 /// largest value inside each A-line's bounds, clipped to [0, 1] (0
 /// outside the bounds).
 fn strength(gradient: &[f32], sign: f32, depth: usize, bounds: &[(usize, usize)]) -> Vec<f32> {
-    let mut top = 0f32;
-    for (a, &(lo, hi)) in bounds.iter().enumerate() {
-        for z in lo..=hi {
-            top = top.max(sign * gradient[a * depth + z]);
-        }
-    }
+    let top = bounds
+        .par_iter()
+        .enumerate()
+        .map(|(a, &(lo, hi))| gradient[a * depth + lo..=a * depth + hi].iter().fold(0f32, |m, &g| m.max(sign * g)))
+        .reduce(|| 0f32, f32::max);
     let scale = if top > 0.0 { 1.0 / top } else { 0.0 };
     let mut out = vec![0f32; gradient.len()];
-    for (a, &(lo, hi)) in bounds.iter().enumerate() {
+    out.par_chunks_mut(depth).zip(bounds.par_iter()).enumerate().for_each(|(a, (o, &(lo, hi)))| {
         for z in lo..=hi {
-            out[a * depth + z] = (sign * gradient[a * depth + z] * scale).clamp(0.0, 1.0);
+            o[z] = (sign * gradient[a * depth + z] * scale).clamp(0.0, 1.0);
         }
-    }
+    });
     out
 }
 
@@ -226,26 +235,31 @@ fn strength(gradient: &[f32], sign: f32, depth: usize, bounds: &[(usize, usize)]
 /// put back at each A-line's own depths.
 fn along_surface(smooth: &[f32], reference: &[usize], depth: usize, width: usize) -> Vec<f32> {
     let alines = reference.len();
-    let at = |a: usize, r: usize| smooth[a * depth + (reference[a] + r).min(depth - 1)];
     let rows = depth;
     let half = width / 2;
-    let mut flat = vec![0f32; alines * rows];
+    // The image flattened to the reference, then running sums across A-lines.
+    let mut cum = vec![0f64; (alines + 1) * rows];
     for a in 0..alines {
-        let (lo, hi) = clamped(a, half, alines);
-        let n = (hi - lo + 1) as f32;
+        let (prev, next) = cum.split_at_mut((a + 1) * rows);
+        let prev = &prev[a * rows..];
+        let next = &mut next[..rows];
+        let s = &smooth[a * depth..(a + 1) * depth];
         for r in 0..rows {
-            flat[a * rows + r] = (lo..=hi).map(|j| at(j, r)).sum::<f32>() / n;
+            next[r] = prev[r] + s[(reference[a] + r).min(depth - 1)] as f64;
         }
     }
     let mut out = vec![0f32; depth * alines];
-    for a in 0..alines {
+    out.par_chunks_mut(depth).enumerate().for_each(|(a, o)| {
+        let (lo, hi) = clamped(a, half, alines);
+        let n = (hi - lo + 1) as f64;
+        let flat = |r: usize| (cum[(hi + 1) * rows + r] - cum[lo * rows + r]) / n;
         for z in reference[a] + 1..depth.saturating_sub(1) {
             let r = z - reference[a];
             if r + 1 < rows {
-                out[a * depth + z] = flat[a * rows + r + 1] - flat[a * rows + r - 1];
+                o[z] = (flat(r + 1) - flat(r - 1)) as f32;
             }
         }
-    }
+    });
     out
 }
 
@@ -297,25 +311,37 @@ fn cheapest_path(strength: &[f32], order: Option<&[f32]>, depth: usize, bounds: 
         total[z] = cost(0, z);
     }
     let mut next = vec![f32::INFINITY; depth];
+    let mut queue: Vec<usize> = Vec::with_capacity(depth);
     for a in 1..alines {
         let (lo, hi) = bounds[a];
         let (plo, phi) = bounds[a - 1];
         next.fill(f32::INFINITY);
+        // The cheapest predecessor within the step: a sliding-window
+        // minimum over the previous A-line's totals (a queue of indices
+        // with rising totals, the lowest index first among equals), or the
+        // nearest of the previous band when the bands do not overlap.
+        queue.clear();
+        let mut head = 0;
+        let mut pushed = plo;
         for z in lo..=hi {
-            // Predecessors within the step, or the nearest of the previous
-            // A-line's band when the bands do not overlap.
-            let (mut best, mut arg) = (f32::INFINITY, z.clamp(plo, phi));
-            let (from_z, to_z) = (z.saturating_sub(max_step).max(plo), (z + max_step).min(phi));
-            for y in from_z..=to_z.max(from_z) {
-                if y <= phi && total[y] < best {
-                    best = total[y];
-                    arg = y;
+            let (wlo, whi) = (z.saturating_sub(max_step).max(plo), (z + max_step).min(phi));
+            let arg = if wlo > whi {
+                z.clamp(plo, phi)
+            } else {
+                pushed = pushed.max(wlo);
+                while pushed <= whi {
+                    while queue.len() > head && total[*queue.last().expect("non-empty")] > total[pushed] {
+                        queue.pop();
+                    }
+                    queue.push(pushed);
+                    pushed += 1;
                 }
-            }
-            if !best.is_finite() {
-                best = total[arg];
-            }
-            next[z] = best + cost(a, z);
+                while queue[head] < wlo {
+                    head += 1;
+                }
+                queue[head]
+            };
+            next[z] = total[arg] + cost(a, z);
             from[a * depth + z] = arg as u32;
         }
         std::mem::swap(&mut total, &mut next);

@@ -453,9 +453,11 @@ impl PipelineConfig {
     }
 
     /// Whether a stage needs the linear amplitude of each B-scan (the
-    /// amplitude-based angiography methods).
+    /// amplitude-based angiography methods, layers on averaged repeats).
     pub fn needs_amplitude(&self) -> bool {
-        self.angiography.enabled()
+        // Layers on averaged repeats: the structure from the amplitudes
+        // (the fast log), not from the dB images.
+        self.angiography.enabled() || (self.layers.enabled() && self.volume.average > 1)
     }
 
     /// Whether any contrast stage (or the complex output) runs.
