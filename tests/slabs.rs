@@ -145,9 +145,6 @@ flat = (top - depth[0]) / px + shift
 dev = np.abs(flat - np.median(flat))
 raw = np.abs(top - np.median(top)) / px
 print("flat mean_dev_px %.4f p95_dev_px %.4f max_raw_px %.3f" % (dev.mean(), np.percentile(dev, 95), raw.max()))
-# The flattened structure: the top interface's row (peak of the first
-# strong rise below 100 um) is the same on every A-line.
-img = f["volume_db"][...]
 print("flattened attr", "flattened" in f.attrs, f["flattening_shift_px"].attrs["surface"])
 "#;
 

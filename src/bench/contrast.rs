@@ -25,7 +25,6 @@ pub(super) fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Pla
     let depth_um: Vec<f64> = (0..depth).map(|i| plan.depth_um(i)).collect();
     let fused = FusedPlan::new(plan);
     const LAYERS: &str = "[layers]\n[[layers.surface]]\nlabel = \"a\"\n[[layers.surface]]\nlabel = \"b\"\nmin_separation_um = 40\n[[layers.surface]]\nlabel = \"c\"\nmin_separation_um = 40\n[[layers.slab]]\nname = \"ab\"\ntop = \"a\"\nbottom = \"b\"\n[[layers.slab]]\nname = \"bc\"\ntop = \"b\"\nbottom = \"c\"\n";
-    let with_layers = format!("{LAYERS}");
     let with_flattening = format!("[angiography]\nmethods = [\"decorrelation\"]\n{}", LAYERS.replace("[layers]\n", "[layers]\nflatten = \"a\"\n"));
     let workloads: [(&str, &str); 8] = [
         ("complex depth profile only (no contrast stage)", "[output]\ncomplex = true\n"),
@@ -34,7 +33,7 @@ pub(super) fn time_contrast(base: &PipelineConfig, capture: &Capture, plan: &Pla
         ("angiography N = 4, decorrelation + registration", "[angiography]\nmethods = [\"decorrelation\"]\n[registration]\nrepeats = true\n"),
         ("angiography N = 4, split-spectrum (4 bands)", "[angiography]\nmethods = [\"split_spectrum\"]\n"),
         ("angiography N = 4, all four methods", "[angiography]\nmethods = [\"decorrelation\", \"split_spectrum\", \"speckle_variance\", \"complex_difference\"]\n"),
-        ("layers: three surfaces and two slabs (N = 4 averaged)", &with_layers),
+        ("layers: three surfaces and two slabs (N = 4 averaged)", LAYERS),
         ("layers: three surfaces, flattening, two slabs, decorrelation", &with_flattening),
     ];
     let positions = (opts.alines.div_ceil(alines).div_ceil(N)).clamp(2, 16);

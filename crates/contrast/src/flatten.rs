@@ -145,7 +145,7 @@ impl Flattener {
 /// images: sub-bands, the attenuation map), NaN kept as NaN; rows shifted
 /// in from beyond the ends are `fill`.
 pub fn shift_real(x: &mut Array2<f32>, shifts: &[f64], fill: f32) {
-    let (depth, alines) = x.dim();
+    let depth = x.nrows();
     let src = x.clone();
     ndarray::Zip::indexed(x).par_for_each(|(d, a), o| {
         let z = d as f64 - shifts[a];
@@ -155,7 +155,6 @@ pub fn shift_real(x: &mut Array2<f32>, shifts: &[f64], fill: f32) {
         let at = |k: isize| if k < 0 || k >= depth as isize { fill } else { src[[k as usize, a]] };
         *o = if t == 0.0 { at(i) } else { at(i) * (1.0 - t) + at(i + 1) * t };
     });
-    let _ = alines;
 }
 
 #[cfg(test)]
